@@ -1,0 +1,152 @@
+"""Beat detector: handcrafted traces with known beat times, invariances, errors."""
+
+import numpy as np
+import pytest
+from scipy import signal
+
+from features.beats import MIN_DURATION_S, detect_beats
+from features.errors import InvalidInputError
+
+# Wave offsets from J (s), relative amplitudes and widths (s) of an H-I-J-K-L
+# complex; J largest and positive, I and K the troughs around it, 40-90 ms
+# away (Inan et al. 2015, IEEE JBHI 19(4):1414, Fig. 1; values from memory).
+WAVES = ((-0.10, 0.25, 0.020), (-0.05, -0.6, 0.018), (0.0, 1.0, 0.020),
+         (0.065, -0.8, 0.022), (0.14, 0.3, 0.030))
+
+
+def _trace(fs=250.0, dur=120.0, hr=70.0, snr_db=10.0, seed=0, jitter=0.05, gains=None):
+    """Sum-of-Gaussians beats at known J times, band-limited noise at a set SNR."""
+    rng = np.random.default_rng(seed)
+    period = 60.0 / hr
+    times = [1.0]
+    while times[-1] < dur - 1.5:
+        times.append(times[-1] + period * (1 + jitter * np.sin(2 * np.pi * 0.25 * times[-1])))
+    times = np.asarray(times)
+    t = np.arange(int(dur * fs)) / fs
+    x = np.zeros_like(t)
+    g = np.ones(times.size) if gains is None else gains(times.size)
+    for dt, a, w in WAVES:
+        x += a * (g * np.exp(-0.5 * ((t[:, None] - times[None, :] - dt) / w) ** 2)).sum(axis=1)
+    sos = signal.butter(4, [1, 20], btype="band", fs=fs, output="sos")
+    noise = rng.standard_normal(t.size)
+    p_sig = np.mean(signal.sosfiltfilt(sos, x) ** 2)
+    p_noise = np.mean(signal.sosfiltfilt(sos, noise) ** 2)
+    noise *= np.sqrt(p_sig / p_noise / 10 ** (snr_db / 10))
+    breathing = 5.0 * np.sin(2 * np.pi * 0.25 * t)
+    return x + noise + breathing + 600.0, times
+
+
+def _matched(det, ref, tol=0.15):
+    idx = np.clip(np.searchsorted(det, ref), 1, max(det.size - 1, 1))
+    near = np.minimum(np.abs(det[idx - 1] - ref), np.abs(det[np.minimum(idx, det.size - 1)] - ref))
+    return near <= tol
+
+
+def test_handcrafted_trace_finds_every_beat_at_its_j_time():
+    x, ref = _trace()
+    d = detect_beats(x, 250.0)
+    assert d.has_beats and d.polarity == 1
+    assert d.times_s.size == ref.size
+    assert np.all(_matched(d.times_s, ref))
+    # Intervals to within a few ms of the truth (the acceptance target is 6 ms).
+    err = np.abs(np.diff(d.times_s) - np.diff(ref))
+    assert np.mean(err) < 0.004
+    assert np.all((d.confidence >= 0) & (d.confidence <= 1))
+    assert np.median(d.confidence) > 0.7
+
+
+def test_inverted_trace_is_detected_with_negative_polarity_and_same_times():
+    x, ref = _trace(seed=1)
+    up = detect_beats(x, 250.0)
+    down = detect_beats(-x, 250.0)
+    assert down.polarity == -1 and up.polarity == 1
+    np.testing.assert_allclose(down.times_s, up.times_s, atol=1e-9)
+
+
+@pytest.mark.parametrize("fs", [50.0, 100.0, 500.0, 1000.0])
+def test_sampling_rate_change_keeps_beats(fs):
+    x, ref = _trace(fs=fs, seed=2)
+    d = detect_beats(x, fs)
+    assert np.all(_matched(d.times_s, ref))
+    assert d.times_s.size == ref.size
+
+
+def test_amplitude_scaling_and_time_shift():
+    x, ref = _trace(seed=3)
+    base = detect_beats(x, 250.0)
+    scaled = detect_beats(x * 1e-4, 250.0)
+    np.testing.assert_allclose(scaled.times_s, base.times_s, atol=1e-9)
+    shift = 250  # one second
+    shifted = detect_beats(np.concatenate((np.full(shift, x[0]), x)), 250.0)
+    inner = shifted.times_s[(shifted.times_s > 3) & (shifted.times_s < 115)] - 1.0
+    ref_inner = base.times_s[(base.times_s > 2) & (base.times_s < 114)]
+    np.testing.assert_allclose(inner, ref_inner, atol=0.002)
+
+
+def test_noise_alone_has_no_beat_evidence():
+    rng = np.random.default_rng(4)
+    d = detect_beats(rng.standard_normal(250 * 120), 250.0)
+    assert not d.has_beats
+    assert d.polarity == 0
+    assert np.all(d.confidence == 0)
+
+
+def test_masked_span_holds_no_beat():
+    x, ref = _trace(seed=5)
+    usable = np.ones(x.size, dtype=bool)
+    usable[250 * 40 : 250 * 50] = False
+    d = detect_beats(x, 250.0, usable=usable)
+    assert not np.any((d.times_s > 40 - 0.25) & (d.times_s < 50 + 0.35))
+    # Beats either side fall in different runs.
+    before = d.run_ids[d.times_s < 40]
+    after = d.run_ids[d.times_s > 50]
+    assert np.unique(before).size == 1 and np.unique(after).size == 1
+    assert before[0] != after[0]
+
+
+def test_missed_beat_search_recovers_a_weak_beat():
+    # One complex at a quarter of the others' amplitude: below the normal
+    # amplitude level, so only the search of the two-median gap can find it.
+    def gains(n):
+        g = np.ones(n)
+        g[60] = 0.25
+        return g
+
+    x, ref = _trace(seed=6, snr_db=20, gains=gains)
+    d = detect_beats(x, 250.0)
+    assert d.n_recovered >= 1
+    assert np.all(_matched(d.times_s, ref))
+
+
+def test_too_short_trace_is_rejected():
+    with pytest.raises(InvalidInputError, match=r"`trace` must be at least 10 s long; got 5.00 s"):
+        detect_beats(np.zeros(int(5 * 250)), 250.0)
+    assert MIN_DURATION_S == 10.0
+
+
+def test_rate_out_of_range_is_rejected():
+    with pytest.raises(InvalidInputError, match=r"`fs_hz` must be between 50 and 2000 Hz; got 20"):
+        detect_beats(np.zeros(20 * 30), 20.0)
+
+
+def test_non_finite_is_rejected():
+    x = np.zeros(250 * 20)
+    x[7] = np.nan
+    with pytest.raises(InvalidInputError, match=r"`trace` must hold finite numbers only"):
+        detect_beats(x, 250.0)
+
+
+def test_mask_length_is_checked():
+    with pytest.raises(InvalidInputError, match=r"`usable` must have the trace's length 5000"):
+        detect_beats(np.zeros(5000), 250.0, usable=np.ones(10, dtype=bool))
+
+
+def test_two_d_trace_is_rejected():
+    with pytest.raises(InvalidInputError, match=r"`trace` must be 1-D"):
+        detect_beats(np.zeros((2, 5000)), 250.0)
+
+
+def test_flat_trace_returns_no_beats():
+    d = detect_beats(np.full(250 * 30, 3.0), 250.0)
+    assert d.times_s.size == 0 and not d.has_beats
+    assert "no_signal_in_beat_band" in d.flags
