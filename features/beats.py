@@ -49,6 +49,9 @@ ENVELOPE_WINDOW_S = 0.15
 
 MIN_DURATION_S = 10.0
 
+LARGE_WAVE_FRACTION = 0.6
+"""A wave at least this share of the largest counts as large (polarity, J choice)."""
+
 EVIDENCE_THRESHOLD = 10.0
 """Coherence statistic above which a repeating, consistently signed beat is present.
 
@@ -167,13 +170,17 @@ def detect_beats(
     4. Envelope peaks are candidates. Epochs of the signed component around
        the stronger half are averaged: the ratio of the mean epoch's energy
        to the mean epoch energy, times the number of epochs, is near 1 for
-       sign-symmetric noise and large for a repeating beat. Its largest
-       central extreme gives the polarity.
+       sign-symmetric noise and large for a repeating beat. The sign of
+       the first large wave of the mean epoch (at least
+       ``LARGE_WAVE_FRACTION`` of the largest) gives the polarity: the J
+       wave leads the complex, and a lightly damped support can ring after
+       it with a deeper K trough than the J peak.
     5. Template matching, twice: a normalised cross-correlation trace of the
        component with the template (FFT convolution and running sums, linear
        in length up to a log factor); its peaks, one per refractory period,
        are the candidates; the template is rebuilt as the median of the
-       best-matching epochs and re-centred on its J wave.
+       best-matching epochs and re-centred on its J wave (the first large
+       positive wave).
     6. Candidates are kept when their correlation reaches an adaptive level
        (0.55 times the median of the best matches, clipped to 0.3-0.5) and
        their amplitude a quarter of the median. J times are refined by
@@ -223,7 +230,7 @@ def detect_beats(
     epochs = _epochs(comp, strong, half)
     evidence = _coherence(epochs)
     mean_epoch = epochs.mean(axis=0)
-    polarity = _polarity(mean_epoch, half[0], int(round(0.1 * fs_w)))
+    polarity = _polarity(mean_epoch, half[0], int(round(0.15 * fs_w)))
     has_beats = evidence >= EVIDENCE_THRESHOLD
     if not has_beats:
         flags.append("no_repeating_beat_waveform")
@@ -402,23 +409,49 @@ def _epochs(comp: NDArray[np.float64], centres: NDArray[np.intp], half: tuple[in
 
 
 def _coherence(epochs: NDArray[np.float64]) -> float:
-    """Number of epochs times the energy share of their mean (about 1 for noise)."""
-    k = epochs.shape[0]
-    mean = epochs.mean(axis=0)
-    total = float(np.mean(np.sum(epochs * epochs, axis=1)))
-    if total <= 0:
+    """Number of epochs times the energy share of their mean (about 1 for noise).
+
+    Each epoch is scaled to unit energy first, so a few large ones (a
+    movement that escaped the mask) cannot dominate. For k epochs of
+    sign-symmetric noise the mean of k unit vectors has expected squared norm
+    1/k, so the statistic is near 1; a waveform that repeats with a
+    consistent sign gives a value that grows with k.
+    """
+    norms = np.sqrt(np.sum(epochs * epochs, axis=1))
+    ok = norms > 0
+    if ok.sum() < 2:
         return 0.0
-    return float(k * np.sum(mean * mean) / total)
+    unit = epochs[ok] / norms[ok, None]
+    mean = unit.mean(axis=0)
+    return float(ok.sum() * np.sum(mean * mean))
+
+
+def _first_large(epoch: NDArray[np.float64], centre: int, reach: int,
+                 sign: float = 0.0) -> int:
+    """Index of the earliest extreme reaching ``LARGE_WAVE_FRACTION`` of the largest.
+
+    With ``sign`` 0 both signs count (peaks of the magnitude); with +1 only
+    maxima. The J wave is the first large wave of the complex: whatever a
+    lightly damped support adds rings after it.
+    """
+    lo, hi = max(1, centre - reach), min(epoch.size - 1, centre + reach + 1)
+    core = epoch[lo:hi]
+    mag = np.abs(core) if sign == 0.0 else np.maximum(sign * core, 0.0)
+    pk, _ = signal.find_peaks(np.concatenate(([0.0], mag, [0.0])))
+    pk = pk - 1
+    if pk.size == 0 or mag.max() <= 0:
+        return centre
+    big = pk[mag[pk] >= LARGE_WAVE_FRACTION * mag.max()]
+    return int(lo + big[0])
 
 
 def _polarity(mean_epoch: NDArray[np.float64], centre: int, reach: int) -> int:
-    core = mean_epoch[centre - reach : centre + reach + 1]
-    return 1 if core.max() >= -core.min() else -1
+    i = _first_large(mean_epoch, centre, reach)
+    return 1 if mean_epoch[i] >= 0 else -1
 
 
 def _recentre(template: NDArray[np.float64], centre: int, reach: int) -> NDArray[np.float64]:
-    core = template[centre - reach : centre + reach + 1]
-    shift = int(np.argmax(core)) - reach
+    shift = _first_large(template, centre, reach, sign=1.0) - centre
     out = np.roll(template, -shift)
     if shift > 0:
         out[-shift:] = 0.0
