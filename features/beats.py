@@ -49,8 +49,13 @@ ENVELOPE_WINDOW_S = 0.15
 
 MIN_DURATION_S = 10.0
 
-LARGE_WAVE_FRACTION = 0.6
-"""A wave at least this share of the largest counts as large (polarity, J choice)."""
+LARGE_WAVE_FRACTION = 0.75
+"""A wave at least this share of the largest counts as large (polarity, J choice).
+
+J is the largest wave of a normal complex, with I about half of it (Inan et
+al. 2015, Fig. 1; from memory); a lightly damped support can make K deeper
+than J, but J still leads. The first wave within 75 % of the largest is J.
+"""
 
 EVIDENCE_THRESHOLD = 10.0
 """Coherence statistic above which a repeating, consistently signed beat is present.

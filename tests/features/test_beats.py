@@ -14,7 +14,8 @@ WAVES = ((-0.10, 0.25, 0.020), (-0.05, -0.6, 0.018), (0.0, 1.0, 0.020),
          (0.065, -0.8, 0.022), (0.14, 0.3, 0.030))
 
 
-def _trace(fs=250.0, dur=120.0, hr=70.0, snr_db=10.0, seed=0, jitter=0.05, gains=None):
+def _trace(fs=250.0, dur=120.0, hr=70.0, snr_db=10.0, seed=0, jitter=0.05, gains=None,
+           waves=WAVES):
     """Sum-of-Gaussians beats at known J times, band-limited noise at a set SNR."""
     rng = np.random.default_rng(seed)
     period = 60.0 / hr
@@ -25,7 +26,7 @@ def _trace(fs=250.0, dur=120.0, hr=70.0, snr_db=10.0, seed=0, jitter=0.05, gains
     t = np.arange(int(dur * fs)) / fs
     x = np.zeros_like(t)
     g = np.ones(times.size) if gains is None else gains(times.size)
-    for dt, a, w in WAVES:
+    for dt, a, w in waves:
         x += a * (g * np.exp(-0.5 * ((t[:, None] - times[None, :] - dt) / w) ** 2)).sum(axis=1)
     sos = signal.butter(4, [1, 20], btype="band", fs=fs, output="sos")
     noise = rng.standard_normal(t.size)
@@ -61,6 +62,21 @@ def test_inverted_trace_is_detected_with_negative_polarity_and_same_times():
     down = detect_beats(-x, 250.0)
     assert down.polarity == -1 and up.polarity == 1
     np.testing.assert_allclose(down.times_s, up.times_s, atol=1e-9)
+
+
+# A lightly damped support rings after J: K deeper than J, L nearly as high
+# (the simulator's "ringing" preset shows the same pattern).
+RINGING = ((-0.05, -0.3, 0.018), (0.0, 1.0, 0.02), (0.08, -1.2, 0.022),
+           (0.16, 0.8, 0.025), (0.24, -0.4, 0.03))
+
+
+@pytest.mark.parametrize("sign", [1, -1])
+def test_polarity_follows_the_leading_j_wave_on_a_ringing_support(sign):
+    x, ref = _trace(seed=7, waves=RINGING)
+    d = detect_beats(sign * x, 250.0)
+    assert d.polarity == sign
+    # J times, not K times: within 20 ms of the truth.
+    assert np.all(_matched(d.times_s, ref, tol=0.02))
 
 
 @pytest.mark.parametrize("fs", [50.0, 100.0, 500.0, 1000.0])
