@@ -1,0 +1,1 @@
+"""Simulated validation of the feature engine: cohort runner, beat matching, baseline."""
