@@ -185,7 +185,8 @@ def detect_beats(
        in length up to a log factor); its peaks, one per refractory period,
        are the candidates; the template is rebuilt as the median of the
        best-matching epochs and re-centred on its J wave (the first large
-       positive wave).
+       positive wave). The polarity is checked once more on this sharper
+       template; if it disagrees, the matching starts again flipped.
     6. Candidates are kept when their correlation reaches an adaptive level
        (0.55 times the median of the best matches, clipped to 0.3-0.5) and
        their amplitude a quarter of the median. J times are refined by
@@ -239,21 +240,31 @@ def detect_beats(
     has_beats = evidence >= EVIDENCE_THRESHOLD
     if not has_beats:
         flags.append("no_repeating_beat_waveform")
-    comp = comp * polarity
-    template = _recentre(polarity * mean_epoch, half[0], int(round(0.1 * fs_w)))
+    reach_j = int(round(0.15 * fs_w))
+    template = _recentre(polarity * mean_epoch, half[0], reach_j)
+    for attempt in range(2):
+        signed = comp * polarity
+        for _ in range(2):
+            corr, amp = _match(signed, template, half[0])
+            cand, _ = signal.find_peaks(corr, distance=dist, height=0.2)
+            cand = cand[(cand >= half[0]) & (cand < comp.size - half[1])]
+            if cand.size < 4:
+                return _empty(fs_w, levels, flags + ["too_few_candidates"], period=period,
+                              evidence=evidence)
+            best = cand[corr[cand] >= np.quantile(corr[cand], 0.5)]
+            template = _recentre(np.median(_epochs(signed, best, half), axis=0), half[0],
+                                 reach_j)
+        # The aligned template is sharper than the envelope-aligned mean:
+        # check the polarity on it once, and start again flipped if needed.
+        if attempt == 0 and _polarity(template, half[0], reach_j) < 0:
+            polarity = -polarity
+            template = _recentre(-template, half[0], reach_j)
+            flags.append("polarity_revised_on_template")
+            continue
+        break
+    comp = signed
 
-    for _ in range(2):
-        corr, amp = _match(comp, template)
-        cand, _ = signal.find_peaks(corr, distance=dist, height=0.2)
-        cand = cand[(cand >= half[0]) & (cand < comp.size - half[1])]
-        if cand.size < 4:
-            return _empty(fs_w, levels, flags + ["too_few_candidates"], period=period,
-                          evidence=evidence)
-        best = cand[corr[cand] >= np.quantile(corr[cand], 0.5)]
-        template = _recentre(np.median(_epochs(comp, best, half), axis=0), half[0],
-                             int(round(0.1 * fs_w)))
-
-    corr, amp = _match(comp, template)
+    corr, amp = _match(comp, template, half[0])
     cand, _ = signal.find_peaks(corr, distance=dist, height=0.2)
     cand = cand[(cand >= 1) & (cand < comp.size - 1)]
     n_candidates = int(cand.size)
@@ -465,23 +476,29 @@ def _recentre(template: NDArray[np.float64], centre: int, reach: int) -> NDArray
     return out
 
 
-def _match(comp: NDArray[np.float64], template: NDArray[np.float64]) -> tuple[
+def _match(comp: NDArray[np.float64], template: NDArray[np.float64], centre: int) -> tuple[
         NDArray[np.float64], NDArray[np.float64]]:
-    """Normalised cross-correlation and template amplitude at every sample."""
+    """Normalised cross-correlation and template amplitude at every sample.
+
+    Index ``i`` of both outputs describes the template placed with its sample
+    ``centre`` (the J wave) on sample ``i`` of ``comp``.
+    """
     t = template - template.mean()
     norm = np.sqrt(np.sum(t * t))
     if norm <= 0:
         z = np.zeros_like(comp)
         return z, z
     t = t / norm
-    m = t.size
-    num = signal.fftconvolve(comp, t[::-1], mode="same")
-    # Running sums over the same centred window as the convolution.
+    m, n = t.size, comp.size
+    full = signal.fftconvolve(comp, t[::-1], mode="full")
+    first = m - 1 - centre
+    num = full[first : first + n]
+    # Running sums over the same window as the correlation.
     c1 = np.concatenate(([0.0], np.cumsum(comp)))
     c2 = np.concatenate(([0.0], np.cumsum(comp * comp)))
-    start = np.arange(comp.size) - m // 2
-    lo = np.clip(start, 0, comp.size)
-    hi = np.clip(start + m, 0, comp.size)
+    start = np.arange(n) - centre
+    lo = np.clip(start, 0, n)
+    hi = np.clip(start + m, 0, n)
     s1 = c1[hi] - c1[lo]
     s2 = c2[hi] - c2[lo]
     var = s2 - s1 * s1 / m
