@@ -582,13 +582,16 @@ def _recover_missed(
 
 def _complex_usable(beats: NDArray[np.intp], usable: NDArray[np.bool_], fs: float) -> NDArray[
         np.bool_]:
+    """True where no masked sample lies within -0.25..+0.35 s of the J wave.
+
+    The window is clipped to the recording, so a beat whose J wave is inside
+    the record but whose complex runs past an end is kept.
+    """
     before, after = int(round(0.25 * fs)), int(round(0.35 * fs))
-    lo = beats - before
-    hi = beats + after
-    ok = (lo >= 0) & (hi < usable.size)
     bad_c = np.concatenate(([0], np.cumsum(~usable)))
-    lo_c, hi_c = np.clip(lo, 0, usable.size), np.clip(hi + 1, 0, usable.size)
-    return ok & ((bad_c[hi_c] - bad_c[lo_c]) == 0)
+    lo_c = np.clip(beats - before, 0, usable.size)
+    hi_c = np.clip(beats + after + 1, 0, usable.size)
+    return (bad_c[hi_c] - bad_c[lo_c]) == 0
 
 
 def _parabolic_offset(y: NDArray[np.float64], idx: NDArray[np.intp]) -> NDArray[np.float64]:
