@@ -1,0 +1,243 @@
+"""Tests of features.modulation (respiratory modulation of the heartbeat)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import signal as sps
+from scipy import stats
+
+from features.errors import InvalidInputError
+from features.modulation import respiratory_modulation
+
+FS = 10.0  # breathing-signal rate used throughout
+
+
+def sine_breathing(duration_s, rate_hz=0.25, amplitude=1.0):
+    t = np.arange(int(duration_s * FS)) / FS
+    return amplitude * np.sin(2 * np.pi * rate_hz * t)
+
+
+def beats_from_intervals(first_s, interval_fn, duration_s):
+    """Beat times where each interval (ms) is interval_fn(time of the beat it ends at)."""
+    times, ivs = [first_s], [np.nan]
+    while times[-1] < duration_s - 2.0:
+        iv = float(interval_fn(times[-1]))
+        times.append(times[-1] + iv / 1e3)
+        ivs.append(iv)
+    return np.array(times), np.array(ivs)
+
+
+# --------------------------------------------------------------------------- RSA
+
+
+def test_rsa_peak_to_trough_hand_computed():
+    # Peak-to-trough RSA (Grossman, van Beek & Wientjes 1990, Psychophysiology 27:702): per
+    # breath, longest minus shortest interval; median over breaths. Intervals (ms) ending
+    # in each of six breath cycles, and their max - min:
+    #   A 800 850 900       -> 900 - 800  = 100
+    #   B 900 900 900       -> 900 - 900  =   0  (no change counts as 0, kept)
+    #   C 1000 950 880 920  -> 1000 - 880 = 120
+    #   D 700 760           -> 760 - 700  =  60
+    #   E 810 790 850       -> 850 - 790  =  60
+    #   F 1000 1000         ->               0
+    # sorted 0 0 60 60 100 120 -> median (60 + 60) / 2 = 60 ms.
+    groups = [[800, 850, 900], [900, 900, 900], [1000, 950, 880, 920], [700, 760],
+              [810, 790, 850], [1000, 1000]]
+    iv = np.concatenate(([np.nan], np.concatenate(groups).astype(float)))
+    beats = 1.0 + np.concatenate(([0.0], np.cumsum(iv[1:]) / 1e3))
+    firsts = np.cumsum([0] + [len(g) for g in groups])[:-1] + 1
+    breaths = np.concatenate((beats[firsts] - 0.05, [beats[-1] + 0.05]))
+    r = respiratory_modulation(np.zeros(int((beats[-1] + 2) * FS)), FS, beat_times_s=beats,
+                               breath_times_s=breaths, interval_ms=iv)
+    assert r.rsa_ms == pytest.approx(60.0, abs=1e-9)
+    assert r.breaths_used == 6
+
+
+def test_rsa_of_a_sinusoidal_interval_series():
+    # Intervals 900 + 40 sin(2 pi 0.2 t) ms: within each 5-s breath the longest and shortest
+    # differ by the full 80 ms peak to trough, less the sampling of about 5 beats per cycle
+    # (worst case: 80 cos(pi / 5.5) = 67 ms).
+    beats, iv = beats_from_intervals(0.3, lambda t: 900 + 40 * np.sin(2 * np.pi * 0.2 * t), 300)
+    r = respiratory_modulation(sine_breathing(300, 0.2), FS, beat_times_s=beats,
+                               breath_times_s=np.arange(0.0, 300.0, 5.0), interval_ms=iv)
+    assert 67.0 <= r.rsa_ms <= 80.0
+    assert r.rsa_confidence > 0.9
+
+
+# --------------------------------------------------------------------------- amplitude index
+
+
+@pytest.mark.parametrize("noise, tol", [(0.0, 1e-6), (0.3, 0.03)])
+def test_amplitude_index_of_a_known_modulation(noise, tol):
+    # Amplitudes 10 (1 + 0.1 cos(breathing phase + 0.3)): (max - min) / mean = (11 - 9) / 10
+    # = 0.2 (hand-computed), whatever the phase lag.
+    rng = np.random.default_rng(3)
+    beats = np.arange(0.4, 300.0, 0.8)
+    amps = 10 * (1 + 0.1 * np.cos(2 * np.pi * beats / 4.0 + 0.3))
+    amps += noise * rng.standard_normal(beats.size)
+    r = respiratory_modulation(sine_breathing(300), FS, beat_times_s=beats,
+                               breath_times_s=np.arange(0.0, 300.0, 4.0), beat_amplitudes=amps)
+    assert r.amplitude_index == pytest.approx(0.2, abs=tol)
+    assert r.amplitude_confidence > 0.5
+
+
+# --------------------------------------------------------------------------- timing share
+
+
+def test_timing_share_of_a_pure_breathing_modulation_agrees_with_welch():
+    # All interval variance at 0.25 Hz: the share within +/-0.05 Hz is close to 100 %. The
+    # reference is scipy.signal.welch of the interval series resampled evenly at 4 Hz.
+    beats, iv = beats_from_intervals(0.5, lambda t: 1000 + 50 * np.sin(2 * np.pi * 0.25 * t), 300)
+    r = respiratory_modulation(sine_breathing(300), FS, beat_times_s=beats,
+                               breath_times_s=np.arange(0.0, 300.0, 4.0), interval_ms=iv)
+    grid = np.arange(beats[1], beats[-1], 0.25)
+    f, p = sps.welch(np.interp(grid, beats[1:], iv[1:]), fs=4.0, nperseg=512)
+    ref = 100 * p[np.abs(f - 0.25) <= 0.05].sum() / p[(f >= 0.04) & (f <= 0.5)].sum()
+    assert r.timing_modulation_pct > 95.0
+    assert r.timing_modulation_pct == pytest.approx(ref, abs=5.0)
+
+
+def test_timing_share_of_white_interval_noise_is_the_band_fraction():
+    # White noise has a flat spectrum: the share is the band width over the total width,
+    # 0.1 / (0.5 - 0.04) = 21.7 % for 1000-ms beats (Nyquist 0.5 Hz) (analytic); one
+    # realisation of 600 s scatters by about +/-15 % of that.
+    rng = np.random.default_rng(7)
+    beats = np.arange(0.5, 600.0, 1.0)
+    iv = 1000 + 30 * rng.standard_normal(beats.size)
+    r = respiratory_modulation(sine_breathing(600), FS, beat_times_s=beats,
+                               breath_times_s=np.arange(0.0, 600.0, 4.0), interval_ms=iv)
+    assert r.timing_modulation_pct == pytest.approx(100 * 0.1 / 0.46, rel=0.3)
+
+
+def test_breathing_above_the_beat_series_nyquist_is_not_reported():
+    # 40 beats/min sample the interval series at 0.67 Hz (Nyquist 0.33 Hz): a 0.35-Hz
+    # breathing component cannot be resolved (sampling theorem).
+    beats = np.arange(0.5, 300.0, 1.5)
+    r = respiratory_modulation(sine_breathing(300, 0.35), FS, beat_times_s=beats,
+                               breath_times_s=np.arange(0.0, 300.0, 1 / 0.35))
+    assert r.timing_modulation_pct is None
+    assert "breathing_above_beat_series_nyquist" in r.flags
+
+
+# --------------------------------------------------------------------------- coherence
+
+
+def _band_noise(rng, n):
+    sos = sps.butter(4, (0.15, 0.35), btype="bandpass", fs=FS, output="sos")
+    return sps.sosfiltfilt(sos, rng.standard_normal(n))
+
+
+def test_coherence_of_coupled_half_coupled_and_independent_series():
+    # Magnitude-squared coherence (Carter 1987, Proc IEEE 75:236): for x = y + y2 with y2
+    # independent of y and of the same spectrum, |Sxy|^2 / (Sxx Syy) = Syy / (2 Syy) = 0.5
+    # (analytic); x = y gives 1; x independent of y gives about 1 / K (estimator bias).
+    rng = np.random.default_rng(11)
+    n = int(600 * FS)
+    t = np.arange(n) / FS
+    y, y2 = _band_noise(rng, n), _band_noise(rng, n)
+    breaths = np.arange(0.0, 600.0, 4.0)
+    results = {}
+    for name, drive in (("full", y), ("half", y + y2), ("none", y2)):
+        scale = 40 / np.std(drive)
+        beats, iv = beats_from_intervals(0.5, lambda s, d=drive, k=scale: 1000 + k * np.interp(
+            s, t, d), 600)
+        results[name] = respiratory_modulation(y, FS, beat_times_s=beats, breath_times_s=breaths,
+                                               interval_ms=iv)
+    assert results["full"].coherence > 0.9
+    assert results["half"].coherence == pytest.approx(0.5, abs=0.2)
+    assert results["none"].coherence < 0.25
+    assert results["full"].coherence_segments >= 30
+
+
+# --------------------------------------------------------------------------- baseline
+
+
+def test_baseline_modulation_ratio_hand_computed():
+    # Breathing sine of amplitude 1.5 N: per-breath max - min = 3 N; cardiac amplitude 6 N:
+    # ratio 3 / 6 = 0.5.
+    beats = np.arange(0.5, 120.0, 0.9)
+    r = respiratory_modulation(sine_breathing(120, amplitude=1.5), FS, beat_times_s=beats,
+                               breath_times_s=np.arange(0.0, 120.0, 4.0), cardiac_amplitude=6.0)
+    assert r.baseline_modulation_ratio == pytest.approx(0.5, abs=0.005)
+
+
+# --------------------------------------------------------------------------- simulator
+
+
+def test_indices_rank_the_simulated_modulation_depths():
+    # Eight simulated recordings (features.simulation) with set rsa_depth_ms and
+    # sv_modulation in shuffled pairings; the full chain (breath times from the breathing
+    # stage, J-K amplitudes from the morphology stage, truth beat times) must rank them:
+    # Spearman rho >= 0.8 (scipy.stats.spearmanr; project acceptance).
+    from features.morphology import beat_morphology
+    from features.respiration import breathing
+    from features.simulation import SimulationSettings, simulate
+
+    rsa_set = [0.0, 15.0, 30.0, 45.0, 60.0, 80.0, 100.0, 130.0]
+    sv_set = [0.25, 0.04, 0.16, 0.0, 0.3, 0.08, 0.2, 0.12]
+    rsa_out, amp_out = [], []
+    for i in range(8):
+        rec = simulate(SimulationSettings(seed=20 + i, duration_s=120.0,
+                                          rsa_depth_ms=rsa_set[i], sv_modulation=sv_set[i]))
+        x = np.sum(rec.channels, axis=0)
+        x = x - np.median(x)
+        beats = rec.truth.j_times_s
+        m = beat_morphology(x, rec.fs_hz, beats)
+        b = breathing(x, rec.fs_hz)
+        r = respiratory_modulation(b.breathing_signal, b.breathing_fs_hz, beat_times_s=beats,
+                                   breath_times_s=b.breath_times_s,
+                                   beat_amplitudes=m.beat_jk_amplitudes,
+                                   amplitude_times_s=m.beat_times_s)
+        rsa_out.append(r.rsa_ms)
+        amp_out.append(r.amplitude_index)
+    assert stats.spearmanr(rsa_set, rsa_out).statistic >= 0.8
+    assert stats.spearmanr(sv_set, amp_out).statistic >= 0.8
+
+
+# --------------------------------------------------------------------------- edge cases, errors
+
+
+def test_too_few_breaths_gives_none_with_reason():
+    beats = np.arange(0.5, 60.0, 0.9)
+    r = respiratory_modulation(sine_breathing(60), FS, beat_times_s=beats,
+                               breath_times_s=[0.0, 4.0, 8.0, 12.0])
+    assert r.rsa_ms is None and r.amplitude_index is None and r.coherence is None
+    assert r.confidence == 0.0 and r.flags == ("too_few_breaths",)
+
+
+def test_breaths_across_gaps_or_unusable_signal_are_dropped():
+    beats = np.arange(0.5, 200.0, 0.9)
+    breaths = np.concatenate((np.arange(0.0, 100.0, 4.0), np.arange(120.0, 200.0, 4.0)))
+    y = sine_breathing(200)
+    y[int(150 * FS) : int(160 * FS)] = np.nan
+    r = respiratory_modulation(y, FS, beat_times_s=beats, breath_times_s=breaths)
+    # Kept: every cycle except the 24-s one across the gap (96 -> 120 s, longer than twice
+    # the 4-s median) and the cycles overlapping the NaN span 150-160 s.
+    n_cycles = breaths.size - 1
+    gap = 1
+    nan_cycles = int(np.sum((breaths[1:] > 150.0) & (breaths[:-1] < 160.0)))
+    assert r.breaths_used == n_cycles - gap - nan_cycles
+    assert "breath_cycles_excluded" in r.flags
+
+
+@pytest.mark.parametrize(
+    "kwargs, field, match",
+    [
+        ({"fs_hz": 0.5}, "fs_hz", r"`fs_hz` must be between 1 and 2000 Hz; got 0.5"),
+        ({"y": np.zeros((2, 100))}, "breathing_signal", r"must be 1-D with at least 2 samples"),
+        ({"beat_times_s": [2.0, 1.0]}, "beat_times_s", r"strictly increasing"),
+        ({"breath_times_s": [0.0, np.nan]}, "breath_times_s", r"finite and strictly"),
+        ({"interval_ms": [800.0]}, "interval_ms", r"length of `beat_times_s` \(3\); got 1"),
+        ({"interval_ms": [np.nan, -5.0, 800.0]}, "interval_ms", r"must be positive"),
+        ({"beat_amplitudes": [1.0]}, "beat_amplitudes", r"length of its times \(3\); got 1"),
+        ({"cardiac_amplitude": 0.0}, "cardiac_amplitude", r"must be positive; got 0"),
+    ],
+)
+def test_invalid_input(kwargs, field, match):
+    args = {"y": np.zeros(100), "fs_hz": FS, "beat_times_s": [1.0, 2.0, 3.0],
+            "breath_times_s": [0.0, 4.0]}
+    args.update(kwargs)
+    with pytest.raises(InvalidInputError, match=match) as info:
+        respiratory_modulation(args.pop("y"), args.pop("fs_hz"), **args)
+    assert info.value.field == field

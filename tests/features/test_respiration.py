@@ -1,0 +1,210 @@
+"""Tests of features.respiration (breathing rate, breath timing, pauses)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import signal as sps
+
+from features.errors import InvalidInputError
+from features.respiration import breathing
+
+
+def phase_signal(periods_s, fs, *, amplitude=1.0, lead_s=0.0):
+    """Sinusoidal breathing whose k-th cycle lasts periods_s[k] (phase continuous)."""
+    edges = np.concatenate(([0.0], np.cumsum(periods_s))) + lead_s
+    t = np.arange(int(edges[-1] * fs)) / fs
+    k = np.clip(np.searchsorted(edges, t, side="right") - 1, 0, len(periods_s) - 1)
+    phase = 2 * np.pi * (k + (t - edges[k]) / np.asarray(periods_s)[k])
+    x = amplitude * np.sin(phase)
+    x[t < lead_s] = 0.0
+    return x
+
+
+def with_pause(fs, pause_s, *, rate_hz=0.25, before_s=120.0, after_s=120.0, seed=0):
+    """Sinusoidal breathing, a flat span of pause_s starting at a zero crossing, breathing."""
+    rng = np.random.default_rng(seed)
+    n_before, n_after = int(before_s * rate_hz), int(after_s * rate_hz)
+    a = np.sin(2 * np.pi * rate_hz * np.arange(int(n_before / rate_hz * fs)) / fs)
+    b = np.sin(2 * np.pi * rate_hz * np.arange(int(n_after / rate_hz * fs)) / fs)
+    x = np.concatenate((a, np.zeros(int(pause_s * fs)), b))
+    return x + 0.02 * rng.standard_normal(x.size), a.size / fs
+
+
+# --------------------------------------------------------------------------- rate
+
+
+@pytest.mark.parametrize("fs", [10.0, 100.0, 250.0, 1000.0])
+def test_rate_of_a_sinusoid_by_counting_and_by_spectrum(fs):
+    # Known answer: 0.25 Hz = 15 breaths/min. The spectral estimate is also checked against
+    # the peak of scipy.signal.welch on the raw signal (reference library).
+    rng = np.random.default_rng(int(fs))
+    t = np.arange(int(300 * fs)) / fs
+    x = 2.0 * np.sin(2 * np.pi * 0.25 * t) + 0.2 * rng.standard_normal(t.size)
+    r = breathing(x, fs)
+    assert r.rate_per_min == pytest.approx(15.0, abs=0.1)
+    assert r.spectral_rate_per_min == pytest.approx(15.0, abs=0.1)
+    f, p = sps.welch(x, fs=fs, nperseg=int(64 * fs), nfft=int(2 ** np.ceil(np.log2(512 * fs))))
+    band = (f >= 0.1) & (f <= 0.7)
+    assert r.spectral_rate_per_min == pytest.approx(60 * f[band][np.argmax(p[band])], abs=0.15)
+    assert r.breath_count == pytest.approx(75, abs=1)  # 300 s x 0.25 Hz
+    assert r.confidence > 0.9
+    # Robust amplitude 1.4826 MAD of a sine of amplitude A: median |sin| = sin(pi/4), so
+    # 1.4826 x 0.7071 x 2.0 = 2.097 (hand-computed).
+    assert r.breathing_amplitude == pytest.approx(2.097, rel=0.03)
+
+
+def test_spectral_rate_matches_welch_on_a_two_tone_signal():
+    # Analytic: 0.2 Hz (amplitude 1) plus a weaker 0.45 Hz (0.5): the peak is the 0.2 Hz one,
+    # and scipy.signal.welch (reference library) agrees on where it is.
+    fs = 20.0
+    t = np.arange(int(240 * fs)) / fs
+    x = np.sin(2 * np.pi * 0.2 * t) + 0.5 * np.sin(2 * np.pi * 0.45 * t + 1.0)
+    r = breathing(x, fs)
+    f, p = sps.welch(x, fs=fs, nperseg=int(64 * fs), nfft=8192)
+    assert r.spectral_rate_per_min == pytest.approx(12.0, abs=0.1)
+    assert r.spectral_rate_per_min == pytest.approx(60 * f[np.argmax(p)], abs=0.2)
+
+
+def test_breath_interval_variability_hand_computed():
+    # Blocks of ten 3.5-s cycles and ten 4.5-s cycles: mean 4.0 s, every deviation 0.5 s, so
+    # the SD (ddof=1) over n intervals is 0.5 sqrt(n / (n - 1)) and the CV about 12.5 %.
+    # Median interval 4.0 s -> 15 breaths/min. (Blocks, not alternation: alternating cycles
+    # put sidebands at 0.125 Hz, on the filter's lower edge, which shrinks the deviations.)
+    periods = ([3.5] * 10 + [4.5] * 10) * 4
+    x = phase_signal(periods, 50.0)
+    r = breathing(x, 50.0)
+    n = r.breath_count - 1
+    assert r.interval_sd_s == pytest.approx(0.5 * np.sqrt(n / (n - 1)), abs=0.03)
+    assert r.interval_cv_pct == pytest.approx(12.5, abs=0.8)
+    assert r.rate_per_min == pytest.approx(15.0, abs=0.5)
+
+
+def test_rise_fall_ratio_of_an_asymmetric_breath():
+    # Raised-cosine rise over 2.25 s, fall over 3.75 s (10 breaths/min): rise / fall = 0.6.
+    # At this rate the 0.7-Hz band keeps the first four harmonics; the documented pull toward
+    # 1 is allowed for by the tolerance. A sinusoid must read 1.
+    fs = 50.0
+    rise = 0.5 - 0.5 * np.cos(np.pi * np.arange(int(2.25 * fs)) / (2.25 * fs))
+    fall = 0.5 + 0.5 * np.cos(np.pi * np.arange(int(3.75 * fs)) / (3.75 * fs))
+    r = breathing(np.tile(np.concatenate((rise, fall)), 40), fs)
+    assert r.rise_fall_ratio == pytest.approx(0.6, abs=0.08)
+    assert r.rise_time_s + r.fall_time_s == pytest.approx(6.0, abs=0.15)
+    sine = breathing(np.sin(2 * np.pi * np.arange(int(240 * fs)) / (6.0 * fs)), fs)
+    assert sine.rise_fall_ratio == pytest.approx(1.0, abs=0.05)
+
+
+def test_centre_of_pressure_is_used_when_it_breathes_more_clearly():
+    rng = np.random.default_rng(2)
+    fs = 50.0
+    t = np.arange(int(180 * fs)) / fs
+    trace = 0.05 * np.sin(2 * np.pi * 0.3 * t) + rng.standard_normal(t.size)
+    cop = 0.004 * np.sin(2 * np.pi * 0.3 * t) + 0.0005 * rng.standard_normal(t.size)
+    r = breathing(trace, fs, cop_signal=cop)
+    assert r.source == "centre_of_pressure"
+    assert "breathing_from_centre_of_pressure" in r.flags
+    assert r.rate_per_min == pytest.approx(18.0, abs=0.3)
+    assert breathing(trace, fs).source == "trace"
+
+
+# --------------------------------------------------------------------------- pauses
+
+
+def test_aasm_ten_second_criterion_12_s_counted_9_s_not():
+    # AASM Manual for the Scoring of Sleep and Associated Events: an adult apnoea lasts
+    # >= 10 s (from memory). A 12-s flat span is counted, a 9-s one is not.
+    fs = 100.0
+    x12, start = with_pause(fs, 12.0)
+    r12 = breathing(x12, fs)
+    assert r12.pause_count == 1
+    a, b = r12.pause_spans_s[0]
+    assert a == pytest.approx(start, abs=0.5) and b - a == pytest.approx(12.0, abs=0.6)
+    assert r12.pauses_per_hour == pytest.approx(3600.0 / r12.usable_duration_s, rel=1e-9)
+    assert "pauses_are_signal_observations_not_diagnosis" in r12.flags
+    x9, _ = with_pause(fs, 9.0)
+    r9 = breathing(x9, fs)
+    assert r9.pause_count == 0 and r9.pause_spans_s == ()
+
+
+def test_masked_spans_are_never_counted_as_pauses():
+    fs = 100.0
+    x, start = with_pause(fs, 15.0)
+    usable = np.ones(x.size, dtype=bool)
+    i0 = int((start - 1.0) * fs)
+    usable[i0 : i0 + int(17.0 * fs)] = False  # the whole pause is masked (movement)
+    r = breathing(x, fs, usable=usable)
+    assert r.pause_count == 0
+    usable = np.ones(x.size, dtype=bool)
+    usable[int((start + 11.0) * fs) : int((start + 25.0) * fs)] = False  # pause end masked
+    r = breathing(x, fs, usable=usable)
+    assert r.pause_count == 0
+    assert "pause_not_counted_touches_mask_or_edge" in r.flags
+    assert np.isnan(r.breathing_signal[int((start + 15.0) * r.breathing_fs_hz)])
+
+
+def test_two_pauses_are_counted_with_spans():
+    fs = 50.0
+    x1, s1 = with_pause(fs, 20.0, before_s=100.0, after_s=0.0, seed=1)
+    x2, s2 = with_pause(fs, 14.0, before_s=100.0, after_s=100.0, seed=2)
+    r = breathing(np.concatenate((x1, x2)), fs)
+    assert r.pause_count == 2
+    durations = [b - a for a, b in r.pause_spans_s]
+    assert durations == pytest.approx([20.0, 14.0], abs=0.6)
+    assert r.longest_pause_s == pytest.approx(20.0, abs=0.6)
+
+
+# --------------------------------------------------------------------------- simulator
+
+
+def test_simulated_breathing_rate_within_one_per_minute():
+    # Normal adult resting breathing rate 12-20 per minute (common practice): the
+    # simulator's default lies in it, and the estimate is within 1 breath/min of its truth
+    # (project acceptance) on the summed load of default recordings.
+    from features.simulation import SimulationSettings, simulate
+
+    assert 12.0 <= SimulationSettings().breathing_rate_per_min <= 20.0
+    for seed, rate in ((1, 12.0), (2, 16.0), (3, 20.0)):
+        rec = simulate(SimulationSettings(seed=seed, breathing_rate_per_min=rate))
+        r = breathing(np.sum(rec.channels, axis=0), rec.fs_hz)
+        assert r.rate_per_min == pytest.approx(rec.truth.breathing_rate_per_min, abs=1.0)
+        assert r.spectral_rate_per_min == pytest.approx(rec.truth.breathing_rate_per_min,
+                                                        abs=1.0)
+
+
+# --------------------------------------------------------------------------- edge cases, errors
+
+
+def test_too_little_usable_signal_gives_none_with_reason():
+    fs = 50.0
+    x = np.sin(2 * np.pi * 0.25 * np.arange(int(60 * fs)) / fs)
+    usable = np.zeros(x.size, dtype=bool)
+    usable[: int(10 * fs)] = True
+    r = breathing(x, fs, usable=usable)
+    assert r.rate_per_min is None and r.pause_count is None and r.confidence == 0.0
+    assert "too_little_usable_signal" in r.flags
+
+
+def test_flat_signal_has_no_rate():
+    r = breathing(np.zeros(3000), 50.0)
+    assert r.rate_per_min is None and r.confidence == 0.0
+    assert "no_breathing_signal" in r.flags
+
+
+@pytest.mark.parametrize(
+    "kwargs, field, match",
+    [
+        ({"fs_hz": 1.0}, "fs_hz", r"`fs_hz` must be between 2 and 2000 Hz; got 1"),
+        ({"x": np.zeros((2, 3000))}, "signal_or_lowband", r"must be 1-D; got 2"),
+        ({"x": np.zeros(500)}, "signal_or_lowband", r"must last at least 20 s \(1000 samples\)"),
+        ({"usable": np.ones(5, bool)}, "usable", r"`usable` must have the length"),
+        ({"cop_signal": np.ones(5)}, "cop_signal", r"`cop_signal` must have the length"),
+        ({"pause_threshold_pct": 80.0}, "pause_threshold_pct", r"between 10 and 50 %; got 80"),
+        ({"x": np.full(3000, np.nan)}, "signal_or_lowband", r"must be finite"),
+    ],
+)
+def test_invalid_input(kwargs, field, match):
+    args = {"x": np.zeros(3000), "fs_hz": 50.0}
+    args.update(kwargs)
+    with pytest.raises(InvalidInputError, match=match) as info:
+        breathing(args.pop("x"), args.pop("fs_hz"), **args)
+    assert info.value.field == field
