@@ -1,0 +1,166 @@
+"""CSV traces (one column per channel, a header row) into analysis request bodies.
+
+The API's multipart upload and the CLI's ``analyze FILE`` both go through
+:func:`csv_request_body` and then :class:`schemas.requests.AnalysisRequestSchema`,
+so a CSV gives the same engine inputs, and the same numbers, by either road.
+"""
+
+from __future__ import annotations
+
+import io
+import re
+from typing import Any
+
+import numpy as np
+from marshmallow import Schema, ValidationError, fields, post_load
+from marshmallow.validate import Length, OneOf, Range
+
+from features.conditioning import MAX_FS_HZ, MIN_FS_HZ
+from schemas.requests import INCLUDE_PARTS, MAX_CHANNELS, QUANTITIES
+
+#: A column with this header (any case) holds time stamps and is not a channel.
+TIME_COLUMN = "time_s"
+_NUMPY_POSITION = re.compile(r"at row (\d+), column (\d+)")
+
+
+def read_csv_channels(text: str, *, field: str = "file") -> tuple[list[str], np.ndarray]:
+    """Parse a CSV trace into channel labels and a (samples, channels) float64 array.
+
+    Parameters
+    ----------
+    text
+        Comma-separated values: a header row of labels, then one row per
+        sample. A ``time_s`` column is dropped.
+    field
+        Name used in error messages.
+
+    Returns
+    -------
+    labels, samples
+        The channel labels and a 2-D array with one column per label.
+
+    Raises
+    ------
+    marshmallow.ValidationError
+        When the header is missing or empty, a row is not numeric, the rows
+        differ in length, or there are no data rows or too many channels.
+    """
+    text = text.lstrip("\ufeff")
+    header, _, rest = text.partition("\n")
+    labels = [label.strip() for label in header.strip().split(",")]
+    if not header.strip() or any(not label for label in labels):
+        raise ValidationError(
+            {field: [f"`{field}` must start with a header row naming every column; "
+                     f"got {header.strip()[:40]!r}."]}
+        )
+    if not rest.strip():
+        raise ValidationError({field: [f"`{field}` must hold at least one data row; got none."]})
+    try:
+        data = np.loadtxt(io.StringIO(rest), delimiter=",", dtype=np.float64, ndmin=2)
+    except ValueError as error:
+        where = _NUMPY_POSITION.search(str(error))
+        position = (
+            f" (line {int(where.group(1)) + 2}, column {where.group(2)})" if where else ""
+        )
+        raise ValidationError(
+            {field: [f"`{field}` must hold one number per column in every row below the "
+                     f"header{position}; got a row that does not."]}
+        ) from None
+    if data.size == 0:
+        raise ValidationError({field: [f"`{field}` must hold at least one data row; got none."]})
+    if data.shape[1] != len(labels):
+        raise ValidationError(
+            {field: [f"`{field}` must have as many columns in each row as in the header "
+                     f"({len(labels)}); got {data.shape[1]}."]}
+        )
+    keep = [i for i, label in enumerate(labels) if label.lower() != TIME_COLUMN]
+    if not 1 <= len(keep) <= MAX_CHANNELS:
+        raise ValidationError(
+            {field: [f"`{field}` must have 1 to {MAX_CHANNELS} channel columns besides "
+                     f"`{TIME_COLUMN}`; got {len(keep)}."]}
+        )
+    return [labels[i] for i in keep], data[:, keep]
+
+
+class CsvUploadFormSchema(Schema):
+    """Form fields sent beside the CSV ``file`` in a multipart upload."""
+
+    sampling_rate_hz = fields.Float(
+        required=True,
+        validate=Range(min=MIN_FS_HZ, max=MAX_FS_HZ),
+        metadata={"description": f"Sampling rate of every column, {MIN_FS_HZ:g}-{MAX_FS_HZ:g} Hz."},
+    )
+    quantity = fields.String(
+        load_default="force",
+        validate=OneOf(QUANTITIES, error=f"Must be one of: {', '.join(sorted(QUANTITIES))}."),
+        metadata={"description": "Quantity of every column."},
+    )
+    unit = fields.String(
+        load_default="N",
+        validate=Length(min=1, max=16),
+        metadata={"description": "Unit of every column."},
+    )
+    include = fields.String(
+        load_default="",
+        metadata={
+            "description": (
+                "Comma-separated bulky parts to add: " + ", ".join(sorted(INCLUDE_PARTS)) + "."
+            )
+        },
+    )
+
+    @post_load
+    def _split_include(self, data: dict[str, Any], **kwargs: Any) -> dict[str, Any]:
+        parts = [part.strip() for part in data["include"].split(",") if part.strip()]
+        data["include"] = parts
+        return data
+
+
+def csv_request_body(text: str, form: dict[str, Any]) -> dict[str, Any]:
+    """Build the body of an analysis request from a CSV text and its form fields.
+
+    Parameters
+    ----------
+    text
+        The CSV file's text.
+    form
+        Form fields as strings (see :class:`CsvUploadFormSchema`).
+
+    Returns
+    -------
+    dict
+        A body for :class:`schemas.requests.AnalysisRequestSchema`, whose
+        ``samples`` are numpy arrays.
+
+    Raises
+    ------
+    marshmallow.ValidationError
+        Naming every offending form field and the file.
+    """
+    errors: dict[str, Any] = {}
+    try:
+        settings = CsvUploadFormSchema().load(form)
+    except ValidationError as error:
+        errors.update(error.messages_dict)
+        settings = None
+    try:
+        labels, data = read_csv_channels(text)
+    except ValidationError as error:
+        errors.update(error.messages_dict)
+    if errors or settings is None:
+        raise ValidationError(errors)
+    body: dict[str, Any] = {
+        "sampling_rate_hz": settings["sampling_rate_hz"],
+        "channels": [
+            {
+                "label": label,
+                "quantity": settings["quantity"],
+                "unit": settings["unit"],
+                "samples": np.ascontiguousarray(data[:, i]),
+            }
+            for i, label in enumerate(labels)
+        ],
+    }
+    if settings["include"]:
+        body["options"] = {"include": settings["include"]}
+    return body

@@ -1,0 +1,174 @@
+"""Custom marshmallow fields for numeric traces and finite floats.
+
+A trace of 75,000 samples must not go through 75,000 marshmallow ``Float``
+fields: :class:`SamplesField` checks the element types in one pass and hands
+the list to numpy once. :class:`FiniteFloat` is the output side: a value that
+is not finite leaves as ``null``, because ``NaN`` and ``Infinity`` are not JSON.
+"""
+
+from __future__ import annotations
+
+import base64
+import binascii
+import math
+from typing import Any
+
+import numpy as np
+from marshmallow import ValidationError, fields
+
+#: Little-endian encodings accepted for ``samples_base64``, by ``dtype`` name.
+BASE64_DTYPES: dict[str, np.dtype[Any]] = {
+    "float32": np.dtype("<f4"),
+    "float64": np.dtype("<f8"),
+    "int16": np.dtype("<i2"),
+    "int32": np.dtype("<i4"),
+}
+
+_NUMBER_TYPES = frozenset({int, float})
+
+
+def _first_non_finite(values: np.ndarray) -> int | None:
+    """Index of the first NaN or infinite element, or None when all are finite."""
+    bad = ~np.isfinite(values)
+    if not bad.any():
+        return None
+    return int(np.flatnonzero(bad)[0])
+
+
+class SamplesField(fields.Field):
+    """A JSON array of numbers, loaded as a 1-D float64 numpy array.
+
+    Loading rejects anything but a flat list of finite JSON numbers: strings
+    that look like numbers, booleans, ``null`` and nested lists are errors,
+    as are values that overflow float64. An already-decoded 1-D numeric numpy
+    array (from the CSV reader) is accepted as is.
+    """
+
+    default_error_messages = {
+        "type": "`{field}` must be a list of numbers; got {got}.",
+        "element": (
+            "`{field}` must hold only numbers; got {got} (JSON numbers are "
+            "written without quotes)."
+        ),
+        "empty": "`{field}` must hold at least one sample; got an empty list.",
+        "finite": "`{field}` must hold finite numbers; got a non-finite value at index {index}.",
+    }
+
+    def __init__(self, **kwargs: Any) -> None:
+        metadata = {"type": "array", "items": {"type": "number"}}
+        metadata.update(kwargs.pop("metadata", {}))
+        super().__init__(metadata=metadata, **kwargs)
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> np.ndarray:
+        name = attr or "samples"
+        if isinstance(value, np.ndarray):
+            if value.ndim != 1 or value.dtype.kind not in "iuf":
+                raise self.make_error("type", field=name, got=f"an array of shape {value.shape}")
+            array = value.astype(np.float64, copy=False)
+        else:
+            if not isinstance(value, list):
+                raise self.make_error("type", field=name, got=type(value).__name__)
+            kinds = set(map(type, value))
+            if not kinds <= _NUMBER_TYPES:
+                odd = sorted(k.__name__ for k in kinds - _NUMBER_TYPES)
+                raise self.make_error("element", field=name, got=", ".join(odd))
+            try:
+                array = np.asarray(value, dtype=np.float64)
+            except OverflowError:
+                raise self.make_error(
+                    "element", field=name, got="an integer too large for float64"
+                ) from None
+        if array.size == 0:
+            raise self.make_error("empty", field=name)
+        index = _first_non_finite(array)
+        if index is not None:
+            raise self.make_error("finite", field=name, index=index)
+        return array
+
+    def _serialize(self, value: Any, attr: str | None, obj: Any, **kwargs: Any) -> Any:
+        if value is None:
+            return None
+        return [float(v) if math.isfinite(v) else None for v in np.asarray(value, float).tolist()]
+
+
+def decode_base64_samples(text: str, dtype_name: str, *, field: str) -> np.ndarray:
+    """Decode little-endian binary samples from base64 into a float64 array.
+
+    Parameters
+    ----------
+    text
+        Standard base64 (RFC 4648 section 4), padding included.
+    dtype_name
+        One of the keys of :data:`BASE64_DTYPES`.
+    field
+        Name used in error messages.
+
+    Returns
+    -------
+    numpy.ndarray
+        1-D float64 array with one element per encoded value.
+
+    Raises
+    ------
+    marshmallow.ValidationError
+        When the text is not base64, its length is not a multiple of the item
+        size, it decodes to nothing, or a float value is not finite.
+    """
+    dtype = BASE64_DTYPES[dtype_name]
+    try:
+        raw = base64.b64decode(text, validate=True)
+    except (binascii.Error, ValueError):
+        raise ValidationError(
+            f"`{field}` must be standard base64 (RFC 4648, with padding); got text that "
+            "does not decode."
+        ) from None
+    if len(raw) == 0:
+        raise ValidationError(f"`{field}` must hold at least one sample; got 0 bytes.")
+    if len(raw) % dtype.itemsize:
+        raise ValidationError(
+            f"`{field}` must decode to a multiple of {dtype.itemsize} bytes for dtype "
+            f"{dtype_name}; got {len(raw)} bytes."
+        )
+    array = np.frombuffer(raw, dtype=dtype).astype(np.float64)
+    index = _first_non_finite(array)
+    if index is not None:
+        raise ValidationError(
+            f"`{field}` must hold finite numbers; got a non-finite value at index {index}."
+        )
+    return array
+
+
+class FiniteFloat(fields.Float):
+    """A float that dumps ``NaN`` and infinities as ``null``.
+
+    The engine reports values it cannot compute as ``None`` with a reason
+    flag; this field is the last guard so that a stray non-finite float can
+    never produce invalid JSON. The top-level response schema also records
+    such a replacement in ``warnings``.
+    """
+
+    def __init__(self, **kwargs: Any) -> None:
+        kwargs.setdefault("allow_none", True)
+        super().__init__(**kwargs)
+
+    def _serialize(self, value: Any, attr: str | None, obj: Any, **kwargs: Any) -> Any:
+        if value is None:
+            return None
+        number = float(value)
+        return number if math.isfinite(number) else None
+
+
+class StrictFloat(fields.Float):
+    """A float that accepts only JSON numbers, never numeric strings or booleans.
+
+    marshmallow's ``Float`` turns ``"250"`` into 250.0; a contract that says
+    *number* should not, so that a client sending strings learns it at once.
+    Non-finite values are refused (``allow_nan`` is off).
+    """
+
+    default_error_messages = {"strict": "Not a number: JSON numbers are written without quotes."}
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> Any:
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            raise self.make_error("strict")
+        return super()._deserialize(value, attr, data, **kwargs)

@@ -1,0 +1,432 @@
+"""Request schemas: JSON (or a parsed CSV upload) into typed analysis requests.
+
+``AnalysisRequestSchema().load(body)`` returns an :class:`AnalysisRequest`,
+frozen and fully typed, with every trace already a float64 numpy array. The
+schemas are strict: unknown members, numbers sent as strings, non-finite
+samples and channels of unequal length are all refused, and every offending
+field is reported at once.
+
+marshmallow 4 notes: hooks receive keyword arguments (``partial``, ``many``,
+``unknown``, ``data_key``), which every hook here accepts as ``**kwargs``;
+``Schema.context`` is gone, so limits are passed to the constructor.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from marshmallow import Schema, ValidationError, fields, post_load, validates_schema
+from marshmallow.validate import Length, OneOf, Range
+
+from features.conditioning import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ, valid_units
+from schemas.fields import BASE64_DTYPES, SamplesField, StrictFloat, decode_base64_samples
+
+QUANTITIES = ("acceleration", "displacement", "force", "velocity")
+#: Unit of a channel recorded in ADC counts (it then needs a ``counts_scale``).
+COUNTS_UNIT = "counts"
+PLACEMENTS = ("bed", "other", "platform", "seat")
+POSTURES = ("lying", "reclining", "seated", "standing", "unknown")
+SEXES = ("female", "male", "other", "unknown")
+INCLUDE_PARTS = ("beats", "signals", "template", "windows")
+MAINS_CHOICES = ("auto", 50, 60)
+#: Default cap on the samples of one request, all channels together.
+DEFAULT_MAX_SAMPLES = 4_000_000
+
+
+# --------------------------------------------------------------------------
+# Typed request objects
+# --------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class CountsScaleRequest:
+    """Scale from raw sensor counts to a physical unit: ``(counts - offset) * per_count``."""
+
+    unit: str
+    per_count: float
+    offset_counts: float = 0.0
+
+
+@dataclass(frozen=True)
+class ChannelRequest:
+    """One sensor channel, decoded."""
+
+    label: str
+    quantity: str
+    unit: str
+    samples: np.ndarray
+    counts_scale: CountsScaleRequest | None = None
+    position_m: tuple[float, float] | None = None
+
+
+@dataclass(frozen=True)
+class SubjectRequest:
+    """Optional facts about the person on the sensor."""
+
+    body_mass_kg: float | None = None
+    age_years: float | None = None
+    sex: str | None = None
+
+
+@dataclass(frozen=True)
+class RecordingRequest:
+    """Optional facts about the recording."""
+
+    placement: str | None = None
+    posture: str | None = None
+    start_time: dt.datetime | None = None
+    device_id: str | None = None
+
+
+@dataclass(frozen=True)
+class OptionsRequest:
+    """Analysis options; None means the engine's default."""
+
+    mains_hz: str | int | None = "auto"
+    empty_load_kg: float | None = None
+    rate_range_bpm: tuple[float, float] | None = None
+    include: frozenset[str] = frozenset()
+
+
+@dataclass(frozen=True)
+class AnalysisRequest:
+    """A validated analysis request, ready for the engine."""
+
+    sampling_rate_hz: float
+    channels: tuple[ChannelRequest, ...]
+    subject: SubjectRequest | None = None
+    recording: RecordingRequest | None = None
+    options: OptionsRequest = OptionsRequest()
+
+
+# --------------------------------------------------------------------------
+# Schemas
+# --------------------------------------------------------------------------
+
+
+def _sorted_choices(choices: tuple[str, ...]) -> str:
+    return ", ".join(sorted(choices))
+
+
+class CountsScaleSchema(Schema):
+    """Raw counts to a physical unit."""
+
+    unit = fields.String(
+        required=True,
+        validate=Length(min=1, max=16),
+        metadata={"description": "Physical unit after scaling, for example `N`."},
+    )
+    per_count = StrictFloat(
+        required=True,
+        metadata={"description": "Physical units per count (non-zero)."},
+    )
+    offset_counts = StrictFloat(
+        load_default=0.0,
+        metadata={"description": "Counts subtracted before scaling."},
+    )
+
+    @validates_schema
+    def _per_count_non_zero(self, data: Mapping[str, Any], **kwargs: Any) -> None:
+        if data.get("per_count") == 0:
+            raise ValidationError("`per_count` must be non-zero; got 0.", field_name="per_count")
+
+    @post_load
+    def _make(self, data: dict[str, Any], **kwargs: Any) -> CountsScaleRequest:
+        return CountsScaleRequest(**data)
+
+
+class ChannelSchema(Schema):
+    """One channel: its trace as numbers or as base64 binary, plus what it measures."""
+
+    label = fields.String(
+        required=True,
+        validate=Length(min=1, max=64),
+        metadata={"description": "Channel name, unique within the request."},
+    )
+    quantity = fields.String(
+        required=True,
+        validate=OneOf(QUANTITIES, error=f"Must be one of: {_sorted_choices(QUANTITIES)}."),
+        metadata={"description": "Physical quantity the sensor measures."},
+    )
+    unit = fields.String(
+        required=True,
+        validate=Length(min=1, max=16),
+        metadata={
+            "description": (
+                "Unit of the samples: force N, kN, kgf, lbf; acceleration m/s^2, m/s2, g, mg; "
+                "velocity m/s, mm/s; displacement m, mm, um; or `counts` with counts_scale."
+            )
+        },
+    )
+    samples = SamplesField(
+        metadata={"description": "The trace, one number per sample (give this or samples_base64)."}
+    )
+    samples_base64 = fields.String(
+        metadata={
+            "description": (
+                "The trace as little-endian binary values in standard base64 "
+                "(give this and dtype, or samples)."
+            )
+        }
+    )
+    dtype = fields.String(
+        validate=OneOf(
+            tuple(BASE64_DTYPES), error=f"Must be one of: {_sorted_choices(tuple(BASE64_DTYPES))}."
+        ),
+        metadata={"description": "Binary type of samples_base64 (little-endian)."},
+    )
+    counts_scale = fields.Nested(CountsScaleSchema)
+    position_m = fields.List(
+        StrictFloat(),
+        validate=Length(equal=2),
+        metadata={"description": "Sensor position [x, y] in metres on the plate."},
+    )
+
+    @validates_schema
+    def _one_encoding(self, data: Mapping[str, Any], **kwargs: Any) -> None:
+        has_list = "samples" in data
+        has_b64 = "samples_base64" in data
+        if has_list == has_b64:
+            raise ValidationError(
+                "Give exactly one of `samples` and `samples_base64`; got "
+                + ("both." if has_list else "neither."),
+                field_name="samples",
+            )
+        if has_b64 and "dtype" not in data:
+            raise ValidationError(
+                "`dtype` must be given with `samples_base64`; choose one of "
+                f"{_sorted_choices(tuple(BASE64_DTYPES))}.",
+                field_name="dtype",
+            )
+        if has_list and "dtype" in data:
+            raise ValidationError(
+                "`dtype` applies only to `samples_base64`; remove it.", field_name="dtype"
+            )
+
+    @validates_schema
+    def _known_unit(self, data: Mapping[str, Any], **kwargs: Any) -> None:
+        quantity, unit, scale = data["quantity"], data["unit"], data.get("counts_scale")
+        choices = valid_units(quantity)
+        if unit not in choices:
+            raise ValidationError(
+                f"`unit` must be one of {', '.join(choices)} for quantity {quantity!r}; "
+                f"got {unit!r}.",
+                field_name="unit",
+            )
+        if unit == COUNTS_UNIT and scale is None:
+            raise ValidationError(
+                f"`counts_scale` must be given when unit is {COUNTS_UNIT!r}.",
+                field_name="counts_scale",
+            )
+        if unit != COUNTS_UNIT and scale is not None:
+            raise ValidationError(
+                f"`counts_scale` applies only when unit is {COUNTS_UNIT!r}; got unit {unit!r}.",
+                field_name="counts_scale",
+            )
+        physical = [u for u in choices if u != COUNTS_UNIT]
+        if scale is not None and scale.unit not in physical:
+            raise ValidationError(
+                {"counts_scale": {"unit": [
+                    f"`counts_scale.unit` must be one of {', '.join(physical)} for quantity "
+                    f"{quantity!r}; got {scale.unit!r}."
+                ]}}
+            )
+
+    @post_load
+    def _make(self, data: dict[str, Any], **kwargs: Any) -> ChannelRequest:
+        if "samples_base64" in data:
+            try:
+                samples = decode_base64_samples(
+                    data["samples_base64"], data["dtype"], field="samples_base64"
+                )
+            except ValidationError as error:
+                raise ValidationError(error.messages, field_name="samples_base64") from None
+        else:
+            samples = data["samples"]
+        position = data.get("position_m")
+        return ChannelRequest(
+            label=data["label"],
+            quantity=data["quantity"],
+            unit=data["unit"],
+            samples=samples,
+            counts_scale=data.get("counts_scale"),
+            position_m=None if position is None else (position[0], position[1]),
+        )
+
+
+class SubjectSchema(Schema):
+    """Optional facts about the person; never logged."""
+
+    body_mass_kg = StrictFloat(
+        validate=Range(min=0, max=500, min_inclusive=False),
+        metadata={"description": "Body mass in kg, in (0, 500]."},
+    )
+    age_years = StrictFloat(
+        validate=Range(min=0, max=130),
+        metadata={"description": "Age in years, in [0, 130]."},
+    )
+    sex = fields.String(
+        validate=OneOf(SEXES, error=f"Must be one of: {_sorted_choices(SEXES)}."),
+    )
+
+    @post_load
+    def _make(self, data: dict[str, Any], **kwargs: Any) -> SubjectRequest:
+        return SubjectRequest(**data)
+
+
+class RecordingSchema(Schema):
+    """Optional facts about the recording; the device id is never logged."""
+
+    placement = fields.String(
+        validate=OneOf(PLACEMENTS, error=f"Must be one of: {_sorted_choices(PLACEMENTS)}."),
+        metadata={"description": "Where the sensor sits."},
+    )
+    posture = fields.String(
+        validate=OneOf(POSTURES, error=f"Must be one of: {_sorted_choices(POSTURES)}."),
+    )
+    start_time = fields.AwareDateTime(
+        metadata={"description": "Start of the recording, ISO 8601 with a UTC offset."}
+    )
+    device_id = fields.String(validate=Length(min=1, max=128))
+
+    @post_load
+    def _make(self, data: dict[str, Any], **kwargs: Any) -> RecordingRequest:
+        return RecordingRequest(**data)
+
+
+class MainsField(fields.Field):
+    """``"auto"``, 50, 60 or null."""
+
+    def __init__(self, **kwargs: Any) -> None:
+        metadata = {
+            "description": (
+                "Mains hum to remove: 50 or 60 (Hz), `auto` to detect it, null for none."
+            ),
+            "oneOf": [{"type": "string", "enum": ["auto"]}, {"type": "integer", "enum": [50, 60]}],
+        }
+        super().__init__(allow_none=True, load_default="auto", metadata=metadata, **kwargs)
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> Any:
+        if value == "auto" or (
+            not isinstance(value, bool) and isinstance(value, int | float) and value in (50, 60)
+        ):
+            return value if value == "auto" else int(value)
+        raise ValidationError(f"`mains_hz` must be one of 'auto', 50, 60 or null; got {value!r}.")
+
+
+class OptionsSchema(Schema):
+    """Analysis options."""
+
+    mains_hz = MainsField()
+    empty_load_kg = StrictFloat(
+        validate=Range(min=0, max=200),
+        metadata={"description": "Load of the empty support in kg, in [0, 200]; 0 when tared."},
+    )
+    rate_range_bpm = fields.List(
+        StrictFloat(validate=Range(min=20, max=250)),
+        validate=Length(equal=2),
+        metadata={"description": "Plausible heart-rate range [low, high] in bpm, within 20-250."},
+    )
+    include = fields.List(
+        fields.String(
+            validate=OneOf(
+                INCLUDE_PARTS, error=f"Must be one of: {_sorted_choices(INCLUDE_PARTS)}."
+            )
+        ),
+        metadata={
+            "description": "Bulky parts to add to the response.",
+            "uniqueItems": True,
+        },
+    )
+
+    @validates_schema
+    def _range_ordered(self, data: Mapping[str, Any], **kwargs: Any) -> None:
+        low_high = data.get("rate_range_bpm")
+        if low_high is not None and not low_high[0] < low_high[1]:
+            raise ValidationError(
+                f"`rate_range_bpm` must be [low, high] with low < high; got {low_high}.",
+                field_name="rate_range_bpm",
+            )
+
+    @post_load
+    def _make(self, data: dict[str, Any], **kwargs: Any) -> OptionsRequest:
+        include = frozenset(data.pop("include", ()))
+        low_high = data.pop("rate_range_bpm", None)
+        return OptionsRequest(
+            include=include,
+            rate_range_bpm=None if low_high is None else (low_high[0], low_high[1]),
+            **data,
+        )
+
+
+class AnalysisRequestSchema(Schema):
+    """Body of ``POST /v1/analyses``.
+
+    Parameters
+    ----------
+    max_samples
+        Cap on the samples of one request, all channels together.
+    """
+
+    sampling_rate_hz = StrictFloat(
+        required=True,
+        validate=Range(min=MIN_FS_HZ, max=MAX_FS_HZ),
+        metadata={
+            "description": f"Sampling rate of every channel, {MIN_FS_HZ:g}-{MAX_FS_HZ:g} Hz."
+        },
+    )
+    channels = fields.List(
+        fields.Nested(ChannelSchema),
+        required=True,
+        validate=Length(min=1, max=MAX_CHANNELS),
+        metadata={"description": f"1 to {MAX_CHANNELS} channels of equal length."},
+    )
+    subject = fields.Nested(SubjectSchema)
+    recording = fields.Nested(RecordingSchema)
+    options = fields.Nested(OptionsSchema)
+
+    def __init__(self, *, max_samples: int = DEFAULT_MAX_SAMPLES, **kwargs: Any) -> None:
+        super().__init__(**kwargs)
+        self.max_samples = max_samples
+
+    @validates_schema
+    def _channels_agree(self, data: Mapping[str, Any], **kwargs: Any) -> None:
+        channels = data.get("channels") or []
+        errors: dict[int, dict[str, list[str]]] = {}
+        if channels:
+            expected = channels[0].samples.size
+            seen: dict[str, int] = {}
+            for i, channel in enumerate(channels):
+                if channel.samples.size != expected:
+                    errors.setdefault(i, {})["samples"] = [
+                        f"`channels[{i}].samples` must have as many samples as channels[0] "
+                        f"({expected}); got {channel.samples.size}."
+                    ]
+                if channel.label in seen:
+                    errors.setdefault(i, {})["label"] = [
+                        f"`channels[{i}].label` must be unique; got {channel.label!r}, "
+                        f"already used by channels[{seen[channel.label]}]."
+                    ]
+                seen.setdefault(channel.label, i)
+        if errors:
+            raise ValidationError({"channels": errors})
+        total = sum(channel.samples.size for channel in channels)
+        if total > self.max_samples:
+            raise ValidationError(
+                f"`channels` must hold at most {self.max_samples} samples in total; got {total}.",
+                field_name="channels",
+            )
+
+    @post_load
+    def _make(self, data: dict[str, Any], **kwargs: Any) -> AnalysisRequest:
+        return AnalysisRequest(
+            sampling_rate_hz=data["sampling_rate_hz"],
+            channels=tuple(data["channels"]),
+            subject=data.get("subject"),
+            recording=data.get("recording"),
+            options=data.get("options") or OptionsRequest(),
+        )

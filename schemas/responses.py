@@ -1,0 +1,430 @@
+"""Response schemas: the engine's result dataclasses into JSON.
+
+:class:`AnalysisResponseSchema` dumps an :class:`AnalysisReport` (the engine
+result plus the request's ``include`` set and an id). It reads the result by
+attribute, so this module never imports the engine. The bulky parts (beats,
+windows, template, signals) appear only when the request asked for them.
+
+``NaN`` and infinities never reach JSON: the last step of the dump walks the
+document, replaces any non-finite number by ``null`` and names where it did so
+in ``warnings``. A family the engine does not compute is ``null`` and named in
+``warnings`` too, never left out silently.
+"""
+
+from __future__ import annotations
+
+import math
+import uuid
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from marshmallow import Schema, fields, missing, post_dump
+
+#: The caution carried by every analysis.
+NOTICE = (
+    "heartsway is not a medical device and this analysis is not a diagnosis. The values are "
+    "estimates from a force or motion trace, for research and wellness monitoring; each comes "
+    "with a confidence and may be wrong. Decisions about a person's health belong to qualified "
+    "clinicians, under the regulation that applies where the person lives."
+)
+
+#: Scalar features copied into ``feature_vector``: name -> dotted path in the response.
+# TODO(lead): derive from the engine's feature catalogue once it exists, so that
+# /v1/features and this vector share one list.
+FEATURE_VECTOR_PATHS: dict[str, str] = {
+    "heart_rate_mean_bpm": "heart_rate.mean_bpm",
+    "heart_rate_median_bpm": "heart_rate.median_bpm",
+    "mean_nn_ms": "variability.time_domain.mean_nn_ms",
+    "sdnn_ms": "variability.time_domain.sdnn_ms",
+    "rmssd_ms": "variability.time_domain.rmssd_ms",
+    "sdsd_ms": "variability.time_domain.sdsd_ms",
+    "pnn50_pct": "variability.time_domain.pnn50_pct",
+    "pnn20_pct": "variability.time_domain.pnn20_pct",
+    "cvnn_pct": "variability.time_domain.cvnn_pct",
+    "vlf_power_ms2": "variability.frequency_domain.vlf_power_ms2",
+    "lf_power_ms2": "variability.frequency_domain.lf_power_ms2",
+    "hf_power_ms2": "variability.frequency_domain.hf_power_ms2",
+    "lf_hf_ratio": "variability.frequency_domain.lf_hf_ratio",
+    "sd1_ms": "variability.nonlinear.sd1_ms",
+    "sd2_ms": "variability.nonlinear.sd2_ms",
+    "sample_entropy": "variability.nonlinear.sample_entropy",
+    "dfa_alpha1": "variability.nonlinear.dfa_alpha1",
+    "usable_fraction": "quality.usable_fraction",
+}
+
+#: Families of the response that the engine may not compute yet.
+OPTIONAL_FAMILIES = ("morphology", "respiration")
+
+
+@dataclass(frozen=True)
+class AnalysisReport:
+    """What the service dumps: the engine result, what was asked for, and an id."""
+
+    result: Any
+    include: frozenset[str] = frozenset()
+    analysis_id: str = field(default_factory=lambda: str(uuid.uuid4()))
+
+
+# --------------------------------------------------------------------------
+# Fields
+# --------------------------------------------------------------------------
+
+
+class Number(fields.Float):
+    """A float (numpy scalars included) or null; non-finite values are fixed at the end."""
+
+    def __init__(self, **kwargs: Any) -> None:
+        kwargs.setdefault("allow_none", True)
+        super().__init__(**kwargs)
+
+    def _serialize(self, value: Any, attr: str | None, obj: Any, **kwargs: Any) -> Any:
+        return None if value is None else float(value)
+
+
+class NumberList(fields.Field):
+    """A sequence or 1-D array of floats, dumped in one numpy call."""
+
+    def __init__(self, **kwargs: Any) -> None:
+        metadata = {"type": "array", "items": {"type": ["number", "null"]}}
+        metadata.update(kwargs.pop("metadata", {}))
+        super().__init__(metadata=metadata, **kwargs)
+
+    def _serialize(self, value: Any, attr: str | None, obj: Any, **kwargs: Any) -> Any:
+        return np.asarray(value, dtype=np.float64).reshape(-1).tolist()
+
+
+def _strings(**kwargs: Any) -> fields.List:
+    return fields.List(fields.String(), **kwargs)
+
+
+def _flags() -> fields.List:
+    return _strings(
+        required=True, metadata={"description": "Names of anything the engine adapted or lacked."}
+    )
+
+
+def _confidence() -> Number:
+    return Number(required=True, allow_none=False, metadata={"description": "Confidence, 0-1."})
+
+
+# --------------------------------------------------------------------------
+# Families
+# --------------------------------------------------------------------------
+
+
+class ChannelSummarySchema(Schema):
+    label = fields.String(required=True)
+    weight = Number(required=True, metadata={"description": "Weight in the fused trace."})
+
+
+class InputSummarySchema(Schema):
+    duration_s = Number(required=True)
+    sampling_rate_hz = Number(required=True)
+    n_samples = fields.Integer(required=True)
+    channels = fields.Method("_channels", required=True, metadata={
+        "type": "array", "items": {"$ref": "#/components/schemas/ChannelSummary"}
+    })
+    fusion_method = fields.String(required=True)
+    amplitude_unit = fields.String(required=True)
+    mains_hz_removed = Number(required=True)
+    cop_cardiac_excursion_mm = Number(required=True)
+    flags = _flags()
+
+    def _channels(self, obj: Any) -> list[dict[str, Any]]:
+        pairs = zip(obj.channel_labels, obj.channel_weights, strict=True)
+        return [{"label": label, "weight": float(weight)} for label, weight in pairs]
+
+
+class SegmentSchema(Schema):
+    start_s = Number(required=True)
+    end_s = Number(required=True)
+    kind = fields.String(required=True, metadata={"description": "Why it is masked."})
+
+
+class QualitySchema(Schema):
+    usable_fraction = Number(required=True)
+    segments = fields.List(fields.Nested(SegmentSchema), required=True)
+    confidence = _confidence()
+    flags = _flags()
+
+
+class OccupancySchema(Schema):
+    occupied = fields.Boolean(required=True, allow_none=True)
+    supported_mass_kg = Number(required=True)
+    from_load = fields.Boolean(required=True, allow_none=True)
+    from_heartbeat = fields.Boolean(required=True)
+    confidence = _confidence()
+    flags = _flags()
+
+
+class HeartRateSchema(Schema):
+    mean_bpm = Number(required=True)
+    median_bpm = Number(required=True)
+    envelope_bpm = Number(required=True, metadata={"description": "Rate from the trace envelope."})
+    intervals_used = fields.Integer(required=True)
+    confidence = _confidence()
+    reason = fields.String(
+        required=True, allow_none=True, metadata={"description": "Why mean_bpm is null, if it is."}
+    )
+    flags = _flags()
+
+
+class BeatsSchema(Schema):
+    """Beats (``include`` has ``beats``): J-wave times and the intervals between them."""
+
+    times_s = NumberList(required=True, attribute="beats.times_s")
+    confidence = NumberList(required=True, attribute="beats.confidence")
+    polarity = fields.Integer(required=True, attribute="beats.polarity")
+    interval_times_s = NumberList(required=True, attribute="intervals.times_s")
+    intervals_ms = NumberList(required=True, attribute="intervals.intervals_ms")
+    labels = _strings(required=True, attribute="interval_labels.labels")
+    n_candidates = fields.Integer(required=True, attribute="beats.n_candidates")
+    n_rejected = fields.Integer(required=True, attribute="beats.n_rejected")
+    n_recovered = fields.Integer(required=True, attribute="beats.n_recovered")
+    flags = _strings(required=True, attribute="beats.flags")
+
+
+class TemplateSchema(Schema):
+    """Ensemble beat (``include`` has ``template``), J-positive."""
+
+    samples = NumberList(required=True, attribute="template")
+    fs_hz = Number(required=True, attribute="template_fs_hz")
+
+
+class TimeDomainSchema(Schema):
+    mean_nn_ms = Number(required=True)
+    sdnn_ms = Number(required=True)
+    rmssd_ms = Number(required=True)
+    sdsd_ms = Number(required=True)
+    pnn50_pct = Number(required=True)
+    pnn20_pct = Number(required=True)
+    cvnn_pct = Number(required=True)
+    mean_hr_bpm = Number(required=True)
+    sd_hr_bpm = Number(required=True)
+    n_intervals = fields.Integer(required=True)
+    duration_s = Number(required=True)
+    confidence = _confidence()
+    flags = _flags()
+
+
+class FrequencyDomainSchema(Schema):
+    vlf_power_ms2 = Number(required=True)
+    lf_power_ms2 = Number(required=True)
+    hf_power_ms2 = Number(required=True)
+    total_power_ms2 = Number(required=True)
+    lf_hf_ratio = Number(required=True)
+    lf_nu = Number(required=True)
+    hf_nu = Number(required=True)
+    lf_peak_hz = Number(required=True)
+    hf_peak_hz = Number(required=True)
+    vlf_band_hz = NumberList(required=True)
+    lf_band_hz = NumberList(required=True)
+    hf_band_hz = NumberList(required=True)
+    n_intervals = fields.Integer(required=True)
+    duration_s = Number(required=True)
+    confidence = _confidence()
+    flags = _flags()
+
+
+class NonlinearSchema(Schema):
+    sd1_ms = Number(required=True)
+    sd2_ms = Number(required=True)
+    sd1_sd2_ratio = Number(required=True)
+    sample_entropy = Number(required=True)
+    dfa_alpha1 = Number(required=True)
+    dfa_alpha2 = Number(required=True)
+    n_intervals = fields.Integer(required=True)
+    confidence = _confidence()
+    flags = _flags()
+
+
+class VariabilitySchema(Schema):
+    time_domain = fields.Nested(TimeDomainSchema, required=True)
+    frequency_domain = fields.Nested(FrequencyDomainSchema, required=True)
+    nonlinear = fields.Nested(NonlinearSchema, required=True)
+    n_intervals_total = fields.Integer(required=True)
+    n_nn_used = fields.Integer(required=True)
+    fraction_rejected = Number(required=True)
+    confidence = _confidence()
+    flags = _flags()
+
+
+class SignalsSchema(Schema):
+    """Spectra and series (``include`` has ``signals``)."""
+
+    psd_frequencies_hz = NumberList(
+        required=True, attribute="variability.frequency_domain.frequencies_hz"
+    )
+    psd_ms2_per_hz = NumberList(
+        required=True, attribute="variability.frequency_domain.psd_ms2_per_hz"
+    )
+    nn_times_s = NumberList(required=True, attribute="interval_labels.nn_times_s")
+    nn_intervals_ms = NumberList(required=True, attribute="interval_labels.nn_intervals_ms")
+
+
+# --------------------------------------------------------------------------
+# The analysis
+# --------------------------------------------------------------------------
+
+
+def _get(obj: Any, dotted: str) -> Any:
+    for part in dotted.split("."):
+        obj = obj.get(part) if isinstance(obj, Mapping) else getattr(obj, part, None)
+        if obj is None:
+            return None
+    return obj
+
+
+def _replace_non_finite(node: Any, path: str, found: list[str]) -> Any:
+    if isinstance(node, float):
+        if math.isfinite(node):
+            return node
+        found.append(path)
+        return None
+    if isinstance(node, dict):
+        return {
+            k: _replace_non_finite(v, f"{path}.{k}" if path else k, found) for k, v in node.items()
+        }
+    if isinstance(node, list):
+        return [_replace_non_finite(v, f"{path}[{i}]", found) for i, v in enumerate(node)]
+    return node
+
+
+class AnalysisResponseSchema(Schema):
+    """Body of a 200 answer to ``POST /v1/analyses``."""
+
+    analysis_id = fields.String(required=True, metadata={"description": "UUID of this analysis."})
+    engine_version = fields.String(required=True, attribute="result.engine_version")
+    feature_set_version = fields.String(required=True, attribute="result.feature_set_version")
+    input = fields.Nested(InputSummarySchema, required=True, attribute="result.input")
+    quality = fields.Nested(QualitySchema, required=True, attribute="result.quality")
+    occupancy = fields.Nested(OccupancySchema, required=True, attribute="result.occupancy")
+    heart_rate = fields.Nested(HeartRateSchema, required=True, attribute="result.heart_rate")
+    beats = fields.Method("_beats", metadata={
+        "description": "Present when `include` has `beats`.",
+        "allOf": [{"$ref": "#/components/schemas/Beats"}],
+    })
+    variability = fields.Nested(VariabilitySchema, required=True, attribute="result.variability")
+    morphology = fields.Method("_optional_morphology", required=True, metadata={
+        "description": "Waveform morphology; null (named in warnings) when not computed.",
+        "type": ["object", "null"],
+    })
+    respiration = fields.Method("_optional_respiration", required=True, metadata={
+        "description": "Respiration; null (named in warnings) when not computed.",
+        "type": ["object", "null"],
+    })
+    template = fields.Method("_template", metadata={
+        "description": "Present when `include` has `template`.",
+        "allOf": [{"$ref": "#/components/schemas/Template"}],
+    })
+    signals = fields.Method("_signals", metadata={
+        "description": "Present when `include` has `signals`.",
+        "allOf": [{"$ref": "#/components/schemas/Signals"}],
+    })
+    windows = fields.Method("_windows", metadata={
+        "description": (
+            "Present when `include` has `windows`: per-window features, or null (named in "
+            "warnings) when the engine does not compute them."
+        ),
+        "type": ["array", "null"],
+        "items": {"type": "object"},
+    })
+    feature_vector = fields.Method("_feature_vector", required=True, metadata={
+        "type": "object",
+        "additionalProperties": {"type": ["number", "null"]},
+        "description": "The main scalar features by name (see GET /v1/features).",
+    })
+    warnings = fields.Method("_warnings", required=True, metadata={
+        "type": "array", "items": {"type": "string"},
+    })
+    notice = fields.Constant(NOTICE, required=True, dump_only=True, metadata={
+        "type": "string", "description": "The caution that comes with every analysis."
+    })
+
+    # -- parts ------------------------------------------------------------
+
+    def _asked(self, report: AnalysisReport, part: str) -> bool:
+        return part in report.include
+
+    def _beats(self, report: AnalysisReport) -> Any:
+        if not self._asked(report, "beats"):
+            return missing
+        return BeatsSchema().dump(report.result)
+
+    def _template(self, report: AnalysisReport) -> Any:
+        if not self._asked(report, "template"):
+            return missing
+        return TemplateSchema().dump(report.result.beats)
+
+    def _signals(self, report: AnalysisReport) -> Any:
+        if not self._asked(report, "signals"):
+            return missing
+        return SignalsSchema().dump(report.result)
+
+    def _windows(self, report: AnalysisReport) -> Any:
+        if not self._asked(report, "windows"):
+            return missing
+        windows = getattr(report.result, "windows", None)
+        if windows is None:
+            return None
+        return [dict(vars(w)) if hasattr(w, "__dict__") else w for w in windows]
+
+    def _optional(self, report: AnalysisReport, family: str) -> Any:
+        value = getattr(report.result, family, None)
+        if value is None:
+            return None
+        # TODO: a schema per family once the engine's result types land.
+        return _plain(value)
+
+    def _optional_morphology(self, report: AnalysisReport) -> Any:
+        return self._optional(report, "morphology")
+
+    def _optional_respiration(self, report: AnalysisReport) -> Any:
+        return self._optional(report, "respiration")
+
+    def _feature_vector(self, report: AnalysisReport) -> dict[str, float | None]:
+        # Filled in post-dump from the dumped families.
+        return {}
+
+    def _warnings(self, report: AnalysisReport) -> list[str]:
+        return [str(w) for w in report.result.warnings]
+
+    @post_dump
+    def _finish(self, data: dict[str, Any], **kwargs: Any) -> dict[str, Any]:
+        data["feature_vector"] = {
+            name: _plain_number(_get(data, path)) for name, path in FEATURE_VECTOR_PATHS.items()
+        }
+        warnings = list(data.get("warnings", []))
+        for family in OPTIONAL_FAMILIES:
+            if data.get(family) is None:
+                warnings.append(f"{family}: not computed by this engine version")
+        if "windows" in data and data["windows"] is None:
+            warnings.append("windows: not computed by this engine version")
+        found: list[str] = []
+        data = _replace_non_finite(data, "", found)
+        if found:
+            shown = ", ".join(found[:10]) + (" and more" if len(found) > 10 else "")
+            warnings.append(f"non-finite values replaced by null at: {shown}")
+        data["warnings"] = warnings
+        return data
+
+
+def _plain_number(value: Any) -> float | None:
+    return float(value) if isinstance(value, int | float) and not isinstance(value, bool) else None
+
+
+def _plain(value: Any) -> Any:
+    """A dataclass or container of numbers and strings as plain JSON values."""
+    if hasattr(value, "__dataclass_fields__"):
+        return {name: _plain(getattr(value, name)) for name in value.__dataclass_fields__}
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, list | tuple):
+        return [_plain(v) for v in value]
+    if isinstance(value, Mapping):
+        return {str(k): _plain(v) for k, v in value.items()}
+    return value

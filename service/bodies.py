@@ -1,0 +1,81 @@
+"""Reading request bodies: strict JSON, or a multipart CSV upload."""
+
+from __future__ import annotations
+
+import json
+from typing import Any, NoReturn
+
+from flask import request
+from werkzeug.exceptions import BadRequest, UnsupportedMediaType
+
+from schemas.csv_input import csv_request_body
+from schemas.errors import SchemaValidationError
+from schemas.requests import AnalysisRequest, AnalysisRequestSchema
+
+JSON_MEDIA_TYPE = "application/json"
+MULTIPART_MEDIA_TYPE = "multipart/form-data"
+
+
+def _reject_constant(name: str) -> NoReturn:
+    raise ValueError(f"{name} is not a JSON number")
+
+
+def read_json() -> Any:
+    """Parse the body as JSON (RFC 8259), refusing ``NaN`` and ``Infinity``.
+
+    Raises
+    ------
+    werkzeug.exceptions.BadRequest
+        When the body is not valid UTF-8 JSON or nests too deeply.
+    werkzeug.exceptions.RequestEntityTooLarge
+        When the body exceeds ``MAX_CONTENT_LENGTH`` (raised by Werkzeug).
+    """
+    data = request.get_data(cache=False)
+    try:
+        return json.loads(data, parse_constant=_reject_constant)
+    except UnicodeDecodeError:
+        raise BadRequest(
+            "The body must be JSON encoded as UTF-8; got bytes that are not."
+        ) from None
+    except json.JSONDecodeError as error:
+        raise BadRequest(
+            f"The body must be valid JSON; got an error at line {error.lineno}, "
+            f"column {error.colno}: {error.msg}."
+        ) from None
+    except ValueError as error:
+        raise BadRequest(f"The body must be valid JSON; got {error}.") from None
+    except RecursionError:
+        raise BadRequest(
+            "The body must be valid JSON of modest depth; got one nested too deeply."
+        ) from None
+
+
+def read_analysis_request(schema: AnalysisRequestSchema) -> AnalysisRequest:
+    """Load the analysis request from a JSON body or a multipart CSV upload.
+
+    Raises
+    ------
+    werkzeug.exceptions.UnsupportedMediaType
+        For any other media type.
+    schemas.errors.SchemaValidationError
+        When the content breaks the contract.
+    """
+    mimetype = request.mimetype
+    if mimetype == JSON_MEDIA_TYPE:
+        return schema.load(read_json())
+    if mimetype == MULTIPART_MEDIA_TYPE:
+        upload = request.files.get("file")
+        if upload is None:
+            raise SchemaValidationError({"file": ["`file` must be a CSV file part; got none."]})
+        try:
+            text = upload.read().decode("utf-8")
+        except UnicodeDecodeError:
+            raise SchemaValidationError(
+                {"file": ["`file` must be CSV text encoded as UTF-8; got bytes that are not."]}
+            ) from None
+        form = {key: request.form[key] for key in request.form}
+        return schema.load(csv_request_body(text, form))
+    raise UnsupportedMediaType(
+        f"The body must be {JSON_MEDIA_TYPE} or {MULTIPART_MEDIA_TYPE} (a CSV `file`); "
+        f"got {mimetype or 'no media type'}."
+    )

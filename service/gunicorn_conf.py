@@ -1,0 +1,55 @@
+"""gunicorn settings, read from the environment.
+
+Used by the container, ``make run`` and ``heartsway serve`` alike::
+
+    gunicorn --config python:service.gunicorn_conf "service:create_app()"
+
+==============================  =================  ==============================
+variable                        default            gunicorn setting
+==============================  =================  ==============================
+``HEARTSWAY_BIND``              ``127.0.0.1:8000`` ``bind``
+``HEARTSWAY_WORKERS``           ``2``              ``workers``
+``HEARTSWAY_TIMEOUT_S``         ``60``             ``timeout`` (worker silent for)
+``HEARTSWAY_GRACEFUL_TIMEOUT_S`` ``30``             ``graceful_timeout``
+``HEARTSWAY_KEEPALIVE_S``       ``5``              ``keepalive``
+``HEARTSWAY_MAX_REQUESTS``      ``1000``           ``max_requests`` (then recycled)
+==============================  =================  ==============================
+
+gunicorn 25.1 and later open a control socket under ``$HOME`` by default,
+which fails in a read-only container; it is turned off here (older versions
+ignore the unknown setting).
+"""
+
+from __future__ import annotations
+
+import os
+
+
+def _int(name: str, default: int, *, minimum: int = 1) -> int:
+    text = os.environ.get(name, str(default))
+    try:
+        value = int(text)
+    except ValueError:
+        raise SystemExit(f"`{name}` must be an integer >= {minimum}; got {text!r}.") from None
+    if value < minimum:
+        raise SystemExit(f"`{name}` must be an integer >= {minimum}; got {value}.")
+    return value
+
+
+bind = [os.environ.get("HEARTSWAY_BIND", "127.0.0.1:8000")]
+workers = _int("HEARTSWAY_WORKERS", 2)
+timeout = _int("HEARTSWAY_TIMEOUT_S", 60)
+graceful_timeout = _int("HEARTSWAY_GRACEFUL_TIMEOUT_S", 30)
+keepalive = _int("HEARTSWAY_KEEPALIVE_S", 5)
+max_requests = _int("HEARTSWAY_MAX_REQUESTS", 1000, minimum=0)
+max_requests_jitter = max(1, max_requests // 10) if max_requests else 0
+
+# No control socket: nothing is written under $HOME (read-only containers).
+control_socket_disable = True
+# Worker heartbeat files in memory rather than on a possibly read-only disk.
+worker_tmp_dir = "/dev/shm" if os.path.isdir("/dev/shm") else None
+# The application writes its own JSON request lines; gunicorn's access log is off.
+accesslog = None
+errorlog = "-"
+# The app is imported once in the master, then forked.
+preload_app = True

@@ -1,0 +1,133 @@
+"""RFC 9457 problem details: one set of error handlers for the whole service.
+
+Plain HTTP errors (400, 404, 405, 413, 415, 500, 503) use the type
+``about:blank`` with the status phrase as title, as RFC 9457 section 4.2.1
+describes. Problems of our own domain have their own type URIs under
+``urn:heartsway:problem:``. Responses never carry a stack trace.
+"""
+
+from __future__ import annotations
+
+from http import HTTPStatus
+from typing import Any
+
+from flask import Flask, Response, current_app, json, request
+from werkzeug.exceptions import HTTPException
+
+from features.errors import InvalidInputError, UnusableSignalError
+from schemas.errors import SchemaValidationError, flatten_errors, pointer_of
+from service.analysis import EngineUnavailableError
+from service.logs import current_request_id, logger
+
+PROBLEM_MEDIA_TYPE = "application/problem+json"
+TYPE_PREFIX = "urn:heartsway:problem:"
+VALIDATION_TYPE = TYPE_PREFIX + "validation-error"
+UNUSABLE_SIGNAL_TYPE = TYPE_PREFIX + "unusable-signal"
+
+
+#: Titles from RFC 9110 section 15 where Python's phrases still use older names.
+_TITLES = {413: "Content Too Large", 422: "Unprocessable Content"}
+
+
+def problem(
+    status: int,
+    detail: str,
+    *,
+    type_: str = "about:blank",
+    title: str | None = None,
+    headers: dict[str, str] | None = None,
+    **members: Any,
+) -> Response:
+    """Build a problem-details response."""
+    body: dict[str, Any] = {
+        "type": type_,
+        "title": title or _TITLES.get(status) or HTTPStatus(status).phrase,
+        "status": status,
+        "detail": detail,
+        "request_id": current_request_id(),
+    }
+    body.update(members)
+    response = Response(
+        json.dumps(body), status=status, mimetype=PROBLEM_MEDIA_TYPE, headers=headers
+    )
+    return response
+
+
+def validation_problem(errors: list[dict[str, str]]) -> Response:
+    """422 naming every offending field."""
+    fields = sorted({e["field"] for e in errors})
+    return problem(
+        422,
+        f"The request breaks {len(errors)} rule(s), in: {', '.join(fields)}.",
+        type_=VALIDATION_TYPE,
+        title="Request validation failed",
+        errors=errors,
+    )
+
+
+def _http_error(error: HTTPException) -> Response:
+    status = error.code or 500
+    headers = {}
+    detail = error.description or HTTPStatus(status).description
+    if status == 405:
+        allowed = ", ".join(sorted(getattr(error, "valid_methods", None) or []))
+        headers["Allow"] = allowed
+        detail = f"The method {request.method} is not allowed on this path; use one of: {allowed}."
+    elif status == 413:
+        limit = current_app.config["MAX_CONTENT_LENGTH"]
+        sent = request.content_length
+        detail = f"The body must be at most {limit} bytes; got " + (
+            f"{sent} bytes." if sent is not None else "more."
+        )
+    elif status == 404:
+        detail = "No resource at this path; the contract is at /openapi.yaml."
+    return problem(status, detail, headers=headers)
+
+
+def _schema_error(error: SchemaValidationError) -> Response:
+    return validation_problem(flatten_errors(error.messages))
+
+
+def _invalid_input(error: InvalidInputError) -> Response:
+    field = error.field or "body"
+    return validation_problem(
+        [{"field": field, "pointer": pointer_of(field), "detail": error.message}]
+    )
+
+
+def _unusable_signal(error: UnusableSignalError) -> Response:
+    return problem(
+        422,
+        error.message,
+        type_=UNUSABLE_SIGNAL_TYPE,
+        title="The trace holds no usable signal",
+        reason=error.reason,
+    )
+
+
+def _unavailable(error: EngineUnavailableError) -> Response:
+    return problem(503, str(error), headers={"Retry-After": "30"})
+
+
+def _unexpected(error: Exception) -> Response:
+    if isinstance(error, HTTPException):
+        return _http_error(error)
+    logger.error(
+        "unhandled_error",
+        exc_info=error,
+        extra={"fields": {"request_id": current_request_id()}},
+    )
+    return problem(
+        500,
+        "The server met an unexpected error; it has been logged under the request id.",
+    )
+
+
+def init_app(app: Flask) -> None:
+    """Register the handlers on ``app``."""
+    app.register_error_handler(HTTPException, _http_error)
+    app.register_error_handler(SchemaValidationError, _schema_error)
+    app.register_error_handler(InvalidInputError, _invalid_input)
+    app.register_error_handler(UnusableSignalError, _unusable_signal)
+    app.register_error_handler(EngineUnavailableError, _unavailable)
+    app.register_error_handler(Exception, _unexpected)

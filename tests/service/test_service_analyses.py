@@ -1,0 +1,175 @@
+"""POST /v1/analyses end to end on the demo scenario's trace (in process)."""
+
+from __future__ import annotations
+
+import base64
+import io
+import json
+import math
+
+import numpy as np
+import pytest
+from service_contract import check_against_contract, multipart
+
+from features.intervals import LABELS
+from schemas.responses import NOTICE
+from service.demo import demo_request_body
+
+DEMO_HEART_RATE_BPM = 66.0  # the simulator's setting in service.demo
+
+
+@pytest.fixture(scope="module")
+def demo_body():
+    return demo_request_body()
+
+
+def _post(client, body):
+    return client.post("/v1/analyses", json=body)
+
+
+def test_demo_analysis_is_200_and_matches_the_contract(client, demo_body):
+    response = _post(client, demo_body)
+    assert response.status_code == 200, response.get_data(as_text=True)
+    assert response.mimetype == "application/json"
+    check_against_contract(response, "/v1/analyses", "post")
+    body = response.get_json()
+    assert body["notice"] == NOTICE
+    assert "not a medical device" in body["notice"] and "clinician" in body["notice"]
+    assert body["input"]["n_samples"] == len(demo_body["channels"][0]["samples"])
+    assert [c["label"] for c in body["input"]["channels"]] == [
+        c["label"] for c in demo_body["channels"]
+    ]
+    # The simulator's mean rate (service.demo) within 3 bpm (common practice for
+    # seated BCG rate agreement; the engine's own accuracy is tested in features).
+    assert abs(body["heart_rate"]["mean_bpm"] - DEMO_HEART_RATE_BPM) < 3.0
+    assert body["feature_vector"]["heart_rate_mean_bpm"] == body["heart_rate"]["mean_bpm"]
+    assert body["feature_vector"]["sdnn_ms"] == body["variability"]["time_domain"]["sdnn_ms"]
+    # Not asked for: the bulky parts are absent.
+    assert not {"beats", "template", "signals", "windows"} & set(body)
+
+
+def test_families_not_computed_are_null_with_a_reason(client, demo_body):
+    body = _post(client, demo_body).get_json()
+    for family in ("morphology", "respiration"):
+        assert family in body
+        if body[family] is None:
+            assert any(w.startswith(f"{family}:") for w in body["warnings"])
+
+
+def test_include_adds_beats_template_signals_windows(client, demo_body):
+    asked = {**demo_body, "options": {"include": ["beats", "template", "signals", "windows"]}}
+    response = _post(client, asked)
+    assert response.status_code == 200
+    check_against_contract(response, "/v1/analyses", "post")
+    body = response.get_json()
+    beats = body["beats"]
+    assert len(beats["times_s"]) == len(beats["confidence"])
+    assert len(beats["intervals_ms"]) == len(beats["labels"]) == len(beats["interval_times_s"])
+    assert set(beats["labels"]) <= set(LABELS)
+    # Intervals are differences of successive beat times within a run (in ms).
+    times = np.asarray(beats["times_s"])
+    assert np.all(np.diff(times) > 0)
+    assert min(beats["intervals_ms"]) >= 1000 * np.diff(times).min() - 1e-6
+    assert body["template"]["fs_hz"] > 0 and body["template"]["samples"]
+    assert len(body["signals"]["psd_frequencies_hz"]) == len(body["signals"]["psd_ms2_per_hz"])
+    assert "windows" in body
+    if body["windows"] is None:
+        assert any(w.startswith("windows:") for w in body["warnings"])
+
+
+def test_base64_channels_give_the_same_numbers_as_lists(client, demo_body):
+    encoded = json.loads(json.dumps(demo_body))
+    for channel in encoded["channels"]:
+        raw = np.asarray(channel.pop("samples"), dtype="<f8").tobytes()
+        channel["samples_base64"] = base64.b64encode(raw).decode("ascii")
+        channel["dtype"] = "float64"
+    first = _post(client, demo_body).get_json()
+    second = _post(client, encoded).get_json()
+    assert first["feature_vector"] == second["feature_vector"]
+    assert first["heart_rate"] == second["heart_rate"]
+
+
+def test_counts_with_a_scale_give_the_same_numbers_as_newtons(client, demo_body):
+    per_count = 0.001  # 1 mN per count: the demo's 3 decimals are whole counts
+    scaled = json.loads(json.dumps(demo_body))
+    for channel in scaled["channels"]:
+        counts = np.round(np.asarray(channel.pop("samples")) / per_count).astype("<i4")
+        channel["samples_base64"] = base64.b64encode(counts.tobytes()).decode("ascii")
+        channel["dtype"] = "int32"
+        channel["unit"] = "counts"
+        channel["counts_scale"] = {"unit": "N", "per_count": per_count}
+    first = _post(client, demo_body).get_json()
+    second = _post(client, scaled).get_json()
+    for name, value in first["feature_vector"].items():
+        other = second["feature_vector"][name]
+        assert (value is None) == (other is None), name
+        if value is not None:
+            assert math.isclose(value, other, rel_tol=1e-6, abs_tol=1e-9), name
+
+
+def _csv(body) -> bytes:
+    labels = [c["label"] for c in body["channels"]]
+    columns = np.column_stack([c["samples"] for c in body["channels"]])
+    text = io.StringIO()
+    text.write("time_s," + ",".join(labels) + "\n")
+    fs = body["sampling_rate_hz"]
+    for i, row in enumerate(columns):
+        text.write(f"{i / fs:.4f}," + ",".join(f"{v:.3f}" for v in row) + "\n")
+    return text.getvalue().encode("utf-8")
+
+
+def test_csv_upload_gives_the_same_numbers_as_json(client, demo_body):
+    plain = {k: v for k, v in demo_body.items() if k in ("sampling_rate_hz", "channels")}
+    plain["channels"] = [{k: c[k] for k in ("label", "quantity", "unit", "samples")}
+                         for c in plain["channels"]]
+    response = client.post(
+        "/v1/analyses",
+        **multipart(
+            {"sampling_rate_hz": str(demo_body["sampling_rate_hz"]), "include": "beats"},
+            _csv(demo_body),
+        ),
+    )
+    assert response.status_code == 200, response.get_data(as_text=True)
+    check_against_contract(response, "/v1/analyses", "post")
+    from_csv = response.get_json()
+    from_json = _post(client, {**plain, "options": {"include": ["beats"]}}).get_json()
+    assert from_csv["feature_vector"] == from_json["feature_vector"]
+    assert from_csv["beats"]["times_s"] == from_json["beats"]["times_s"]
+
+
+def test_non_finite_result_values_become_null_with_a_warning(monkeypatch, client, demo_body):
+    import dataclasses
+
+    import service.analysis as analysis
+
+    real = analysis.features.analyze
+
+    def with_nan(*args, **kwargs):
+        result = real(*args, **kwargs)
+        heart = dataclasses.replace(result.heart_rate, mean_bpm=float("nan"))
+        return dataclasses.replace(result, heart_rate=heart)
+
+    monkeypatch.setattr(analysis.features, "analyze", with_nan)
+    response = _post(client, demo_body)
+    assert response.status_code == 200
+    text = response.get_data(as_text=True)
+    assert "NaN" not in text and "Infinity" not in text
+    body = json.loads(text)
+    assert body["heart_rate"]["mean_bpm"] is None
+    assert body["feature_vector"]["heart_rate_mean_bpm"] is None
+    assert any("heart_rate.mean_bpm" in w for w in body["warnings"])
+    check_against_contract(response, "/v1/analyses", "post")
+
+
+def test_engine_rule_reaches_the_client_as_422(client):
+    # 10 s at 100 Hz: shorter than the engine's minimum record (features.conditioning).
+    body = {"sampling_rate_hz": 100.0,
+            "channels": [{"label": "seat", "quantity": "force", "unit": "N",
+                          "samples": (700 + np.sin(np.arange(1000) / 10)).tolist()}]}
+    response = _post(client, body)
+    assert response.status_code == 422
+    assert response.mimetype == "application/problem+json"
+    problem = response.get_json()
+    assert problem["type"] == "urn:heartsway:problem:validation-error"
+    assert problem["errors"][0]["field"].startswith("channels")
+    check_against_contract(response, "/v1/analyses", "post")

@@ -1,0 +1,47 @@
+"""The contract: generated, committed, valid, and matching the application's routes."""
+
+from __future__ import annotations
+
+from openapi_spec_validator import validate
+from service_contract import ROOT, contract
+
+from service import create_app
+from service.openapi import main, spec_yaml
+
+
+def test_committed_contract_is_current():
+    committed = (ROOT / "openapi.yaml").read_text(encoding="utf-8")
+    assert committed == spec_yaml(), "openapi.yaml is stale: run `python -m service.openapi`"
+
+
+def test_check_command_reports_a_stale_file(tmp_path):
+    stale = tmp_path / "openapi.yaml"
+    stale.write_text("openapi: 3.1.0\n", encoding="utf-8")
+    assert main([str(stale), "--check"]) == 1
+    assert main([str(stale)]) == 0
+    assert main([str(stale), "--check"]) == 0
+
+
+def test_contract_is_valid_openapi_3_1():
+    # openapi-spec-validator checks the document against the OpenAPI 3.1 schema.
+    validate(contract())
+    assert contract()["openapi"] == "3.1.0"
+
+
+def test_every_route_is_in_the_contract_and_back():
+    app = create_app()
+    routes = {
+        (rule.rule, method.lower())
+        for rule in app.url_map.iter_rules()
+        for method in rule.methods - {"HEAD", "OPTIONS"}
+    }
+    described = {
+        (path, method) for path, item in contract()["paths"].items() for method in item
+    }
+    assert routes == described
+
+
+def test_every_error_status_is_described():
+    operation = contract()["paths"]["/v1/analyses"]["post"]
+    assert {"400", "405", "413", "415", "422", "500"} <= set(operation["responses"])
+    assert set(operation["requestBody"]["content"]) == {"application/json", "multipart/form-data"}
