@@ -999,7 +999,7 @@ def simulate(settings: SimulationSettings) -> SimulatedRecording:
        +15 %). Irregular rhythm: log-normal intervals (sigma 0.22), no RSA, SV following the
        previous interval (Frank-Starling).
     3. Systolic time intervals from the rate (Weissler): ejection onset = electrical time +
-       PEP; ejection time LVET.
+       PEP; ejection time LVET, with 3 % beat-to-beat jitter (so beat shapes vary).
     4. Blood momentum of the lumped arterial path (:func:`blood_momentum`) at an internal rate
        ``m * fs`` >= 2 kHz; ``dp_blood/dt`` passes through the support
        (:func:`support_response`) to give the dynamic support force.
@@ -1055,6 +1055,7 @@ def simulate(settings: SimulationSettings) -> SimulatedRecording:
     rate_bpm = 60.0 / np.maximum(np.r_[intervals[:1], intervals[:-1]], 0.25)
     lvet, pep = _systole_s(rate_bpm)
     lvet = np.where(np.array(kinds) == "ectopic", 0.8 * lvet, lvet)
+    lvet = lvet * np.clip(1.0 + 0.03 * beat_rng.standard_normal(lvet.size), 0.9, 1.1)
     onsets = electrical + pep
     preset = support_preset(s.support, body_mass_kg=mass)
 
