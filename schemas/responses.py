@@ -22,6 +22,8 @@ from typing import Any
 import numpy as np
 from marshmallow import Schema, fields, missing, post_dump
 
+from schemas.catalogue import FEATURES
+
 #: The caution carried by every analysis.
 NOTICE = (
     "heartsway is not a medical device and this analysis is not a diagnosis. The values are "
@@ -31,28 +33,7 @@ NOTICE = (
 )
 
 #: Scalar features copied into ``feature_vector``: name -> dotted path in the response.
-# TODO(lead): derive from the engine's feature catalogue once it exists, so that
-# /v1/features and this vector share one list.
-FEATURE_VECTOR_PATHS: dict[str, str] = {
-    "heart_rate_mean_bpm": "heart_rate.mean_bpm",
-    "heart_rate_median_bpm": "heart_rate.median_bpm",
-    "mean_nn_ms": "variability.time_domain.mean_nn_ms",
-    "sdnn_ms": "variability.time_domain.sdnn_ms",
-    "rmssd_ms": "variability.time_domain.rmssd_ms",
-    "sdsd_ms": "variability.time_domain.sdsd_ms",
-    "pnn50_pct": "variability.time_domain.pnn50_pct",
-    "pnn20_pct": "variability.time_domain.pnn20_pct",
-    "cvnn_pct": "variability.time_domain.cvnn_pct",
-    "vlf_power_ms2": "variability.frequency_domain.vlf_power_ms2",
-    "lf_power_ms2": "variability.frequency_domain.lf_power_ms2",
-    "hf_power_ms2": "variability.frequency_domain.hf_power_ms2",
-    "lf_hf_ratio": "variability.frequency_domain.lf_hf_ratio",
-    "sd1_ms": "variability.nonlinear.sd1_ms",
-    "sd2_ms": "variability.nonlinear.sd2_ms",
-    "sample_entropy": "variability.nonlinear.sample_entropy",
-    "dfa_alpha1": "variability.nonlinear.dfa_alpha1",
-    "usable_fraction": "quality.usable_fraction",
-}
+FEATURE_VECTOR_PATHS: dict[str, str] = {entry.name: entry.path for entry in FEATURES}
 
 #: Families of the response that the engine may not compute yet.
 OPTIONAL_FAMILIES = ("morphology", "respiration")

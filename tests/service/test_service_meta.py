@@ -6,6 +6,7 @@ import yaml
 from service_contract import ROOT, check_against_contract, engine_ready
 
 import features
+from features.engine import FEATURE_SET_VERSION
 
 
 def test_healthz_answers_ok(client):
@@ -44,10 +45,28 @@ def test_feature_catalogue_lists_features_with_units(client):
     assert response.mimetype == "application/json"
     body = response.get_json()
     assert set(body) == {"feature_set_version", "features"}
+    assert body["feature_set_version"] == FEATURE_SET_VERSION
+    names = [entry["name"] for entry in body["features"]]
+    assert len(names) == len(set(names))
+    # Task Force (1996) measures that the issue requires by name.
+    assert {"sdnn_ms", "rmssd_ms", "heart_rate_mean_bpm"} <= set(names)
     for entry in body["features"]:
-        assert set(entry) == {"name", "family", "unit", "definition"}
+        assert set(entry) == {"name", "family", "unit", "path", "definition"}
         assert entry["definition"]
     check_against_contract(response, "/v1/features", "get")
+
+
+def test_every_catalogued_feature_is_in_the_vector_of_a_real_analysis(client):
+    from service.demo import demo_request_body
+
+    catalogue = client.get("/v1/features").get_json()["features"]
+    analysis = client.post("/v1/analyses", json=demo_request_body()).get_json()
+    assert set(analysis["feature_vector"]) == {entry["name"] for entry in catalogue}
+    for entry in catalogue:
+        node = analysis
+        for part in entry["path"].split("."):
+            node = node[part]
+        assert analysis["feature_vector"][entry["name"]] == node, entry["name"]
 
 
 def test_request_id_is_echoed_when_well_formed(client):
