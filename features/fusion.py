@@ -1,0 +1,436 @@
+"""Channel fusion: one trace with the strongest cardiac component, and the centre of pressure.
+
+``fuse_channels`` weights and sign-aligns the conditioned channels by their
+cardiac-band signal-to-noise ratio (maximum-ratio combining) and, for load cells
+with known positions, computes the centre of pressure (CoP) trajectory, its
+cardiac-band excursion and its respiratory-band component.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.fft
+from numpy.typing import ArrayLike, NDArray
+
+from features.conditioning import (
+    MAX_CHANNELS,
+    MIN_DURATION_S,
+    MIN_OCCUPANT_KG,
+    STANDARD_GRAVITY_M_S2,
+    check_sampling_rate,
+)
+from features.errors import InvalidInputError
+from features.filters import FloatArray, bandpass, block_centres, block_means
+
+#: Analysis rate for the weights and the CoP, Hz (block means; at least 2.5x the band top).
+ANALYSIS_FS_HZ = 100.0
+#: Window of the autocorrelation estimates, s (several beats even at 30 bpm).
+WINDOW_S = 10.0
+#: Heart-period lags searched, s (200 to 30 bpm).
+LAG_RANGE_S = (0.3, 2.0)
+#: Largest periodic fraction of band power credited to one channel (SNR cap of 19).
+MAX_PERIODIC_FRACTION = 0.95
+#: Below this combined SNR no channel shows a heartbeat and equal weights are used.
+MIN_SNR = 0.05
+#: Respiratory band of the CoP, Hz (3 to 60 breaths/min).
+RESPIRATORY_BAND_HZ = (0.05, 1.0)
+#: CoP is undefined where the total force is below the lightest plausible occupant.
+_MIN_TOTAL_FORCE_N = MIN_OCCUPANT_KG * STANDARD_GRAVITY_M_S2
+#: Robust scale of a normal distribution from the median absolute deviation.
+_MAD_TO_SD = 1.4826
+#: Standard error of the median over that of the mean for normal data, sqrt(pi/2).
+_SE_MEDIAN = 1.2533
+
+
+@dataclass(frozen=True)
+class FusionResult:
+    """Fused trace, the weights behind it and the centre of pressure.
+
+    Attributes
+    ----------
+    fused
+        (n,) float64, ``sum_i weights[i] * signals[i] / (channel_scales[i] or 1)``.
+    weights
+        Signed weight per channel; sum of ``|w|`` equals the number of channels.
+    method
+        ``"passthrough"``, ``"maximum_ratio_combining"`` or ``"equal_weights"``.
+    unit
+        Unit of ``fused``: the common channel unit, or ``"a.u."`` for mixed units.
+    channel_snr
+        Cardiac-band SNR (periodic over aperiodic power) per channel, None when not
+        estimated (single channel) or the channel is dead.
+    channel_scales
+        Robust cardiac-band scale per channel used to normalise mixed units, else None.
+    heart_lag_s
+        Median heart-period lag of the autocorrelation, s; None for one channel.
+    cop_m
+        (m, 2) CoP trajectory in m at ``cop_fs_hz``; NaN where the support is empty.
+    cop_fs_hz
+        Rate of ``cop_m`` and ``cop_respiratory_m``, Hz.
+    cop_respiratory_m
+        (m, 2) CoP band-passed to ``RESPIRATORY_BAND_HZ``, m; NaN where empty.
+    cop_cardiac_excursion_mm
+        Median over 10 s windows of the radial RMS of the ``band_hz`` CoP, mm.
+    confidence
+        Median periodic fraction of the fused cardiac-band power at the heart lag, [0, 1].
+    flags
+        Adaptations and reasons for None values.
+    """
+
+    fused: FloatArray
+    weights: tuple[float, ...]
+    method: str
+    unit: str
+    channel_snr: tuple[float | None, ...]
+    channel_scales: tuple[float, ...] | None
+    heart_lag_s: float | None
+    cop_m: FloatArray | None
+    cop_fs_hz: float | None
+    cop_respiratory_m: FloatArray | None
+    cop_cardiac_excursion_mm: float | None
+    confidence: float
+    flags: tuple[str, ...]
+
+
+def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | None = None,
+                  positions_m: ArrayLike | None = None, static_n: ArrayLike | None = None,
+                  static_fs_hz: float | None = None,
+                  band_hz: tuple[float, float] = (1.0, 20.0)) -> FusionResult:
+    """Combine conditioned channels so that the cardiac component is strongest.
+
+    Parameters
+    ----------
+    signals
+        (n_channels, n) conditioned traces (1 to 8 channels, static part removed), or a
+        1-D trace for a single channel. Finite values only.
+    fs_hz
+        Sampling rate, 50 to 2000 Hz.
+    units
+        Unit per channel (``ConditionedInput.units``). None means one common, unnamed
+        unit: weights are computed as for equal units and ``unit`` is ``"a.u."``.
+    positions_m
+        (n_channels, 2) sensor positions in m for the CoP; needs force channels and
+        ``static_n``.
+    static_n
+        Static force per cell that was removed from ``signals``, N: (n_channels,) or a
+        slow trace (n_channels, k) at ``static_fs_hz`` (``ConditionedInput.baseline_si``).
+    static_fs_hz
+        Rate of a 2-D ``static_n``, Hz; sample ``j`` is the mean of a block centred at
+        ``(j + 0.5) / static_fs_hz - 0.5 / fs_hz`` s.
+    band_hz
+        Cardiac band (low, high) in Hz, ``0 < low < high <= 40``.
+
+    Returns
+    -------
+    FusionResult
+
+    Raises
+    ------
+    InvalidInputError
+        Bad shapes, non-finite samples, a record under ``MIN_DURATION_S``, a bad band,
+        or positions/static forces that do not match the channels.
+
+    Notes
+    -----
+    1. Block-mean the channels to about ``ANALYSIS_FS_HZ`` and band-pass to ``band_hz``.
+       For mixed units, divide each channel by its robust scale (1.4826 x MAD).
+    2. In 10 s windows, compute each channel's unbiased autocorrelation ``r(k)`` by
+       FFT. The heart-period lag ``T`` of a window is the peak within 0.3-2 s of the
+       sum of ``r(k) / r(0)`` over the channels; with three or more live channels,
+       over the other channels only (leave one out, so that a noise channel cannot
+       choose a lag that flatters it).
+    3. A periodic (cardiac) component of period ``T`` keeps its power at lag ``T``
+       while band-limited noise has decorrelated, so the periodic fraction
+       ``q = r(T) / r(0)`` estimates SNR / (1 + SNR). Its median over windows (robust
+       to movement) is shrunk by two standard errors of the median
+       (1.2533 x 1.4826 x MAD / sqrt(windows)) and clipped to [0, 0.95], so that a
+       pure-noise channel ends at or near zero. With ``P`` the median window power,
+       ``P_s = q P`` and ``P_n = P - P_s``.
+    4. The sign of a channel is the sign of the median zero-lag correlation with the
+       highest-SNR channel; all signs flip if needed so that the weights sum to a
+       positive value (the weighted majority keeps its recorded polarity).
+    5. Maximum-ratio combining [1]: ``w_i = sign_i * sqrt(P_s,i) / P_n,i``, the
+       weights that maximise the output SNR for one common waveform in independent
+       noise. Weights are scaled so that ``sum |w_i| = n_channels``: equal channels
+       give the plain sum (four load cells sum to the total force, in N).
+       Departure from [1]: amplitude and noise come from the autocorrelation above,
+       not from a known pilot, and correlated noise between channels is ignored.
+    6. CoP [2]: ``CoP(t) = sum_i F_i(t) p_i / sum_i F_i(t)`` on block means of the
+       total force ``F_i = signals_i + static_i``; undefined (NaN) where the total
+       is below ``MIN_OCCUPANT_KG * g``. The cardiac excursion is the median over
+       10 s windows of the radial RMS of the CoP band-passed to ``band_hz``.
+
+    References
+    ----------
+    .. [1] D. G. Brennan, "Linear diversity combining techniques", Proceedings of
+       the IRE, 47(6), 1075-1102, 1959. DOI 10.1109/JRPROC.1959.275173.
+    .. [2] D. A. Winter, "Biomechanics and Motor Control of Human Movement", 4th ed.,
+       Wiley, 2009 (centre of pressure from force-plate load cells).
+       DOI 10.1002/9780470549148.
+    """
+    fs = check_sampling_rate(fs_hz)
+    x = _check_signals(signals, fs)
+    n_ch = x.shape[0]
+    unit_list = _check_units(units, n_ch)
+    band = _check_band(band_hz)
+    flags: list[str] = []
+    mixed = unit_list is not None and len(set(unit_list)) > 1
+    unit = unit_list[0] if unit_list is not None and not mixed else "a.u."
+    if unit_list is None:
+        flags.append("fusion_units_not_given")
+
+    factor = max(1, int(fs // max(ANALYSIS_FS_HZ, 2.5 * band[1])))
+    fs_a = fs / factor
+    if band[1] >= 0.5 * fs_a:
+        raise InvalidInputError("band_hz", f"`band_hz` upper edge must be below {0.5 * fs_a:g} "
+                                f"Hz at fs_hz={fs:g}; got {band[1]:g}.")
+    slow = block_means(x, factor)
+    cardiac = bandpass(slow, fs_a, band, axis=-1)
+
+    if n_ch == 1:
+        weights = np.ones(1)
+        scales = None
+        snr: tuple[float | None, ...] = (None,)
+        lag_s = None
+        method = "passthrough"
+        fused = np.array(x[0], dtype=np.float64)
+        conf = _periodic_fraction(cardiac[0][None], fs_a)
+    else:
+        scales_arr = None
+        if mixed:
+            scales_arr = _robust_scale(cardiac)
+            safe = np.where(scales_arr > 0.0, scales_arr, 1.0)
+            cardiac = cardiac / safe[:, None]
+            flags.append("fusion_mixed_units_scale_normalised")
+        weights, snr_arr, lag_s, method = _mrc_weights(cardiac, fs_a, flags)
+        eff = weights if scales_arr is None else np.where(
+            scales_arr > 0.0, weights / np.where(scales_arr > 0.0, scales_arr, 1.0), 0.0)
+        fused = np.asarray(eff @ x, dtype=np.float64)
+        conf = _periodic_fraction((weights @ cardiac)[None], fs_a)
+        scales = None if scales_arr is None else tuple(float(s) for s in scales_arr)
+        snr = tuple(None if not math.isfinite(v) else float(v) for v in snr_arr)
+
+    cop = _cop(slow, fs, factor, positions_m, static_n, static_fs_hz, unit_list, band, flags)
+    return FusionResult(
+        fused=fused, weights=tuple(float(w) for w in weights), method=method, unit=unit,
+        channel_snr=snr, channel_scales=scales, heart_lag_s=lag_s,
+        cop_m=cop[0], cop_fs_hz=fs_a if cop[0] is not None else None,
+        cop_respiratory_m=cop[1], cop_cardiac_excursion_mm=cop[2],
+        confidence=conf, flags=tuple(flags),
+    )
+
+
+# ----------------------------------------------------------------------------- validation
+
+
+def _check_signals(signals: ArrayLike, fs: float) -> FloatArray:
+    x = np.asarray(signals)
+    if x.ndim == 1:
+        x = x[None, :]
+    if x.ndim != 2 or x.dtype.kind not in "iuf":
+        raise InvalidInputError("signals", "`signals` must be a real (n_channels, n) array; got "
+                                f"shape {x.shape} and dtype {x.dtype}.")
+    if not 1 <= x.shape[0] <= MAX_CHANNELS:
+        raise InvalidInputError("signals", f"`signals` must hold 1 to {MAX_CHANNELS} channels; "
+                                f"got {x.shape[0]}.")
+    if x.shape[1] / fs < MIN_DURATION_S:
+        raise InvalidInputError("signals", f"`signals` must span at least {MIN_DURATION_S:g} s; "
+                                f"got {x.shape[1] / fs:g} s.")
+    if x.dtype.kind == "f" and not np.isfinite(x).all():
+        raise InvalidInputError("signals", "`signals` must be finite (no NaN or inf); got "
+                                f"{int(np.count_nonzero(~np.isfinite(x)))} non-finite values.")
+    return np.asarray(x, dtype=np.float64)
+
+
+def _check_units(units: Sequence[str] | None, n_ch: int) -> list[str] | None:
+    if units is None:
+        return None
+    out = list(units)
+    if len(out) != n_ch or not all(isinstance(u, str) and u for u in out):
+        raise InvalidInputError("units", f"`units` must hold one non-empty string per channel "
+                                f"({n_ch}); got {units!r}.")
+    return out
+
+
+def _check_band(band_hz: tuple[float, float]) -> tuple[float, float]:
+    try:
+        low, high = (float(v) for v in band_hz)
+    except (TypeError, ValueError):
+        raise InvalidInputError("band_hz", "`band_hz` must be a pair (low, high) in Hz; got "
+                                f"{band_hz!r}.") from None
+    if not (math.isfinite(low) and math.isfinite(high) and 0.0 < low < high <= 40.0):
+        raise InvalidInputError("band_hz", "`band_hz` must satisfy 0 < low < high <= 40 Hz; got "
+                                f"({low:g}, {high:g}).")
+    return low, high
+
+
+# ----------------------------------------------------------------------------- kernels
+
+
+def _robust_scale(x: FloatArray) -> FloatArray:
+    med = np.median(x, axis=-1, keepdims=True)
+    return np.asarray(_MAD_TO_SD * np.median(np.abs(x - med), axis=-1))
+
+
+def _windows(x: FloatArray, fs_a: float) -> FloatArray:
+    """(n_ch, m) -> (n_ch, n_win, L) non-overlapping windows of ``WINDOW_S``."""
+    length = int(round(WINDOW_S * fs_a))
+    count = x.shape[-1] // length
+    return x[:, : count * length].reshape(x.shape[0], count, length)
+
+
+def _autocorr(w: FloatArray, max_lag: int) -> FloatArray:
+    """Unbiased autocorrelation along the last axis for lags 0..max_lag."""
+    length = w.shape[-1]
+    nfft = scipy.fft.next_fast_len(2 * length, real=True)
+    spec = scipy.fft.rfft(w, nfft, axis=-1)
+    r = scipy.fft.irfft(spec.real ** 2 + spec.imag ** 2, nfft, axis=-1)[..., : max_lag + 1]
+    return np.asarray(r / (length - np.arange(max_lag + 1)))
+
+
+def _heart_lags(r: FloatArray, fs_a: float, *, leave_one_out: bool = False
+                ) -> tuple[FloatArray, NDArray[np.intp]]:
+    """Per window, the lag (index) of the summed normalised autocorrelation peak.
+
+    With ``leave_one_out`` the lag for channel ``i`` comes from the other channels
+    only, so that a channel's own noise cannot pick the lag that flatters it; the
+    result then has one row of lags per channel, shape (n_ch, n_win).
+    """
+    lo = int(round(LAG_RANGE_S[0] * fs_a))
+    r0 = r[..., 0]
+    norm = np.divide(r, r0[..., None], out=np.zeros_like(r), where=r0[..., None] > 0.0)
+    summed = norm.sum(axis=0)
+    if leave_one_out:
+        others = summed[None, :, lo:] - norm[:, :, lo:]
+        return r0, lo + np.argmax(others, axis=-1)
+    return r0, lo + np.argmax(summed[:, lo:], axis=-1)
+
+
+def _mrc_weights(cardiac: FloatArray, fs_a: float, flags: list[str]
+                 ) -> tuple[FloatArray, FloatArray, float | None, str]:
+    n_ch = cardiac.shape[0]
+    win = _windows(cardiac, fs_a)
+    r = _autocorr(win, int(round(LAG_RANGE_S[1] * fs_a)))
+    total = np.median(np.mean(win ** 2, axis=-1), axis=-1)
+    dead = total <= 0.0
+    loo = int(np.count_nonzero(~dead)) >= 3
+    r0, lag = _heart_lags(r, fs_a, leave_one_out=loo)
+    if not loo:
+        lag = np.broadcast_to(lag, r0.shape)
+    rt = np.take_along_axis(r, lag[..., None], axis=-1)[..., 0]
+    frac = np.divide(rt, r0, out=np.zeros_like(rt), where=r0 > 0.0)
+    med = np.median(frac, axis=-1)
+    se = _SE_MEDIAN * _MAD_TO_SD * np.median(np.abs(frac - med[:, None]), axis=-1) \
+        / np.sqrt(frac.shape[-1])
+    frac_hat = np.clip(med - 2.0 * se, 0.0, MAX_PERIODIC_FRACTION)
+    ps = frac_hat * total
+    pn = total - ps
+    snr = np.where(dead, np.nan, ps / np.where(pn > 0.0, pn, 1.0))
+    lag_s = float(np.median(lag) / fs_a)
+    if dead.all() or np.nanmax(snr) < MIN_SNR:
+        flags.append("no_cardiac_periodicity_equal_weights")
+        return np.ones(n_ch), snr, lag_s, "equal_weights"
+    ref = int(np.nanargmax(snr))
+    cross = np.einsum("cwl,wl->cw", win, win[ref])
+    energy = np.einsum("cwl,cwl->cw", win, win)
+    denom = np.sqrt(energy * energy[ref][None, :])
+    corr = np.divide(cross, denom, out=np.zeros_like(cross), where=denom > 0.0)
+    sign = np.where(np.median(corr, axis=-1) < 0.0, -1.0, 1.0)
+    raw = np.where(dead, 0.0, sign * np.sqrt(ps) / np.where(pn > 0.0, pn, np.inf))
+    if raw.sum() < 0.0:
+        # Polarity is relative: keep the weighted majority of channels as recorded.
+        raw, sign = -raw, -sign
+    for i in np.flatnonzero(dead):
+        flags.append(f"channels[{i}]_dead_weight_zero")
+    weak = ~dead & (snr < MIN_SNR)
+    for i in np.flatnonzero((sign < 0.0) & ~weak & ~dead):
+        flags.append(f"channels[{i}]_inverted")
+    for i in np.flatnonzero(weak):
+        flags.append(f"channels[{i}]_low_cardiac_snr")
+    weights = raw * (n_ch / np.sum(np.abs(raw)))
+    return weights, snr, lag_s, "maximum_ratio_combining"
+
+
+def _periodic_fraction(cardiac: FloatArray, fs_a: float) -> float:
+    """Median over windows of r(T)/r(0) at the trace's own heart lag, in [0, 1]."""
+    win = _windows(cardiac, fs_a)
+    r = _autocorr(win, int(round(LAG_RANGE_S[1] * fs_a)))
+    r0, lag = _heart_lags(r, fs_a)
+    rt = np.take_along_axis(r[0], lag[:, None], axis=-1)[:, 0]
+    frac = np.divide(rt, r0[0], out=np.zeros_like(rt), where=r0[0] > 0.0)
+    return float(np.clip(np.median(frac), 0.0, 1.0))
+
+
+def _cop(slow: FloatArray, fs: float, factor: int, positions_m: ArrayLike | None,
+         static_n: ArrayLike | None, static_fs_hz: float | None, units: list[str] | None,
+         band: tuple[float, float], flags: list[str]
+         ) -> tuple[FloatArray | None, FloatArray | None, float | None]:
+    if positions_m is None:
+        return None, None, None
+    n_ch, m = slow.shape
+    pos = np.asarray(positions_m, dtype=np.float64)
+    if pos.shape != (n_ch, 2) or not np.isfinite(pos).all():
+        raise InvalidInputError("positions_m", f"`positions_m` must be a finite ({n_ch}, 2) "
+                                f"array in m; got shape {pos.shape}.")
+    if units is not None and any(u != "N" for u in units):
+        flags.append("cop_needs_force_channels")
+        return None, None, None
+    if units is None:
+        flags.append("cop_assumes_force_channels")
+    if static_n is None:
+        flags.append("cop_needs_static_force")
+        return None, None, None
+    total = slow + _static_at(static_n, static_fs_hz, fs, factor, n_ch, m)
+    force = total.sum(axis=0)
+    valid = force >= _MIN_TOTAL_FORCE_N
+    if not valid.any():
+        flags.append("cop_support_empty")
+        return None, None, None
+    safe = np.where(valid, force, 1.0)
+    cop = np.ascontiguousarray(((pos.T @ total) / safe).T)
+    cop[~valid] = np.nan
+    filled = cop.copy()
+    idx = np.arange(m)
+    for axis in range(2):
+        filled[:, axis] = np.interp(idx, idx[valid], cop[valid, axis])
+    fs_a = fs / factor
+    resp = bandpass(filled, fs_a, RESPIRATORY_BAND_HZ, axis=0)
+    resp[~valid] = np.nan
+    excursion = None
+    if valid.mean() < 0.5:
+        flags.append("cop_support_mostly_empty_no_excursion")
+    else:
+        card = bandpass(filled, fs_a, band, axis=0)
+        power = (card ** 2).sum(axis=1)
+        win_p = _windows(power[None], fs_a)[0]
+        win_v = _windows(valid[None].astype(np.float64), fs_a)[0]
+        full = win_v.min(axis=-1) > 0.0
+        if full.any():
+            excursion = float(1000.0 * np.median(np.sqrt(win_p[full].mean(axis=-1))))
+        else:
+            flags.append("cop_no_fully_occupied_window_no_excursion")
+    return cop, resp, excursion
+
+
+def _static_at(static_n: ArrayLike, static_fs_hz: float | None, fs: float, factor: int,
+               n_ch: int, m: int) -> FloatArray:
+    st = np.asarray(static_n, dtype=np.float64)
+    if st.shape == (n_ch,):
+        if not np.isfinite(st).all():
+            raise InvalidInputError("static_n", "`static_n` must be finite.")
+        return st[:, None]
+    if st.ndim != 2 or st.shape[0] != n_ch or st.shape[1] < 2 or not np.isfinite(st).all():
+        raise InvalidInputError("static_n", f"`static_n` must be finite, shape ({n_ch},) or "
+                                f"({n_ch}, k >= 2); got shape {st.shape}.")
+    rate = None if static_fs_hz is None else float(static_fs_hz)
+    if rate is None or not (math.isfinite(rate) and 0.0 < rate <= fs):
+        raise InvalidInputError("static_fs_hz", "`static_fs_hz` must be a rate in Hz, "
+                                f"0 < static_fs_hz <= fs_hz, for a 2-D static_n; got "
+                                f"{static_fs_hz!r}.")
+    at = block_centres(m, factor)
+    slow_at = (np.arange(st.shape[1]) + 0.5) * (fs / rate) - 0.5
+    return np.stack([np.interp(at, slow_at, row) for row in st])

@@ -1,0 +1,218 @@
+"""Tests for features.artifacts: injected movement, steps, clipping, flat lines, empty support."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from features.artifacts import Segment, mask_artifacts
+from features.errors import InvalidInputError
+
+FS = 250.0
+G = 9.80665  # standard gravity, m/s^2 (NIST SP 811, 2008, B.8)
+DURATION_S = 300.0
+LOAD_FS = 10.0
+
+
+def _bcg(duration_s: float, fs: float, rng: np.random.Generator) -> np.ndarray:
+    """Synthetic I-J-K complex (three Gaussians) at ~60 bpm with 5 % RR jitter."""
+    n = int(duration_s * fs)
+    beats = np.cumsum(rng.normal(1.0, 0.05, int(duration_s * 2)))
+    beats = beats[beats < duration_s - 1.0]
+    imp = np.zeros(n)
+    imp[(beats * fs).astype(int)] = 1.0
+    kt = np.arange(-0.3, 0.3, 1.0 / fs)
+    kern = (-0.4 * np.exp(-(((kt + 0.08) / 0.03) ** 2)) + np.exp(-((kt / 0.03) ** 2))
+            - 0.6 * np.exp(-(((kt - 0.08) / 0.035) ** 2)))
+    return np.convolve(imp, kern, mode="same")
+
+
+def _record(seed: int = 0) -> tuple[np.ndarray, list[np.ndarray], np.ndarray]:
+    """Fused trace, four raw load-cell traces (N) and a 10 Hz occupant load trace."""
+    rng = np.random.default_rng(seed)
+    n = int(DURATION_S * FS)
+    t = np.arange(n) / FS
+    body = _bcg(DURATION_S, FS, rng) + 0.3 * np.sin(2 * np.pi * 0.25 * t)
+    fused = body + 0.05 * rng.standard_normal(n)
+    share = [0.4, 0.3, 0.2, 0.1]
+    raw = [s * 75.0 * G + s * body + 0.02 * rng.standard_normal(n) for s in share]
+    load = np.full(int(DURATION_S * LOAD_FS), 75.0 * G)
+    return fused, raw, load
+
+
+def _spans(mask: object, kind: str) -> list[Segment]:
+    return [s for s in mask.segments if s.kind == kind]  # type: ignore[attr-defined]
+
+
+def test_clean_record_is_almost_unmasked() -> None:
+    fused, raw, load = _record()
+    mask = mask_artifacts(fused, FS, load_n=load, load_fs_hz=LOAD_FS, raw_signals=raw)
+    # Requirement of the stage: false-mask fraction < 2 % on a clean record.
+    assert mask.usable_fraction > 0.98
+    assert mask.usable.shape == fused.shape and mask.usable.dtype == bool
+    assert 0.0 <= mask.confidence <= 1.0
+
+
+def _inject(seed: int = 1) -> tuple[np.ndarray, list[np.ndarray], np.ndarray]:
+    fused, raw, load = _record(seed)
+    rng = np.random.default_rng(100 + seed)
+    i = lambda s: int(s * FS)  # noqa: E731
+    # Movement: 3 s of broadband motion, ten times the cardiac amplitude, 60-63 s.
+    burst = 3.0 * rng.standard_normal(i(3.0))
+    fused[i(60):i(63)] += burst
+    for r in raw:
+        r[i(60):i(63)] += burst
+    # Posture change at 120 s: 50 N moves from cell 0 to cell 1 (total unchanged).
+    raw[0][i(120):] += 50.0
+    raw[1][i(120):] -= 50.0
+    # Clipping: cell 2 saturates at a rail above its whole range for 180-180.5 s.
+    rail = raw[2].max() + 5.0
+    raw[2][i(180):i(180.5)] = rail
+    # Flat line: cell 3 holds its value for 240-241 s (a dropout).
+    raw[3][i(240):i(241)] = raw[3][i(240)]
+    # Empty support: occupant off the support for 270-285 s.
+    t_load = np.arange(load.size) / LOAD_FS
+    load[(t_load >= 270.0) & (t_load < 285.0)] = 0.5 * G
+    return fused, raw, load
+
+
+def test_injected_events_are_found_within_tolerance() -> None:
+    fused, raw, load = _inject()
+    mask = mask_artifacts(fused, FS, load_n=load, load_fs_hz=LOAD_FS, raw_signals=raw)
+
+    move = _spans(mask, "movement")
+    # Movement span: the burst, padded by 1 s, widened by at most the 1 s envelope and
+    # one 0.25 s block on each side (documented construction).
+    assert any(s.start_s <= 60.0 and s.end_s >= 63.0 for s in move)
+    hit = [s for s in move if s.start_s < 63.0 and s.end_s > 60.0]
+    assert all(s.start_s >= 60.0 - 2.5 and s.end_s <= 63.0 + 2.5 for s in hit)
+
+    post = _spans(mask, "posture_change")
+    assert len(post) == 1
+    # Step located within the +-(2.5 s + 0.5 s) window described in the Notes.
+    assert post[0].start_s <= 120.0 <= post[0].end_s
+    assert post[0].start_s >= 117.0 and post[0].end_s <= 123.0
+
+    clip = _spans(mask, "clipping")
+    assert len(clip) == 1
+    assert clip[0].start_s == pytest.approx(180.0, abs=1 / FS)
+    assert clip[0].end_s == pytest.approx(180.5, abs=1 / FS)
+
+    flat = _spans(mask, "flat_line")
+    assert len(flat) == 1
+    assert flat[0].start_s == pytest.approx(240.0, abs=1 / FS)
+    assert flat[0].end_s == pytest.approx(241.0, abs=1 / FS)
+
+    empty = _spans(mask, "empty_support")
+    assert len(empty) == 1
+    # 10 Hz load samples (0.1 s) plus the 1 s padding.
+    assert empty[0].start_s == pytest.approx(269.0, abs=0.11)
+    assert empty[0].end_s == pytest.approx(286.0, abs=0.11)
+
+    # Nothing else of note is masked: outside the injected spans (with the tolerances
+    # above) at most 2 % of the record.
+    t = np.arange(fused.size) / FS
+    allowed = np.zeros(fused.size, dtype=bool)
+    for a, b in [(57.5, 65.5), (117, 123), (180, 180.5), (240, 241), (269, 286)]:
+        allowed |= (t >= a) & (t < b)
+    assert np.mean(~mask.usable & ~allowed) < 0.02
+    assert [s.start_s for s in mask.segments] == sorted(s.start_s for s in mask.segments)
+
+
+@pytest.mark.parametrize("factor", [1e-3, 1e3])
+def test_mask_is_scale_invariant(factor: float) -> None:
+    fused, raw, load = _inject(seed=2)
+    a = mask_artifacts(fused, FS, raw_signals=raw)
+    b = mask_artifacts(fused * factor, FS, raw_signals=[r * factor for r in raw])
+    np.testing.assert_array_equal(a.usable, b.usable)
+    assert [s.kind for s in a.segments] == [s.kind for s in b.segments]
+
+
+def test_time_shift_moves_the_movement_segment() -> None:
+    fused, _, _ = _record(seed=3)
+    rng = np.random.default_rng(7)
+    burst = 3.0 * rng.standard_normal(int(2 * FS))
+    one, two = fused.copy(), fused.copy()
+    one[int(100 * FS):int(102 * FS)] += burst
+    two[int(150 * FS):int(152 * FS)] += burst
+    m1 = _spans(mask_artifacts(one, FS), "movement")
+    m2 = _spans(mask_artifacts(two, FS), "movement")
+    assert len(m1) == len(m2) == 1
+    # 0.25 s envelope blocks: the shifted span moves by 50 s within one block.
+    assert m2[0].start_s - m1[0].start_s == pytest.approx(50.0, abs=0.25)
+
+
+def test_short_flat_run_is_not_masked() -> None:
+    fused, raw, _ = _record(seed=4)
+    raw[0][int(100 * FS):int(100.1 * FS)] = raw[0][int(100 * FS)]  # 0.1 s < 0.25 s
+    mask = mask_artifacts(fused, FS, raw_signals=raw)
+    assert not _spans(mask, "flat_line")
+
+
+def test_flat_fused_without_raw_is_masked() -> None:
+    fused, _, _ = _record(seed=5)
+    fused[int(50 * FS):int(52 * FS)] = 0.0
+    mask = mask_artifacts(fused, FS)
+    flat = _spans(mask, "flat_line")
+    assert len(flat) == 1
+    assert flat[0].start_s == pytest.approx(50.0, abs=1 / FS)
+    assert flat[0].end_s == pytest.approx(52.0, abs=1 / FS)
+    assert "clipping_and_flat_checked_on_fused" in mask.flags
+
+
+def test_dead_raw_channel_is_ignored_not_masking_everything() -> None:
+    fused, raw, _ = _record(seed=6)
+    raw[2] = np.zeros_like(raw[2])
+    mask = mask_artifacts(fused, FS, raw_signals=raw)
+    assert "channels[2]_mostly_flat_or_clipped_ignored" in mask.flags
+    assert mask.usable_fraction > 0.98
+
+
+def test_all_flat_trace_is_unusable() -> None:
+    mask = mask_artifacts(np.zeros(int(30 * FS)), FS)
+    assert mask.usable_fraction == 0.0
+    assert mask.movement_threshold_ratio is None
+
+
+def test_empty_support_with_full_rate_load() -> None:
+    fused, _, _ = _record(seed=8)
+    load = np.full(fused.size, 70.0 * G)
+    load[: int(30 * FS)] = 0.0
+    mask = mask_artifacts(fused, FS, load_n=load, pad_s=0.0)
+    empty = _spans(mask, "empty_support")
+    assert len(empty) == 1 and empty[0].start_s == 0.0
+    assert empty[0].end_s == pytest.approx(30.0, abs=1 / FS)
+
+
+# ----------------------------------------------------------------------------- errors
+
+
+def test_error_rules() -> None:
+    fused, raw, load = _record(seed=9)
+    with pytest.raises(InvalidInputError, match=r"`fs_hz` must be between 50 and 2000 Hz"):
+        mask_artifacts(fused, 5000.0)
+    with pytest.raises(InvalidInputError, match=r"`fused` must be a real 1-D array"):
+        mask_artifacts(np.stack([fused, fused]), FS)
+    with pytest.raises(InvalidInputError, match=r"`fused` must span at least 20 s; got 4 s"):
+        mask_artifacts(fused[:1000], FS)
+    bad = fused.copy()
+    bad[10] = np.inf
+    with pytest.raises(InvalidInputError, match=r"`fused` must be finite .* the first at index 10"):
+        mask_artifacts(bad, FS)
+    with pytest.raises(InvalidInputError, match=r"`raw_signals\[1\]` must be a real 1-D array "
+                                                r"of 75000 samples"):
+        mask_artifacts(fused, FS, raw_signals=[raw[0], raw[1][:-5]])
+    with pytest.raises(InvalidInputError, match=r"`raw_signals` must hold at least one channel"):
+        mask_artifacts(fused, FS, raw_signals=[])
+    with pytest.raises(InvalidInputError, match=r"`load_fs_hz` must divide fs_hz by a whole"):
+        mask_artifacts(fused, FS, load_n=load, load_fs_hz=7.3)
+    with pytest.raises(InvalidInputError, match=r"`load_n` must cover the record"):
+        mask_artifacts(fused, FS, load_n=load[:100], load_fs_hz=LOAD_FS)
+    with pytest.raises(InvalidInputError, match=r"`movement_k` must be a finite number > 0"):
+        mask_artifacts(fused, FS, movement_k=0.0)
+    with pytest.raises(InvalidInputError, match=r"`pad_s` must be a finite number >= 0"):
+        mask_artifacts(fused, FS, pad_s=-1.0)
+    with pytest.raises(InvalidInputError, match=r"`min_flat_s` must be between 0.01 and 10 s"):
+        mask_artifacts(fused, FS, min_flat_s=20.0)
+    with pytest.raises(InvalidInputError, match=r"`min_occupant_kg` must be a finite number > 0"):
+        mask_artifacts(fused, FS, min_occupant_kg=float("nan"))

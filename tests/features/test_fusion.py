@@ -1,0 +1,209 @@
+"""Tests for features.fusion: weights, sign alignment, units and the centre of pressure."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from features.conditioning import ChannelInput, condition_channels
+from features.errors import InvalidInputError
+from features.fusion import fuse_channels
+
+FS = 250.0
+G = 9.80665  # standard gravity, m/s^2 (NIST SP 811, 2008, B.8)
+
+
+def _bcg(duration_s: float, fs: float = FS, seed: int = 0) -> np.ndarray:
+    """Synthetic I-J-K complex (three Gaussians) at ~60 bpm with 5 % RR jitter."""
+    rng = np.random.default_rng(seed)
+    n = int(duration_s * fs)
+    beats = np.cumsum(rng.normal(1.0, 0.05, int(duration_s * 2)))
+    beats = beats[beats < duration_s - 1.0]
+    imp = np.zeros(n)
+    imp[(beats * fs).astype(int)] = 1.0
+    kt = np.arange(-0.3, 0.3, 1.0 / fs)
+    kern = (-0.4 * np.exp(-(((kt + 0.08) / 0.03) ** 2)) + np.exp(-((kt / 0.03) ** 2))
+            - 0.6 * np.exp(-(((kt - 0.08) / 0.035) ** 2)))
+    return np.convolve(imp, kern, mode="same")
+
+
+def test_inverted_channel_gets_negative_weight_and_noise_is_down_weighted() -> None:
+    rng = np.random.default_rng(1)
+    s = _bcg(120.0)
+    noise = 0.3
+    x = np.stack([s + noise * rng.standard_normal(s.size),
+                  0.8 * s + noise * rng.standard_normal(s.size),
+                  -s + noise * rng.standard_normal(s.size),
+                  noise * rng.standard_normal(s.size)])
+    res = fuse_channels(x, FS, units=["N"] * 4)
+    w = np.array(res.weights)
+    assert res.method == "maximum_ratio_combining"
+    assert w[0] > 0 and w[1] > 0 and w[2] < 0
+    assert abs(w[3]) < 0.2 * min(abs(w[:3]))
+    # The scaling rule: sum |w| = number of channels.
+    assert np.sum(np.abs(w)) == pytest.approx(4.0)
+    assert "channels[2]_inverted" in res.flags
+    # The fused trace must follow the cardiac waveform better than any single channel.
+    corr = [np.corrcoef(c, s)[0, 1] for c in x[:3] * np.sign(w[:3, None])]
+    assert np.corrcoef(res.fused, s)[0, 1] > max(corr)
+
+
+def test_equal_channels_reduce_to_plain_sum() -> None:
+    rng = np.random.default_rng(2)
+    s = _bcg(120.0)
+    x = np.stack([s + 0.2 * rng.standard_normal(s.size) for _ in range(4)])
+    res = fuse_channels(x, FS, units=["N"] * 4)
+    # Four identical load cells: weights 1, fused = total force (statics of a plate).
+    np.testing.assert_allclose(res.weights, 1.0, atol=0.15)  # estimation noise, 12 windows
+    assert np.sum(np.abs(res.weights)) == pytest.approx(4.0)
+    np.testing.assert_allclose(res.fused, np.array(res.weights) @ x)
+    assert res.unit == "N"
+    assert np.std(res.fused - x.sum(axis=0)) < 0.1 * np.std(x.sum(axis=0))
+
+
+def test_dead_channel_gets_zero_weight() -> None:
+    rng = np.random.default_rng(3)
+    s = _bcg(60.0)
+    x = np.stack([s + 0.2 * rng.standard_normal(s.size), np.zeros(s.size)])
+    res = fuse_channels(x, FS, units=["N", "N"])
+    assert res.weights[1] == 0.0
+    assert "channels[1]_dead_weight_zero" in res.flags
+    assert res.channel_snr[1] is None
+
+
+def test_single_channel_is_passed_through() -> None:
+    s = _bcg(60.0) + 0.1 * np.random.default_rng(4).standard_normal(int(60 * FS))
+    res = fuse_channels(s[None, :], FS, units=["N"])
+    assert res.weights == (1.0,) and res.method == "passthrough"
+    np.testing.assert_array_equal(res.fused, s)
+    assert res.confidence > 0.3
+
+
+def test_mixed_units_are_normalised_and_scale_free() -> None:
+    rng = np.random.default_rng(5)
+    s = _bcg(120.0)
+    a = s + 0.3 * rng.standard_normal(s.size)
+    b = 1e-3 * (s + 0.3 * rng.standard_normal(s.size))
+    one = fuse_channels(np.stack([a, b]), FS, units=["N", "m/s^2"])
+    two = fuse_channels(np.stack([a, 1000.0 * b]), FS, units=["N", "m/s^2"])
+    assert one.unit == "a.u." and "fusion_mixed_units_scale_normalised" in one.flags
+    np.testing.assert_allclose(one.weights, two.weights, rtol=1e-6)
+    assert one.channel_scales is not None
+    assert one.weights[0] == pytest.approx(one.weights[1], rel=0.3)
+
+
+def test_no_heartbeat_gives_equal_weights_and_low_confidence() -> None:
+    rng = np.random.default_rng(6)
+    x = rng.standard_normal((3, int(60 * FS)))
+    res = fuse_channels(x, FS, units=["N"] * 3)
+    assert res.confidence < 0.2
+
+
+# ----------------------------------------------------------------------------- centre of pressure
+
+
+def _plate_forces(mass_kg: float, at: tuple[float, float], size: tuple[float, float]
+                  ) -> np.ndarray:
+    """Lever rule: a point load on a rectangular plate with a load cell at each corner."""
+    u, v = at[0] / size[0], at[1] / size[1]
+    share = np.array([(1 - u) * (1 - v), u * (1 - v), (1 - u) * v, u * v])
+    return mass_kg * G * share
+
+
+CORNERS = [(0.0, 0.0), (2.0, 0.0), (0.0, 0.9), (2.0, 0.9)]
+
+
+def test_cop_matches_lever_rule_on_static_load() -> None:
+    rng = np.random.default_rng(7)
+    n = int(60 * FS)
+    static = _plate_forces(75.0, (1.3, 0.35), (2.0, 0.9))
+    dyn = 0.05 * rng.standard_normal((4, n))
+    res = fuse_channels(dyn, FS, units=["N"] * 4, positions_m=CORNERS, static_n=static)
+    assert res.cop_m is not None
+    # Lever rule (moment balance on a plate; Winter 2009, ch. on force plates).
+    np.testing.assert_allclose(np.median(res.cop_m, axis=0), [1.3, 0.35], atol=1e-3)
+
+
+def test_cop_through_conditioning_with_slow_baseline() -> None:
+    n = int(60 * FS)
+    t = np.arange(n) / FS
+    static = _plate_forces(60.0, (0.5, 0.6), (2.0, 0.9))
+    chans = [ChannelInput(static[i] + 0.3 * np.sin(2 * np.pi * 1.1 * t), f"c{i}", "force", "N",
+                          position_m=CORNERS[i]) for i in range(4)]
+    cond = condition_channels(chans, FS, mains_hz=None)
+    res = fuse_channels(cond.signals, FS, units=cond.units, positions_m=cond.positions_m,
+                        static_n=cond.baseline_si, static_fs_hz=cond.baseline_fs_hz)
+    assert res.cop_m is not None
+    # All four cells carry the same in-phase 1.1 Hz wiggle, so the CoP stays at the
+    # static lever-rule point up to 0.3 * 4 / (60 g) of the cell span (< 2 mm).
+    np.testing.assert_allclose(np.median(res.cop_m, axis=0), [0.5, 0.6], atol=2e-3)
+
+
+def test_cop_cardiac_excursion_of_a_known_oscillation() -> None:
+    n = int(120 * FS)
+    t = np.arange(n) / FS
+    static = _plate_forces(80.0, (1.0, 0.45), (2.0, 0.9))
+    a = 2.0  # N, moved from the x=0 cells to the x=2 cells at 5 Hz
+    osc = a * np.sin(2 * np.pi * 5.0 * t)
+    dyn = np.stack([-osc / 2, osc / 2, -osc / 2, osc / 2])
+    res = fuse_channels(dyn, FS, units=["N"] * 4, positions_m=CORNERS, static_n=static)
+    # Lever rule: x = 2 m * (F_right / F_total); the moved force a sin(wt) shifts the
+    # CoP by 2 * a / (m g) * sin(wt), RMS = 2 a / (m g sqrt(2)).
+    expected_mm = 1000.0 * 2.0 * a / (80.0 * G * np.sqrt(2.0))
+    assert res.cop_cardiac_excursion_mm == pytest.approx(expected_mm, rel=0.05)
+
+
+def test_empty_plate_guards_divide_by_zero() -> None:
+    rng = np.random.default_rng(8)
+    dyn = 0.05 * rng.standard_normal((4, int(30 * FS)))
+    res = fuse_channels(dyn, FS, units=["N"] * 4, positions_m=CORNERS, static_n=np.zeros(4))
+    assert res.cop_m is None and "cop_support_empty" in res.flags
+
+
+def test_partly_empty_plate_has_nan_cop_where_empty() -> None:
+    n = int(60 * FS)
+    t = np.arange(n) / FS
+    load = np.where(t < 30.0, 1.0, 0.0)
+    static = _plate_forces(70.0, (1.0, 0.45), (2.0, 0.9))
+    dyn = static[:, None] * (load[None, :] - 1.0)
+    res = fuse_channels(dyn, FS, units=["N"] * 4, positions_m=CORNERS, static_n=static)
+    assert res.cop_m is not None and res.cop_fs_hz is not None
+    times = np.arange(res.cop_m.shape[0]) / res.cop_fs_hz
+    assert np.isnan(res.cop_m[times > 31.0]).all()
+    np.testing.assert_allclose(res.cop_m[times < 29.0, 0], 1.0, atol=1e-6)
+    np.testing.assert_allclose(res.cop_m[times < 29.0, 1], 0.45, atol=1e-6)
+
+
+def test_cop_needs_force_channels() -> None:
+    x = np.random.default_rng(9).standard_normal((2, int(30 * FS)))
+    res = fuse_channels(x, FS, units=["m/s^2", "m/s^2"], positions_m=[(0, 0), (1, 0)],
+                        static_n=[1.0, 1.0])
+    assert res.cop_m is None and "cop_needs_force_channels" in res.flags
+
+
+# ----------------------------------------------------------------------------- errors
+
+
+def test_error_rules() -> None:
+    x = np.zeros((2, int(30 * FS)))
+    with pytest.raises(InvalidInputError, match=r"`fs_hz` must be between 50 and 2000 Hz"):
+        fuse_channels(x, 10.0)
+    with pytest.raises(InvalidInputError, match=r"`signals` must be a real \(n_channels, n\)"):
+        fuse_channels(np.zeros((2, 2, 10)), FS)
+    with pytest.raises(InvalidInputError, match=r"`signals` must hold 1 to 8 channels; got 9"):
+        fuse_channels(np.zeros((9, int(30 * FS))), FS)
+    with pytest.raises(InvalidInputError, match=r"`signals` must span at least 20 s; got 4 s"):
+        fuse_channels(np.zeros((2, 1000)), FS)
+    bad = x.copy()
+    bad[0, 5] = np.nan
+    with pytest.raises(InvalidInputError, match=r"`signals` must be finite"):
+        fuse_channels(bad, FS)
+    with pytest.raises(InvalidInputError, match=r"`units` must hold one non-empty string per "
+                                                r"channel \(2\)"):
+        fuse_channels(x, FS, units=["N"])
+    with pytest.raises(InvalidInputError, match=r"`band_hz` must satisfy 0 < low < high <= 40"):
+        fuse_channels(x, FS, band_hz=(20.0, 1.0))
+    with pytest.raises(InvalidInputError, match=r"`positions_m` must be a finite \(2, 2\)"):
+        fuse_channels(x, FS, positions_m=[(0.0, 0.0)], static_n=[1.0, 1.0])
+    with pytest.raises(InvalidInputError, match=r"`static_fs_hz` must be a rate in Hz"):
+        fuse_channels(x, FS, positions_m=[(0, 0), (1, 0)], static_n=np.ones((2, 300)))
