@@ -13,8 +13,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
+from scipy import ndimage, stats
 from scipy import signal as sps
-from scipy import stats
 
 from features.errors import InvalidInputError
 
@@ -34,6 +34,7 @@ _BASELINE_BLOCK_S = 10.0
 _BASELINE_SPAN_S = 120.0
 _WELCH_SEGMENT_S = 64.0
 _MIN_WELCH_RUN_S = 20.0
+_DEFAULT_PERIOD_S = 4.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -107,6 +108,7 @@ def breathing(
     *,
     usable: ArrayLike | None = None,
     cop_signal: ArrayLike | None = None,
+    cop_fs_hz: float | None = None,
     pause_threshold_pct: float = 25.0,
 ) -> RespirationResult:
     """Measure breathing from the low band of a force trace.
@@ -120,8 +122,12 @@ def breathing(
     usable
         Boolean mask of the samples that may be used, same length; all usable when None.
     cop_signal
-        Optional centre-of-pressure trajectory (one axis, any unit), same length and rate.
-        Used instead of the trace when its breathing band is more concentrated (Notes, 1).
+        Optional centre-of-pressure trajectory (any unit), shape (m,) for one axis or (m, k)
+        for k <= 3 axes, NaN where the support is empty, spanning the same time as the
+        trace. Used instead of the trace when its breathing band is more concentrated
+        (Notes, 1).
+    cop_fs_hz
+        Sampling rate of ``cop_signal`` (Hz), 2 to 2000; ``fs_hz`` when None.
     pause_threshold_pct
         A pause is where the breathing amplitude stays below this share (10 to 50 %) of the
         surrounding baseline amplitude.
@@ -142,9 +148,11 @@ def breathing(
        integer factor to about 10 Hz (``scipy.signal.resample_poly``, anti-alias FIR) and
        band-passed 0.1-0.7 Hz with a 4th-order Butterworth filter run forward and backward
        (zero phase). A decimated sample is usable only when all its source samples are. When
-       ``cop_signal`` is given it is processed alike, and the candidate with the larger share
-       of band power within +/-0.05 Hz of its Welch peak is kept (flag when the centre of
-       pressure wins; its amplitudes are then in its own unit).
+       ``cop_signal`` is given each axis is processed alike at its own rate (NaN samples
+       unusable) and interpolated onto the trace's breathing grid; of the trace and the
+       axes, the candidate with the largest share of band power within +/-0.05 Hz of its
+       Welch peak is kept (flag when a centre-of-pressure axis wins; its amplitudes are
+       then in its own unit, and its empty samples are unusable too).
     2. Breaths: the signal is divided by its robust amplitude A = 1.4826 x MAD over usable
        samples (A is 1.05 times the amplitude of a sinusoid). A Schmitt trigger with thresholds
        +0.3 and -0.3 marks a breath each time the signal rises above +0.3 after having been
@@ -161,13 +169,24 @@ def breathing(
        fall = peak to trough; ratio of the medians, from >= 5 pairs. The 0.7-Hz upper band
        edge removes the higher harmonics that carry the asymmetry, so the ratio is drawn
        toward 1 at fast rates: a true 0.6 reads about 0.74 at 15/min and 0.67 at 10/min.
-    5. Pauses: baseline amplitude = median, over the 10-s blocks within +/-60 s, of each
-       block's 90th percentile of |signal| (blocks at least half usable). A pause is a run
-       of usable samples with |signal| below ``pause_threshold_pct`` of the baseline lasting
-       >= 10 s, bounded by breathing on both sides (runs touching masked samples or the ends
-       of the recording are not counted, and flagged). Run edges fall where the last breath
-       drops below the threshold, so a flat span reads about 0.3 s longer than it is for a
-       25 % threshold at 15 breaths/min. Pauses per hour = count / usable hours.
+    5. Pauses work on the 0.7-Hz low-passed signal (no high-pass: a breath hold away from
+       the mean lung volume is a level step, which a high-pass would turn into a decaying
+       swing). Breathing swing = running max - min over a centred window of 1.25 median
+       breath intervals (2-8 s); one full breath fits in it, so the swing is the breath's
+       peak-to-trough whatever the phase. Baseline = median, over the 10-s blocks within
+       +/-60 s, of each block's median swing (blocks at least half usable). A pause is a run
+       of usable samples whose swing is below ``pause_threshold_pct`` of the baseline; the
+       run is widened by up to half a window at each end (the window shortens it by that
+       much) to the last and first samples deviating from the run's median level by more
+       than half the threshold swing. It counts when it lasts >= 10 s and is bounded by
+       breathing on both sides (spans touching masked samples or the ends of the recording
+       are not counted, and flagged). Edges land where the last breath leaves the level, so
+       a flat span starting and ending at mid-breath reads about 0.3 s longer than it is
+       at 15/min. Pauses per hour = count / usable hours.
+    6. Pause detection is refused (count None, flag ``pause_detection_noise_limited``) when
+       the noise floor of the breathing band would itself swing past the threshold: noise
+       SD from the 20th percentile of the band PSD, flagged when 6 SD >= threshold x median
+       swing (factor set on simulated recordings; see ``_noise_limited``).
 
     The 10-s criterion is the adult apnoea duration criterion of the AASM scoring manual;
     the amplitude rule here is our own signal criterion on a force trace, not the manual's
@@ -182,16 +201,20 @@ def breathing(
        a method based on time averaging over short, modified periodograms." IEEE Transactions
        on Audio and Electroacoustics 15(2):70-73, 1967. doi:10.1109/TAU.1967.1161901
     """
-    x, fs, mask, cop, thr_pct = _validate(
-        signal_or_lowband, fs_hz, usable, cop_signal, pause_threshold_pct
+    x, fs, mask, cop, cop_fs, thr_pct = _validate(
+        signal_or_lowband, fs_hz, usable, cop_signal, cop_fs_hz, pause_threshold_pct
     )
     flags: list[str] = []
-    y, fs_b, mask_b = _breathing_band(x, fs, mask)
+    y, y_low, fs_b, mask_b = _breathing_band(x, fs, mask)
     source = "trace"
     if cop is not None:
-        y_cop, _, _ = _breathing_band(cop, fs, mask)
-        if _concentration(y_cop, fs_b, mask_b) > _concentration(y, fs_b, mask_b):
-            y, source = y_cop, "centre_of_pressure"
+        best = _concentration(y, fs_b, mask_b)
+        for bp_c, lp_c, m_c in _cop_candidates(cop, cop_fs, y.size, fs_b):
+            c = _concentration(bp_c, fs_b, mask_b & m_c)
+            if c > best:
+                best, y, y_low, mask_b = c, bp_c, lp_c, mask_b & m_c
+                source = "centre_of_pressure"
+        if source == "centre_of_pressure":
             flags.append("breathing_from_centre_of_pressure")
     usable_s = float(mask_b.sum() / fs_b)
     if usable_s < MIN_DURATION_S:
@@ -208,8 +231,14 @@ def breathing(
     else:
         amp_z = y / amp
     rises, rise_idx = _schmitt_rises(amp_z, fs_b, mask_b)
-    spans, pause_flags = _pauses(y, fs_b, mask_b, thr_pct / 100.0)
+    all_iv, _ = _breath_intervals(rises, rise_idx, mask_b, [], fs_b)
+    period = float(np.median(all_iv)) if all_iv.size else _DEFAULT_PERIOD_S
+    spans, pause_flags = _pauses(y_low, fs_b, mask_b, thr_pct / 100.0, period)
     flags.extend(pause_flags)
+    noise_limited = _noise_limited(y, y_low, fs_b, mask_b, thr_pct / 100.0, period)
+    if noise_limited:
+        flags.append("pause_detection_noise_limited")
+        spans = []
     intervals, valid = _breath_intervals(rises, rise_idx, mask_b, spans, fs_b)
     rate = None
     sd = cv = None
@@ -234,7 +263,7 @@ def breathing(
         confidence = c_agree * min(1.0, intervals.size / 10.0) * np.sqrt(mask_b.mean())
     if spans:
         flags.append("pauses_are_signal_observations_not_diagnosis")
-    if usable_s < 3600.0:
+    if usable_s < 3600.0 and not noise_limited:
         flags.append("pauses_per_hour_extrapolated_from_under_1_h")
     durations = [b - a for a, b in spans]
     return RespirationResult(
@@ -254,9 +283,9 @@ def breathing(
         fall_time_s=fall_t,
         rise_fall_ratio=ratio,
         breathing_amplitude=amp if amp > 0 else None,
-        pause_count=len(spans),
+        pause_count=None if noise_limited else len(spans),
         pause_spans_s=tuple(spans),
-        pauses_per_hour=len(spans) / (usable_s / 3600.0),
+        pauses_per_hour=None if noise_limited else len(spans) / (usable_s / 3600.0),
         longest_pause_s=max(durations) if durations else None,
         breathing_signal=_frozen(np.where(mask_b, y, np.nan)),
     )
@@ -270,9 +299,10 @@ def _validate(
     fs_hz: float,
     usable: ArrayLike | None,
     cop_signal: ArrayLike | None,
+    cop_fs_hz: float | None,
     pause_threshold_pct: float,
 ) -> tuple[
-    NDArray[np.float64], float, NDArray[np.bool_], NDArray[np.float64] | None, float
+    NDArray[np.float64], float, NDArray[np.bool_], NDArray[np.float64] | None, float, float
 ]:
     try:
         fs = float(fs_hz)
@@ -302,25 +332,34 @@ def _validate(
             "`signal_or_lowband` must be finite where `usable` is True; got NaN or infinity.",
         )
     cop = None
+    cop_fs = fs
     if cop_signal is not None:
+        cop_fs = fs if cop_fs_hz is None else float(cop_fs_hz)
+        if not (np.isfinite(cop_fs) and 2.0 <= cop_fs <= 2000.0):
+            raise InvalidInputError(
+                "cop_fs_hz", f"`cop_fs_hz` must be between 2 and 2000 Hz; got {cop_fs_hz}."
+            )
         cop = np.asarray(cop_signal, dtype=float)
-        if cop.shape != x.shape:
+        if cop.ndim == 1:
+            cop = cop[:, None]
+        if cop.ndim != 2 or not 1 <= cop.shape[1] <= 3:
             raise InvalidInputError(
-                "cop_signal",
-                f"`cop_signal` must have the length of the signal ({x.size}); got {cop.size}.",
+                "cop_signal", f"`cop_signal` must have shape (m,) or (m, k) with k <= 3; got "
+                f"{np.shape(cop_signal)}."
             )
-        if not np.all(np.isfinite(cop[mask])):
+        if abs(cop.shape[0] / cop_fs - x.size / fs) > 1.0:
             raise InvalidInputError(
-                "cop_signal", "`cop_signal` must be finite where `usable` is True; got NaN."
+                "cop_signal", f"`cop_signal` must span the signal's {x.size / fs:g} s within "
+                f"1 s; got {cop.shape[0] / cop_fs:g} s ({cop.shape[0]} samples at "
+                f"{cop_fs:g} Hz)."
             )
-        cop = _bridge(cop, mask)
     thr = float(pause_threshold_pct)
     if not (np.isfinite(thr) and 10.0 <= thr <= 50.0):
         raise InvalidInputError(
             "pause_threshold_pct",
             f"`pause_threshold_pct` must be between 10 and 50 %; got {pause_threshold_pct}.",
         )
-    return _bridge(x, mask), fs, mask, cop, thr
+    return _bridge(x, mask), fs, mask, cop, cop_fs, thr
 
 
 def _bridge(x: NDArray[np.float64], mask: NDArray[np.bool_]) -> NDArray[np.float64]:
@@ -353,7 +392,8 @@ def _runs(flag: NDArray[np.bool_]) -> NDArray[np.int64]:
 
 def _breathing_band(
     x: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]
-) -> tuple[NDArray[np.float64], float, NDArray[np.bool_]]:
+) -> tuple[NDArray[np.float64], NDArray[np.float64], float, NDArray[np.bool_]]:
+    """Band-passed and low-passed (0.7 Hz) breathing signals at ~10 Hz, and their mask."""
     q = max(1, int(fs // TARGET_FS_HZ))
     x0 = x - np.median(x)
     if q > 1:
@@ -367,8 +407,27 @@ def _breathing_band(
     else:
         y, mask_b = x0, mask.copy()
     fs_b = fs / q
-    sos = sps.butter(4, BAND_HZ, btype="bandpass", fs=fs_b, output="sos")
-    return sps.sosfiltfilt(sos, y), fs_b, mask_b
+    band = sps.butter(4, BAND_HZ, btype="bandpass", fs=fs_b, output="sos")
+    low = sps.butter(4, BAND_HZ[1], btype="lowpass", fs=fs_b, output="sos")
+    return sps.sosfiltfilt(band, y), sps.sosfiltfilt(low, y), fs_b, mask_b
+
+
+def _cop_candidates(
+    cop: NDArray[np.float64], cop_fs: float, n_b: int, fs_b: float
+) -> list[tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.bool_]]]:
+    """Each centre-of-pressure axis filtered and put on the trace's breathing grid."""
+    out = []
+    t_b = np.arange(n_b) / fs_b
+    for col in cop.T:
+        m = np.isfinite(col)
+        if m.sum() < 2:
+            continue
+        bp, lp, fs_c, m_c = _breathing_band(_bridge(col, m), cop_fs, m)
+        t_c = np.arange(bp.size) / fs_c
+        near = np.clip(np.round(t_b * fs_c).astype(np.int64), 0, bp.size - 1)
+        ok = np.asarray(m_c[near] & (t_b <= t_c[-1]), dtype=bool)
+        out.append((np.interp(t_b, t_c, bp), np.interp(t_b, t_c, lp), ok))
+    return out
 
 
 def _welch_psd(
@@ -478,33 +537,92 @@ def _rise_fall(
     return float(np.median(rise)) / fs, float(np.median(fall)) / fs
 
 
-def _pauses(
-    y: NDArray[np.float64], fs: float, mask: NDArray[np.bool_], fraction: float
-) -> tuple[list[tuple[float, float]], list[str]]:
+def _window(period_s: float, fs: float) -> int:
+    """Odd window length (samples) of the swing envelope: 1.25 breath periods, 2-8 s."""
+    return int(round(float(np.clip(1.25 * period_s, 2.0, 8.0)) * fs)) | 1
+
+
+def _swing(y: NDArray[np.float64], w: int) -> NDArray[np.float64]:
+    """Running peak-to-peak (max - min) over a centred window of ``w`` samples."""
+    hi = ndimage.maximum_filter1d(y, w, mode="nearest")
+    return np.asarray(hi - ndimage.minimum_filter1d(y, w, mode="nearest"), dtype=float)
+
+
+def _baseline(env: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]) -> NDArray[
+    np.float64
+]:
+    """Per-sample median, over the 10-s blocks within +/-60 s, of each block's median."""
     nb = max(1, round(_BASELINE_BLOCK_S * fs))
-    n_blocks = -(-y.size // nb)
-    a = np.abs(y)
+    n_blocks = -(-env.size // nb)
     level = np.full(n_blocks, np.nan)
     for k in range(n_blocks):
-        seg, m = a[k * nb : (k + 1) * nb], mask[k * nb : (k + 1) * nb]
+        seg, m = env[k * nb : (k + 1) * nb], mask[k * nb : (k + 1) * nb]
         if m.mean() >= 0.5:
-            level[k] = np.percentile(seg[m], 90)
+            level[k] = np.median(seg[m])
     half = round(_BASELINE_SPAN_S / _BASELINE_BLOCK_S / 2)
     base = np.full(n_blocks, np.nan)
     for k in range(n_blocks):
         w = level[max(0, k - half) : k + half + 1]
         if np.isfinite(w).any():
             base[k] = np.nanmedian(w)
-    base_s = np.repeat(base, nb)[: y.size]
-    low = mask & np.isfinite(base_s) & (a < fraction * np.nan_to_num(base_s, nan=0.0))
+    return np.repeat(base, nb)[: env.size]
+
+
+def _pauses(
+    y_low: NDArray[np.float64], fs: float, mask: NDArray[np.bool_], fraction: float,
+    period_s: float,
+) -> tuple[list[tuple[float, float]], list[str]]:
+    w = _window(period_s, fs)
+    env = _swing(y_low, w)
+    base = _baseline(env, fs, mask)
+    low = mask & np.isfinite(base) & (env < fraction * np.nan_to_num(base, nan=0.0))
     spans: list[tuple[float, float]] = []
     flags: list[str] = []
-    for start, stop in _runs(low):
+    for run_start, run_stop in _runs(low):
+        start, stop = _refine_edges(y_low, run_start, run_stop, w // 2,
+                                    0.5 * fraction * float(base[run_start]))
         if (stop - start) / fs < PAUSE_MIN_S:
             continue
-        bounded = start > 0 and stop < y.size and mask[start - 1] and mask[stop]
+        bounded = start > 0 and stop < y_low.size and bool(mask[start - 1 : stop + 1].all())
         if not bounded:
             flags.append("pause_not_counted_touches_mask_or_edge")
             continue
         spans.append((float(start / fs), float(stop / fs)))
     return spans, sorted(set(flags))
+
+
+def _refine_edges(
+    y: NDArray[np.float64], a: int, b: int, half: int, tol: float
+) -> tuple[int, int]:
+    """Pause edges: the run of low swing widened by up to ``half`` samples at each end, to
+    the last (first) sample deviating by more than ``tol`` from the run's median level."""
+    level = float(np.median(y[a:b]))
+    lo, hi = max(0, a - half), min(y.size, b + half)
+    left = np.flatnonzero(np.abs(y[lo:a] - level) > tol)
+    right = np.flatnonzero(np.abs(y[b:hi] - level) > tol)
+    start = lo + int(left[-1]) + 1 if left.size else lo
+    stop = b + int(right[0]) if right.size else hi
+    return start, stop
+
+
+def _noise_limited(
+    y: NDArray[np.float64], y_low: NDArray[np.float64], fs: float, mask: NDArray[np.bool_],
+    fraction: float, period_s: float,
+) -> bool:
+    """True when the band noise alone would swing past the pause threshold.
+
+    Noise density = 20th percentile of the Welch PSD over 0.1-0.7 Hz (the breathing peak,
+    its harmonics and their skirts can fill most of the band, so the median is not noise).
+    Flagged when 6 noise SDs reach ``fraction`` of the median breathing swing. The factor 6
+    was set on simulated recordings (features.simulation, 1/f plus white sensor noise):
+    there, at 10 dB cardiac SNR, pauses were not separable from breathing and the ratio
+    6 SD / (0.25 swing) was 1.0-2.2; noise free and at 20 dB it was 0.3-0.8.
+    """
+    est = _welch_psd(y, fs, mask)
+    if est is None:
+        return False
+    f, p = est
+    band = (f >= BAND_HZ[0]) & (f <= BAND_HZ[1])
+    sd = float(np.sqrt(np.percentile(p[band], 20) * (BAND_HZ[1] - BAND_HZ[0])))
+    swing = float(np.median(_swing(y_low, _window(period_s, fs))[mask]))
+    return 6.0 * sd >= fraction * swing

@@ -107,6 +107,23 @@ def test_centre_of_pressure_is_used_when_it_breathes_more_clearly():
     assert breathing(trace, fs).source == "trace"
 
 
+def test_centre_of_pressure_at_its_own_rate_with_two_axes_and_empty_spans():
+    # The breathing axis (fore-aft) is picked from a 2-axis trajectory sampled at 125 Hz
+    # while the trace runs at 250 Hz; NaN (empty support) samples are unusable.
+    rng = np.random.default_rng(8)
+    t = np.arange(int(180 * 250.0)) / 250.0
+    trace = rng.standard_normal(t.size)
+    tc = np.arange(int(180 * 125.0)) / 125.0
+    cop = np.column_stack((0.001 * rng.standard_normal(tc.size),
+                           0.004 * np.sin(2 * np.pi * 0.2 * tc)))
+    cop[: int(10 * 125.0)] = np.nan
+    r = breathing(trace, 250.0, cop_signal=cop, cop_fs_hz=125.0)
+    assert r.source == "centre_of_pressure"
+    assert r.rate_per_min == pytest.approx(12.0, abs=0.3)
+    assert np.all(np.isnan(r.breathing_signal[: int(9 * r.breathing_fs_hz)]))
+    assert r.usable_duration_s == pytest.approx(170.0, abs=1.0)
+
+
 # --------------------------------------------------------------------------- pauses
 
 
@@ -153,7 +170,46 @@ def test_two_pauses_are_counted_with_spans():
     assert r.longest_pause_s == pytest.approx(20.0, abs=0.6)
 
 
+def test_pause_detection_is_refused_when_band_noise_hides_pauses():
+    # Band noise with SD 0.15 of a unit sine swings by about 6 SD = 0.9 over a breath
+    # window, above the 25 % x 2 = 0.5 pause threshold: no honest pause count exists.
+    rng = np.random.default_rng(9)
+    fs = 20.0
+    x, _ = with_pause(fs, 15.0)
+    sos = sps.butter(4, (0.1, 0.7), btype="bandpass", fs=fs, output="sos")
+    noise = sps.sosfiltfilt(sos, rng.standard_normal(x.size))
+    noisy = breathing(x + 0.15 * noise / np.std(noise), fs)
+    assert noisy.pause_count is None and noisy.pauses_per_hour is None
+    assert "pause_detection_noise_limited" in noisy.flags
+    assert noisy.rate_per_min == pytest.approx(15.0, abs=0.3)  # the rate is still fine
+    clean = breathing(x + 0.01 * noise / np.std(noise), fs)
+    assert clean.pause_count == 1
+
+
 # --------------------------------------------------------------------------- simulator
+
+
+def test_simulated_pauses_found_from_the_centre_of_pressure():
+    # Truth: the simulator's breathing_pause_spans_s (15-s pauses). With four load cells the
+    # centre of pressure is the load-weighted mean of the cell positions (moment balance on
+    # a rigid plate, common practice); its sway carries breathing. At the default 10 dB the
+    # summed load's breathing band is noise limited, the centre of pressure is not. Each
+    # true pause must overlap a detected one, with no detection elsewhere.
+    from features.simulation import SimulationSettings, simulate
+
+    rec = simulate(SimulationSettings(seed=6, n_channels=4, breathing_pause_count=2,
+                                      duration_s=300.0))
+    loads = np.asarray(rec.channels)
+    cop = (loads.T @ np.asarray(rec.positions_m)) / loads.sum(axis=0)[:, None]
+    total = loads.sum(axis=0)
+    assert "pause_detection_noise_limited" in breathing(total, rec.fs_hz).flags
+    r = breathing(total, rec.fs_hz, cop_signal=cop)
+    truth = rec.truth.breathing_pause_spans_s
+    assert r.source == "centre_of_pressure"
+    assert r.pause_count == len(truth) == 2
+    for (a, b), (ta, tb) in zip(r.pause_spans_s, sorted(truth), strict=True):
+        assert a < tb and b > ta  # overlap
+        assert b - a == pytest.approx(tb - ta, abs=3.0)
 
 
 def test_simulated_breathing_rate_within_one_per_minute():
@@ -197,13 +253,15 @@ def test_flat_signal_has_no_rate():
         ({"x": np.zeros((2, 3000))}, "signal_or_lowband", r"must be 1-D; got 2"),
         ({"x": np.zeros(500)}, "signal_or_lowband", r"must last at least 20 s \(1000 samples\)"),
         ({"usable": np.ones(5, bool)}, "usable", r"`usable` must have the length"),
-        ({"cop_signal": np.ones(5)}, "cop_signal", r"`cop_signal` must have the length"),
+        ({"cop_signal": np.ones(5)}, "cop_signal", r"must span the signal's 60 s within 1 s"),
+        ({"cop_signal": np.ones((3000, 4))}, "cop_signal", r"shape \(m,\) or \(m, k\) with k <= 3"),
+        ({"cop_signal": np.ones(3000), "cop_fs_hz": 0.0}, "cop_fs_hz", r"between 2 and 2000 Hz"),
         ({"pause_threshold_pct": 80.0}, "pause_threshold_pct", r"between 10 and 50 %; got 80"),
         ({"x": np.full(3000, np.nan)}, "signal_or_lowband", r"must be finite"),
     ],
 )
 def test_invalid_input(kwargs, field, match):
-    args = {"x": np.zeros(3000), "fs_hz": 50.0}
+    args = {"x": np.zeros(3000), "fs_hz": 50.0}  # 60 s
     args.update(kwargs)
     with pytest.raises(InvalidInputError, match=match) as info:
         breathing(args.pop("x"), args.pop("fs_hz"), **args)
