@@ -35,7 +35,7 @@ def _first_non_finite(values: np.ndarray) -> int | None:
     return int(np.flatnonzero(bad)[0])
 
 
-class SamplesField(fields.Field):
+class SamplesField(fields.Field[Any]):
     """A JSON array of numbers, loaded as a 1-D float64 numpy array.
 
     Loading rejects anything but a flat list of finite JSON numbers: strings

@@ -298,7 +298,7 @@ class RecordingSchema(Schema):
         return RecordingRequest(**data)
 
 
-class MainsField(fields.Field):
+class MainsField(fields.Field[Any]):
     """``"auto"``, 50, 60 or null."""
 
     def __init__(self, **kwargs: Any) -> None:

@@ -64,7 +64,7 @@ class Number(fields.Float):
         return None if value is None else float(value)
 
 
-class NumberList(fields.Field):
+class NumberList(fields.Field[Any]):
     """A sequence or 1-D array of floats, dumped in one numpy call."""
 
     def __init__(self, **kwargs: Any) -> None:
@@ -76,11 +76,11 @@ class NumberList(fields.Field):
         return np.asarray(value, dtype=np.float64).reshape(-1).tolist()
 
 
-def _strings(**kwargs: Any) -> fields.List:
+def _strings(**kwargs: Any) -> fields.List[Any]:
     return fields.List(fields.String(), **kwargs)
 
 
-def _flags() -> fields.List:
+def _flags() -> fields.List[Any]:
     return _strings(
         required=True, metadata={"description": "Names of anything the engine adapted or lacked."}
     )

@@ -10,10 +10,6 @@ from schemas.requests import AnalysisRequest
 from schemas.responses import AnalysisReport, AnalysisResponseSchema
 
 
-class EngineUnavailableError(RuntimeError):
-    """The engine's entry point is not importable (answered with 503)."""
-
-
 def run_analysis(request: AnalysisRequest) -> dict[str, Any]:
     """Run the engine once on ``request`` and dump its result.
 
@@ -22,11 +18,8 @@ def run_analysis(request: AnalysisRequest) -> dict[str, Any]:
     features.errors.InvalidInputError, features.errors.UnusableSignalError
         From the engine, for the service to map to problem details.
     """
-    analyze = getattr(features, "analyze", None)
-    if analyze is None:  # TODO: drop once features.analyze is exported.
-        raise EngineUnavailableError("The analysis engine is not loaded yet; retry later.")
     call = engine_inputs(request)
-    result = analyze(
+    result = features.analyze(
         call.channels,
         call.fs_hz,
         subject=call.subject,

@@ -61,8 +61,10 @@ def read_analysis_request(schema: AnalysisRequestSchema) -> AnalysisRequest:
         When the content breaks the contract.
     """
     mimetype = request.mimetype
+    loaded: AnalysisRequest
     if mimetype == JSON_MEDIA_TYPE:
-        return schema.load(read_json())
+        loaded = schema.load(read_json())
+        return loaded
     if mimetype == MULTIPART_MEDIA_TYPE:
         upload = request.files.get("file")
         if upload is None:
@@ -74,7 +76,8 @@ def read_analysis_request(schema: AnalysisRequestSchema) -> AnalysisRequest:
                 {"file": ["`file` must be CSV text encoded as UTF-8; got bytes that are not."]}
             ) from None
         form = {key: request.form[key] for key in request.form}
-        return schema.load(csv_request_body(text, form))
+        loaded = schema.load(csv_request_body(text, form))
+        return loaded
     raise UnsupportedMediaType(
         f"The body must be {JSON_MEDIA_TYPE} or {MULTIPART_MEDIA_TYPE} (a CSV `file`); "
         f"got {mimetype or 'no media type'}."

@@ -1,6 +1,6 @@
 """RFC 9457 problem details: one set of error handlers for the whole service.
 
-Plain HTTP errors (400, 404, 405, 413, 415, 500, 503) use the type
+Plain HTTP errors (400, 404, 405, 413, 415, 500, and 503 from /readyz) use the type
 ``about:blank`` with the status phrase as title, as RFC 9457 section 4.2.1
 describes. Problems of our own domain have their own type URIs under
 ``urn:heartsway:problem:``. Responses never carry a stack trace.
@@ -16,7 +16,6 @@ from werkzeug.exceptions import HTTPException
 
 from features.errors import InvalidInputError, UnusableSignalError
 from schemas.errors import SchemaValidationError, flatten_errors, pointer_of
-from service.analysis import EngineUnavailableError
 from service.logs import current_request_id, logger
 
 PROBLEM_MEDIA_TYPE = "application/problem+json"
@@ -105,10 +104,6 @@ def _unusable_signal(error: UnusableSignalError) -> Response:
     )
 
 
-def _unavailable(error: EngineUnavailableError) -> Response:
-    return problem(503, str(error), headers={"Retry-After": "30"})
-
-
 def _unexpected(error: Exception) -> Response:
     if isinstance(error, HTTPException):
         return _http_error(error)
@@ -129,5 +124,4 @@ def init_app(app: Flask) -> None:
     app.register_error_handler(SchemaValidationError, _schema_error)
     app.register_error_handler(InvalidInputError, _invalid_input)
     app.register_error_handler(UnusableSignalError, _unusable_signal)
-    app.register_error_handler(EngineUnavailableError, _unavailable)
     app.register_error_handler(Exception, _unexpected)

@@ -9,8 +9,6 @@ from typing import Any
 import yaml
 from jsonschema import Draft202012Validator
 
-import features
-
 ROOT = Path(__file__).resolve().parents[2]
 
 
@@ -58,9 +56,6 @@ def check_against_contract(response: Any, path: str | None, method: str) -> None
     assert not errors, "; ".join(f"{list(e.absolute_path)}: {e.message}" for e in errors[:5])
 
 
-def engine_ready() -> bool:
-    """True once the engine exports its entry point."""
-    return callable(getattr(features, "analyze", None))
 
 
 def multipart(fields: dict[str, Any], file_bytes: bytes | None = None) -> dict[str, Any]:

@@ -20,7 +20,7 @@ from pathlib import Path
 
 import pytest
 from dockerfile_parse import env_pairs, exec_form, read_dockerfile
-from service_contract import ROOT, engine_ready
+from service_contract import ROOT
 
 DOCKERFILE = ROOT / "Dockerfile"
 BIN = Path(sys.executable).parent
@@ -170,6 +170,8 @@ def test_gunicorn_answers_on_loopback(served):
     assert headers.get_content_type() == "application/json"
     assert json.loads(body)["status"] == "ok"
     assert headers["X-Request-ID"]
+    status, _, body = _get(base + "/readyz", timeout=30)
+    assert status == 200 and json.loads(body)["status"] == "ready"
     # No control socket: nothing was written under $HOME.
     assert list(Path(home).iterdir()) == []
 
@@ -182,8 +184,6 @@ def test_container_healthcheck_passes_against_gunicorn(served):
 
 
 def test_gunicorn_answers_the_demo_request(served):
-    if not engine_ready():
-        pytest.skip("features.analyze is not exported yet")
     base, env, home = served
     done = subprocess.run([sys.executable, "-m", "service.cli", "demo", "--url", base],
                           cwd=ROOT, env=env, capture_output=True, text=True, timeout=120)

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import yaml
-from service_contract import ROOT, check_against_contract, engine_ready
+from service_contract import ROOT, check_against_contract
 
 import features
 from features.engine import FEATURE_SET_VERSION
@@ -17,15 +17,25 @@ def test_healthz_answers_ok(client):
     check_against_contract(response, "/healthz", "get")
 
 
-def test_readyz_follows_the_engine(client):
+def test_readyz_is_ready_once_the_engine_has_run(client):
     response = client.get("/readyz")
-    if engine_ready():
-        assert response.status_code == 200
-        assert response.get_json()["status"] == "ready"
-    else:
-        assert response.status_code == 503
-        assert response.mimetype == "application/problem+json"
-        assert response.get_json()["status"] == 503
+    assert response.status_code == 200
+    assert response.mimetype == "application/json"
+    assert response.get_json() == {"status": "ready", "version": features.__version__}
+    check_against_contract(response, "/readyz", "get")
+
+
+def test_readyz_is_503_when_the_engine_is_broken(app, monkeypatch):
+    def broken(*args, **kwargs):
+        raise MemoryError
+
+    monkeypatch.setattr(features, "analyze", broken)
+    response = app.test_client().get("/readyz")
+    assert response.status_code == 503
+    assert response.mimetype == "application/problem+json"
+    body = response.get_json()
+    assert body["status"] == 503 and body["type"] == "about:blank"
+    assert "MemoryError" not in body["detail"]
     check_against_contract(response, "/readyz", "get")
 
 
