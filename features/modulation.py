@@ -86,6 +86,7 @@ def respiratory_modulation(
     beat_times_s: ArrayLike,
     breath_times_s: ArrayLike,
     interval_ms: ArrayLike | None = None,
+    interval_times_s: ArrayLike | None = None,
     beat_amplitudes: ArrayLike | None = None,
     amplitude_times_s: ArrayLike | None = None,
     cardiac_amplitude: float | None = None,
@@ -105,9 +106,13 @@ def respiratory_modulation(
         Breath instants (s), one per breath at the same phase (for example
         ``RespirationResult.breath_times_s``), strictly increasing.
     interval_ms
-        Beat intervals (ms), same length as ``beat_times_s``: entry k is the interval ending
-        at beat k, NaN when rejected. When None: differences of ``beat_times_s``, with the
-        first and any interval longer than 1.8 x the median set to NaN.
+        Beat intervals (ms), NaN when rejected. Without ``interval_times_s`` the same length
+        as ``beat_times_s``, entry k being the interval ending at beat k. When None:
+        differences of ``beat_times_s``, with the first and any interval longer than
+        1.8 x the median set to NaN.
+    interval_times_s
+        Time of each interval's end beat (s), same length as ``interval_ms``, for example
+        the NN series ``IntervalLabels.nn_times_s`` with ``nn_intervals_ms``.
     beat_amplitudes
         Per-beat amplitudes (for example J-K, any unit), NaN when not measured.
     amplitude_times_s
@@ -177,9 +182,9 @@ def respiratory_modulation(
        analysis of the circulation: unique insights into cardiovascular regulation."
        American Journal of Physiology 261:H1231-H1245, 1991 (from memory).
     """
-    y, fs, beats, breaths, iv, amps, amp_t, card = _validate(
-        breathing_signal, fs_hz, beat_times_s, breath_times_s, interval_ms, beat_amplitudes,
-        amplitude_times_s, cardiac_amplitude,
+    y, fs, iv_t, breaths, iv, amps, amp_t, card = _validate(
+        breathing_signal, fs_hz, beat_times_s, breath_times_s, interval_ms, interval_times_s,
+        beat_amplitudes, amplitude_times_s, cardiac_amplitude,
     )
     flags: list[str] = []
     if breaths.size < MIN_BREATHS + 1:
@@ -195,7 +200,7 @@ def respiratory_modulation(
             breathing_frequency_hz=f_b, breaths_used=int(starts.size),
         )
     ok_iv = np.isfinite(iv)
-    rsa, c_rsa = _rsa(beats[ok_iv], iv[ok_iv], starts, ends)
+    rsa, c_rsa = _rsa(iv_t[ok_iv], iv[ok_iv], starts, ends)
     if rsa is None:
         flags.append("too_few_breaths_for_rsa")
     amp_index, c_amp = (None, 0.0)
@@ -205,7 +210,7 @@ def respiratory_modulation(
     if amp_index is None:
         flags.append("no_amplitude_modulation_index")
     cv_breath = float(np.std(ends - starts) / np.mean(ends - starts))
-    timing, c_timing, t_flag = _timing_share(beats[ok_iv], iv[ok_iv], f_b, cv_breath)
+    timing, c_timing, t_flag = _timing_share(iv_t[ok_iv], iv[ok_iv], f_b, cv_breath)
     flags.extend(t_flag)
     if card is None and amps is not None and np.isfinite(amps).sum() >= MIN_BEATS:
         card = float(np.nanmedian(amps))
@@ -216,7 +221,7 @@ def respiratory_modulation(
         c_base = min(1.0, starts.size / 10.0)
     else:
         flags.append("no_cardiac_amplitude_for_baseline_index")
-    coh, c_coh, k_seg, c_flag = _coherence(y, fs, beats[ok_iv], iv[ok_iv], f_b)
+    coh, c_coh, k_seg, c_flag = _coherence(y, fs, iv_t[ok_iv], iv[ok_iv], f_b)
     flags.extend(c_flag)
     confs = [c for v, c in ((rsa, c_rsa), (amp_index, c_amp), (timing, c_timing),
                             (baseline, c_base), (coh, c_coh)) if v is not None]
@@ -257,6 +262,7 @@ def _validate(
     beat_times_s: ArrayLike,
     breath_times_s: ArrayLike,
     interval_ms: ArrayLike | None,
+    interval_times_s: ArrayLike | None,
     beat_amplitudes: ArrayLike | None,
     amplitude_times_s: ArrayLike | None,
     cardiac_amplitude: float | None,
@@ -278,16 +284,20 @@ def _validate(
         )
     beats = _times("beat_times_s", beat_times_s)
     breaths = _times("breath_times_s", breath_times_s)
+    iv_t = beats
     if interval_ms is None:
         iv = np.concatenate(([np.nan], 1e3 * np.diff(beats)))
         if beats.size > 2:
             iv[iv > 1.8 * np.nanmedian(iv)] = np.nan
     else:
         iv = np.asarray(interval_ms, dtype=float).reshape(-1)
-        if iv.size != beats.size:
+        if interval_times_s is not None:
+            iv_t = _times("interval_times_s", interval_times_s)
+        if iv.size != iv_t.size:
+            name = "beat_times_s" if interval_times_s is None else "interval_times_s"
             raise InvalidInputError(
-                "interval_ms", f"`interval_ms` must have the length of `beat_times_s` "
-                f"({beats.size}); got {iv.size}."
+                "interval_ms", f"`interval_ms` must have the length of `{name}` "
+                f"({iv_t.size}); got {iv.size}."
             )
         if np.any(iv[np.isfinite(iv)] <= 0):
             raise InvalidInputError("interval_ms", "`interval_ms` must be positive (ms).")
@@ -310,7 +320,7 @@ def _validate(
                 "cardiac_amplitude",
                 f"`cardiac_amplitude` must be positive; got {cardiac_amplitude}.",
             )
-    return y, fs, beats, breaths, iv, amps, amp_t, card
+    return y, fs, iv_t, breaths, iv, amps, amp_t, card
 
 
 # --------------------------------------------------------------------------- kernels

@@ -52,6 +52,11 @@ def test_rsa_peak_to_trough_hand_computed():
                                breath_times_s=breaths, interval_ms=iv)
     assert r.rsa_ms == pytest.approx(60.0, abs=1e-9)
     assert r.breaths_used == 6
+    # The same intervals given as a separate series (times of their end beats).
+    nn = respiratory_modulation(np.zeros(int((beats[-1] + 2) * FS)), FS, beat_times_s=beats,
+                                breath_times_s=breaths, interval_ms=iv[1:],
+                                interval_times_s=beats[1:])
+    assert nn.rsa_ms == pytest.approx(60.0, abs=1e-9)
 
 
 def test_rsa_of_a_sinusoidal_interval_series():
@@ -230,6 +235,8 @@ def test_breaths_across_gaps_or_unusable_signal_are_dropped():
         ({"breath_times_s": [0.0, np.nan]}, "breath_times_s", r"finite and strictly"),
         ({"interval_ms": [800.0]}, "interval_ms", r"length of `beat_times_s` \(3\); got 1"),
         ({"interval_ms": [np.nan, -5.0, 800.0]}, "interval_ms", r"must be positive"),
+        ({"interval_ms": [800.0], "interval_times_s": [1.0, 2.0]}, "interval_ms",
+         r"length of `interval_times_s` \(2\); got 1"),
         ({"beat_amplitudes": [1.0]}, "beat_amplitudes", r"length of its times \(3\); got 1"),
         ({"cardiac_amplitude": 0.0}, "cardiac_amplitude", r"must be positive; got 0"),
     ],
