@@ -209,8 +209,8 @@ def beat_morphology(
     ------
     InvalidInputError
         For a non-1-D or too short signal, a sampling rate out of range, non-finite or
-        unsorted beat times, arrays of mismatched length, a confidence outside [0, 1], or a
-        body mass out of range.
+        unsorted beat times, arrays of mismatched length, a confidence outside [0, 1], a
+        body mass out of range or an empty amplitude unit.
 
     Notes
     -----
@@ -274,6 +274,11 @@ def beat_morphology(
     x, fs, beats, conf, mask = _validate(
         signal, fs_hz, beat_times_s, beat_confidence, usable, body_mass_kg, min_beat_confidence
     )
+    if not isinstance(amplitude_unit, str) or not amplitude_unit.strip():
+        raise InvalidInputError(
+            "amplitude_unit", f"`amplitude_unit` must be a non-empty string; got "
+            f"{amplitude_unit!r}."
+        )
     flags: list[str] = []
     offered = int(beats.size)
     epochs, inside = _epochs(x, fs, beats, mask)

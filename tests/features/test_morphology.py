@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import optimize
 
 from features.errors import InvalidInputError
@@ -148,6 +150,22 @@ def test_amplitude_scaling_and_time_shift():
     assert shifted.jk_interval_ms == pytest.approx(base.jk_interval_ms, abs=1e-6)
 
 
+_PROPERTY_BASE = recording(250.0, duration_s=30.0, seed=12)
+
+
+@settings(max_examples=15, deadline=None)
+@given(scale=st.floats(0.01, 100.0), offset=st.floats(-1e3, 1e3), lead=st.integers(0, 250))
+def test_property_gain_offset_and_shift(scale, offset, lead):
+    # Amplitudes scale with the gain, a constant offset and a time shift change nothing.
+    x, beats = _PROPERTY_BASE
+    base = beat_morphology(x, 250.0, beats)
+    y = np.concatenate((np.zeros(lead), scale * x + offset))
+    r = beat_morphology(y, 250.0, beats + lead / 250.0)
+    assert r.jk_amplitude == pytest.approx(scale * base.jk_amplitude, rel=1e-6)
+    assert r.ij_amplitude == pytest.approx(scale * base.ij_amplitude, rel=1e-6)
+    assert r.ij_interval_ms == pytest.approx(base.ij_interval_ms, abs=1e-6)
+
+
 def test_wavelet_signature_is_sampling_rate_invariant():
     # The same noise-free beat sampled at 100, 250, 500 and 1000 Hz must give the same
     # signature (template resampled to 250 Hz first): every level within 0.01 of the 1 kHz
@@ -248,6 +266,7 @@ def _ok():
         ({"usable": np.ones(10, bool)}, "usable", r"`usable` must have the length"),
         ({"body_mass_kg": 0.0}, "body_mass_kg", r"between 1 and 500 kg; got 0"),
         ({"min_beat_confidence": 2.0}, "min_beat_confidence", r"between 0 and 1; got 2"),
+        ({"amplitude_unit": ""}, "amplitude_unit", r"must be a non-empty string; got ''"),
     ],
 )
 def test_invalid_input(kwargs, field, match):

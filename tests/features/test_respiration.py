@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import signal as sps
 
 from features.errors import InvalidInputError
@@ -52,6 +54,18 @@ def test_rate_of_a_sinusoid_by_counting_and_by_spectrum(fs):
     # Robust amplitude 1.4826 MAD of a sine of amplitude A: median |sin| = sin(pi/4), so
     # 1.4826 x 0.7071 x 2.0 = 2.097 (hand-computed).
     assert r.breathing_amplitude == pytest.approx(2.097, rel=0.03)
+
+
+@settings(max_examples=15, deadline=None)
+@given(rate=st.floats(8.0, 30.0), gain=st.floats(1e-3, 1e3), offset=st.floats(-1e4, 1e4))
+def test_property_rate_ignores_gain_and_offset(rate, gain, offset):
+    # Any rate inside the 6-42/min band is recovered within 0.3/min, whatever the gain and
+    # the static offset (a load cell carries the body weight).
+    fs = 20.0
+    t = np.arange(int(180 * fs)) / fs
+    r = breathing(gain * np.sin(2 * np.pi * rate / 60 * t) + offset, fs)
+    assert r.rate_per_min == pytest.approx(rate, abs=0.3)
+    assert r.spectral_rate_per_min == pytest.approx(rate, abs=0.3)
 
 
 def test_spectral_rate_matches_welch_on_a_two_tone_signal():
