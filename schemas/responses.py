@@ -172,6 +172,10 @@ class TemplateSchema(Schema):
 
     samples = NumberList(required=True, attribute="template")
     fs_hz = Number(required=True, attribute="template_fs_hz")
+    start_s = Number(
+        attribute="template_start_s",
+        metadata={"description": "Time of the first sample relative to J, s (with morphology)."},
+    )
 
 
 class TimeDomainSchema(Schema):
@@ -243,6 +247,110 @@ class SignalsSchema(Schema):
     )
     nn_times_s = NumberList(required=True, attribute="interval_labels.nn_times_s")
     nn_intervals_ms = NumberList(required=True, attribute="interval_labels.nn_intervals_ms")
+    breathing_signal = NumberList(
+        attribute="respiration.breathing_signal",
+        metadata={"description": "The breathing signal (with respiration), dimensionless."},
+    )
+    breathing_fs_hz = Number(attribute="respiration.breathing_fs_hz")
+    breath_times_s = NumberList(attribute="respiration.breath_times_s")
+
+
+class WaveSchema(Schema):
+    """One located wave of the beat ensemble (H, I, J, K, L)."""
+
+    name = fields.String(required=True)
+    time_ms = Number(required=True, metadata={"description": "Time from the J wave, ms."})
+    amplitude = Number(required=True)
+    prominence = Number(required=True)
+    location_sd_ms = Number(required=True)
+    confidence = _confidence()
+
+
+class MorphologySchema(Schema):
+    """Waveform morphology of the beat ensemble."""
+
+    amplitude_unit = fields.String(required=True)
+    beats_offered = fields.Integer(required=True)
+    beats_used = fields.Integer(required=True)
+    waves = fields.List(fields.Nested(WaveSchema), required=True)
+    i_amplitude = Number(required=True)
+    j_amplitude = Number(required=True)
+    k_amplitude = Number(required=True)
+    ij_amplitude = Number(required=True)
+    jk_amplitude = Number(required=True)
+    ij_amplitude_per_kg = Number(required=True)
+    jk_amplitude_per_kg = Number(required=True)
+    ij_interval_ms = Number(required=True)
+    jk_interval_ms = Number(required=True)
+    ik_interval_ms = Number(required=True)
+    hj_interval_ms = Number(required=True)
+    j_width_ms = Number(required=True)
+    template_correlation_median = Number(required=True)
+    jk_amplitude_cv_pct = Number(required=True)
+    wavelet_signature = fields.Method(
+        "_signature",
+        required=True,
+        metadata={"type": ["array", "null"], "items": {"type": "number"}},
+    )
+    confidence = _confidence()
+    flags = _flags()
+
+    def _signature(self, obj: Any) -> list[float] | None:
+        value = obj.wavelet_signature
+        return None if value is None else [float(v) for v in value]
+
+
+class ModulationSchema(Schema):
+    """Respiratory modulation of the heartbeat."""
+
+    rsa_ms = Number(required=True, metadata={"description": "Respiratory sinus arrhythmia, ms."})
+    rsa_confidence = _confidence()
+    amplitude_index = Number(required=True)
+    amplitude_confidence = _confidence()
+    timing_modulation_pct = Number(required=True)
+    baseline_modulation_ratio = Number(required=True)
+    coherence = Number(required=True)
+    breaths_used = fields.Integer(required=True)
+    confidence = _confidence()
+    flags = _flags()
+
+
+class RespirationSchema(Schema):
+    """Breathing: rate, regularity, pauses, and how it modulates the heartbeat."""
+
+    source = fields.String(required=True)
+    rate_per_min = Number(required=True)
+    spectral_rate_per_min = Number(required=True)
+    breath_count = fields.Integer(required=True)
+    interval_sd_s = Number(required=True)
+    interval_cv_pct = Number(required=True)
+    rise_time_s = Number(required=True)
+    fall_time_s = Number(required=True)
+    rise_fall_ratio = Number(required=True)
+    breathing_amplitude = Number(required=True)
+    pause_count = fields.Integer(required=True, allow_none=True)
+    pause_spans_s = fields.Method("_pauses", required=True, metadata={
+        "type": "array", "items": {"type": "array", "items": {"type": "number"}},
+    })
+    pauses_per_hour = Number(required=True)
+    longest_pause_s = Number(required=True)
+    usable_duration_s = Number(required=True)
+    modulation = fields.Nested(
+        ModulationSchema,
+        required=True,
+        allow_none=True,
+        metadata={"description": "Null (with a flag) when breathing or beats are too few."},
+    )
+    confidence = _confidence()
+    flags = _flags()
+
+    def _pauses(self, obj: Any) -> list[list[float]]:
+        return [[float(start), float(end)] for start, end in obj.pause_spans_s]
+
+
+def _nullable(schema: str, description: str) -> dict[str, Any]:
+    return {"anyOf": [{"$ref": f"#/components/schemas/{schema}"}, {"type": "null"}],
+            "description": description}
 
 
 # --------------------------------------------------------------------------
@@ -288,14 +396,12 @@ class AnalysisResponseSchema(Schema):
         "allOf": [{"$ref": "#/components/schemas/Beats"}],
     })
     variability = fields.Nested(VariabilitySchema, required=True, attribute="result.variability")
-    morphology = fields.Method("_optional_morphology", required=True, metadata={
-        "description": "Waveform morphology; null (named in warnings) when not computed.",
-        "type": ["object", "null"],
-    })
-    respiration = fields.Method("_optional_respiration", required=True, metadata={
-        "description": "Respiration; null (named in warnings) when not computed.",
-        "type": ["object", "null"],
-    })
+    morphology = fields.Method("_morphology", required=True, metadata=_nullable(
+        "Morphology", "Waveform morphology; null (named in warnings) when not computed."
+    ))
+    respiration = fields.Method("_respiration", required=True, metadata=_nullable(
+        "Respiration", "Respiration; null (named in warnings) when not computed."
+    ))
     template = fields.Method("_template", metadata={
         "description": "Present when `include` has `template`.",
         "allOf": [{"$ref": "#/components/schemas/Template"}],
@@ -337,6 +443,9 @@ class AnalysisResponseSchema(Schema):
     def _template(self, report: AnalysisReport) -> Any:
         if not self._asked(report, "template"):
             return missing
+        morphology = getattr(report.result, "morphology", None)
+        if morphology is not None and morphology.template is not None:
+            return TemplateSchema().dump(morphology)
         return TemplateSchema().dump(report.result.beats)
 
     def _signals(self, report: AnalysisReport) -> Any:
@@ -350,20 +459,22 @@ class AnalysisResponseSchema(Schema):
         windows = getattr(report.result, "windows", None)
         if windows is None:
             return None
-        return [dict(vars(w)) if hasattr(w, "__dict__") else w for w in windows]
+        return [_plain(window) for window in windows]
 
-    def _optional(self, report: AnalysisReport, family: str) -> Any:
-        value = getattr(report.result, family, None)
+    def _morphology(self, report: AnalysisReport) -> Any:
+        value = getattr(report.result, "morphology", None)
+        return None if value is None else MorphologySchema().dump(value)
+
+    def _respiration(self, report: AnalysisReport) -> Any:
+        value = getattr(report.result, "respiration", None)
         if value is None:
             return None
-        # TODO: a schema per family once the engine's result types land.
-        return _plain(value)
-
-    def _optional_morphology(self, report: AnalysisReport) -> Any:
-        return self._optional(report, "morphology")
-
-    def _optional_respiration(self, report: AnalysisReport) -> Any:
-        return self._optional(report, "respiration")
+        document: dict[str, Any] = RespirationSchema().dump(value)
+        modulation = getattr(report.result, "modulation", None)
+        if modulation is None:
+            modulation = getattr(value, "modulation", None)
+        document["modulation"] = None if modulation is None else ModulationSchema().dump(modulation)
+        return document
 
     def _feature_vector(self, report: AnalysisReport) -> dict[str, float | None]:
         # Filled in post-dump from the dumped families.

@@ -32,6 +32,8 @@ from schemas.responses import (
     AnalysisResponseSchema,
     BeatsSchema,
     ChannelSummarySchema,
+    MorphologySchema,
+    RespirationSchema,
     SignalsSchema,
     TemplateSchema,
 )
@@ -271,6 +273,8 @@ def build_spec() -> dict[str, Any]:
     spec.components.schema("Beats", schema=BeatsSchema)
     spec.components.schema("Template", schema=TemplateSchema)
     spec.components.schema("Signals", schema=SignalsSchema)
+    spec.components.schema("Morphology", schema=MorphologySchema)
+    spec.components.schema("Respiration", schema=RespirationSchema)
     spec.components.schema("Analysis", schema=AnalysisResponseSchema)
     for name, response in _RESPONSES.items():
         spec.components.response(name, response)
