@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.fft
 from numpy.typing import ArrayLike, NDArray
+from scipy.linalg import blas
 
 from features.conditioning import (
     MAX_CHANNELS,
@@ -30,6 +31,8 @@ from features.filters import FloatArray, bandpass, block_centres, block_means
 ANALYSIS_FS_HZ = 100.0
 #: Window of the autocorrelation estimates, s (several beats even at 30 bpm).
 WINDOW_S = 10.0
+#: At most this many windows (1 h of them, evenly spaced) are analysed for the weights.
+MAX_ANALYSIS_WINDOWS = 360
 #: Heart-period lags searched, s (200 to 30 bpm).
 LAG_RANGE_S = (0.3, 2.0)
 #: Largest periodic fraction of band power credited to one channel (SNR cap of 19).
@@ -137,6 +140,7 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
     Notes
     -----
     1. Block-mean the channels to about ``ANALYSIS_FS_HZ`` and band-pass to ``band_hz``.
+       Steps 2-4 use at most ``MAX_ANALYSIS_WINDOWS`` windows, evenly spaced.
        For mixed units, divide each channel by its robust scale (1.4826 x MAD).
     2. In 10 s windows, compute each channel's unbiased autocorrelation ``r(k)`` by
        FFT. The heart-period lag ``T`` of a window is the peak within 0.3-2 s of the
@@ -209,7 +213,7 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
         weights, snr_arr, lag_s, method = _mrc_weights(cardiac, fs_a, flags)
         eff = weights if scales_arr is None else np.where(
             scales_arr > 0.0, weights / np.where(scales_arr > 0.0, scales_arr, 1.0), 0.0)
-        fused = np.asarray(eff @ x, dtype=np.float64)
+        fused = _weighted_sum(x, eff)
         conf = _periodic_fraction((weights @ cardiac)[None], fs_a)
         scales = None if scales_arr is None else tuple(float(s) for s in scales_arr)
         snr = tuple(None if not math.isfinite(v) else float(v) for v in snr_arr)
@@ -240,10 +244,15 @@ def _check_signals(signals: ArrayLike, fs: float) -> FloatArray:
     if x.shape[1] / fs < MIN_DURATION_S:
         raise InvalidInputError("signals", f"`signals` must span at least {MIN_DURATION_S:g} s; "
                                 f"got {x.shape[1] / fs:g} s.")
-    if x.dtype.kind == "f" and not np.isfinite(x).all():
-        raise InvalidInputError("signals", "`signals` must be finite (no NaN or inf); got "
-                                f"{int(np.count_nonzero(~np.isfinite(x)))} non-finite values.")
-    return np.asarray(x, dtype=np.float64)
+    x = np.asarray(x, dtype=np.float64)
+    for i, row in enumerate(x):
+        # A row sum is finite exactly when every sample is (short of overflow), and
+        # needs no full-size temporary.
+        if not math.isfinite(float(row.sum())):
+            raise InvalidInputError(f"signals[{i}]", f"`signals[{i}]` must be finite (no NaN "
+                                    f"or inf); got {int(np.count_nonzero(~np.isfinite(row)))} "
+                                    "non-finite values.")
+    return x
 
 
 def _check_units(units: Sequence[str] | None, n_ch: int) -> list[str] | None:
@@ -271,25 +280,45 @@ def _check_band(band_hz: tuple[float, float]) -> tuple[float, float]:
 # ----------------------------------------------------------------------------- kernels
 
 
+def _weighted_sum(x: FloatArray, weights: FloatArray) -> FloatArray:
+    """``weights @ x`` accumulated one channel at a time (BLAS axpy, no temporaries)."""
+    fused = x[0] * weights[0]
+    for i in range(1, x.shape[0]):
+        fused = blas.daxpy(x[i], fused, a=float(weights[i]))
+    return np.asarray(fused)
+
+
 def _robust_scale(x: FloatArray) -> FloatArray:
     med = np.median(x, axis=-1, keepdims=True)
     return np.asarray(_MAD_TO_SD * np.median(np.abs(x - med), axis=-1))
 
 
-def _windows(x: FloatArray, fs_a: float) -> FloatArray:
-    """(n_ch, m) -> (n_ch, n_win, L) non-overlapping windows of ``WINDOW_S``."""
+def _windows(x: FloatArray, fs_a: float, max_windows: int | None = None) -> FloatArray:
+    """(n_ch, m) -> (n_ch, n_win, L) non-overlapping windows of ``WINDOW_S``.
+
+    With ``max_windows``, at most that many windows, evenly spaced over the record.
+    """
     length = int(round(WINDOW_S * fs_a))
     count = x.shape[-1] // length
-    return x[:, : count * length].reshape(x.shape[0], count, length)
+    win = x[:, : count * length].reshape(x.shape[0], count, length)
+    if max_windows is not None and count > max_windows:
+        win = win[:, np.linspace(0, count - 1, max_windows).astype(np.intp)]
+    return win
 
 
 def _autocorr(w: FloatArray, max_lag: int) -> FloatArray:
-    """Unbiased autocorrelation along the last axis for lags 0..max_lag."""
+    """Unbiased autocorrelation along the last axis for lags 0..max_lag (one channel at
+    a time, so that only one channel's spectra are held)."""
     length = w.shape[-1]
     nfft = scipy.fft.next_fast_len(2 * length, real=True)
-    spec = scipy.fft.rfft(w, nfft, axis=-1)
-    r = scipy.fft.irfft(spec.real ** 2 + spec.imag ** 2, nfft, axis=-1)[..., : max_lag + 1]
-    return np.asarray(r / (length - np.arange(max_lag + 1)))
+    out = np.empty((*w.shape[:-1], max_lag + 1))
+    norm = length - np.arange(max_lag + 1)
+    for i in range(w.shape[0]):
+        spec = scipy.fft.rfft(w[i], nfft, axis=-1)
+        power = np.abs(spec)
+        power *= power
+        out[i] = scipy.fft.irfft(power, nfft, axis=-1)[..., : max_lag + 1] / norm
+    return out
 
 
 def _heart_lags(r: FloatArray, fs_a: float, *, leave_one_out: bool = False
@@ -313,7 +342,7 @@ def _heart_lags(r: FloatArray, fs_a: float, *, leave_one_out: bool = False
 def _mrc_weights(cardiac: FloatArray, fs_a: float, flags: list[str]
                  ) -> tuple[FloatArray, FloatArray, float | None, str]:
     n_ch = cardiac.shape[0]
-    win = _windows(cardiac, fs_a)
+    win = _windows(cardiac, fs_a, MAX_ANALYSIS_WINDOWS)
     r = _autocorr(win, int(round(LAG_RANGE_S[1] * fs_a)))
     total = np.median(np.mean(win ** 2, axis=-1), axis=-1)
     dead = total <= 0.0
@@ -357,7 +386,7 @@ def _mrc_weights(cardiac: FloatArray, fs_a: float, flags: list[str]
 
 def _periodic_fraction(cardiac: FloatArray, fs_a: float) -> float:
     """Median over windows of r(T)/r(0) at the trace's own heart lag, in [0, 1]."""
-    win = _windows(cardiac, fs_a)
+    win = _windows(cardiac, fs_a, MAX_ANALYSIS_WINDOWS)
     r = _autocorr(win, int(round(LAG_RANGE_S[1] * fs_a)))
     r0, lag = _heart_lags(r, fs_a)
     rt = np.take_along_axis(r[0], lag[:, None], axis=-1)[:, 0]
@@ -398,14 +427,15 @@ def _cop(slow: FloatArray, fs: float, factor: int, positions_m: ArrayLike | None
     for axis in range(2):
         filled[:, axis] = np.interp(idx, idx[valid], cop[valid, axis])
     fs_a = fs / factor
-    resp = bandpass(filled, fs_a, RESPIRATORY_BAND_HZ, axis=0)
+    filled_t = np.ascontiguousarray(filled.T)
+    resp = np.ascontiguousarray(bandpass(filled_t, fs_a, RESPIRATORY_BAND_HZ).T)
     resp[~valid] = np.nan
     excursion = None
     if valid.mean() < 0.5:
         flags.append("cop_support_mostly_empty_no_excursion")
     else:
-        card = bandpass(filled, fs_a, band, axis=0)
-        power = (card ** 2).sum(axis=1)
+        card = bandpass(filled_t, fs_a, band)
+        power = (card ** 2).sum(axis=0)
         win_p = _windows(power[None], fs_a)[0]
         win_v = _windows(valid[None].astype(np.float64), fs_a)[0]
         full = win_v.min(axis=-1) > 0.0

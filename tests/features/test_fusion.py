@@ -196,7 +196,7 @@ def test_error_rules() -> None:
         fuse_channels(np.zeros((2, 1000)), FS)
     bad = x.copy()
     bad[0, 5] = np.nan
-    with pytest.raises(InvalidInputError, match=r"`signals` must be finite"):
+    with pytest.raises(InvalidInputError, match=r"`signals\[0\]` must be finite"):
         fuse_channels(bad, FS)
     with pytest.raises(InvalidInputError, match=r"`units` must hold one non-empty string per "
                                                 r"channel \(2\)"):
