@@ -173,3 +173,21 @@ def test_engine_rule_reaches_the_client_as_422(client):
     assert problem["type"] == "urn:heartsway:problem:validation-error"
     assert problem["errors"][0]["field"].startswith("channels")
     check_against_contract(response, "/v1/analyses", "post")
+
+
+def test_uploads_stay_in_memory(monkeypatch, client, demo_body):
+    # Werkzeug spools multipart files over 500 kB to a temporary file by default
+    # (werkzeug.formparser.default_stream_factory); health data must not touch the disk.
+    import werkzeug.formparser
+
+    def no_disk(*args, **kwargs):
+        raise AssertionError("an upload was spooled to disk")
+
+    monkeypatch.setattr(werkzeug.formparser, "SpooledTemporaryFile", no_disk)
+    payload = _csv(demo_body)
+    assert len(payload) > 500_000
+    response = client.post(
+        "/v1/analyses",
+        **multipart({"sampling_rate_hz": str(demo_body["sampling_rate_hz"])}, payload),
+    )
+    assert response.status_code == 200, response.get_data(as_text=True)
