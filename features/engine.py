@@ -26,6 +26,9 @@ from features.intervals import (
     classify_intervals,
     intervals_from_beats,
 )
+from features.modulation import ModulationResult, respiratory_modulation
+from features.morphology import MorphologyResult, beat_morphology
+from features.respiration import RespirationResult, breathing
 from features.variability import VariabilityResult, heart_rate_variability
 
 FEATURE_SET_VERSION = "1"
@@ -136,6 +139,11 @@ class AnalysisResult:
     intervals: IntervalSeries
     interval_labels: IntervalLabels
     variability: VariabilityResult
+    morphology: MorphologyResult
+    respiration: RespirationResult
+    modulation: ModulationResult
+    body_mass_kg: float | None
+    body_mass_source: str | None
     warnings: tuple[str, ...]
     engine_version: str = __version__
     feature_set_version: str = FEATURE_SET_VERSION
@@ -193,6 +201,21 @@ def analyze(
     occupancy = _occupancy(cond.occupancy_from_load, cond.supported_mass_kg, beats)
     hr = heart_rate(beats, series, labels, occupied=occupancy.occupied)
     hrv = heart_rate_variability(series.times_s, series.intervals_ms, labels.labels)
+    mass, mass_source = _body_mass(subject, cond.supported_mass_kg, occupancy.occupied)
+    morph = beat_morphology(
+        fusion.fused * (beats.polarity or 1), fs_hz, beats.times_s,
+        beat_confidence=beats.confidence, usable=mask.usable, body_mass_kg=mass,
+        amplitude_unit=fusion.unit,
+    )
+    resp = breathing(fusion.fused, fs_hz, usable=mask.usable,
+                     cop_signal=fusion.cop_respiratory_m, cop_fs_hz=fusion.cop_fs_hz)
+    modulation = respiratory_modulation(
+        resp.breathing_signal, resp.breathing_fs_hz,
+        beat_times_s=beats.times_s, breath_times_s=resp.breath_times_s,
+        interval_ms=labels.nn_intervals_ms, interval_times_s=labels.nn_times_s,
+        beat_amplitudes=morph.beat_jk_amplitudes, amplitude_times_s=morph.beat_times_s,
+        cardiac_amplitude=morph.jk_amplitude,
+    )
 
     warnings: list[str] = []
     if mask.usable_fraction < 0.5:
@@ -232,6 +255,11 @@ def analyze(
         intervals=series,
         interval_labels=labels,
         variability=hrv,
+        morphology=morph,
+        respiration=resp,
+        modulation=modulation,
+        body_mass_kg=mass,
+        body_mass_source=mass_source,
         warnings=tuple(warnings),
     )
 
@@ -248,6 +276,16 @@ def _check_metadata(subject: Subject, recording: Recording) -> None:
             f"`recording.placement` must be one of {', '.join(PLACEMENTS)}; "
             f"got {recording.placement!r}.",
         )
+
+
+def _body_mass(subject: Subject, supported_mass_kg: float | None,
+               occupied: bool | None) -> tuple[float | None, str | None]:
+    """Mass for the per-kilogram amplitudes: the stated one, else the measured load."""
+    if subject.body_mass_kg is not None:
+        return float(subject.body_mass_kg), "subject"
+    if occupied and supported_mass_kg is not None and supported_mass_kg > 0:
+        return float(supported_mass_kg), "load"
+    return None, None
 
 
 def _occupancy(from_load: bool | None, mass_kg: float | None,
