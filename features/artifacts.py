@@ -47,6 +47,9 @@ _FLAT_STD_RATIO = 1.0e-4
 #: Clipping: at least 3 samples (and 3 ms) at the channel's extreme value.
 _MIN_CLIP_SAMPLES = 3
 _MIN_CLIP_S = 0.003
+#: Clipping runs shorter than this are brief: the tip of a wave cut off, flagged but not
+#: masked. Half the I-J-K complex (~0.1 s, Inan et al. 2015) stays for template timing.
+_BRIEF_CLIP_S = 0.05
 #: A raw channel more than half flat or clipped is dead, not an event (if others live).
 _DEAD_CHANNEL_FRACTION = 0.5
 _CHUNK_BLOCKS = 8192
@@ -138,7 +141,10 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
     1. Flat lines, per raw channel (or ``fused``): runs of identical samples of at
        least ``min_flat_s``, and runs of two or more blocks of ``min_flat_s / 2``
        whose standard deviation is below 1e-4 of the median block standard
-       deviation. Runs at the channel's extreme value count as clipping.
+       deviation. Runs at the channel's extreme value count as clipping;
+       runs shorter than ``_BRIEF_CLIP_S`` (a wave tip cut off) are flagged
+       (``brief_clipping_not_masked``), not masked, since the rest of the complex
+       still times the beat.
     2. Clipping: runs of at least 3 samples (and 3 ms) exactly at the channel's
        maximum or minimum. A channel more than half flat or clipped is reported as
        dead and not masked, unless no channel is live.
@@ -309,6 +315,8 @@ def _flat_and_clipping(sources: list[NDArray[np.generic]], fs: float, min_flat_s
                        flags: list[str]) -> list[tuple[str, int, int]]:
     per_channel: list[list[tuple[str, int, int]]] = []
     min_clip = max(_MIN_CLIP_SAMPLES, int(math.ceil(_MIN_CLIP_S * fs)))
+    brief_clip = max(min_clip + 1, int(math.ceil(_BRIEF_CLIP_S * fs)))
+    n_brief = 0
     min_run = max(2, int(math.ceil(min_flat_s * fs)))
     blk = max(2, int(math.ceil(0.5 * min_flat_s * fs)))
     for src in sources:
@@ -321,6 +329,10 @@ def _flat_and_clipping(sources: list[NDArray[np.generic]], fs: float, min_flat_s
         for extreme in (hi, lo):
             starts, ends = _runs(src == extreme)
             keep = ends - starts >= min_clip
+            brief = keep & (ends - starts < brief_clip)
+            if brief.any():
+                n_brief += int(brief.sum())
+            keep &= ~brief
             spans += [("clipping", int(a), int(b)) for a, b in zip(starts[keep], ends[keep],
                                                                     strict=True)]
         starts, ends = _runs(src[1:] == src[:-1])
@@ -338,6 +350,8 @@ def _flat_and_clipping(sources: list[NDArray[np.generic]], fs: float, min_flat_s
                   for a, b in zip(starts[keep], ends[keep], strict=True)
                   if src[a * blk] != hi and src[a * blk] != lo]
         per_channel.append(spans)
+    if n_brief:
+        flags.append("brief_clipping_not_masked")
     covered = [_covered_fraction(s, sources[0].shape[0]) for s in per_channel]
     live = [c <= _DEAD_CHANNEL_FRACTION for c in covered]
     out: list[tuple[str, int, int]] = []

@@ -216,3 +216,27 @@ def test_error_rules() -> None:
         mask_artifacts(fused, FS, min_flat_s=20.0)
     with pytest.raises(InvalidInputError, match=r"`min_occupant_kg` must be a finite number > 0"):
         mask_artifacts(fused, FS, min_occupant_kg=float("nan"))
+
+
+def test_brief_clipping_of_wave_tips_is_flagged_not_masked() -> None:
+    # An ADC range just above the static load cuts the tip of every J wave for
+    # a few samples: the beats stay usable (the rest of the complex times them),
+    # so nothing is masked, but the clipping is reported.
+    fused, raw, load = _record(seed=3)
+    top = float(np.quantile(raw[0], 0.995))
+    clipped = [np.minimum(raw[0], top)] + raw[1:]
+    mask = mask_artifacts(fused, FS, load_n=load, load_fs_hz=LOAD_FS, raw_signals=clipped)
+    assert not _spans(mask, "clipping")
+    assert "brief_clipping_not_masked" in mask.flags
+    assert mask.usable_fraction > 0.98
+
+
+def test_long_clipping_run_is_masked() -> None:
+    fused, raw, load = _record(seed=4)
+    held = raw[1].copy()
+    held[int(100 * FS) : int(100.2 * FS)] = held.max() + 1.0  # 0.2 s at full scale
+    held[int(200 * FS) : int(200.01 * FS)] = held.max()  # a 10 ms tip: brief
+    mask = mask_artifacts(fused, FS, load_n=load, load_fs_hz=LOAD_FS,
+                          raw_signals=[raw[0], held, raw[2], raw[3]])
+    clip = _spans(mask, "clipping")
+    assert len(clip) == 1 and clip[0].start_s == pytest.approx(100.0, abs=1 / FS)
