@@ -70,6 +70,26 @@ FEATURES: tuple[FeatureEntry, ...] = (
     FeatureEntry("dfa_alpha1", "variability", None, "variability.nonlinear.dfa_alpha1",
                  "Short-term scaling exponent of detrended fluctuation analysis of the NN "
                  "series (Peng et al., Chaos 5:82-87, 1995)."),
+    FeatureEntry("ij_interval_ms", "morphology", "ms", "morphology.ij_interval_ms",
+                 "Time from the I to the J extremum of the ensemble beat."),
+    FeatureEntry("jk_interval_ms", "morphology", "ms", "morphology.jk_interval_ms",
+                 "Time from the J to the K extremum of the ensemble beat."),
+    FeatureEntry("j_width_ms", "morphology", "ms", "morphology.j_width_ms",
+                 "Full width of the J wave at half its height above the I-K line."),
+    FeatureEntry("jk_amplitude_cv_pct", "morphology", "%", "morphology.jk_amplitude_cv_pct",
+                 "Beat-to-beat coefficient of variation of the J-K amplitude."),
+    FeatureEntry("respiration_rate_per_min", "respiration", "/min", "respiration.rate_per_min",
+                 "Breathing rate: 60 over the median breath-to-breath interval."),
+    FeatureEntry("breath_interval_cv_pct", "respiration", "%", "respiration.interval_cv_pct",
+                 "Coefficient of variation of the breath-to-breath intervals."),
+    FeatureEntry("rsa_ms", "respiration", "ms", "respiration.modulation.rsa_ms",
+                 "Respiratory sinus arrhythmia, peak to trough: median over breaths of the "
+                 "longest minus the shortest beat interval (Grossman et al., Psychophysiology "
+                 "27:702-714, 1990)."),
+    FeatureEntry("respiratory_amplitude_index", "respiration", None,
+                 "respiration.modulation.amplitude_index",
+                 "Depth of the breathing modulation of the beat amplitude: (max - min) / mean "
+                 "of its first-harmonic fit over the breathing phase."),
     FeatureEntry("usable_fraction", "quality", None, "quality.usable_fraction",
                  "Fraction of the recording not masked as movement or other artifact."),
 )

@@ -1,9 +1,7 @@
-"""Response schemas on real engine results, including families the engine will attach.
+"""Response schemas on a real engine result of the demo scenario's trace.
 
-The morphology, respiration and modulation results come from the engine's own
-functions on the demo scenario's trace; they are attached beside the result of
-``features.analyze`` as the engine's entry point will attach them, so the
-response shape is checked before that wiring lands.
+The families are also replaced one at a time (absent, non-finite) to check
+that the document stays valid JSON that the contract accepts.
 """
 
 from __future__ import annotations
@@ -13,16 +11,12 @@ import json
 import types
 from pathlib import Path
 
-import numpy as np
 import pytest
 import yaml
 from jsonschema import Draft202012Validator
 
 import features
 from features.conditioning import ChannelInput
-from features.modulation import respiratory_modulation
-from features.morphology import beat_morphology
-from features.respiration import breathing
 from features.simulation import simulate
 from schemas.responses import NOTICE, AnalysisReport, AnalysisResponseSchema
 from service.demo import DEMO_SETTINGS
@@ -40,18 +34,13 @@ def full_result():
     recording = simulate(DEMO_SETTINGS)
     channels = [ChannelInput(trace, label, "force", "N")
                 for trace, label in zip(recording.channels, recording.labels, strict=True)]
-    result = features.analyze(channels, recording.fs_hz)
-    total = np.sum(recording.channels, axis=0)
-    morphology = beat_morphology(total - total.mean(), recording.fs_hz, result.beats.times_s,
-                                 body_mass_kg=DEMO_SETTINGS.body_mass_kg)
-    respiration = breathing(total, recording.fs_hz)
-    modulation = respiratory_modulation(
-        respiration.breathing_signal, respiration.breathing_fs_hz,
-        beat_times_s=result.beats.times_s, breath_times_s=respiration.breath_times_s,
-    )
+    return features.analyze(channels, recording.fs_hz)
+
+
+def _with(result, **changes):
     values = {f.name: getattr(result, f.name) for f in dataclasses.fields(result)}
-    return types.SimpleNamespace(**values, morphology=morphology, respiration=respiration,
-                                 modulation=modulation)
+    values.update(changes)
+    return types.SimpleNamespace(**values)
 
 
 def _validate(document):
@@ -81,9 +70,8 @@ def test_full_result_dumps_to_a_document_the_contract_accepts(full_result):
 
 
 def test_missing_families_are_null_and_named(full_result):
-    values = dict(vars(full_result))
-    values.update(morphology=None, respiration=None, modulation=None)
-    document = AnalysisResponseSchema().dump(AnalysisReport(types.SimpleNamespace(**values)))
+    absent = _with(full_result, morphology=None, respiration=None, modulation=None)
+    document = AnalysisResponseSchema().dump(AnalysisReport(absent))
     _validate(document)
     assert document["morphology"] is None and document["respiration"] is None
     assert "morphology: not computed by this engine version" in document["warnings"]
@@ -91,10 +79,9 @@ def test_missing_families_are_null_and_named(full_result):
 
 
 def test_infinity_anywhere_becomes_null_and_is_reported(full_result):
-    values = dict(vars(full_result))
-    values["respiration"] = dataclasses.replace(full_result.respiration,
-                                                rise_fall_ratio=float("inf"))
-    document = AnalysisResponseSchema().dump(AnalysisReport(types.SimpleNamespace(**values)))
+    respiration = dataclasses.replace(full_result.respiration, rise_fall_ratio=float("inf"))
+    document = AnalysisResponseSchema().dump(AnalysisReport(_with(full_result,
+                                                                  respiration=respiration)))
     json.dumps(document, allow_nan=False)
     assert document["respiration"]["rise_fall_ratio"] is None
     assert any("respiration.rise_fall_ratio" in w for w in document["warnings"])

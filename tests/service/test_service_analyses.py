@@ -13,9 +13,9 @@ from service_contract import check_against_contract, multipart
 
 from features.intervals import LABELS
 from schemas.responses import NOTICE
-from service.demo import demo_request_body
+from service.demo import DEMO_SETTINGS, demo_request_body
 
-DEMO_HEART_RATE_BPM = 66.0  # the simulator's setting in service.demo
+DEMO_HEART_RATE_BPM = DEMO_SETTINGS.heart_rate_bpm
 
 
 @pytest.fixture(scope="module")
@@ -42,6 +42,12 @@ def test_demo_analysis_is_200_and_matches_the_contract(client, demo_body):
     # The simulator's mean rate (service.demo) within 3 bpm (common practice for
     # seated BCG rate agreement; the engine's own accuracy is tested in features).
     assert abs(body["heart_rate"]["mean_bpm"] - DEMO_HEART_RATE_BPM) < 3.0
+    # The simulator's breathing rate within 2 breaths/min (common practice for
+    # contactless respiration-rate agreement).
+    rate = body["respiration"]["rate_per_min"]
+    assert abs(rate - DEMO_SETTINGS.breathing_rate_per_min) < 2.0
+    assert body["respiration"]["modulation"]["rsa_ms"] is not None
+    assert [w["name"] for w in body["morphology"]["waves"]] == ["H", "I", "J", "K", "L"]
     assert body["feature_vector"]["heart_rate_mean_bpm"] == body["heart_rate"]["mean_bpm"]
     assert body["feature_vector"]["sdnn_ms"] == body["variability"]["time_domain"]["sdnn_ms"]
     # Not asked for: the bulky parts are absent.
