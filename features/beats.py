@@ -165,8 +165,10 @@ def detect_beats(
     2. Stationary wavelet transform (sym4, ``norm=True``: MODWT up to a
        shift) and reconstruction from the detail levels covering
        ``BEAT_BAND_HZ`` alone (MODWT multiresolution component, zero phase)
-       [1]_, [3]_. Masked spans (widened by 0.5 s) are set to zero and the
-       component is scaled by its robust standard deviation (1.4826 MAD).
+       [1]_, [3]_. Masked spans are bridged by a straight line before the
+       transform (so a movement's energy cannot leak into the component next
+       to it) and set to zero after it (widened by 0.1 s); the component is
+       scaled by its robust standard deviation (1.4826 MAD).
     3. Energy envelope: the squared component smoothed over
        ``ENVELOPE_WINDOW_S``. Its autocorrelation gives the dominant beat
        period (first strong peak in the plausible lag range), an estimate
@@ -211,8 +213,8 @@ def detect_beats(
     flags: list[str] = []
     xw, fs_w, usable_w = _to_work_rate(x, fs_hz, mask)
     levels = levels_for_band(fs_w, BEAT_BAND_HZ)
-    comp = swt_component(xw, levels=levels, wavelet=WAVELET)
-    comp = _zero_masked(comp, usable_w, int(round(0.5 * fs_w)))
+    comp = swt_component(_bridge_masked(xw, usable_w), levels=levels, wavelet=WAVELET)
+    comp = _zero_masked(comp, usable_w, int(round(0.1 * fs_w)))
     scale = _robust_sd(comp[usable_w]) if usable_w.any() else 0.0
     if not np.isfinite(scale) or scale <= 0.0:
         return _empty(fs_w, levels, flags + ["no_signal_in_beat_band"])
@@ -369,6 +371,20 @@ def _to_work_rate(
     return xw, fs_w, ~bad[idx]
 
 
+def _bridge_masked(x: NDArray[np.float64], usable: NDArray[np.bool_]) -> NDArray[np.float64]:
+    """Replace masked samples by a straight line between the usable ones around them.
+
+    The wavelet filters then never see a movement's energy, so it cannot leak
+    into the beat-band component of the usable samples next to the mask.
+    """
+    if usable.all() or not usable.any():
+        return x
+    idx = np.arange(x.size)
+    out = x.copy()
+    out[~usable] = np.interp(idx[~usable], idx[usable], x[usable])
+    return out
+
+
 def _zero_masked(comp: NDArray[np.float64], usable: NDArray[np.bool_], widen: int) -> NDArray[
         np.float64]:
     if usable.all():
@@ -519,26 +535,48 @@ def _drop_extra(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray
                 fs: float) -> NDArray[np.intp]:
     """Drop weak beats that split one interval into two short ones.
 
-    A beat is suspect when its two intervals sum to less than 1.3 local
-    medians and the shorter is under 0.6 of it; it goes only when its match
+    A beat is suspect when its two intervals sum to less than 1.3 reference
+    intervals and the shorter is under 0.6 of it; it goes only when its match
     score is under 0.75 of the median score, so a true premature beat or a
-    run of short irregular intervals with good matches stays.
+    run of short irregular intervals with good matches stays. The reference
+    is the local median interval between strong beats (score at least 0.75
+    of the median), so a run of extra beats cannot drag it down.
     """
     for _ in range(3):
         if beats.size < 5:
             return beats
-        iv = np.diff(beats) / fs
-        med = _local_median(iv)
         score = corr[beats] * np.minimum(amp[beats] / np.median(amp[beats]), 1.5)
+        strong = score >= 0.75 * np.median(score)
+        ref = _reference_interval(beats, strong, fs)
+        iv = np.diff(beats) / fs
         before, after = iv[:-1], iv[1:]
-        m = med[:-1]
+        m = ref[1:-1]
         suspect = ((before + after) < 1.3 * m) & (np.minimum(before, after) < 0.6 * m)
-        weak = score[1:-1] < 0.75 * np.median(score)
-        drop = np.flatnonzero(suspect & weak) + 1
+        drop = np.flatnonzero(suspect & ~strong[1:-1]) + 1
         if drop.size == 0:
             return beats
         beats = np.delete(beats, drop)
     return beats
+
+
+def _reference_interval(beats: NDArray[np.intp], strong: NDArray[np.bool_],
+                        fs: float) -> NDArray[np.float64]:
+    """Local median interval between consecutive strong beats, at every beat."""
+    sb = beats[strong]
+    if sb.size < 3:
+        iv = np.diff(beats) / fs
+        return np.full(beats.size, float(np.median(iv)) if iv.size else 1.0)
+    siv = np.diff(sb) / fs
+    # Consecutive strong beats may have a weak one between them: count such a
+    # pair's interval only when no beat lies between (adjacent in ``beats``).
+    pos = np.flatnonzero(strong)
+    adjacent = np.diff(pos) == 1
+    if adjacent.sum() >= 2:
+        siv, mids = siv[adjacent], (sb[:-1][adjacent] + sb[1:][adjacent]) / 2
+    else:
+        mids = (sb[:-1] + sb[1:]) / 2
+    local = _local_median(siv)
+    return np.interp(beats, mids, local)
 
 
 def _recover_missed(
