@@ -49,6 +49,15 @@ ENVELOPE_WINDOW_S = 0.15
 
 MIN_DURATION_S = 10.0
 
+PERIODIC_STRENGTH = 0.4
+"""Envelope autocorrelation at the beat lag below which no dominant period is claimed.
+
+A regular beat train keeps it well above 0.5 down to 0 dB in the beat band; an
+irregular rhythm (atrial-fibrillation-like intervals) decorrelates the envelope
+to about 0.2, and then the period would only mislead the refractory period and
+the heart-rate cross-check.
+"""
+
 LARGE_WAVE_FRACTION = 0.75
 """A wave at least this share of the largest counts as large (polarity, J choice).
 
@@ -171,9 +180,12 @@ def detect_beats(
        scaled by its robust standard deviation (1.4826 MAD).
     3. Energy envelope: the squared component smoothed over
        ``ENVELOPE_WINDOW_S``. Its autocorrelation gives the dominant beat
-       period (first strong peak in the plausible lag range), an estimate
-       independent of beat picking in the spirit of [2]_; the refractory
-       period is 0.4 of it (never shorter than the fastest plausible beat).
+       period (first strong peak in the plausible lag range, claimed only
+       when the autocorrelation there reaches ``PERIODIC_STRENGTH``), an
+       estimate independent of beat picking in the spirit of [2]_; the
+       refractory period is 0.4 of it (never shorter than 0.9 of the fastest
+       plausible beat, which is the refractory period when no period is
+       claimed).
     4. Envelope peaks are candidates. Epochs of the signed component around
        the stronger half are averaged: the ratio of the mean epoch's energy
        to the mean epoch energy, times the number of epochs, is near 1 for
@@ -419,7 +431,7 @@ def _envelope_period(
     if pk.size == 0:
         return None
     best = seg[pk].max()
-    if best < 0.05:
+    if best < PERIODIC_STRENGTH:
         return None
     first = pk[seg[pk] >= 0.7 * best][0]
     return float((lo + first + _vertex(seg, first)) / fs)

@@ -36,7 +36,7 @@ import numpy as np
 
 from features.simulation import SimulatedRecording, SimulationSettings, simulate
 from validation.baseline import detect_beats_baseline
-from validation.matching import match_beats
+from validation.matching import BeatMatch, match_beats
 
 __all__ = [
     "CaseResult",
@@ -110,6 +110,9 @@ class CaseResult:
     baseline_se: float | None
     baseline_ppv: float | None
     baseline_hr_error_bpm: float | None
+    baseline_interval_mae_ms: float | None
+    snr_db: float | None
+    beats_baseline: bool | None
     baseline_tp: int
     baseline_fn: int
     baseline_fp: int
@@ -146,6 +149,10 @@ class CohortReport:
     n_empty_unoccupied: int
     n_empty_low_confidence: int
     n_errors: int
+    n_beats_baseline: int
+    n_compared: int
+    worst_se_snr3: float | None
+    worst_ppv_snr3: float | None
 
 
 # ---------------------------------------------------------------------------------------------
@@ -326,6 +333,35 @@ def _hr_error(reported: float | None, truth: float | None) -> float | None:
     return float(reported - truth)
 
 
+def _f1(m: BeatMatch) -> float:
+    den = 2 * m.true_positives + m.false_positives + m.false_negatives
+    return 2 * m.true_positives / den if den else 0.0
+
+
+def _beats_baseline(m_eng: BeatMatch, m_base: BeatMatch, hr_eng: float | None,
+                    hr_base: float | None) -> bool:
+    """True when the engine is better on at least one score and worse on none.
+
+    Scores: beat F1 (2TP / (2TP + FP + FN)), |HR error| and interval MAE. "Worse" allows
+    for ties within 0.002 F1, 0.1 bpm and 0.1 ms; a missing engine value is worse, a
+    missing baseline value is beaten by any engine value.
+    """
+    pairs: list[tuple[float | None, float | None, float]] = [
+        (-_f1(m_eng), -_f1(m_base), 0.002),
+        (None if hr_eng is None else abs(hr_eng), None if hr_base is None else abs(hr_base), 0.1),
+        (m_eng.interval_mae_ms, m_base.interval_mae_ms, 0.1),
+    ]
+    better = False
+    for e, b, tie in pairs:
+        if e is None:
+            return False
+        if b is None or e < b - tie:
+            better = True
+        elif e > b + tie:
+            return False
+    return better
+
+
 def _score_case(spec: CaseSpec, engine: Detector | None) -> CaseResult:
     started = time.perf_counter()
     rec = simulate(spec.settings)
@@ -361,6 +397,11 @@ def _score_case(spec: CaseSpec, engine: Detector | None) -> CaseResult:
         baseline_se=m_base.sensitivity,
         baseline_ppv=m_base.positive_predictivity,
         baseline_hr_error_bpm=_hr_error(base.mean_bpm, truth.heart_rate_bpm),
+        baseline_interval_mae_ms=m_base.interval_mae_ms,
+        snr_db=spec.settings.snr_db,
+        beats_baseline=(None if eng is None or empty else _beats_baseline(m_eng, m_base,
+                        _hr_error(eng.mean_bpm, truth.heart_rate_bpm),
+                        _hr_error(base.mean_bpm, truth.heart_rate_bpm))),
         baseline_tp=m_base.true_positives,
         baseline_fn=m_base.false_negatives,
         baseline_fp=m_base.false_positives,
@@ -448,7 +489,20 @@ def run_cohort(
             if r.engine_hr_confidence is not None and r.engine_hr_confidence < EMPTY_CONFIDENCE_MAX
         ),
         n_errors=sum(1 for r in results if r.engine_error is not None),
+        n_beats_baseline=sum(1 for r in occupied if r.beats_baseline),
+        n_compared=sum(1 for r in occupied if r.beats_baseline is not None),
+        worst_se_snr3=_worst([r.engine_se for r in occupied if _snr_at_least(r, 3.0)]),
+        worst_ppv_snr3=_worst([r.engine_ppv for r in occupied if _snr_at_least(r, 3.0)]),
     )
+
+
+def _snr_at_least(r: CaseResult, snr_db: float) -> bool:
+    return r.snr_db is None or r.snr_db >= snr_db
+
+
+def _worst(values: Sequence[float | None]) -> float | None:
+    kept = [v for v in values if v is not None]
+    return min(kept) if kept else None
 
 
 # ---------------------------------------------------------------------------------------------
@@ -468,7 +522,7 @@ def format_report(report: CohortReport) -> str:
     """The cohort table and summaries as text (no raw samples)."""
     head = (f"{'case':<20} {'conditions':<50} {'n':>4} | {'Se':>5} {'PPV':>5} {'IBIms':>6} "
             f"{'HRerr':>6} {'conf':>5} {'occ':>4} {'usable':>6} | {'bSe':>5} {'bPPV':>5} "
-            f"{'bHRerr':>6} | note")
+            f"{'bHRerr':>6} {'bIBIms':>6} {'win':>4} | note")
     lines = [
         f"Validation cohort (seed {report.seed}{', quick' if report.quick else ''}); engine: "
         f"{report.engine_name}; match tolerance {report.tolerance_ms:.0f} ms; artifact margin "
@@ -484,7 +538,8 @@ def format_report(report: CohortReport) -> str:
             f"{_f(r.engine_hr_confidence, '.2f'):>5} {_b(r.engine_occupied):>4} "
             f"{_f(r.engine_usable_fraction, '.2f'):>6} | "
             f"{_f(r.baseline_se, '.3f'):>5} {_f(r.baseline_ppv, '.3f'):>5} "
-            f"{_f(r.baseline_hr_error_bpm, '+.1f'):>6} | {r.engine_error or ''}"
+            f"{_f(r.baseline_hr_error_bpm, '+.1f'):>6} {_f(r.baseline_interval_mae_ms, '.1f'):>6} "
+            f"{_b(r.beats_baseline):>4} | {r.engine_error or ''}"
         )
     lines.append("-" * len(head))
     lines.append(
@@ -514,6 +569,14 @@ def format_report(report: CohortReport) -> str:
                 f"confidence < {EMPTY_CONFIDENCE_MAX}: "
                 f"{_b(None if r.engine_hr_confidence is None else r.engine_hr_confidence < 0.3)}"
             )
+    lines.append(
+        f"Engine beats the baseline (better on beat F1, |HR error| or interval MAE, worse on "
+        f"none) on {report.n_beats_baseline}/{report.n_compared} occupied cases."
+    )
+    lines.append(
+        f"Worst per-case Se / PPV among cases with SNR >= 3 dB (or no noise): "
+        f"{_f(report.worst_se_snr3, '.3f')} / {_f(report.worst_ppv_snr3, '.3f')}."
+    )
     lines.append(f"Engine errors: {report.n_errors}.")
     return "\n".join(lines)
 
