@@ -1,0 +1,139 @@
+"""End-to-end engine checks: truth from the physics simulator, invariances, errors, fuzzing."""
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
+
+from features import ChannelInput, InvalidInputError, UnusableSignalError, analyze
+from features.engine import Options, Subject
+from features.simulation import SimulationSettings, simulate
+
+
+def _channels(rec, scale=1.0, offset=0.0):
+    return [
+        ChannelInput(samples=scale * ch + offset, label=lab, quantity=rec.quantity, unit=rec.unit,
+                     position_m=None if rec.positions_m is None else rec.positions_m[i])
+        for i, (ch, lab) in enumerate(zip(rec.channels, rec.labels, strict=True))
+    ]
+
+
+@pytest.fixture(scope="module")
+def armchair():
+    return simulate(SimulationSettings(duration_s=120.0, n_channels=4, seed=11))
+
+
+def test_heart_rate_and_beats_match_the_simulated_truth(armchair):
+    r = analyze(_channels(armchair), armchair.fs_hz, subject=Subject(body_mass_kg=75.0))
+    truth = armchair.truth
+    assert r.heart_rate.mean_bpm == pytest.approx(truth.heart_rate_bpm, abs=1.0)
+    assert r.heart_rate.confidence >= 0.5
+    assert r.occupancy.occupied is True
+    # Supported mass from the static load: M = F / g (Newton's second law at rest).
+    assert r.occupancy.supported_mass_kg == pytest.approx(75.0, rel=0.02)
+    ref = truth.j_times_s
+    near = np.min(np.abs(r.beats.times_s[:, None] - ref[None, :]), axis=0)
+    # AAMI EC57-style matching with a 150 ms window (from memory): every beat found.
+    assert np.mean(near <= 0.15) >= 0.98
+    assert r.variability.time_domain.sdnn_ms is not None
+
+
+def test_empty_support_gives_no_heart_rate(armchair):
+    empty = simulate(SimulationSettings(duration_s=120.0, n_channels=4, body_mass_kg=None,
+                                        seed=12))
+    r = analyze(_channels(empty), empty.fs_hz)
+    assert r.heart_rate.mean_bpm is None and r.heart_rate.reason == "empty_support"
+    assert r.occupancy.occupied is False
+    assert r.heart_rate.confidence < 0.3
+
+
+def test_pure_noise_accelerometer_gives_no_heart_rate():
+    rng = np.random.default_rng(5)
+    ch = ChannelInput(samples=rng.standard_normal(250 * 60) * 0.01, label="acc",
+                      quantity="acceleration", unit="m/s2")
+    r = analyze([ch], 250.0)
+    assert r.heart_rate.mean_bpm is None
+    assert r.occupancy.occupied is False
+    assert r.heart_rate.confidence < 0.3
+
+
+def test_scale_offset_and_polarity_leave_beat_times_unchanged(armchair):
+    base = analyze(_channels(armchair), armchair.fs_hz)
+    scaled = analyze(_channels(armchair, scale=3.0), armchair.fs_hz)
+    np.testing.assert_allclose(scaled.beats.times_s, base.beats.times_s, atol=1e-6)
+    one = simulate(SimulationSettings(duration_s=90.0, seed=13))
+    up = analyze(_channels(one), one.fs_hz)
+    inv = simulate(SimulationSettings(duration_s=90.0, seed=13, polarity=-1))
+    down = analyze(_channels(inv), inv.fs_hz)
+    assert up.beats.polarity == 1 and down.beats.polarity == -1
+    assert abs(up.beats.times_s.size - down.beats.times_s.size) <= 1
+    gap = np.min(np.abs(up.beats.times_s[:, None] - down.beats.times_s[None, :]), axis=1)
+    assert np.median(gap) < 0.005
+
+
+def test_morphology_and_respiration_are_reported(armchair):
+    r = analyze(_channels(armchair), armchair.fs_hz)
+    t = armchair.truth.template
+    assert r.morphology.ij_interval_ms == pytest.approx(t.i_j_interval_ms, abs=10.0)
+    assert r.morphology.jk_interval_ms == pytest.approx(t.j_k_interval_ms, abs=10.0)
+    assert r.respiration.rate_per_min == pytest.approx(armchair.truth.breathing_rate_per_min,
+                                                       abs=1.0)
+
+
+def test_unequal_channels_are_rejected():
+    a = ChannelInput(samples=np.zeros(250 * 30), label="a", quantity="force", unit="N")
+    b = ChannelInput(samples=np.zeros(250 * 31), label="b", quantity="force", unit="N")
+    with pytest.raises(InvalidInputError, match="length") as info:
+        analyze([a, b], 250.0)
+    assert info.value.field.startswith("channels")
+
+
+def test_nan_samples_are_rejected_with_the_field_named():
+    x = np.ones(250 * 30)
+    x[100] = np.nan
+    with pytest.raises(InvalidInputError, match="finite") as info:
+        analyze([ChannelInput(samples=x, label="a", quantity="force", unit="N")], 250.0)
+    assert info.value.field == "channels[0].samples"
+
+
+def test_rate_out_of_range_is_rejected():
+    ch = ChannelInput(samples=np.zeros(40 * 30), label="a", quantity="force", unit="N")
+    with pytest.raises(InvalidInputError, match="50 and 2000 Hz"):
+        analyze([ch], 40.0)
+
+
+def test_unknown_unit_is_rejected():
+    ch = ChannelInput(samples=np.zeros(250 * 30), label="a", quantity="force", unit="stone")
+    with pytest.raises(InvalidInputError, match="unit"):
+        analyze([ch], 250.0)
+
+
+def test_bad_body_mass_is_rejected():
+    ch = ChannelInput(samples=np.zeros(250 * 30), label="a", quantity="force", unit="N")
+    with pytest.raises(InvalidInputError, match=r"`subject.body_mass_kg` must be between 2 and"):
+        analyze([ch], 250.0, subject=Subject(body_mass_kg=-3.0))
+
+
+def test_too_short_trace_is_rejected():
+    ch = ChannelInput(samples=np.zeros(250 * 5), label="a", quantity="force", unit="N")
+    with pytest.raises(InvalidInputError, match="20"):
+        analyze([ch], 250.0)
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    x=arrays(np.float64, st.integers(50 * 20, 50 * 24),
+             elements=st.floats(-1e6, 1e6, allow_nan=False, allow_infinity=False)),
+    quantity=st.sampled_from(["force", "acceleration"]),
+)
+def test_any_finite_input_gives_a_result_or_a_documented_error(x, quantity):
+    unit = "N" if quantity == "force" else "m/s2"
+    try:
+        r = analyze([ChannelInput(samples=x, label="a", quantity=quantity, unit=unit)], 50.0,
+                    options=Options(mains_hz=None))
+    except (InvalidInputError, UnusableSignalError):
+        return
+    assert 0.0 <= r.heart_rate.confidence <= 1.0
+    assert r.heart_rate.mean_bpm is None or 30.0 <= r.heart_rate.mean_bpm <= 200.0
+    assert 0.0 <= r.quality.usable_fraction <= 1.0
