@@ -23,13 +23,25 @@ from features import ChannelInput, analyze
 from features.simulation import SimulationSettings, simulate
 
 
+BLOCK_S = 1800.0
+"""Longest simulated block; longer traces repeat blocks of different seeds end to end."""
+
+
 def _recording(duration_s: float, fs_hz: float, n_channels: int, seed: int) -> list[ChannelInput]:
-    rec = simulate(SimulationSettings(duration_s=duration_s, fs_hz=fs_hz, n_channels=n_channels,
-                                      seed=seed))
+    blocks = []
+    left, k = duration_s, 0
+    while left > 0:
+        length = min(BLOCK_S, left)
+        blocks.append(simulate(SimulationSettings(duration_s=length, fs_hz=fs_hz,
+                                                  n_channels=n_channels, seed=seed + k)))
+        left -= length
+        k += 1
+    rec = blocks[0]
     return [
-        ChannelInput(samples=ch, label=lab, quantity=rec.quantity, unit=rec.unit,
+        ChannelInput(samples=np.concatenate([b.channels[i] for b in blocks]), label=lab,
+                     quantity=rec.quantity, unit=rec.unit,
                      position_m=None if rec.positions_m is None else rec.positions_m[i])
-        for i, (ch, lab) in enumerate(zip(rec.channels, rec.labels, strict=True))
+        for i, lab in enumerate(rec.labels)
     ]
 
 
