@@ -195,7 +195,7 @@ def detect_beats(
        wave leads the complex, and a lightly damped support can ring after
        it with a deeper K trough than the J peak.
     5. Template matching, twice: a normalised cross-correlation trace of the
-       component with the template (FFT convolution and running sums, linear
+       component with the template (overlap-add FFT convolution and running sums, linear
        in length up to a log factor); its peaks, one per refractory period,
        are the candidates; the template is rebuilt as the median of the
        best-matching epochs and re-centred on its J wave (the first large
@@ -518,7 +518,7 @@ def _match(comp: NDArray[np.float64], template: NDArray[np.float64], centre: int
         return z, z
     t = t / norm
     m, n = t.size, comp.size
-    full = signal.fftconvolve(comp, t[::-1], mode="full")
+    full = signal.oaconvolve(comp, t[::-1], mode="full")
     first = m - 1 - centre
     num = full[first : first + n]
     # Running sums over the same window as the correlation.
