@@ -24,6 +24,9 @@ BASE64_DTYPES: dict[str, np.dtype[Any]] = {
     "int32": np.dtype("<i4"),
 }
 
+#: Standard base64 with padding (RFC 4648 section 4), as a JSON Schema pattern.
+BASE64_PATTERN = r"^(?:[A-Za-z0-9+/]{4})*(?:[A-Za-z0-9+/]{2}==|[A-Za-z0-9+/]{3}=)?$"
+
 _NUMBER_TYPES = frozenset({int, float})
 
 

@@ -52,6 +52,14 @@ class UnusableSignalProblemSchema(ProblemSchema):
     )
 
 
+class ComputeTimeProblemSchema(ProblemSchema):
+    """503: the analysis ran past the service's compute-time limit and was stopped."""
+
+    limit_s = fields.Float(
+        required=True, metadata={"description": "The limit in seconds (HEARTSWAY_MAX_COMPUTE_S)."}
+    )
+
+
 class HealthSchema(Schema):
     """Body of /healthz and /readyz."""
 

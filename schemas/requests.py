@@ -23,7 +23,13 @@ from marshmallow import Schema, ValidationError, fields, post_load, validates_sc
 from marshmallow.validate import Length, OneOf, Range
 
 from features.conditioning import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ, valid_units
-from schemas.fields import BASE64_DTYPES, SamplesField, StrictFloat, decode_base64_samples
+from schemas.fields import (
+    BASE64_DTYPES,
+    BASE64_PATTERN,
+    SamplesField,
+    StrictFloat,
+    decode_base64_samples,
+)
 
 QUANTITIES = ("acceleration", "displacement", "force", "velocity")
 #: Unit of a channel recorded in ADC counts (it then needs a ``counts_scale``).
@@ -35,6 +41,12 @@ INCLUDE_PARTS = ("beats", "signals", "template", "windows")
 MAINS_CHOICES = ("auto", 50, 60)
 #: Default cap on the samples of one request, all channels together.
 DEFAULT_MAX_SAMPLES = 4_000_000
+#: Longest ``samples_base64`` worth sending: the default sample cap at the widest
+#: dtype (float64, 8 bytes) in base64 (4 characters per 3 bytes, padded).
+BASE64_MAX_LENGTH = 4 * -(-DEFAULT_MAX_SAMPLES * 8 // 3)
+#: Body mass the engine accepts, in kg (features.engine refuses anything else).
+MIN_BODY_MASS_KG = 2.0
+MAX_BODY_MASS_KG = 400.0
 
 
 # --------------------------------------------------------------------------
@@ -163,14 +175,25 @@ class ChannelSchema(Schema):
         },
     )
     samples = SamplesField(
-        metadata={"description": "The trace, one number per sample (give this or samples_base64)."}
+        metadata={
+            "description": (
+                "The trace, one number per sample (give this or samples_base64); at most "
+                f"{DEFAULT_MAX_SAMPLES} samples over all channels (the default cap)."
+            ),
+            "minItems": 1,
+            "maxItems": DEFAULT_MAX_SAMPLES,
+        }
     )
     samples_base64 = fields.String(
         metadata={
             "description": (
                 "The trace as little-endian binary values in standard base64 "
-                "(give this and dtype, or samples)."
-            )
+                "(give this and dtype, or samples); its length is a multiple of 4 and "
+                "decodes to a whole number of values of the dtype."
+            ),
+            "minLength": 4,
+            "maxLength": BASE64_MAX_LENGTH,
+            "pattern": BASE64_PATTERN,
         }
     )
     dtype = fields.String(
@@ -262,8 +285,10 @@ class SubjectSchema(Schema):
     """Optional facts about the person; never logged."""
 
     body_mass_kg = StrictFloat(
-        validate=Range(min=0, max=500, min_inclusive=False),
-        metadata={"description": "Body mass in kg, in (0, 500]."},
+        validate=Range(min=MIN_BODY_MASS_KG, max=MAX_BODY_MASS_KG),
+        metadata={
+            "description": f"Body mass in kg, {MIN_BODY_MASS_KG:g}-{MAX_BODY_MASS_KG:g}."
+        },
     )
     age_years = StrictFloat(
         validate=Range(min=0, max=130),
@@ -306,7 +331,11 @@ class MainsField(fields.Field[Any]):
             "description": (
                 "Mains hum to remove: 50 or 60 (Hz), `auto` to detect it, null for none."
             ),
-            "oneOf": [{"type": "string", "enum": ["auto"]}, {"type": "integer", "enum": [50, 60]}],
+            "oneOf": [
+                {"type": "string", "enum": ["auto"]},
+                {"type": "integer", "enum": [50, 60]},
+                {"type": "null"},
+            ],
         }
         super().__init__(allow_none=True, load_default="auto", metadata=metadata, **kwargs)
 
@@ -316,6 +345,14 @@ class MainsField(fields.Field[Any]):
         ):
             return value if value == "auto" else int(value)
         raise ValidationError(f"`mains_hz` must be one of 'auto', 50, 60 or null; got {value!r}.")
+
+
+def _unique_items(values: list[Any]) -> None:
+    repeated = sorted({v for v in values if values.count(v) > 1})
+    if repeated:
+        raise ValidationError(
+            f"`include` must name each part once; got {', '.join(repeated)} more than once."
+        )
 
 
 class OptionsSchema(Schema):
@@ -337,6 +374,7 @@ class OptionsSchema(Schema):
                 INCLUDE_PARTS, error=f"Must be one of: {_sorted_choices(INCLUDE_PARTS)}."
             )
         ),
+        validate=_unique_items,
         metadata={
             "description": "Bulky parts to add to the response.",
             "uniqueItems": True,
@@ -389,13 +427,26 @@ class AnalysisRequestSchema(Schema):
     recording = fields.Nested(RecordingSchema)
     options = fields.Nested(OptionsSchema)
 
-    def __init__(self, *, max_samples: int = DEFAULT_MAX_SAMPLES, **kwargs: Any) -> None:
+    def __init__(
+        self,
+        *,
+        max_samples: int = DEFAULT_MAX_SAMPLES,
+        max_channels: int = MAX_CHANNELS,
+        **kwargs: Any,
+    ) -> None:
         super().__init__(**kwargs)
         self.max_samples = max_samples
+        self.max_channels = max_channels
 
     @validates_schema
     def _channels_agree(self, data: Mapping[str, Any], **kwargs: Any) -> None:
         channels = data.get("channels") or []
+        if len(channels) > self.max_channels:
+            raise ValidationError(
+                f"`channels` must hold at most {self.max_channels} channels (this service's "
+                f"limit); got {len(channels)}.",
+                field_name="channels",
+            )
         errors: dict[int, dict[str, list[str]]] = {}
         if channels:
             expected = channels[0].samples.size

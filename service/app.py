@@ -9,7 +9,7 @@ from typing import IO, Any
 from flask import Flask, Request
 from flask.json.provider import DefaultJSONProvider
 
-from service import logs, problems
+from service import access, logs, problems
 from service.blueprints import analyses, catalogue, health, meta
 from service.config import load_config
 
@@ -63,6 +63,7 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     app.url_map.strict_slashes = True
 
     logs.init_app(app)
+    access.init_app(app)
     problems.init_app(app)
     app.register_blueprint(health.blueprint)
     app.register_blueprint(meta.blueprint)

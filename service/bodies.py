@@ -56,10 +56,18 @@ def read_analysis_request(schema: AnalysisRequestSchema) -> AnalysisRequest:
     Raises
     ------
     werkzeug.exceptions.UnsupportedMediaType
-        For any other media type.
+        For any other media type, or a body with a Content-Encoding.
     schemas.errors.SchemaValidationError
         When the content breaks the contract.
     """
+    coding = request.headers.get("Content-Encoding", "identity").strip().lower()
+    if coding != "identity":
+        # Compressed bodies are refused rather than inflated: a few kB of gzip can
+        # expand to gigabytes, past every limit on the body as sent.
+        raise UnsupportedMediaType(
+            "The body must be sent uncompressed (no Content-Encoding); got Content-Encoding "
+            f"{coding[:32]!r}."
+        )
     mimetype = request.mimetype
     loaded: AnalysisRequest
     if mimetype == JSON_MEDIA_TYPE:

@@ -2,9 +2,10 @@
 
 One line per request (method, route, status, duration, body size) and one
 per unexpected error. Nothing from the body goes into a log line: no samples,
-no subject fields, no device ids. The request id comes from ``X-Request-ID``
-when the client sends a well-formed one, otherwise it is generated, and it is
-echoed in the response.
+no subject fields, no device ids; an exception is logged as its type and a
+stack of ``file:line in function`` frames, never its message. The request id
+comes from ``X-Request-ID`` when the client sends a well-formed one, otherwise
+it is generated, and it is echoed in the response.
 """
 
 from __future__ import annotations
@@ -14,7 +15,10 @@ import logging
 import re
 import sys
 import time
+import traceback
 import uuid
+from pathlib import Path
+from types import TracebackType
 from typing import Any
 
 from flask import Flask, Response, g, request
@@ -39,9 +43,26 @@ class JsonFormatter(logging.Formatter):
         }
         line.update(getattr(record, "fields", {}))
         if record.exc_info and record.exc_info[0] is not None:
+            # The type and where it was raised, never the message: an exception's
+            # text can quote the values (samples, identifiers) it was raised on.
             line["exception"] = record.exc_info[0].__name__
-            line["traceback"] = self.formatException(record.exc_info)
+            line["stack"] = sanitised_stack(record.exc_info[2])
         return json.dumps(line, default=str, allow_nan=False)
+
+
+def sanitised_stack(trace: TracebackType | None) -> list[str]:
+    """Frames of a traceback as ``path:line in function``, without messages or locals.
+
+    Paths are shortened to the part below ``site-packages`` or the repository
+    (the last three components at most), so no home directory is logged either.
+    """
+    frames = []
+    for frame in traceback.extract_tb(trace):
+        parts = Path(frame.filename).parts
+        if "site-packages" in parts:
+            parts = parts[parts.index("site-packages") + 1 :]
+        frames.append(f"{'/'.join(parts[-3:])}:{frame.lineno} in {frame.name}")
+    return frames
 
 
 def configure_logging(level: str) -> None:

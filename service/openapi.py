@@ -19,15 +19,17 @@ from apispec import APISpec
 from apispec.ext.marshmallow import MarshmallowPlugin
 
 import features
+from features.conditioning import valid_units
 from schemas.catalogue import CatalogueSchema
 from schemas.csv_input import CsvUploadFormSchema
 from schemas.problems import (
+    ComputeTimeProblemSchema,
     HealthSchema,
     ProblemSchema,
     UnusableSignalProblemSchema,
     ValidationProblemSchema,
 )
-from schemas.requests import DEFAULT_MAX_SAMPLES, AnalysisRequestSchema
+from schemas.requests import COUNTS_UNIT, DEFAULT_MAX_SAMPLES, QUANTITIES, AnalysisRequestSchema
 from schemas.responses import (
     AnalysisResponseSchema,
     BeatsSchema,
@@ -37,9 +39,15 @@ from schemas.responses import (
     SignalsSchema,
     TemplateSchema,
 )
+from service.access import AUTH_SCHEME, REALM
 from service.config import DEFAULTS
 from service.logs import REQUEST_ID_HEADER
-from service.problems import PROBLEM_MEDIA_TYPE, UNUSABLE_SIGNAL_TYPE, VALIDATION_TYPE
+from service.problems import (
+    COMPUTE_TIME_TYPE,
+    PROBLEM_MEDIA_TYPE,
+    UNUSABLE_SIGNAL_TYPE,
+    VALIDATION_TYPE,
+)
 
 DEFAULT_PATH = Path(__file__).resolve().parent.parent / "openapi.yaml"
 
@@ -53,9 +61,20 @@ errors have the type `about:blank`; a request that breaks the contract has the
 type `{VALIDATION_TYPE}` and names every offending field in `errors`; a trace
 with no usable signal has the type `{UNUSABLE_SIGNAL_TYPE}` and a `reason`.
 
-Limits (defaults, configurable): a body of at most
-{DEFAULTS["MAX_CONTENT_LENGTH"]} bytes (413 above), at most {DEFAULT_MAX_SAMPLES}
-samples per request over all channels (422 above).
+Limits (defaults, each configurable, see the README): a body of at most
+{DEFAULTS["MAX_CONTENT_LENGTH"]} bytes (`HEARTSWAY_MAX_BODY_BYTES`, 413 above); at
+most {DEFAULT_MAX_SAMPLES} samples per request over all channels
+(`HEARTSWAY_MAX_SAMPLES`, 422 above); at most {DEFAULTS["HEARTSWAY_MAX_CHANNELS"]}
+channels (`HEARTSWAY_MAX_CHANNELS`, 422 above); at most
+{DEFAULTS["HEARTSWAY_MAX_COMPUTE_S"]:g} s of work per analysis
+(`HEARTSWAY_MAX_COMPUTE_S`; the analysis is stopped and answered 503 with the type
+`{COMPUTE_TIME_TYPE}`). Bodies are taken uncompressed only: a
+`Content-Encoding` other than `identity` gets 415.
+
+Access: when the service is configured with API keys, every path under `/v1`
+needs `Authorization: Bearer <key>` (401 with `WWW-Authenticate` otherwise);
+`/healthz`, `/readyz` and `/openapi.yaml` are always open. Browsers may call the
+API only from origins the service allows (CORS is closed by default).
 
 Caution: this service is not a medical device and its output is not a
 diagnosis. Its features are estimates for research and wellness monitoring;
@@ -106,9 +125,35 @@ _RESPONSES: dict[str, dict[str, Any]] = {
         },
         "headers": _REQUEST_ID,
     },
+    "Unauthorized": _plain(
+        "An API key is required (the service is configured with keys) and none, or an "
+        "unknown one, was sent.",
+        **{
+            "WWW-Authenticate": {
+                "description": f'`{AUTH_SCHEME} realm="{REALM}"` (RFC 6750 section 3).',
+                "schema": {"type": "string"},
+            }
+        },
+    ),
     "InternalError": _plain("Unexpected error; logged under the request id, no details shown."),
     "Unavailable": _plain("The analysis engine failed its self-check in this process."),
+    "ComputeTimeExceeded": {
+        "description": (
+            "The analysis ran past the service's compute-time limit "
+            f"(HEARTSWAY_MAX_COMPUTE_S, default {DEFAULTS['HEARTSWAY_MAX_COMPUTE_S']:g} s) "
+            "and was stopped; send a shorter trace or fewer channels."
+        ),
+        "content": {
+            PROBLEM_MEDIA_TYPE: {"schema": {"$ref": "#/components/schemas/ComputeTimeProblem"}}
+        },
+        "headers": _REQUEST_ID,
+    },
 }
+
+#: Optional API-key authentication: a key, or none when the service has no keys.
+_KEY_OPTIONAL: list[dict[str, list[str]]] = [{"apiKey": []}, {}]
+#: Open paths: never a key.
+_OPEN: list[dict[str, list[str]]] = []
 
 
 def _json(schema: str, description: str) -> dict[str, Any]:
@@ -122,6 +167,7 @@ def _json(schema: str, description: str) -> dict[str, Any]:
 def _errors(*names: str) -> dict[str, Any]:
     codes = {
         "BadRequest": "400",
+        "Unauthorized": "401",
         "NotFound": "404",
         "MethodNotAllowed": "405",
         "ContentTooLarge": "413",
@@ -129,6 +175,7 @@ def _errors(*names: str) -> dict[str, Any]:
         "Unprocessable": "422",
         "InternalError": "500",
         "Unavailable": "503",
+        "ComputeTimeExceeded": "503",
     }
     return {codes[name]: {"$ref": f"#/components/responses/{name}"} for name in names}
 
@@ -141,6 +188,7 @@ def _paths(spec: APISpec) -> None:
                 "operationId": "getHealth",
                 "summary": "Liveness: the process answers.",
                 "tags": ["operations"],
+                "security": _OPEN,
                 "responses": {
                     "200": _json("Health", "Alive."),
                     **_errors("MethodNotAllowed", "InternalError"),
@@ -155,6 +203,7 @@ def _paths(spec: APISpec) -> None:
                 "operationId": "getReadiness",
                 "summary": "Readiness: the engine analysed a synthetic trace in this process.",
                 "tags": ["operations"],
+                "security": _OPEN,
                 "responses": {
                     "200": _json("Health", "Ready for analyses."),
                     **_errors("MethodNotAllowed", "InternalError", "Unavailable"),
@@ -169,10 +218,17 @@ def _paths(spec: APISpec) -> None:
                 "operationId": "getContract",
                 "summary": "This contract.",
                 "tags": ["operations"],
+                "security": _OPEN,
                 "responses": {
                     "200": {
                         "description": "OpenAPI 3.1 document.",
-                        "content": {"application/yaml": {"schema": {"type": "string"}}},
+                        "content": {
+                            "application/yaml": {
+                                # No JSON type: the body is YAML text whose parsed
+                                # form is this document.
+                                "schema": {"description": "This OpenAPI document, as YAML."}
+                            }
+                        },
                         "headers": _REQUEST_ID,
                     },
                     **_errors("MethodNotAllowed", "InternalError"),
@@ -187,9 +243,10 @@ def _paths(spec: APISpec) -> None:
                 "operationId": "listFeatures",
                 "summary": "The catalogue of features, with definitions and units.",
                 "tags": ["features"],
+                "security": _KEY_OPTIONAL,
                 "responses": {
                     "200": _json("Catalogue", "Every feature the engine reports."),
-                    **_errors("MethodNotAllowed", "InternalError"),
+                    **_errors("Unauthorized", "MethodNotAllowed", "InternalError"),
                 },
             }
         },
@@ -207,6 +264,7 @@ def _paths(spec: APISpec) -> None:
                     "form data with the rate in `sampling_rate_hz`."
                 ),
                 "tags": ["analyses"],
+                "security": _KEY_OPTIONAL,
                 "requestBody": {
                     "required": True,
                     "content": {
@@ -237,11 +295,13 @@ def _paths(spec: APISpec) -> None:
                     "200": _json("Analysis", "The features, each with its confidence."),
                     **_errors(
                         "BadRequest",
+                        "Unauthorized",
                         "MethodNotAllowed",
                         "ContentTooLarge",
                         "UnsupportedMediaType",
                         "Unprocessable",
                         "InternalError",
+                        "ComputeTimeExceeded",
                     ),
                 },
             }
@@ -269,6 +329,19 @@ def build_spec() -> dict[str, Any]:
     spec.components.schema("Problem", schema=ProblemSchema)
     spec.components.schema("ValidationProblem", schema=ValidationProblemSchema)
     spec.components.schema("UnusableSignalProblem", schema=UnusableSignalProblemSchema)
+    spec.components.schema("ComputeTimeProblem", schema=ComputeTimeProblemSchema)
+    spec.components.security_scheme(
+        "apiKey",
+        {
+            "type": "http",
+            "scheme": "bearer",
+            "description": (
+                "An API key issued by the operator (HEARTSWAY_API_KEYS or "
+                "HEARTSWAY_API_KEYS_FILE), sent as `Authorization: Bearer <key>`. Required on "
+                "/v1 paths only when the service is configured with keys."
+            ),
+        },
+    )
     spec.components.schema("ChannelSummary", schema=ChannelSummarySchema)
     spec.components.schema("Beats", schema=BeatsSchema)
     spec.components.schema("Template", schema=TemplateSchema)
@@ -279,7 +352,35 @@ def build_spec() -> dict[str, Any]:
     for name, response in _RESPONSES.items():
         spec.components.response(name, response)
     _paths(spec)
-    return spec.to_dict()
+    document = spec.to_dict()
+    _channel_rules(document["components"]["schemas"]["Channel"])
+    return document
+
+
+def _channel_rules(channel: dict[str, Any]) -> None:
+    """Add the cross-member rules of a channel that marshmallow checks in code.
+
+    Exactly one of ``samples`` and ``samples_base64`` (the latter with its
+    ``dtype``, the former without), and the units each quantity accepts, with
+    ``counts_scale`` exactly when the unit is ``counts``.
+    """
+    channel["oneOf"] = [
+        {"required": ["samples"], "not": {"anyOf": [
+            {"required": ["samples_base64"]}, {"required": ["dtype"]}]}},
+        {"required": ["samples_base64", "dtype"], "not": {"required": ["samples"]}},
+    ]
+    rules: list[dict[str, Any]] = []
+    for quantity in sorted(QUANTITIES):
+        rules.append({
+            "if": {"properties": {"quantity": {"const": quantity}}, "required": ["quantity"]},
+            "then": {"properties": {"unit": {"enum": valid_units(quantity)}}},
+        })
+    rules.append({
+        "if": {"properties": {"unit": {"const": COUNTS_UNIT}}, "required": ["unit"]},
+        "then": {"required": ["counts_scale"]},
+        "else": {"not": {"required": ["counts_scale"]}},
+    })
+    channel["allOf"] = rules
 
 
 class _Dumper(yaml.SafeDumper):  # type: ignore[misc]

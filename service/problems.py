@@ -1,6 +1,6 @@
 """RFC 9457 problem details: one set of error handlers for the whole service.
 
-Plain HTTP errors (400, 404, 405, 413, 415, 500, and 503 from /readyz) use the type
+Plain HTTP errors (400, 401, 404, 405, 413, 415, 500, and 503 from /readyz) use the type
 ``about:blank`` with the status phrase as title, as RFC 9457 section 4.2.1
 describes. Problems of our own domain have their own type URIs under
 ``urn:heartsway:problem:``. Responses never carry a stack trace.
@@ -16,12 +16,14 @@ from werkzeug.exceptions import HTTPException
 
 from features.errors import InvalidInputError, UnusableSignalError
 from schemas.errors import SchemaValidationError, flatten_errors, pointer_of
+from service.deadline import ComputeTimeExceeded
 from service.logs import current_request_id, logger
 
 PROBLEM_MEDIA_TYPE = "application/problem+json"
 TYPE_PREFIX = "urn:heartsway:problem:"
 VALIDATION_TYPE = TYPE_PREFIX + "validation-error"
 UNUSABLE_SIGNAL_TYPE = TYPE_PREFIX + "unusable-signal"
+COMPUTE_TIME_TYPE = TYPE_PREFIX + "compute-time-exceeded"
 
 
 #: Titles from RFC 9110 section 15 where Python's phrases still use older names.
@@ -78,6 +80,9 @@ def _http_error(error: HTTPException) -> Response:
         detail = f"The body must be at most {limit} bytes; got " + (
             f"{sent} bytes." if sent is not None else "more."
         )
+    elif status == 415 and request.headers.get("Content-Encoding"):
+        # RFC 9110 section 15.5.16: name the codings accepted (none but identity).
+        headers["Accept-Encoding"] = "identity"
     elif status == 404:
         detail = "No resource at this path; the contract is at /openapi.yaml."
     return problem(status, detail, headers=headers)
@@ -104,6 +109,27 @@ def _unusable_signal(error: UnusableSignalError) -> Response:
     )
 
 
+def _compute_time(error: ComputeTimeExceeded) -> Response:
+    logger.warning(
+        "compute_time_exceeded",
+        extra={
+            "fields": {
+                "request_id": current_request_id(),
+                "limit_s": error.limit_s,
+                "elapsed_s": round(error.elapsed_s, 3),
+            }
+        },
+    )
+    return problem(
+        503,
+        f"The analysis must finish within {error.limit_s:g} s on this service; it was "
+        f"stopped after {error.elapsed_s:.1f} s. Send a shorter trace or fewer channels.",
+        type_=COMPUTE_TIME_TYPE,
+        title="Compute time limit exceeded",
+        limit_s=error.limit_s,
+    )
+
+
 def _unexpected(error: Exception) -> Response:
     if isinstance(error, HTTPException):
         return _http_error(error)
@@ -124,4 +150,5 @@ def init_app(app: Flask) -> None:
     app.register_error_handler(SchemaValidationError, _schema_error)
     app.register_error_handler(InvalidInputError, _invalid_input)
     app.register_error_handler(UnusableSignalError, _unusable_signal)
+    app.register_error_handler(ComputeTimeExceeded, _compute_time)
     app.register_error_handler(Exception, _unexpected)
