@@ -454,7 +454,7 @@ def feature_vector(result: AnalysisResult) -> FeatureVector:
        between analyses of one input.
     """
     unit = result.input.amplitude_unit
-    from_cop = result.respiration.source != "trace"
+    from_cop = getattr(result.respiration, "source", "trace") != "trace"
     values = []
     for d in FEATURES:
         resolved = None if d.unit is None else d.unit.replace(AMPLITUDE_UNIT, unit)

@@ -22,7 +22,8 @@ from typing import Any
 import numpy as np
 from marshmallow import Schema, fields, missing, post_dump
 
-from schemas.catalogue import FEATURES
+from features.feature_vector import feature_vector as engine_feature_vector
+from schemas.catalogue import FeatureValueSchema
 
 #: The caution carried by every analysis.
 NOTICE = (
@@ -31,9 +32,6 @@ NOTICE = (
     "with a confidence and may be wrong. Decisions about a person's health belong to qualified "
     "clinicians, under the regulation that applies where the person lives."
 )
-
-#: Scalar features copied into ``feature_vector``: name -> dotted path in the response.
-FEATURE_VECTOR_PATHS: dict[str, str] = {entry.name: entry.path for entry in FEATURES}
 
 #: Families of the response that the engine may not compute yet.
 OPTIONAL_FAMILIES = ("morphology", "respiration")
@@ -420,8 +418,16 @@ class AnalysisResponseSchema(Schema):
     })
     feature_vector = fields.Method("_feature_vector", required=True, metadata={
         "type": "object",
-        "additionalProperties": {"type": ["number", "null"]},
-        "description": "The main scalar features by name (see GET /v1/features).",
+        "description": (
+            "Every catalogue feature (GET /v1/features) in catalogue order, each with its "
+            "value (null with a reason when it cannot be computed), unit and confidence."
+        ),
+        "properties": {
+            "feature_set_version": {"type": "string"},
+            "features": {"type": "array",
+                         "items": {"$ref": "#/components/schemas/FeatureValue"}},
+        },
+        "required": ["feature_set_version", "features"],
     })
     warnings = fields.Method("_warnings", required=True, metadata={
         "type": "array", "items": {"type": "string"},
@@ -476,18 +482,18 @@ class AnalysisResponseSchema(Schema):
         document["modulation"] = None if modulation is None else ModulationSchema().dump(modulation)
         return document
 
-    def _feature_vector(self, report: AnalysisReport) -> dict[str, float | None]:
-        # Filled in post-dump from the dumped families.
-        return {}
+    def _feature_vector(self, report: AnalysisReport) -> dict[str, Any]:
+        vector = engine_feature_vector(report.result)
+        return {
+            "feature_set_version": vector.feature_set_version,
+            "features": FeatureValueSchema(many=True).dump(vector.features),
+        }
 
     def _warnings(self, report: AnalysisReport) -> list[str]:
         return [str(w) for w in report.result.warnings]
 
     @post_dump
     def _finish(self, data: dict[str, Any], **kwargs: Any) -> dict[str, Any]:
-        data["feature_vector"] = {
-            name: _plain_number(_get(data, path)) for name, path in FEATURE_VECTOR_PATHS.items()
-        }
         warnings = list(data.get("warnings", []))
         for family in OPTIONAL_FAMILIES:
             if data.get(family) is None:

@@ -61,7 +61,8 @@ def test_feature_catalogue_lists_features_with_units(client):
     # Task Force (1996) measures that the issue requires by name.
     assert {"sdnn_ms", "rmssd_ms", "heart_rate_mean_bpm"} <= set(names)
     for entry in body["features"]:
-        assert set(entry) == {"name", "family", "unit", "path", "definition"}
+        assert set(entry) == {"name", "family", "unit", "path", "definition", "valid_range",
+                              "reference"}
         assert entry["definition"]
     check_against_contract(response, "/v1/features", "get")
 
@@ -71,12 +72,16 @@ def test_every_catalogued_feature_is_in_the_vector_of_a_real_analysis(client):
 
     catalogue = client.get("/v1/features").get_json()["features"]
     analysis = client.post("/v1/analyses", json=demo_request_body()).get_json()
-    assert set(analysis["feature_vector"]) == {entry["name"] for entry in catalogue}
-    for entry in catalogue:
-        node = analysis
-        for part in entry["path"].split("."):
-            node = node[part]
-        assert analysis["feature_vector"][entry["name"]] == node, entry["name"]
+    vector = analysis["feature_vector"]["features"]
+    # Every catalogue entry, in catalogue order, each with a value or a reason.
+    assert [f["name"] for f in vector] == [entry["name"] for entry in catalogue]
+    for f in vector:
+        assert f["value"] is not None or f["reason"], f["name"]
+        assert 0.0 <= f["confidence"] <= 1.0
+    values = {f["name"]: f["value"] for f in vector}
+    assert values["heart_rate_mean_bpm"] == analysis["heart_rate"]["mean_bpm"]
+    assert values["sdnn_ms"] == analysis["variability"]["time_domain"]["sdnn_ms"]
+    assert values["rsa_ms"] == analysis["respiration"]["modulation"]["rsa_ms"]
 
 
 def test_request_id_is_echoed_when_well_formed(client):
