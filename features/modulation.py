@@ -141,7 +141,10 @@ def respiratory_modulation(
        >= 5 cycles. A force trace does not tell inspiration from expiration by sign, so the
        max - min form within the cycle is used instead of "longest in expiration minus
        shortest in inspiration"; a cycle with no change counts as 0 and is kept.
-       Confidence = min(1, cycles / 20) x share of kept cycles that gave a value.
+       Confidence = min(1, cycles / 20) x share of kept cycles that gave a value x
+       clip(timing_modulation_pct / ``RSA_LOCKED_SHARE_PCT``, 0, 1) (0.5 when the timing
+       share cannot be computed): max - min within a breath is large in any irregular
+       series, and is respiratory only as far as the intervals move at the breathing rate.
     3. ``amplitude_index``: each amplitude in a kept cycle gets the breathing phase
        phi = 2 pi (t - start) / (cycle length); the least-squares fit
        A = a0 + a1 cos(phi) + a2 sin(phi) gives the first-harmonic (breathing-frequency)
@@ -213,6 +216,10 @@ def respiratory_modulation(
         flags.append("no_amplitude_modulation_index")
     cv_breath = float(np.std(ends - starts) / np.mean(ends - starts))
     timing, c_timing, t_flag = _timing_share(iv_t[ok_iv], iv[ok_iv], f_b, cv_breath)
+    # Peak-to-trough differences exist in any variable series; they are RSA only as far
+    # as the interval series actually moves at the breathing frequency.
+    c_rsa *= (float(np.clip(timing / RSA_LOCKED_SHARE_PCT, 0.0, 1.0)) if timing is not None
+              else 0.5)
     flags.extend(t_flag)
     if card is None and amps is not None and np.isfinite(amps).sum() >= MIN_BEATS:
         card = float(np.nanmedian(amps))
@@ -398,6 +405,12 @@ def _amplitude_index(
     se = 2.0 * s_res * np.sqrt(2.0 / a.size) / a0
     conf = min(1.0, a.size / 60.0) / (1.0 + (se / 0.02) ** 2)
     return index, float(conf)
+
+
+RSA_LOCKED_SHARE_PCT = 30.0
+"""Share of interval-series power at the breathing frequency at which the peak-to-trough
+RSA is fully trusted (our choice: at rest in healthy adults the respiratory band carries a
+large part of short-term variability, Task Force 1996; an irregular rhythm spreads it)."""
 
 
 TIMING_SEGMENT_S = 300.0
