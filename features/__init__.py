@@ -22,6 +22,16 @@ heart rate
 variability
     heart_rate_variability(times_s, intervals_ms, labels) -> VariabilityResult
     time_domain, frequency_domain, nonlinear
+morphology
+    beat_morphology(signal, fs_hz, beat_times_s, *, ...) -> MorphologyResult
+respiration
+    breathing(signal, fs_hz, *, usable, cop_signal, ...) -> RespirationResult
+    respiratory_modulation(breathing_signal, fs_hz, *, beat_times_s, ...) -> ModulationResult
+feature vector
+    feature_vector(result) -> FeatureVector; FEATURES, the catalogue
+windows
+    analyze_windows(channels, fs_hz, *, window_s, overlap_s, ...) -> WindowedAnalysis
+    iter_windows(...) -> iterator of WindowResult
 simulation (demo and validation only)
     simulate(settings) -> SimulatedRecording
 """
@@ -39,6 +49,7 @@ from features.engine import (
     analyze,
 )
 from features.errors import EngineError, InvalidInputError, UnusableSignalError
+from features.feature_vector import FEATURES, FeatureVector, feature_vector
 from features.fusion import FusionResult, fuse_channels
 from features.heart_rate import HeartRateResult, heart_rate
 from features.intervals import (
@@ -47,6 +58,9 @@ from features.intervals import (
     classify_intervals,
     intervals_from_beats,
 )
+from features.modulation import ModulationResult, respiratory_modulation
+from features.morphology import MorphologyResult, beat_morphology
+from features.respiration import RespirationResult, breathing
 from features.variability import (
     VariabilityResult,
     frequency_domain,
@@ -54,8 +68,12 @@ from features.variability import (
     nonlinear,
     time_domain,
 )
+from features.windows import WindowedAnalysis, analyze_windows, iter_windows
 
 __all__ = [
+    "FEATURES", "FeatureVector", "ModulationResult", "MorphologyResult", "RespirationResult",
+    "WindowedAnalysis", "analyze_windows", "beat_morphology", "breathing", "feature_vector",
+    "iter_windows", "respiratory_modulation",
     "AnalysisResult", "ArtifactMask", "BeatDetection", "ChannelInput", "ConditionedInput",
     "CountsScale", "EngineError", "FusionResult", "HeartRateResult", "IntervalLabels",
     "IntervalSeries", "InvalidInputError", "Options", "Recording", "Segment", "Subject",
