@@ -449,7 +449,8 @@ def _epochs(comp: NDArray[np.float64], centres: NDArray[np.intp], half: tuple[in
         np.float64]:
     offs = np.arange(-half[0], half[1] + 1)
     idx = centres[:, None] + offs[None, :]
-    return comp[idx]
+    out: NDArray[np.float64] = comp[idx]
+    return out
 
 
 def _coherence(epochs: NDArray[np.float64]) -> float:
@@ -540,7 +541,8 @@ def _match(comp: NDArray[np.float64], template: NDArray[np.float64], centre: int
 def _local_median(values: NDArray[np.float64], half: int = 5) -> NDArray[np.float64]:
     if values.size == 0:
         return values
-    return ndimage.median_filter(values, size=2 * half + 1, mode="nearest")
+    out: NDArray[np.float64] = ndimage.median_filter(values, size=2 * half + 1, mode="nearest")
+    return out
 
 
 def _drop_extra(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray[np.float64],
@@ -641,7 +643,8 @@ def _complex_usable(beats: NDArray[np.intp], usable: NDArray[np.bool_], fs: floa
     bad_c = np.concatenate(([0], np.cumsum(~usable)))
     lo_c = np.clip(beats - before, 0, usable.size)
     hi_c = np.clip(beats + after + 1, 0, usable.size)
-    return (bad_c[hi_c] - bad_c[lo_c]) == 0
+    ok: NDArray[np.bool_] = (bad_c[hi_c] - bad_c[lo_c]) == 0
+    return ok
 
 
 def _parabolic_offset(y: NDArray[np.float64], idx: NDArray[np.intp]) -> NDArray[np.float64]:
