@@ -30,6 +30,20 @@ BASE64_PATTERN = r"^(?:[A-Za-z0-9+/]{4})*(?:[A-Za-z0-9+/]{2}==|[A-Za-z0-9+/]{3}=
 _NUMBER_TYPES = frozenset({int, float})
 
 
+#: Largest sample magnitude accepted, in the channel's own unit. Far above any
+#: sensor (an int32 count is below 2.2e9) and far below the float64 range, so
+#: that powers and sums inside the engine cannot overflow.
+MAX_SAMPLE_MAGNITUDE = 1e12
+
+
+def _first_too_large(values: np.ndarray) -> int | None:
+    """Index of the first element with magnitude above MAX_SAMPLE_MAGNITUDE, or None."""
+    big = np.abs(values) > MAX_SAMPLE_MAGNITUDE
+    if not big.any():
+        return None
+    return int(np.flatnonzero(big)[0])
+
+
 def _first_non_finite(values: np.ndarray) -> int | None:
     """Index of the first NaN or infinite element, or None when all are finite."""
     bad = ~np.isfinite(values)
@@ -58,7 +72,14 @@ class SamplesField(fields.Field[Any]):
     }
 
     def __init__(self, **kwargs: Any) -> None:
-        metadata = {"type": "array", "items": {"type": "number"}}
+        metadata = {
+            "type": "array",
+            "items": {
+                "type": "number",
+                "minimum": -MAX_SAMPLE_MAGNITUDE,
+                "maximum": MAX_SAMPLE_MAGNITUDE,
+            },
+        }
         metadata.update(kwargs.pop("metadata", {}))
         super().__init__(metadata=metadata, **kwargs)
 
@@ -139,6 +160,22 @@ def decode_base64_samples(text: str, dtype_name: str, *, field: str) -> np.ndarr
             f"`{field}` must hold finite numbers; got a non-finite value at index {index}."
         )
     return array
+
+
+def check_magnitude(values: np.ndarray, *, field: str) -> None:
+    """Refuse a trace holding a value of magnitude above :data:`MAX_SAMPLE_MAGNITUDE`.
+
+    Raises
+    ------
+    marshmallow.ValidationError
+        Naming ``field`` and the index of the first such value.
+    """
+    index = _first_too_large(values)
+    if index is not None:
+        raise ValidationError(
+            f"`{field}` must hold numbers of magnitude at most {MAX_SAMPLE_MAGNITUDE:g}; got "
+            f"one larger at index {index}."
+        )
 
 
 class FiniteFloat(fields.Float):

@@ -26,8 +26,10 @@ from features.conditioning import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ, valid_unit
 from schemas.fields import (
     BASE64_DTYPES,
     BASE64_PATTERN,
+    MAX_SAMPLE_MAGNITUDE,
     SamplesField,
     StrictFloat,
+    check_magnitude,
     decode_base64_samples,
 )
 
@@ -44,6 +46,8 @@ DEFAULT_MAX_SAMPLES = 4_000_000
 #: Longest ``samples_base64`` worth sending: the default sample cap at the widest
 #: dtype (float64, 8 bytes) in base64 (4 characters per 3 bytes, padded).
 BASE64_MAX_LENGTH = 4 * -(-DEFAULT_MAX_SAMPLES * 8 // 3)
+#: Largest sensor coordinate accepted, in metres (no support is 20 m across).
+MAX_POSITION_M = 10.0
 #: Body mass the engine accepts, in kg (features.engine refuses anything else).
 MIN_BODY_MASS_KG = 2.0
 MAX_BODY_MASS_KG = 400.0
@@ -134,10 +138,15 @@ class CountsScaleSchema(Schema):
     )
     per_count = StrictFloat(
         required=True,
-        metadata={"description": "Physical units per count (non-zero)."},
+        validate=Range(min=-1e6, max=1e6),
+        metadata={
+            "description": "Physical units per count (non-zero, magnitude at most 1e6).",
+            "not": {"const": 0},
+        },
     )
     offset_counts = StrictFloat(
         load_default=0.0,
+        validate=Range(min=-MAX_SAMPLE_MAGNITUDE, max=MAX_SAMPLE_MAGNITUDE),
         metadata={"description": "Counts subtracted before scaling."},
     )
 
@@ -204,9 +213,14 @@ class ChannelSchema(Schema):
     )
     counts_scale = fields.Nested(CountsScaleSchema)
     position_m = fields.List(
-        StrictFloat(),
+        StrictFloat(validate=Range(min=-MAX_POSITION_M, max=MAX_POSITION_M)),
         validate=Length(equal=2),
-        metadata={"description": "Sensor position [x, y] in metres on the plate."},
+        metadata={
+            "description": (
+                f"Sensor position [x, y] in metres on the plate, each within "
+                f"±{MAX_POSITION_M:g} m."
+            )
+        },
     )
 
     @validates_schema
@@ -270,6 +284,11 @@ class ChannelSchema(Schema):
                 raise ValidationError(error.messages, field_name="samples_base64") from None
         else:
             samples = data["samples"]
+        encoding = "samples_base64" if "samples_base64" in data else "samples"
+        try:
+            check_magnitude(samples, field=encoding)
+        except ValidationError as error:
+            raise ValidationError(error.messages, field_name=encoding) from None
         position = data.get("position_m")
         return ChannelRequest(
             label=data["label"],

@@ -75,15 +75,19 @@ def read_analysis_request(schema: AnalysisRequestSchema) -> AnalysisRequest:
         return loaded
     if mimetype == MULTIPART_MEDIA_TYPE:
         upload = request.files.get("file")
-        if upload is None:
-            raise SchemaValidationError({"file": ["`file` must be a CSV file part; got none."]})
-        try:
-            text = upload.read().decode("utf-8")
-        except UnicodeDecodeError:
-            raise SchemaValidationError(
-                {"file": ["`file` must be CSV text encoded as UTF-8; got bytes that are not."]}
-            ) from None
         form = {key: request.form[key] for key in request.form}
+        if upload is not None:
+            try:
+                text = upload.read().decode("utf-8")
+            except UnicodeDecodeError:
+                raise SchemaValidationError(
+                    {"file": ["`file` must be CSV text encoded as UTF-8; got bytes that are not."]}
+                ) from None
+        elif "file" in form:
+            # A part named `file` without a filename arrives as a form field.
+            text = form.pop("file")
+        else:
+            raise SchemaValidationError({"file": ["`file` must be a CSV file part; got none."]})
         loaded = schema.load(csv_request_body(text, form))
         return loaded
     raise UnsupportedMediaType(

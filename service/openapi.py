@@ -20,7 +20,7 @@ from apispec.ext.marshmallow import MarshmallowPlugin
 
 import features
 from features.conditioning import valid_units
-from schemas.catalogue import CatalogueSchema
+from schemas.catalogue import CatalogueSchema, FeatureValueSchema
 from schemas.csv_input import CsvUploadFormSchema
 from schemas.problems import (
     ComputeTimeProblemSchema,
@@ -271,23 +271,10 @@ def _paths(spec: APISpec) -> None:
                         "application/json": {
                             "schema": {"$ref": "#/components/schemas/AnalysisRequest"}
                         },
+                        # Filled in by _csv_upload: the form's fields plus `file`.
                         "multipart/form-data": {
-                            "schema": {
-                                "allOf": [
-                                    {"$ref": "#/components/schemas/CsvUploadForm"},
-                                    {
-                                        "type": "object",
-                                        "required": ["file"],
-                                        "properties": {
-                                            "file": {
-                                                "type": "string",
-                                                "contentMediaType": "text/csv",
-                                                "description": "The CSV trace.",
-                                            }
-                                        },
-                                    },
-                                ]
-                            }
+                            "schema": {"$ref": "#/components/schemas/CsvUpload"},
+                            "encoding": {"file": {"contentType": "text/csv"}},
                         },
                     },
                 },
@@ -325,6 +312,7 @@ def build_spec() -> dict[str, Any]:
     spec.components.schema("AnalysisRequest", schema=AnalysisRequestSchema)
     spec.components.schema("CsvUploadForm", schema=CsvUploadFormSchema)
     spec.components.schema("Catalogue", schema=CatalogueSchema)
+    spec.components.schema("FeatureValue", schema=FeatureValueSchema)
     spec.components.schema("Health", schema=HealthSchema)
     spec.components.schema("Problem", schema=ProblemSchema)
     spec.components.schema("ValidationProblem", schema=ValidationProblemSchema)
@@ -353,8 +341,33 @@ def build_spec() -> dict[str, Any]:
         spec.components.response(name, response)
     _paths(spec)
     document = spec.to_dict()
-    _channel_rules(document["components"]["schemas"]["Channel"])
+    schemas = document["components"]["schemas"]
+    _channel_rules(schemas["Channel"])
+    schemas["CsvUpload"] = _csv_upload(schemas["CsvUploadForm"])
     return document
+
+
+def _csv_upload(form: dict[str, Any]) -> dict[str, Any]:
+    """The multipart body: the form's fields and the CSV ``file``, in one closed object.
+
+    (An ``allOf`` of the closed form and a ``file`` member could never be
+    satisfied: the form's ``additionalProperties: false`` forbids ``file``.)
+    """
+    file_part = {
+        "type": "string",
+        "contentMediaType": "text/csv",
+        "description": (
+            "The CSV trace: a header row of channel labels, one column per channel, an "
+            "optional `time_s` column."
+        ),
+    }
+    return {
+        "type": "object",
+        "description": "A CSV upload with its form fields.",
+        "properties": {**form["properties"], "file": file_part},
+        "required": [*form.get("required", []), "file"],
+        "additionalProperties": False,
+    }
 
 
 def _channel_rules(channel: dict[str, Any]) -> None:
@@ -369,18 +382,25 @@ def _channel_rules(channel: dict[str, Any]) -> None:
             {"required": ["samples_base64"]}, {"required": ["dtype"]}]}},
         {"required": ["samples_base64", "dtype"], "not": {"required": ["samples"]}},
     ]
-    rules: list[dict[str, Any]] = []
+    per_quantity = []
     for quantity in sorted(QUANTITIES):
-        rules.append({
-            "if": {"properties": {"quantity": {"const": quantity}}, "required": ["quantity"]},
-            "then": {"properties": {"unit": {"enum": valid_units(quantity)}}},
+        units = valid_units(quantity)
+        physical = [unit for unit in units if unit != COUNTS_UNIT]
+        per_quantity.append({
+            "properties": {
+                "quantity": {"const": quantity},
+                "unit": {"enum": units},
+                "counts_scale": {"properties": {"unit": {"enum": physical}}},
+            }
         })
-    rules.append({
-        "if": {"properties": {"unit": {"const": COUNTS_UNIT}}, "required": ["unit"]},
-        "then": {"required": ["counts_scale"]},
-        "else": {"not": {"required": ["counts_scale"]}},
-    })
-    channel["allOf"] = rules
+    channel["allOf"] = [
+        {"anyOf": per_quantity},
+        {
+            "if": {"properties": {"unit": {"const": COUNTS_UNIT}}, "required": ["unit"]},
+            "then": {"required": ["counts_scale"]},
+            "else": {"not": {"required": ["counts_scale"]}},
+        },
+    ]
 
 
 class _Dumper(yaml.SafeDumper):  # type: ignore[misc]
