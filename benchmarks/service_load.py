@@ -1,0 +1,205 @@
+"""The service under load, and where one request's time goes.
+
+:func:`load_test` starts gunicorn (``service.gunicorn_conf``, ``service:create_app()``) on
+127.0.0.1 at a free port with a given number of workers, warms every worker up, and points
+``wrk`` (a separate process, the load generator) at ``POST /v1/analyses`` for a bounded
+time with a fixed number of connections: one connection is the low-load latency, two per
+worker keeps every worker busy (sync workers serve one request at a time). The small Lua
+script below gives wrk the body and prints its latency percentiles and error counts.
+Nothing listens beyond loopback.
+
+:func:`request_shares` times, in-process and on the same body, the steps of one request:
+JSON parsing (``json.loads``), the request schema's load, the engine call (with
+``schemas.engine_inputs``), the response schema's dump and JSON encoding; and the whole
+request through Flask's test client.
+"""
+
+from __future__ import annotations
+
+import base64
+import json
+import os
+import shutil
+import socket
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+import urllib.error
+import urllib.request
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+REPO = Path(__file__).resolve().parents[1]
+
+WRK_SCRIPT = r"""
+local f = assert(io.open(os.getenv("HEARTSWAY_BENCH_BODY"), "rb"))
+wrk.method = "POST"
+wrk.body = f:read("*a")
+f:close()
+wrk.headers["Content-Type"] = "application/json"
+
+done = function(summary, latency, requests)
+  local e = summary.errors
+  io.write(string.format(
+    "WRKJSON {\"requests\": %d, \"duration_us\": %d, \"connect\": %d, \"read\": %d, " ..
+    "\"write\": %d, \"status\": %d, \"timeout\": %d, \"p50_us\": %d, \"p95_us\": %d, " ..
+    "\"p99_us\": %d, \"max_us\": %d, \"mean_us\": %.1f}\n",
+    summary.requests, summary.duration, e.connect, e.read, e.write, e.status, e.timeout,
+    latency:percentile(50), latency:percentile(95), latency:percentile(99),
+    latency.max, latency.mean))
+end
+"""
+
+
+def request_body(duration_s: float, fs_hz: float, *, seed: int = 1,
+                 encoding: str = "samples") -> bytes:
+    """A one-channel analysis request of simulated force (N, 3 decimals), as JSON bytes."""
+    from features.simulation import SimulationSettings, simulate
+
+    rec = simulate(SimulationSettings(duration_s=duration_s, fs_hz=fs_hz, n_channels=1,
+                                      seed=seed))
+    x = np.round(np.asarray(rec.channels[0], dtype=np.float64), 3)
+    channel: dict[str, Any] = {"label": "seat", "quantity": "force", "unit": "N"}
+    if encoding == "samples":
+        channel["samples"] = x.tolist()
+    else:
+        channel["samples_base64"] = base64.b64encode(x.astype("<f4").tobytes()).decode()
+        channel["dtype"] = "float32"
+    body = {"sampling_rate_hz": fs_hz, "channels": [channel]}
+    return json.dumps(body).encode()
+
+
+def request_shares(body: bytes, repeats: int) -> dict[str, float]:
+    """Median seconds of each step of one request, in-process (see the module docstring)."""
+    import features
+    from schemas.engine_inputs import engine_inputs
+    from schemas.requests import DEFAULT_MAX_SAMPLES, AnalysisRequestSchema
+    from schemas.responses import AnalysisReport, AnalysisResponseSchema
+    from service import create_app
+
+    clock = time.perf_counter
+    runs: dict[str, list[float]] = {k: [] for k in
+                                    ("parse", "load", "engine", "dump", "encode", "request")}
+    client = create_app({"HEARTSWAY_LOG_LEVEL": "WARNING"}).test_client()
+    for i in range(repeats + 1):
+        t0 = clock()
+        data = json.loads(body)
+        t1 = clock()
+        req = AnalysisRequestSchema(max_samples=DEFAULT_MAX_SAMPLES).load(data)
+        t2 = clock()
+        call = engine_inputs(req)
+        result = features.analyze(call.channels, call.fs_hz, subject=call.subject,
+                                  recording=call.recording, options=call.options)
+        t3 = clock()
+        doc = AnalysisResponseSchema().dump(AnalysisReport(result=result,
+                                                           include=req.options.include))
+        t4 = clock()
+        json.dumps(doc, allow_nan=False)
+        t5 = clock()
+        resp = client.post("/v1/analyses", data=body, content_type="application/json")
+        t6 = clock()
+        if resp.status_code != 200:
+            raise RuntimeError(f"the service answered {resp.status_code}")
+        if i == 0:
+            continue  # warm-up
+        for key, dt in zip(runs, (t1 - t0, t2 - t1, t3 - t2, t4 - t3, t5 - t4, t6 - t5),
+                           strict=True):
+            runs[key].append(dt)
+    return {k: statistics.median(v) for k, v in runs.items()}
+
+
+def wrk_available() -> bool:
+    """True when the ``wrk`` load generator is on the PATH."""
+    return shutil.which("wrk") is not None
+
+
+def gunicorn_available() -> bool:
+    """True when gunicorn can be imported by this interpreter."""
+    try:
+        import gunicorn  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+def _free_port() -> int:
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+def _wait_up(url: str, timeout_s: float) -> None:
+    deadline = time.monotonic() + timeout_s
+    while time.monotonic() < deadline:
+        try:
+            with urllib.request.urlopen(url + "/healthz", timeout=2) as r:
+                if r.status == 200:
+                    return
+        except (urllib.error.URLError, ConnectionError, TimeoutError):
+            time.sleep(0.2)
+    raise RuntimeError("gunicorn did not answer /healthz in time")
+
+
+def _post(url: str, body: bytes) -> int:
+    req = urllib.request.Request(url + "/v1/analyses", data=body,
+                                 headers={"Content-Type": "application/json"})
+    with urllib.request.urlopen(req, timeout=60) as r:
+        r.read()
+        return int(r.status)
+
+
+def _wrk(url: str, body_path: str, script_path: str, connections: int,
+         duration_s: float) -> dict[str, Any]:
+    cmd = ["wrk", "-t1", f"-c{connections}", f"-d{max(1, round(duration_s))}s",
+           "--timeout", "10s", "-s", script_path, url + "/v1/analyses"]
+    env = dict(os.environ, HEARTSWAY_BENCH_BODY=body_path)
+    done = subprocess.run(cmd, capture_output=True, text=True, env=env, check=True,
+                          timeout=duration_s + 60)
+    line = next(x for x in done.stdout.splitlines() if x.startswith("WRKJSON "))
+    r = json.loads(line[len("WRKJSON "):])
+    errors = r["connect"] + r["read"] + r["write"] + r["status"] + r["timeout"]
+    return {
+        "connections": connections, "requests": r["requests"], "errors": errors,
+        "rps": r["requests"] / (r["duration_us"] / 1e6),
+        "p50_ms": r["p50_us"] / 1e3, "p95_ms": r["p95_us"] / 1e3, "p99_ms": r["p99_us"] / 1e3,
+        "max_ms": r["max_us"] / 1e3,
+    }
+
+
+def load_test(body: bytes, workers: int, *, duration_s: float,
+              connections: tuple[int, ...]) -> list[dict[str, Any]]:
+    """Start gunicorn with ``workers`` and run wrk once per connection count; one row each."""
+    port = _free_port()
+    url = f"http://127.0.0.1:{port}"
+    env = dict(os.environ, HEARTSWAY_BIND=f"127.0.0.1:{port}", HEARTSWAY_WORKERS=str(workers),
+               PYTHONPATH=str(REPO) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    cmd = [sys.executable, "-m", "gunicorn", "--config", "python:service.gunicorn_conf",
+           "service:create_app()"]
+    rows: list[dict[str, Any]] = []
+    with tempfile.TemporaryDirectory() as tmp:
+        body_path = os.path.join(tmp, "body.json")
+        script_path = os.path.join(tmp, "post.lua")
+        Path(body_path).write_bytes(body)
+        Path(script_path).write_text(WRK_SCRIPT)
+        server = subprocess.Popen(cmd, cwd=REPO, env=env, stdout=subprocess.DEVNULL,
+                                  stderr=subprocess.DEVNULL)
+        try:
+            _wait_up(url, 60.0)
+            for _ in range(2 * workers):  # each worker imports lazily and warms up
+                _post(url, body)
+            for c in connections:
+                row = _wrk(url, body_path, script_path, c, duration_s)
+                row["workers"] = workers
+                rows.append(row)
+        finally:
+            server.terminate()
+            try:
+                server.wait(timeout=30)
+            except subprocess.TimeoutExpired:
+                server.kill()
+                server.wait()
+    return rows

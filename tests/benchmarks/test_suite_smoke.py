@@ -1,0 +1,70 @@
+"""The benchmark suite runs end to end on short inputs; its arithmetic and verdicts are right.
+
+No timing is asserted: the suite is a separate command and its numbers depend on the machine.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from benchmarks import floor
+from benchmarks.suite import acceptance, fit_exponent
+
+REPO = Path(__file__).resolve().parents[2]
+
+
+def test_quick_suite_runs_and_reports_every_case(tmp_path: Path) -> None:
+    out = tmp_path / "quick.json"
+    done = subprocess.run([sys.executable, "-m", "benchmarks.suite", "--quick", "--json",
+                           str(out)], cwd=REPO, capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert "engine throughput" in done.stdout
+    assert "acceptance (as measured in this run):" in done.stdout
+    res = json.loads(out.read_text())
+    assert len(res["cases"]) == 3
+    for case in res["cases"]:
+        assert case["engine"]["seconds"] > 0
+        assert set(floor.PASSES) <= set(case["engine"]["floor"])
+        assert "seconds" in case["peer"] or "skipped" in case["peer"]
+    # The simulator's default heart rate is 68 bpm (features/simulation.py, SimulationSettings).
+    assert res["cases"][0]["engine"]["mean_bpm"] == pytest.approx(68.0, abs=3.0)
+
+
+def test_fit_exponent_recovers_a_power_law() -> None:
+    # t = c * L**k gives a straight line of slope k on log-log axes (common practice).
+    lengths = [300.0, 900.0, 3600.0, 28800.0]
+    assert fit_exponent(lengths, [2e-3 * v for v in lengths]) == pytest.approx(1.0)
+    assert fit_exponent(lengths, [1e-6 * v**2 for v in lengths]) == pytest.approx(2.0)
+    assert fit_exponent([300.0], [1.0]) is None
+
+
+def test_floor_times_every_pass() -> None:
+    x = np.random.default_rng(5).normal(size=(2, 250 * 30))
+    times = floor.floor_passes(x, 250.0)
+    assert list(times) == list(floor.PASSES)
+    assert all(t >= 0.0 for t in times.values())
+
+
+def _result(speed_up: float, multiple: float, exponent: float) -> dict:
+    case = {"fs_hz": 250.0, "channels": 1, "length_s": 3600.0,
+            "engine": {"seconds": 1.0, "floor": {"total": 1.0 / multiple}},
+            "peer": {"seconds": speed_up}}
+    return {"quick": False, "cases": [case], "scaling": {"engine": exponent},
+            "windowed": {"hours": 8.0, "fs_hz": 1000.0, "ru_maxrss_mb": 2100.0},
+            "service": {"load": [{"workers": 1, "connections": 1, "p99_ms": 240.0,
+                                  "rps": 19.0, "errors": 0}]}}
+
+
+def test_acceptance_lines_follow_the_issue_thresholds() -> None:
+    # Thresholds of the performance issue's acceptance list: 10x the peer, 5x the floor,
+    # exponent 1.1, 2 GB, p99 250 ms, 20 requests/s.
+    verdicts = [ok for ok, _ in acceptance(_result(9.9, 5.1, 1.11))]
+    assert verdicts[:6] == [False, False, False, False, True, False]
+    verdicts = [ok for ok, _ in acceptance(_result(10.0, 4.9, 1.05))]
+    assert verdicts[:3] == [True, True, True]
