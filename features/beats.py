@@ -49,6 +49,12 @@ ENVELOPE_WINDOW_S = 0.15
 
 MIN_DURATION_S = 10.0
 
+CORE_WINDOW_S = (0.15, 0.2)
+"""Core of the complex (before, after J), I to the K-L junction, for beats closely followed."""
+
+CORE_ACCEPT = 0.7
+"""Correlation on the core that accepts a candidate whose long-window match is spoiled."""
+
 PERIODIC_STRENGTH = 0.4
 """Envelope autocorrelation at the beat lag below which no dominant period is claimed.
 
@@ -202,8 +208,10 @@ def detect_beats(
        positive wave). The polarity is checked once more on this sharper
        template; if it disagrees, the matching starts again flipped.
     6. Candidates are kept when their correlation reaches an adaptive level
-       (0.55 times the median of the best matches, clipped to 0.3-0.5) and
-       their amplitude a quarter of the median. J times are refined by
+       (0.55 times the median of the best matches, clipped to 0.3-0.5), or
+       when the correlation of the template's core (``CORE_WINDOW_S``) reaches
+       ``CORE_ACCEPT`` (a beat closely followed by the next shares the long
+       window with it), and their amplitude a quarter of the median. J times are refined by
        parabolic interpolation of the correlation peak (sub-sample).
     7. Extra beats: a beat that splits one interval into two short ones
        (summing to under 1.3 local medians) goes when its match score is
@@ -286,7 +294,13 @@ def detect_beats(
     accept = float(np.clip(0.55 * np.median(top), 0.3, 0.5))
     amp_ref = float(np.median(amp[cand][corr[cand] >= accept])) if np.any(
         corr[cand] >= accept) else float(np.median(amp[cand]))
-    keep = (corr[cand] >= accept) & (amp[cand] >= 0.25 * amp_ref)
+    # A beat followed closely by the next one (fast irregular rhythm) shares the long
+    # template window with it; judge it again on the core of the complex alone.
+    core = (half[0] - int(round(CORE_WINDOW_S[0] * fs_w)),
+            half[0] + int(round(CORE_WINDOW_S[1] * fs_w)) + 1)
+    corr_core, _ = _match(comp, template[core[0]:core[1]], half[0] - core[0])
+    matched = (corr[cand] >= accept) | (corr_core[cand] >= max(accept, CORE_ACCEPT))
+    keep = matched & (amp[cand] >= 0.25 * amp_ref)
     beats = cand[keep]
     n_rejected = n_candidates - int(beats.size)
 
