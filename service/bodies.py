@@ -5,12 +5,13 @@ from __future__ import annotations
 import json
 from typing import Any, NoReturn
 
-from flask import request
-from werkzeug.exceptions import BadRequest, UnsupportedMediaType
+from flask import current_app, request
+from werkzeug.exceptions import BadRequest, RequestEntityTooLarge, UnsupportedMediaType
 
 from schemas.csv_input import csv_request_body
 from schemas.errors import SchemaValidationError
 from schemas.requests import AnalysisRequest, AnalysisRequestSchema
+from service.uploads import upload_request_body
 
 JSON_MEDIA_TYPE = "application/json"
 MULTIPART_MEDIA_TYPE = "multipart/form-data"
@@ -31,6 +32,12 @@ def read_json() -> Any:
         When the body exceeds ``MAX_CONTENT_LENGTH`` (raised by Werkzeug).
     """
     data = request.get_data(cache=False)
+    limit = current_app.config.get("MAX_CONTENT_LENGTH")
+    if request.content_length is None and limit is not None and len(data) >= limit:
+        # A streamed (chunked) body is cut at the limit by Werkzeug without an
+        # error; one more byte on the wire means it was larger.
+        if request.environ["wsgi.input"].read(1):
+            raise RequestEntityTooLarge()
     try:
         return json.loads(data, parse_constant=_reject_constant)
     except UnicodeDecodeError:
@@ -76,6 +83,11 @@ def read_analysis_request(schema: AnalysisRequestSchema) -> AnalysisRequest:
     if mimetype == MULTIPART_MEDIA_TYPE:
         upload = request.files.get("file")
         form = {key: request.form[key] for key in request.form}
+        # EDF, BDF, WFDB, NumPy and Parquet files (and CSV with `channels`): service/uploads.py.
+        other_format = upload_request_body(request.files.getlist("file"), form)
+        if other_format is not None:
+            loaded = schema.load(other_format)
+            return loaded
         if upload is not None:
             try:
                 text = upload.read().decode("utf-8")

@@ -17,7 +17,7 @@ from werkzeug.exceptions import HTTPException
 from features.errors import InvalidInputError, UnusableSignalError
 from schemas.errors import SchemaValidationError, flatten_errors, pointer_of
 from service.deadline import ComputeTimeExceeded
-from service.logs import current_request_id, logger
+from service.logs import current_request_id, logger, sanitised_stack
 
 PROBLEM_MEDIA_TYPE = "application/problem+json"
 TYPE_PREFIX = "urn:heartsway:problem:"
@@ -133,10 +133,17 @@ def _compute_time(error: ComputeTimeExceeded) -> Response:
 def _unexpected(error: Exception) -> Response:
     if isinstance(error, HTTPException):
         return _http_error(error)
+    # The record carries the type and the frames only, not the exception: no
+    # handler, ours or one an operator adds, can render its message.
     logger.error(
         "unhandled_error",
-        exc_info=error,
-        extra={"fields": {"request_id": current_request_id()}},
+        extra={
+            "fields": {
+                "request_id": current_request_id(),
+                "exception": type(error).__name__,
+                "stack": sanitised_stack(error.__traceback__),
+            }
+        },
     )
     return problem(
         500,
