@@ -54,6 +54,11 @@ MIN_OCCUPANT_KG = 10.0
 MAX_OCCUPANT_KG = 350.0
 
 #: Cut-off of the static/slow part removed from every trace, Hz.
+MAX_SAMPLE_MAGNITUDE = 1e12
+"""Largest sample magnitude accepted (in the channel's unit): far beyond any force or
+acceleration sensor, and far from float64 overflow in the squares and spectra the
+stages compute."""
+
 BASELINE_CUTOFF_HZ = 0.05
 #: Cut-off of the slow load trace handed to the artifact stage, Hz.
 LOAD_CUTOFF_HZ = 0.5
@@ -452,6 +457,13 @@ def _check_samples(samples: ArrayLike, i: int) -> NDArray[np.generic]:
             raise InvalidInputError(
                 field, f"`{field}` must be finite (no NaN or inf); got {count} non-finite "
                 f"sample(s), the first at index {first}. Fill or cut the gaps before sending.")
+        big = np.abs(x) > MAX_SAMPLE_MAGNITUDE
+        if big.any():
+            first = int(np.argmax(big))
+            raise InvalidInputError(
+                field, f"`{field}` must hold magnitudes of at most {MAX_SAMPLE_MAGNITUDE:g} in "
+                f"the channel's unit; got {float(x[first]):g} at index {first}. Send the trace "
+                "in a unit that keeps it in range, or as counts with a scale.")
     return x
 
 

@@ -366,3 +366,15 @@ def test_error_mains_and_empty_load() -> None:
         condition_channels([_force(_ok())], FS, mains_hz=55)  # type: ignore[arg-type]
     with pytest.raises(InvalidInputError, match=r"`empty_load_kg` must be a finite mass >= 0"):
         condition_channels([_force(_ok())], FS, empty_load_kg=-1.0)
+
+
+def test_absurd_sample_magnitude_is_rejected() -> None:
+    from features.conditioning import MAX_SAMPLE_MAGNITUDE, ChannelInput, condition_channels
+    from features.errors import InvalidInputError
+
+    x = np.zeros(250 * 30)
+    x[11] = 1e160  # squares of such values overflow float64 (IEEE 754 max ~1.8e308)
+    with pytest.raises(InvalidInputError, match=r"magnitudes of at most 1e\+12 .* index 11"):
+        condition_channels([ChannelInput(samples=x, label="a", quantity="force", unit="N")],
+                           250.0)
+    assert MAX_SAMPLE_MAGNITUDE == 1e12
