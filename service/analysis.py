@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import time
 from typing import Any
 
 import features
 from schemas.engine_inputs import engine_inputs
 from schemas.requests import AnalysisRequest
 from schemas.responses import AnalysisReport, AnalysisResponseSchema
+from service.metrics import record_analysis
 
 
 def run_analysis(request: AnalysisRequest) -> dict[str, Any]:
@@ -19,6 +21,7 @@ def run_analysis(request: AnalysisRequest) -> dict[str, Any]:
         From the engine, for the service to map to problem details.
     """
     call = engine_inputs(request)
+    started = time.perf_counter()
     result = features.analyze(
         call.channels,
         call.fs_hz,
@@ -26,6 +29,7 @@ def run_analysis(request: AnalysisRequest) -> dict[str, Any]:
         recording=call.recording,
         options=call.options,
     )
+    record_analysis(time.perf_counter() - started, sum(c.samples.size for c in call.channels))
     report = AnalysisReport(result=result, include=request.options.include)
     document: dict[str, Any] = AnalysisResponseSchema().dump(report)
     return document

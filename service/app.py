@@ -9,8 +9,8 @@ from typing import IO, Any
 from flask import Flask, Request
 from flask.json.provider import DefaultJSONProvider
 
-from service import access, logs, problems
-from service.blueprints import analyses, catalogue, health, meta
+from service import access, logs, metrics, problems
+from service.blueprints import analyses, catalogue, health, meta, page, reports
 from service.config import load_config
 
 
@@ -63,10 +63,13 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     app.url_map.strict_slashes = True
 
     logs.init_app(app)
+    metrics.init_app(app)
     access.init_app(app)
     problems.init_app(app)
     app.register_blueprint(health.blueprint)
     app.register_blueprint(meta.blueprint)
     app.register_blueprint(catalogue.blueprint, url_prefix="/v1")
     app.register_blueprint(analyses.blueprint, url_prefix="/v1")
+    app.register_blueprint(reports.blueprint, url_prefix="/v1")
+    app.register_blueprint(page.blueprint)
     return app

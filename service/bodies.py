@@ -11,6 +11,7 @@ from werkzeug.exceptions import BadRequest, RequestEntityTooLarge, UnsupportedMe
 from schemas.csv_input import csv_request_body
 from schemas.errors import SchemaValidationError
 from schemas.requests import AnalysisRequest, AnalysisRequestSchema
+from service.uploads import upload_request_body
 
 JSON_MEDIA_TYPE = "application/json"
 MULTIPART_MEDIA_TYPE = "multipart/form-data"
@@ -82,6 +83,11 @@ def read_analysis_request(schema: AnalysisRequestSchema) -> AnalysisRequest:
     if mimetype == MULTIPART_MEDIA_TYPE:
         upload = request.files.get("file")
         form = {key: request.form[key] for key in request.form}
+        # EDF, BDF, WFDB, NumPy and Parquet files (and CSV with `channels`): service/uploads.py.
+        other_format = upload_request_body(request.files.getlist("file"), form)
+        if other_format is not None:
+            loaded = schema.load(other_format)
+            return loaded
         if upload is not None:
             try:
                 text = upload.read().decode("utf-8")

@@ -1,4 +1,4 @@
-"""The ``heartsway`` command line: serve, analyze FILE, demo.
+"""The ``heartsway`` command line: serve, analyze FILE, batch INPUTS, demo.
 
 ``serve`` runs gunicorn on the application factory with the settings of
 :mod:`service.gunicorn_conf`; ``analyze`` runs a CSV file through the same
@@ -45,22 +45,28 @@ def _serve(args: argparse.Namespace) -> int:
 
 def _analyze(args: argparse.Namespace) -> int:
     from features.errors import InvalidInputError, UnusableSignalError
-    from schemas.csv_input import csv_request_body
     from schemas.errors import SchemaValidationError, flatten_errors
     from schemas.requests import AnalysisRequestSchema
     from service.analysis import run_analysis
+    from service.uploads import path_request_body
 
-    try:
-        text = Path(args.file).read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as error:
-        print(json.dumps({"error": "unreadable_file", "detail": str(error)}), file=sys.stderr)
+    path = Path(args.file)
+    if not (path.is_file() or path.with_suffix(".hea").is_file()):
+        detail = f"{path.name}: no such file"
+        print(json.dumps({"error": "unreadable_file", "detail": detail}), file=sys.stderr)
         return 2
-    form = {"sampling_rate_hz": args.rate, "quantity": args.quantity, "unit": args.unit}
-    if args.include:
-        form["include"] = args.include
+    # Format from the content and name (CSV, EDF/BDF, WFDB, .npy/.npz, Parquet).
+    form = {"sampling_rate_hz": args.rate, "quantity": args.quantity, "unit": args.unit,
+            "channels": args.channels, "format": args.format, "include": args.include or None}
     try:
-        request = AnalysisRequestSchema().load(csv_request_body(text, form))
-        document = run_analysis(request)
+        request = AnalysisRequestSchema().load(path_request_body(path, form))
+        if args.plot:
+            from service.report import analysis_with_report
+
+            document, image = analysis_with_report(request, image_format=_plot_format(args.plot))
+            Path(args.plot).write_bytes(image)
+        else:
+            document = run_analysis(request)
     except SchemaValidationError as error:
         errors = flatten_errors(error.messages)
         print(json.dumps({"error": "validation", "errors": errors}), file=sys.stderr)
@@ -75,6 +81,22 @@ def _analyze(args: argparse.Namespace) -> int:
         return 3
     _print_json(document)
     return 0
+
+
+def _batch(args: argparse.Namespace) -> int:
+    from service.batch import run_batch
+
+    form = {"sampling_rate_hz": args.rate, "quantity": args.quantity, "unit": args.unit,
+            "channels": args.channels, "format": args.format}
+    summary = run_batch(args.inputs, args.out, form=form, window_s=args.window_s,
+                        overlap_s=args.overlap_s, scheduler=args.scheduler,
+                        progress=not args.no_progress)
+    print(json.dumps(summary), file=sys.stderr)
+    return 0
+
+
+def _plot_format(path: str) -> str:
+    return "svg" if path.lower().endswith(".svg") else "png"
 
 
 def _wait_for(url: str, wait_s: float) -> bool:
@@ -155,13 +177,40 @@ def build_parser() -> argparse.ArgumentParser:
     )
     serve.set_defaults(run=_serve)
 
-    analyze = commands.add_parser("analyze", help="analyse a CSV file, print JSON")
-    analyze.add_argument("file", help="CSV: a header row of labels, one column per channel")
-    analyze.add_argument("--rate", required=True, help="sampling rate in Hz")
-    analyze.add_argument("--quantity", default="force", help="quantity of every column")
-    analyze.add_argument("--unit", default="N", help="unit of every column")
+    analyze = commands.add_parser("analyze", help="analyse a trace file, print JSON")
+    analyze.add_argument(
+        "file", help="CSV (a header row of labels, one column per channel), EDF/BDF, WFDB "
+        "(.hea), .npy, .npz or Parquet"
+    )
+    analyze.add_argument(
+        "--rate", default=None, help="sampling rate in Hz (when the file does not carry it)"
+    )
+    analyze.add_argument(
+        "--quantity", default=None, help="quantity of every channel (default: from the unit)"
+    )
+    analyze.add_argument(
+        "--unit", default=None, help="unit of every channel (default: the header's; N for CSV)"
+    )
+    analyze.add_argument("--channels", default=None, help="comma-separated labels to analyse")
+    analyze.add_argument("--format", default=None, help="file format (default: detected)")
+    analyze.add_argument("--plot", default=None, help="also write the report image (.png/.svg)")
     analyze.add_argument("--include", default="", help="comma-separated: beats,windows,...")
     analyze.set_defaults(run=_analyze)
+
+    batch = commands.add_parser("batch", help="analyse many files into one feature table")
+    batch.add_argument("inputs", nargs="+", help="trace files and folders (searched recursively)")
+    batch.add_argument("--out", required=True, help="the table: .parquet or .csv")
+    batch.add_argument("--rate", default=None, help="sampling rate in Hz (files without one)")
+    batch.add_argument("--quantity", default=None, help="quantity of every channel")
+    batch.add_argument("--unit", default=None, help="unit of every channel")
+    batch.add_argument("--channels", default=None, help="comma-separated labels to analyse")
+    batch.add_argument("--format", default=None, help="file format (default: detected)")
+    batch.add_argument("--window-s", type=float, default=None, help="one row per window of S s")
+    batch.add_argument("--overlap-s", type=float, default=0.0, help="window overlap, s")
+    batch.add_argument("--scheduler", default=None,
+                       help="Dask scheduler address (tcp://host:8786); local when absent")
+    batch.add_argument("--no-progress", action="store_true", help="no progress bar")
+    batch.set_defaults(run=_batch)
 
     demo = commands.add_parser("demo", help="analyse the demo armchair trace")
     demo.add_argument("--url", help="send the demo request to this running service instead")

@@ -33,6 +33,8 @@ from __future__ import annotations
 
 import os
 
+from service import metrics as _metrics
+
 
 def _int(name: str, default: int, *, minimum: int = 1) -> int:
     text = os.environ.get(name, str(default))
@@ -69,3 +71,8 @@ accesslog = None
 errorlog = "-"
 # The app is imported once in the master, then forked.
 preload_app = True
+
+# Prometheus metrics shared by the workers (service/metrics.py): a fresh directory per
+# master, set here because the app (and prometheus_client) is loaded before any hook runs.
+metrics_dir = _metrics.prepare_multiprocess_dir()
+child_exit = _metrics.child_exit

@@ -39,6 +39,7 @@ from schemas.responses import (
     SignalsSchema,
     TemplateSchema,
 )
+from service import openapi_extras
 from service.access import AUTH_SCHEME, REALM
 from service.config import DEFAULTS
 from service.logs import REQUEST_ID_HEADER
@@ -339,11 +340,14 @@ def build_spec() -> dict[str, Any]:
     spec.components.schema("Analysis", schema=AnalysisResponseSchema)
     for name, response in _RESPONSES.items():
         spec.components.response(name, response)
+    openapi_extras.register(spec)
     _paths(spec)
     document = spec.to_dict()
     schemas = document["components"]["schemas"]
     _channel_rules(schemas["Channel"])
     schemas["CsvUpload"] = _csv_upload(schemas["CsvUploadForm"])
+    # Reports, FHIR output, other file formats, the page and /metrics.
+    openapi_extras.extend(document)
     return document
 
 

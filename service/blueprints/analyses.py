@@ -4,12 +4,13 @@ from __future__ import annotations
 
 from typing import Any
 
-from flask import Blueprint, Response, current_app, jsonify
+from flask import Blueprint, Response, current_app
 
-from schemas.requests import AnalysisRequestSchema
+from schemas.requests import AnalysisRequest, AnalysisRequestSchema
 from service.analysis import run_analysis
 from service.bodies import read_analysis_request
 from service.deadline import run_with_deadline
+from service.fhir_output import analysis_response
 
 blueprint = Blueprint("analyses", __name__)
 
@@ -23,8 +24,13 @@ def create_analysis() -> Response:
         max_channels=config["HEARTSWAY_MAX_CHANNELS"],
     )
 
+    loaded: list[AnalysisRequest] = []
+
     def work() -> dict[str, Any]:
-        return run_analysis(read_analysis_request(schema))
+        loaded.append(read_analysis_request(schema))
+        return run_analysis(loaded[0])
 
     # Reading the body, validation, the engine and the dump: all within the limit.
-    return jsonify(run_with_deadline(config["HEARTSWAY_MAX_COMPUTE_S"], work))
+    document = run_with_deadline(config["HEARTSWAY_MAX_COMPUTE_S"], work)
+    # JSON, or a FHIR R4 Bundle with `Accept: application/fhir+json` (service/fhir_output.py).
+    return analysis_response(document, loaded[0] if loaded else None)

@@ -1,0 +1,271 @@
+"""``heartsway batch``: many recordings into one feature table, locally or on a Dask cluster.
+
+Every input file goes the same road as an upload to the API (:mod:`service.uploads`,
+the request schema, :func:`service.analysis.run_analysis`), so a recording gets the
+same features in the table as from ``POST /v1/analyses`` or ``heartsway analyze``.
+
+The table has one row per recording (or per window with ``--window-s``): ``recording``
+(the path as found), ``window``, ``start_s``, ``end_s``, ``status`` (``ok`` or
+``failed``), ``error`` (the field or reason and the message of a failure),
+``feature_set_version``, then one column per feature of the feature vector
+(``features.FEATURES``, in catalogue order; empty where the value is None). It is
+written as Parquet (``.parquet``) or CSV (``.csv``).
+
+Resuming: each finished recording's rows are written at once, atomically, to
+``<TABLE>.parts/`` (one JSON file per recording). A run started again with the same
+``--out`` skips the recordings already there, so a run that was killed goes on from
+where it stopped; the table is assembled from the parts at the end, in input order.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import sys
+from collections.abc import Iterable, Iterator, Sequence
+from pathlib import Path
+from typing import Any
+
+#: Suffixes taken from folders (a WFDB record by its header; .dat files are its data).
+TRACE_SUFFIXES = (".bdf", ".csv", ".edf", ".hea", ".npy", ".npz", ".parquet", ".pq")
+FIXED_COLUMNS = ("recording", "window", "start_s", "end_s", "status", "error",
+                 "feature_set_version")
+
+
+def feature_names() -> tuple[str, ...]:
+    """The feature columns, in catalogue order."""
+    from features.feature_vector import FEATURE_NAMES
+
+    return FEATURE_NAMES
+
+
+def find_inputs(inputs: Sequence[str | Path], *, exclude: Iterable[Path] = ()) -> list[Path]:
+    """Files named, and trace files found (recursively, sorted) in folders named.
+
+    Parameters
+    ----------
+    inputs
+        Files and folders, in the order given; a file is kept whatever its suffix.
+    exclude
+        Paths never taken (the output table and its parts).
+
+    Returns
+    -------
+    list of Path
+        Each file once, in order: named files as given, folder contents sorted.
+    """
+    skip = {p.resolve() for p in exclude}
+    found: list[Path] = []
+    for item in map(Path, inputs):
+        if item.is_dir():
+            candidates = sorted(p for p in item.rglob("*")
+                                if p.is_file() and p.suffix.lower() in TRACE_SUFFIXES)
+        else:
+            candidates = [item]
+        for path in candidates:
+            if path.resolve() in skip or any(parent.resolve() in skip for parent in path.parents):
+                continue
+            if path not in found:
+                found.append(path)
+    return found
+
+
+def _failure(recording: str, kind: str, detail: str) -> list[dict[str, Any]]:
+    return [{"recording": recording, "window": None, "start_s": None, "end_s": None,
+             "status": "failed", "error": f"{kind}: {detail}"[:500],
+             "feature_set_version": None}]
+
+
+def analyze_file(path: str, form: dict[str, Any], window_s: float | None = None,
+                 overlap_s: float = 0.0) -> list[dict[str, Any]]:
+    """The table rows of one recording; a failure is a row, never an exception.
+
+    Parameters
+    ----------
+    path
+        The file (a WFDB record by its ``.hea``).
+    form
+        The same fields as a multipart upload: ``sampling_rate_hz``, ``channels``,
+        ``quantity``, ``unit``, ``format`` (None or absent: from the file).
+    window_s, overlap_s
+        Analyse in windows of this length, s (``features.analyze_windows``); the
+        whole recording at once when None.
+
+    Returns
+    -------
+    list of dict
+        One row (or one per window), with every feature column.
+    """
+    import features
+    from features.errors import InvalidInputError, UnusableSignalError
+    from schemas.engine_inputs import engine_inputs
+    from schemas.errors import SchemaValidationError, flatten_errors
+    from schemas.requests import AnalysisRequestSchema
+    from service.analysis import run_analysis
+    from service.uploads import path_request_body
+
+    names = feature_names()
+    try:
+        request = AnalysisRequestSchema().load(path_request_body(path, form))
+        if window_s is None:
+            document = run_analysis(request)
+            vector = document["feature_vector"]
+            values = {f["name"]: f["value"] for f in vector["features"]}
+            row = {"recording": path, "window": None, "start_s": 0.0,
+                   "end_s": document["input"]["duration_s"], "status": "ok", "error": None,
+                   "feature_set_version": vector["feature_set_version"]}
+            return [{**row, **{name: values.get(name) for name in names}}]
+        call = engine_inputs(request)
+        windowed = features.analyze_windows(call.channels, call.fs_hz, window_s=window_s,
+                                            overlap_s=overlap_s, subject=call.subject,
+                                            recording=call.recording, options=call.options)
+    except SchemaValidationError as error:
+        first = flatten_errors(error.messages)[0]
+        return _failure(path, first["field"], first["detail"])
+    except InvalidInputError as error:
+        return _failure(path, error.field, error.message)
+    except UnusableSignalError as error:
+        return _failure(path, error.reason, error.message)
+    except Exception as error:  # noqa: BLE001 - one bad file must not stop the batch
+        return _failure(path, "error", type(error).__name__)
+    rows = []
+    for window in windowed.windows:
+        row: dict[str, Any] = {"recording": path, "window": window.index,
+                               "start_s": window.start_s, "end_s": window.end_s,
+                               "feature_set_version": windowed.feature_set_version}
+        if window.error is not None or window.feature_vector is None:
+            detail = window.error.code + ": " + window.error.message if window.error else ""
+            row.update(status="failed", error=detail[:500])
+            row.update({name: None for name in names})
+        else:
+            row.update(status="ok", error=None)
+            values = window.feature_vector.as_dict()
+            row.update({name: _finite(values.get(name)) for name in names})
+        rows.append(row)
+    return rows
+
+
+def _finite(value: float | None) -> float | None:
+    return None if value is None or not math.isfinite(value) else float(value)
+
+
+class PartStore:
+    """Finished recordings' rows, one JSON file each, under ``<TABLE>.parts/``."""
+
+    def __init__(self, table: Path) -> None:
+        self.folder = table.with_name(table.name + ".parts")
+        self.folder.mkdir(parents=True, exist_ok=True)
+
+    def _path(self, recording: str) -> Path:
+        digest = hashlib.sha256(recording.encode("utf-8")).hexdigest()[:32]
+        return self.folder / f"{digest}.json"
+
+    def has(self, recording: str) -> bool:
+        return self._path(recording).exists()
+
+    def put(self, recording: str, rows: list[dict[str, Any]]) -> None:
+        """Write atomically: a killed run leaves either the whole part or none."""
+        target = self._path(recording)
+        temporary = target.with_suffix(f".{os.getpid()}.tmp")
+        temporary.write_text(json.dumps({"recording": recording, "rows": rows},
+                                        allow_nan=False), encoding="utf-8")
+        os.replace(temporary, target)
+
+    def get(self, recording: str) -> list[dict[str, Any]]:
+        document = json.loads(self._path(recording).read_text(encoding="utf-8"))
+        rows: list[dict[str, Any]] = document["rows"]
+        return rows
+
+
+def write_table(rows: list[dict[str, Any]], out: Path) -> None:
+    """Write the rows as Parquet (``.parquet``/``.pq``) or CSV (anything else), columns fixed."""
+    import pyarrow as pa
+
+    names = feature_names()
+    columns: dict[str, Any] = {
+        "recording": pa.array([r["recording"] for r in rows], pa.string()),
+        "window": pa.array([r["window"] for r in rows], pa.int64()),
+        "start_s": pa.array([r["start_s"] for r in rows], pa.float64()),
+        "end_s": pa.array([r["end_s"] for r in rows], pa.float64()),
+        "status": pa.array([r["status"] for r in rows], pa.string()),
+        "error": pa.array([r["error"] for r in rows], pa.string()),
+        "feature_set_version": pa.array([r["feature_set_version"] for r in rows], pa.string()),
+    }
+    for name in names:
+        columns[name] = pa.array([r.get(name) for r in rows], pa.float64())
+    table = pa.table(columns)
+    temporary = out.with_name(out.name + ".tmp")
+    if out.suffix.lower() in (".parquet", ".pq"):
+        import pyarrow.parquet as pq
+
+        pq.write_table(table, temporary)
+    else:
+        import pyarrow.csv as pacsv
+
+        pacsv.write_csv(table, temporary)
+    os.replace(temporary, out)
+
+
+def _local(todo: list[str], task: dict[str, Any]) -> Iterator[tuple[str, list[dict[str, Any]]]]:
+    for path in todo:
+        yield path, analyze_file(path, **task)
+
+
+def _dask(todo: list[str], task: dict[str, Any],
+          address: str) -> Iterator[tuple[str, list[dict[str, Any]]]]:
+    from distributed import Client, as_completed
+
+    with Client(address, set_as_default=False) as client:
+        futures = {client.submit(analyze_file, path, pure=False, **task): path for path in todo}
+        for future in as_completed(futures):
+            yield futures[future], future.result()
+            future.release()
+
+
+def run_batch(inputs: Sequence[str | Path], out: str | Path, *, form: dict[str, Any],
+              window_s: float | None = None, overlap_s: float = 0.0,
+              scheduler: str | None = None, progress: bool = True) -> dict[str, int]:
+    """Analyse every input into the table ``out``; see the module docstring.
+
+    Parameters
+    ----------
+    inputs
+        Files and folders.
+    out
+        The table, ``.parquet`` or ``.csv``.
+    form
+        Upload fields applied to every file (see :func:`analyze_file`).
+    window_s, overlap_s
+        Windowed analysis, s; whole recordings when ``window_s`` is None.
+    scheduler
+        Address of a Dask distributed scheduler (``tcp://host:8786``); local when None.
+    progress
+        Show a progress bar (tqdm, on standard error).
+
+    Returns
+    -------
+    dict
+        ``recordings``, ``analysed`` (this run), ``skipped`` (done by an earlier run),
+        ``failed`` (recordings with a failed row), ``rows``.
+    """
+    out = Path(out)
+    store = PartStore(out)
+    paths = [str(p) for p in find_inputs(inputs, exclude=[out, store.folder])]
+    todo = [p for p in paths if not store.has(p)]
+    task = {"form": form, "window_s": window_s, "overlap_s": overlap_s}
+    results = _dask(todo, task, scheduler) if scheduler else _local(todo, task)
+    from tqdm import tqdm
+
+    bar = tqdm(total=len(paths), initial=len(paths) - len(todo), unit="file",
+               disable=not progress, file=sys.stderr, dynamic_ncols=True)
+    with bar:
+        for path, rows in results:
+            store.put(path, rows)
+            bar.update(1)
+    rows = [row for p in paths for row in store.get(p)]
+    write_table(rows, out)
+    failed = len({r["recording"] for r in rows if r["status"] != "ok"})
+    return {"recordings": len(paths), "analysed": len(todo), "skipped": len(paths) - len(todo),
+            "failed": failed, "rows": len(rows)}

@@ -1,0 +1,43 @@
+"""Reports: the same body as an analysis in, its report image (PNG or SVG) out."""
+
+from __future__ import annotations
+
+from flask import Blueprint, Response, current_app, request
+
+from schemas.requests import AnalysisRequestSchema
+from service.bodies import read_analysis_request
+from service.deadline import run_with_deadline
+from service.problems import problem
+from service.report import MEDIA_TYPES, analysis_with_report
+
+blueprint = Blueprint("reports", __name__)
+
+_FORMAT_OF = {media_type: name for name, media_type in MEDIA_TYPES.items()}
+
+
+@blueprint.post("/reports")
+def create_report() -> Response:
+    """Analyse a trace (JSON or upload) and answer the report image the ``Accept`` asks for."""
+    media_type: str | None = "image/png"
+    if request.headers.get("Accept"):
+        media_type = request.accept_mimetypes.best_match(list(_FORMAT_OF))
+    if media_type is None:
+        return problem(
+            406, "The report is served as " + " or ".join(sorted(_FORMAT_OF)) + "; got "
+            f"Accept {request.headers.get('Accept', '')[:80]!r}."
+        )
+    config = current_app.config
+    schema = AnalysisRequestSchema(
+        max_samples=config["HEARTSWAY_MAX_SAMPLES"],
+        max_channels=config["HEARTSWAY_MAX_CHANNELS"],
+    )
+
+    def work() -> bytes:
+        _, image = analysis_with_report(read_analysis_request(schema),
+                                        image_format=_FORMAT_OF[media_type])
+        return image
+
+    image = run_with_deadline(config["HEARTSWAY_MAX_COMPUTE_S"], work)
+    response = Response(image, mimetype=media_type)
+    response.vary.add("Accept")
+    return response

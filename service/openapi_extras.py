@@ -1,0 +1,165 @@
+"""Contract of the paths added beside the analyses: reports, FHIR output, trace files,
+the page and the metrics.
+
+:func:`register` adds the component schemas (before apispec renders), and
+:func:`extend` the paths and media types (after), so that :mod:`service.openapi`
+needs only two calls.
+"""
+
+from __future__ import annotations
+
+import copy
+from typing import Any
+
+from schemas.fhir import FEATURE_SYSTEM, FHIR_JSON
+from schemas.file_input import FileUploadFormSchema
+
+#: A FHIR R4 Bundle of Observations as the service emits it (the full rules are FHIR's).
+FHIR_BUNDLE_SCHEMA: dict[str, Any] = {
+    "type": "object",
+    "description": (
+        "An HL7 FHIR R4 Bundle of type `collection`: one Observation per feature of the feature "
+        "vector, coded in LOINC where a standard code exists (heart rate 8867-4, respiratory "
+        f"rate 9279-1, SDNN 80404-7) and always in `{FEATURE_SYSTEM}` (docs/fhir.md), with the "
+        "value in UCUM units or a dataAbsentReason, the confidence as a component and the "
+        "caution as a note."
+    ),
+    "required": ["resourceType", "type", "entry"],
+    "properties": {
+        "resourceType": {"const": "Bundle"},
+        "id": {"type": "string"},
+        "type": {"const": "collection"},
+        "timestamp": {"type": "string"},
+        "entry": {
+            "type": "array",
+            "items": {
+                "type": "object",
+                "required": ["fullUrl", "resource"],
+                "properties": {
+                    "fullUrl": {"type": "string"},
+                    "resource": {
+                        "type": "object",
+                        "required": ["resourceType", "status", "code"],
+                        "properties": {
+                            "resourceType": {"const": "Observation"},
+                            "status": {"const": "final"},
+                            "code": {"type": "object"},
+                        },
+                    },
+                },
+            },
+        },
+    },
+}
+
+
+def register(spec: Any) -> None:
+    """Add the component schemas of the new bodies to the apispec ``spec``."""
+    spec.components.schema("FileUploadForm", schema=FileUploadFormSchema)
+
+
+def _file_upload(form: dict[str, Any]) -> dict[str, Any]:
+    file_part = {
+        "description": (
+            "The trace file: EDF/EDF+C or BDF (labels, units and rates from the header), a WFDB "
+            "record (send the .hea and the signal files it names, each as a `file` part), NumPy "
+            ".npy (samples x channels) or .npz (one array per channel, optional "
+            "`sampling_rate_hz`), Parquet (one column per channel, `unit` in column metadata, "
+            "`sampling_rate_hz` in file metadata) or CSV."
+        ),
+        "oneOf": [
+            {"type": "string", "contentMediaType": "application/octet-stream"},
+            {"type": "array", "items": {"type": "string",
+                                        "contentMediaType": "application/octet-stream"}},
+        ],
+    }
+    return {
+        "type": "object",
+        "description": "A trace file of any supported format with its form fields.",
+        "properties": {**form["properties"], "file": file_part},
+        "required": ["file"],
+        "additionalProperties": False,
+    }
+
+
+def extend(document: dict[str, Any]) -> None:
+    """Add the FHIR media type, the upload formats and the new paths to ``document``."""
+    schemas = document["components"]["schemas"]
+    schemas["FileUpload"] = _file_upload(schemas["FileUploadForm"])
+    schemas["FhirBundle"] = FHIR_BUNDLE_SCHEMA
+    analyses = document["paths"]["/v1/analyses"]["post"]
+    multipart = analyses["requestBody"]["content"]["multipart/form-data"]
+    multipart["schema"] = {"anyOf": [copy.deepcopy(multipart["schema"]),
+                                     {"$ref": "#/components/schemas/FileUpload"}]}
+    multipart["encoding"] = {"file": {"contentType": "text/csv, application/octet-stream"}}
+    analyses["description"] += (
+        " Other trace files (EDF/BDF, WFDB, .npy/.npz, Parquet) go up the same way as the "
+        "form field `file`, with `channels` to select labels; `sampling_rate_hz` only where "
+        "the format does not carry it. With `Accept: application/fhir+json` the answer is a "
+        "FHIR R4 Bundle of Observations instead of the JSON document."
+    )
+    ok = analyses["responses"]["200"]
+    ok["content"][FHIR_JSON] = {"schema": {"$ref": "#/components/schemas/FhirBundle"}}
+    headers = ok.get("headers", {})
+    problem = {"$ref": "#/components/schemas/Problem"}
+    errors = {k: v for k, v in analyses["responses"].items() if k != "200"}
+    paths = document["paths"]
+    paths["/v1/reports"] = {"post": {
+        "operationId": "createReport",
+        "summary": "Analyse a trace and draw its report image.",
+        "description": (
+            "The same body as `POST /v1/analyses`. The image shows the trace with the masked "
+            "segments shaded and the beats marked, the beat ensemble with the located waves, "
+            "the intervals with the breathing signal, and the confidence of each family. "
+            "`Accept: image/png` (the default) or `image/svg+xml`."
+        ),
+        "tags": ["analyses"],
+        "security": analyses.get("security", []),
+        "requestBody": copy.deepcopy(analyses["requestBody"]),
+        "responses": {
+            "200": {
+                "description": "The report image (1100 x 850 pixels as PNG).",
+                "content": {
+                    "image/png": {"schema": {"type": "string", "contentMediaType": "image/png"}},
+                    "image/svg+xml": {"schema": {"type": "string",
+                                                 "contentMediaType": "image/svg+xml"}},
+                },
+                "headers": headers,
+            },
+            "406": {"description": "The Accept header names neither image type.",
+                    "content": {"application/problem+json": {"schema": problem}},
+                    "headers": headers},
+            **errors,
+        },
+    }}
+    text = {"description": "Static text.", "headers": headers}
+    paths["/"] = {"get": {
+        "operationId": "page", "summary": "The page: drop a trace file, see its report.",
+        "tags": ["page"],
+        "responses": {"200": {**text, "content": {"text/html": {"schema": {"type": "string"}}}}},
+    }}
+    paths["/static/page.js"] = {"get": {
+        "operationId": "pageScript", "summary": "The page's script.", "tags": ["page"],
+        "responses": {"200": {**text, "content": {"text/javascript": {
+            "schema": {"type": "string"}}}}},
+    }}
+    paths["/static/page.css"] = {"get": {
+        "operationId": "pageStyle", "summary": "The page's style sheet.", "tags": ["page"],
+        "responses": {"200": {**text, "content": {"text/css": {"schema": {"type": "string"}}}}},
+    }}
+    paths["/metrics"] = {"get": {
+        "operationId": "metrics",
+        "summary": "Prometheus metrics, summed over every worker process.",
+        "description": (
+            "`heartsway_http_requests_total{route,method,status}`, "
+            "`heartsway_http_request_duration_seconds{route}`, "
+            "`heartsway_analysis_duration_seconds` and `heartsway_samples_processed_total`, "
+            "in the Prometheus text format. Counts only: no request content."
+        ),
+        "tags": ["operations"],
+        "responses": {"200": {
+            "description": "The Prometheus text exposition format, version 0.0.4.",
+            "content": {"text/plain": {"schema": {"type": "string"}}},
+            "headers": headers,
+        }},
+    }}

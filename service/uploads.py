@@ -1,0 +1,107 @@
+"""Trace files into analysis request bodies: the one road of the API, ``analyze`` and ``batch``.
+
+CSV goes through :func:`schemas.csv_input.csv_request_body` (as it always has);
+every other format through :func:`schemas.file_input.file_request_body`. The
+multipart upload sends the file(s) as the form field ``file`` (a WFDB record as
+several ``file`` parts: the ``.hea`` and the signal files it names).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+from werkzeug.datastructures import FileStorage
+
+from fileformats import UnreadableFileError, detect_format
+from schemas.csv_input import csv_request_body
+from schemas.file_input import FILE_ONLY_FIELDS, file_request_body, select_channels, split_list
+
+
+def _format_of(name: str, data: bytes, form: Mapping[str, Any]) -> str:
+    given = form.get("format")
+    if given:
+        return str(given)
+    return detect_format(name, data[:16])
+
+
+def _csv_body(data: bytes, form: Mapping[str, Any]) -> dict[str, Any]:
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError:
+        raise UnreadableFileError(
+            "file", "`file` must be CSV text encoded as UTF-8; got bytes that are not."
+        ) from None
+    csv_form = {k: v for k, v in form.items() if k not in FILE_ONLY_FIELDS and v is not None}
+    body = csv_request_body(text, csv_form)
+    return select_channels(body, split_list(str(form.get("channels") or "")))
+
+
+def files_request_body(files: Mapping[str, bytes], form: Mapping[str, Any]) -> dict[str, Any]:
+    """The request body for uploaded files (name -> content) and their form fields.
+
+    Raises
+    ------
+    marshmallow.ValidationError, fileformats.UnreadableFileError
+        For the form or the file.
+    """
+    if not files:
+        raise UnreadableFileError("file", "`file` must be a trace file part; got none.")
+    if len(files) > 1 or any(name.endswith(".hea") for name in files):
+        return file_request_body(dict(files), {**form, "format": form.get("format") or "wfdb"})
+    name, data = next(iter(files.items()))
+    fmt = _format_of(name, data, form)
+    if fmt == "csv":
+        return _csv_body(data, form)
+    return file_request_body(data, {**form, "format": fmt}, name=name)
+
+
+def upload_request_body(uploads: Sequence[FileStorage],
+                        form: Mapping[str, Any]) -> dict[str, Any] | None:
+    """The request body of a multipart upload, or None for a plain CSV (the CSV road reads it).
+
+    A single upload whose content and name do not tell its format is taken as CSV,
+    as before other formats were read.
+    """
+    if not uploads:
+        return None
+    if len(uploads) == 1 and not any(form.get(k) for k in FILE_ONLY_FIELDS):
+        upload = uploads[0]
+        head = upload.stream.read(16)
+        upload.stream.seek(0)
+        try:
+            fmt = detect_format(upload.filename, head)
+        except UnreadableFileError:
+            fmt = "csv"
+        if fmt == "csv":
+            return None
+    files = {}
+    for k, upload in enumerate(uploads):
+        name = Path(upload.filename or f"file_{k}").name
+        files[name] = upload.read()
+    return files_request_body(files, form)
+
+
+def path_request_body(path: str | Path, form: Mapping[str, Any]) -> dict[str, Any]:
+    """The request body for a file on disk (a WFDB record by its ``.hea``, ``.dat`` or name).
+
+    Raises
+    ------
+    marshmallow.ValidationError, fileformats.UnreadableFileError
+        For the form or the file.
+    """
+    p = Path(path)
+    form = {k: v for k, v in form.items() if v is not None}
+    wfdb = form.get("format") == "wfdb" or p.suffix.lower() in (".hea", ".dat") or (
+        not p.exists() and p.with_suffix(".hea").exists()
+    )
+    if wfdb:
+        return file_request_body(p, {**form, "format": "wfdb"})
+    try:
+        data = p.read_bytes()
+    except OSError as error:
+        raise UnreadableFileError(
+            "file", f"`file` must be a readable file; got {p.name!r} ({type(error).__name__})."
+        ) from None
+    return files_request_body({p.name: data}, form)
