@@ -22,7 +22,6 @@ import numpy as np
 from features import ChannelInput, analyze
 from features.simulation import SimulationSettings, simulate
 
-
 BLOCK_S = 1800.0
 """Longest simulated block; longer traces repeat blocks of different seeds end to end."""
 
