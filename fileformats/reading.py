@@ -281,13 +281,13 @@ def read_trace(
     """
     fmt, raw = _raw(source, format, name)
     picked = _select(raw, channels)
+    rate = _rate(raw, picked, fs_hz)
     lengths = {raw.samples[k].size for k in picked}
     if len(lengths) > 1:
         raise UnreadableFileError(
             "channels", "`channels` must have equal lengths; got "
             + ", ".join(f"{raw.labels[k]} {raw.samples[k].size}" for k in picked) + "."
         )
-    rate = _rate(raw, picked, fs_hz)
     built, sources = [], []
     for k in picked:
         q, u, src = _unit(raw, k, quantity, unit, default_quantity, default_unit)

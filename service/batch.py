@@ -217,7 +217,7 @@ def _dask(todo: list[str], task: dict[str, Any],
           address: str) -> Iterator[tuple[str, list[dict[str, Any]]]]:
     from distributed import Client, as_completed
 
-    with Client(address, set_as_default=False) as client:
+    with Client(address) as client:
         futures = {client.submit(analyze_file, path, pure=False, **task): path for path in todo}
         for future in as_completed(futures):
             yield futures[future], future.result()

@@ -158,7 +158,7 @@ def extend(document: dict[str, Any]) -> None:
         ),
         "tags": ["operations"],
         "responses": {"200": {
-            "description": "The Prometheus text exposition format, version 0.0.4.",
+            "description": "The Prometheus text exposition format (prometheus_client's).",
             "content": {"text/plain": {"schema": {"type": "string"}}},
             "headers": headers,
         }},
