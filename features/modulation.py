@@ -17,6 +17,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import signal as sps
 
 from features.errors import InvalidInputError
+from features.spectral import lomb_scargle_power
 
 __all__ = ["ModulationResult", "respiratory_modulation"]
 
@@ -152,10 +153,11 @@ def respiratory_modulation(
        2 sqrt(a1^2 + a2^2) / a0, the (max - min) / mean of the fitted modulation. Its
        standard error se = 2 s_res sqrt(2 / N) / a0 sets the confidence
        min(1, N / 60) / (1 + (se / 0.02)^2).
-    4. ``timing_modulation_pct``: Lomb-Scargle periodogram (``scipy.signal.lombscargle``,
-       mean removed) of the valid intervals at their beat times, in consecutive segments of
-       ``TIMING_SEGMENT_S`` summed with weights by their interval counts (linear cost on
-       long records), on a 0.001-Hz grid from 0.04 Hz to the beat-series Nyquist
+    4. ``timing_modulation_pct``: Lomb-Scargle periodogram (the power of
+       ``scipy.signal.lombscargle``, by :mod:`features.spectral`; mean removed) of the
+       valid intervals at their beat times, in consecutive segments of ``TIMING_SEGMENT_S``
+       summed with weights by their interval counts (linear cost on long records),
+       on a 0.001-Hz grid from 0.04 Hz to the beat-series Nyquist
        frequency 1 / (2 x mean interval), capped at 1 Hz; power within f_b +/- 0.05 Hz
        over the total, in %. None when
        f_b + 0.05 Hz exceeds the Nyquist frequency. Confidence = min(1, intervals / 120) x
@@ -439,7 +441,7 @@ def _timing_share(
     p = np.zeros(f.size)
     for seg in _segments(t):
         ts, ys = t[seg], iv[seg]
-        p += sps.lombscargle(ts - ts[0], ys - ys.mean(), 2.0 * np.pi * f) * ys.size
+        p += lomb_scargle_power(ts, ys - ys.mean(), f) * ys.size
     total = float(p.sum())
     if total <= 0:
         return None, 0.0, ["flat_interval_series"]

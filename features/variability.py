@@ -32,7 +32,6 @@ from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
-from scipy.signal import lombscargle
 from scipy.spatial import cKDTree
 
 from features.errors import InvalidInputError
@@ -43,6 +42,7 @@ from features.intervals import (
     run_ids_from_adjacency,
     validate_interval_series,
 )
+from features.spectral import lomb_scargle_power
 
 __all__ = [
     "FrequencyDomainResult",
@@ -426,16 +426,17 @@ def lomb_psd_ms2_per_hz(
     """One-sided Lomb-Scargle PSD scaled so its integral is the variance.
 
     ``PSD(f) = 2 * P(f) * mean_step_s`` where ``P`` is
-    :func:`scipy.signal.lombscargle` (default "power" normalisation) of the
-    mean-removed values and ``mean_step_s`` the mean sampling step (the mean
-    NN interval in seconds). For even sampling ``P`` equals the classical
+    :func:`scipy.signal.lombscargle` (default "power" normalisation, computed
+    by :func:`features.spectral.lomb_scargle_power`) of the mean-removed
+    values and ``mean_step_s`` the mean sampling step (the mean NN interval
+    in seconds). For even sampling ``P`` equals the classical
     periodogram ``|sum y exp(-i w t)|**2 / N`` at the Fourier frequencies, so
     the integral of the PSD from 0 to the Nyquist frequency ``1 / (2 dt)``
     is the variance (Parseval); a sinusoid of amplitude A integrates to
     ``A**2 / 2`` over its peak.
     """
     centred = values_ms - values_ms.mean()
-    power = lombscargle(times_s, centred, 2.0 * np.pi * frequencies_hz)
+    power = lomb_scargle_power(times_s, centred, frequencies_hz)
     return np.asarray(2.0 * power * mean_step_s, dtype=float)
 
 
@@ -503,7 +504,9 @@ def frequency_domain(
        ``k > 1``). Segments whose NN intervals cover less than half their
        span are skipped (flag ``"sparse_segments_skipped"``).
     2. In each segment the NN values at their end-beat times are mean-removed
-       and passed to :func:`scipy.signal.lombscargle`, on a grid from the VLF
+       and passed to the Lomb-Scargle periodogram (the power of
+       :func:`scipy.signal.lombscargle`, computed by the factorised kernel of
+       :mod:`features.spectral`), on a grid from the VLF
        low edge to the HF high edge with step ``1 / (4 L)`` (``L`` the
        segment length) plus the band edges.
     3. Scaling: ``PSD = 2 * P * mean(NN) / 1000`` (ms^2/Hz), so that the
