@@ -17,7 +17,7 @@ from fractions import Fraction
 import numpy as np
 import pywt
 from numpy.typing import ArrayLike, NDArray
-from scipy import ndimage, signal, stats
+from scipy import ndimage, signal
 
 from features.errors import InvalidInputError
 from features.wavelets import WAVELET, detail_bands
@@ -563,15 +563,30 @@ def _beat_extrema(
 
 def _location_sd_ms(epochs: NDArray[np.float64], i: int, sign: int, fs: float) -> float:
     off, _ = _beat_extrema(epochs, i, sign, fs)
-    return float(1e3 * 1.4826 * stats.median_abs_deviation(off) / fs)
+    med = np.median(off)
+    return float(1e3 * 1.4826 * np.median(np.abs(off - med)) / fs)
 
 
 def _robust_template(epochs: NDArray[np.float64]) -> tuple[NDArray[np.float64], float]:
-    """20 % trimmed-mean template minus its median, and its standard error."""
-    template = stats.trim_mean(epochs, _TRIM_PROPORTION, axis=0)
+    """20 % trimmed-mean template minus its median, and its standard error.
+
+    The same as ``scipy.stats.trim_mean(epochs, 0.2, axis=0)`` and
+    ``scipy.stats.median_abs_deviation(epochs, axis=0)``, computed on the
+    transposed (one contiguous row per sample) epochs with one partition for
+    the trimmed mean and one median for the centre, which is reused by the MAD.
+    """
+    n = epochs.shape[0]
+    rows = np.ascontiguousarray(epochs.T)
+    cut = int(_TRIM_PROPORTION * n)
+    if cut > 0:
+        part = np.partition(rows, (cut, n - cut - 1), axis=1)
+        template = part[:, cut : n - cut].mean(axis=1)
+    else:
+        template = rows.mean(axis=1)
     template = template - np.median(template)
-    spread = 1.4826 * stats.median_abs_deviation(epochs, axis=0)
-    return template, float(np.median(spread) / np.sqrt(epochs.shape[0]))
+    centre = np.median(rows, axis=1)
+    spread = 1.4826 * np.median(np.abs(rows - centre[:, None]), axis=1)
+    return template, float(np.median(spread) / np.sqrt(n))
 
 
 def _per_beat_jk(
