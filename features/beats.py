@@ -26,6 +26,7 @@ from dataclasses import dataclass
 from fractions import Fraction
 
 import numpy as np
+import scipy.fft
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
@@ -63,6 +64,10 @@ irregular rhythm (atrial-fibrillation-like intervals) decorrelates the envelope
 to about 0.2, and then the period would only mislead the refractory period and
 the heart-rate cross-check.
 """
+
+#: Samples per block of the envelope autocorrelation, and blocks per FFT batch.
+_AC_BLOCK = 8192
+_AC_GROUP = 64
 
 LARGE_WAVE_FRACTION = 0.75
 """A wave at least this share of the largest counts as large (polarity, J choice).
@@ -429,11 +434,7 @@ def _robust_sd(v: NDArray[np.float64]) -> float:
 def _envelope_period(
     env: NDArray[np.float64], fs: float, min_period: float, max_period: float
 ) -> float | None:
-    e = env - env.mean()
-    n = e.size
-    nfft = int(2 ** np.ceil(np.log2(2 * n)))
-    spec = np.fft.rfft(e, nfft)
-    ac = np.fft.irfft(spec * np.conj(spec), nfft)[: int(max_period * fs) + 2]
+    ac = _autocorrelation(env - env.mean(), int(max_period * fs) + 2)
     if ac[0] <= 0:
         return None
     ac = ac / ac[0]
@@ -449,6 +450,30 @@ def _envelope_period(
         return None
     first = pk[seg[pk] >= 0.7 * best][0]
     return float((lo + first + _vertex(seg, first)) / fs)
+
+
+def _autocorrelation(e: NDArray[np.float64], lags: int) -> NDArray[np.float64]:
+    """``sum_i e[i] e[i + k]`` for ``0 <= k < lags`` (zero beyond the end), linear in length.
+
+    The series is cut into blocks of ``_AC_BLOCK`` samples; each block is
+    correlated with itself extended by ``lags`` samples by one short FFT
+    product, and the blocks' lag sums are added. Only the first lags are
+    ever needed, so no transform of the whole series is made.
+    """
+    n = e.size
+    block = _AC_BLOCK
+    nb = -(-n // block)
+    padded = np.zeros(nb * block + lags)
+    padded[:n] = e
+    nfft = scipy.fft.next_fast_len(block + lags, real=True)
+    heads = padded[: nb * block].reshape(nb, block)
+    tails = np.lib.stride_tricks.sliding_window_view(padded, block + lags)[::block]
+    ac = np.zeros(lags)
+    for a in range(0, nb, _AC_GROUP):
+        spec = np.fft.rfft(tails[a : a + _AC_GROUP], nfft, axis=1)
+        spec *= np.conj(np.fft.rfft(heads[a : a + _AC_GROUP], nfft, axis=1))
+        ac += np.fft.irfft(spec, nfft, axis=1)[:, :lags].sum(axis=0)
+    return ac
 
 
 def _vertex(y: NDArray[np.float64], i: int) -> float:
@@ -539,17 +564,34 @@ def _match(comp: NDArray[np.float64], template: NDArray[np.float64], centre: int
     # Running sums over the same window as the correlation.
     c1 = np.concatenate(([0.0], np.cumsum(comp)))
     c2 = np.concatenate(([0.0], np.cumsum(comp * comp)))
-    start = np.arange(n) - centre
-    lo = np.clip(start, 0, n)
-    hi = np.clip(start + m, 0, n)
-    s1 = c1[hi] - c1[lo]
-    s2 = c2[hi] - c2[lo]
+    s1 = _window_sums(c1, centre, m)
+    s2 = _window_sums(c2, centre, m)
     var = s2 - s1 * s1 / m
     den = np.sqrt(np.maximum(var, 0.0))
     corr = np.zeros_like(comp)
     ok = den > 1e-6  # the component is scaled to unit robust SD before matching
-    corr[ok] = num[ok] / den[ok]
-    return np.clip(corr, -1.0, 1.0), num
+    np.divide(num, den, out=corr, where=ok)
+    np.clip(corr, -1.0, 1.0, out=corr)
+    return corr, num
+
+
+def _window_sums(csum: NDArray[np.float64], centre: int, m: int) -> NDArray[np.float64]:
+    """``csum[hi] - csum[lo]`` for the window ``[i - centre, i - centre + m)`` at every ``i``.
+
+    ``csum`` is a running sum with a leading zero (length ``n + 1``); the window
+    is clipped to ``[0, n]``. Built from slices instead of gathered indices.
+    """
+    n = csum.size - 1
+    ahead = m - centre  # hi = i + ahead, lo = i - centre, both clipped
+    hi = np.empty(n)
+    k = max(0, min(n, n + 1 - ahead))
+    hi[:k] = csum[ahead : ahead + k]
+    hi[k:] = csum[n]
+    lo = np.empty(n)
+    j = min(centre, n)
+    lo[:j] = csum[0]
+    lo[j:] = csum[: n - j]
+    return hi - lo
 
 
 def _local_median(values: NDArray[np.float64], half: int = 5) -> NDArray[np.float64]:
