@@ -61,6 +61,10 @@ def levels_for_band(fs_hz: float, band_hz: tuple[float, float]) -> tuple[int, ..
     return tuple(kept)
 
 
+#: Output samples per block of the blocked transform (a multiple of any ``2**level`` used).
+_SWT_BLOCK = 1 << 17
+
+
 def swt_component(
     x: ArrayLike, *, levels: tuple[int, ...], wavelet: str = WAVELET
 ) -> NDArray[np.float64]:
@@ -70,22 +74,48 @@ def swt_component(
     ``2**max(levels)`` (plus one filter length of margin, which keeps the
     circular wrap of the transform away from the data), transformed,
     reconstructed from the chosen details alone, and cut back.
+
+    Long traces are transformed in blocks of ``_SWT_BLOCK`` output samples:
+    the transform and its inverse together are a circular shift-invariant
+    filter whose reach is ``2 (L - 1) (2**J - 1)`` samples (``L`` the filter
+    length, ``J`` the top level), so each block is computed on a window of the
+    padded trace extended circularly by at least that reach on both sides (a
+    multiple of ``2**J``, keeping the dyadic alignment) and its centre kept.
+    The result equals the whole-trace transform to rounding, at a cost linear
+    in length and with the coefficient arrays of one block in memory.
     """
     data = np.asarray(x, dtype=np.float64)
     n = data.size
     top = max(levels)
     block = 2**top
-    margin = min(n - 1, (pywt.Wavelet(wavelet).dec_len - 1) * (block - 1) + 1)
+    filt = pywt.Wavelet(wavelet).dec_len
+    margin = min(n - 1, (filt - 1) * (block - 1) + 1)
     total = n + 2 * margin
     padded_len = int(math.ceil(total / block) * block)
     extra = padded_len - total
     padded = np.pad(data, (margin, margin + extra), mode="reflect")
-    coeffs = pywt.swt(padded, wavelet, level=top, trim_approx=True, norm=True)
-    # coeffs = [cA_top, cD_top, cD_top-1, ..., cD_1]
-    keep = set(levels)
-    kept = [np.zeros_like(coeffs[0])]
-    for i, c in enumerate(coeffs[1:]):
-        level = top - i
-        kept.append(c if level in keep else np.zeros_like(c))
-    out = pywt.iswt(kept, wavelet, norm=True)
+    reach = int(math.ceil((2 * (filt - 1) * (block - 1) + 1) / block) * block)
+    step = max(block, _SWT_BLOCK // block * block)
+    if padded_len <= step + 2 * reach:
+        out = _mra(padded, levels, top, wavelet)
+    else:
+        out = np.empty(padded_len)
+        for a in range(0, padded_len, step):
+            b = min(a + step, padded_len)
+            b_win = int(math.ceil((b - a) / block) * block) + a
+            window = np.take(padded, np.arange(a - reach, b_win + reach), mode="wrap")
+            out[a:b] = _mra(window, levels, top, wavelet)[reach : reach + b - a]
     return np.ascontiguousarray(out[margin : margin + n])
+
+
+def _mra(padded: NDArray[np.float64], levels: tuple[int, ...], top: int, wavelet: str
+         ) -> NDArray[np.float64]:
+    """Circular SWT of ``padded`` reconstructed from the ``levels`` details alone."""
+    coeffs = pywt.swt(padded, wavelet, level=top, trim_approx=True, norm=True)
+    # coeffs = [cA_top, cD_top, cD_top-1, ..., cD_1]; one zero array stands for every
+    # dropped level (the inverse does not write into its inputs).
+    zero = np.zeros_like(coeffs[0])
+    keep = set(levels)
+    kept = [zero] + [c if top - i in keep else zero for i, c in enumerate(coeffs[1:])]
+    out: NDArray[np.float64] = pywt.iswt(kept, wavelet, norm=True)
+    return out
