@@ -572,19 +572,17 @@ def _robust_template(epochs: NDArray[np.float64]) -> tuple[NDArray[np.float64], 
 
     The same as ``scipy.stats.trim_mean(epochs, 0.2, axis=0)`` and
     ``scipy.stats.median_abs_deviation(epochs, axis=0)``, computed on the
-    transposed (one contiguous row per sample) epochs with one partition for
-    the trimmed mean and one median for the centre, which is reused by the MAD.
+    transposed (one contiguous row per sample) epochs with one partition that
+    places both the trimmed range and the median (the centre the MAD reuses).
     """
     n = epochs.shape[0]
     rows = np.ascontiguousarray(epochs.T)
     cut = int(_TRIM_PROPORTION * n)
-    if cut > 0:
-        part = np.partition(rows, (cut, n - cut - 1), axis=1)
-        template = part[:, cut : n - cut].mean(axis=1)
-    else:
-        template = rows.mean(axis=1)
+    mid = ((n - 1) // 2, n // 2)
+    part = np.partition(rows, sorted({cut, n - cut - 1, *mid}), axis=1)
+    template = part[:, cut : n - cut].mean(axis=1)
     template = template - np.median(template)
-    centre = np.median(rows, axis=1)
+    centre = part[:, mid[0]] if n % 2 else part[:, list(mid)].mean(axis=1)
     spread = 1.4826 * np.median(np.abs(rows - centre[:, None]), axis=1)
     return template, float(np.median(spread) / np.sqrt(n))
 
