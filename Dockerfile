@@ -13,7 +13,7 @@ RUN groupadd --system --gid 10001 heartsway \
 WORKDIR /app
 # Dependencies come from pyproject.toml; .dockerignore keeps tests, .git and venvs out.
 COPY . .
-RUN pip install --no-cache-dir . \
+RUN pip install --no-cache-dir "./[formats]" \
     && rm -rf /app/build /app/*.egg-info
 
 USER 10001:10001
@@ -24,7 +24,8 @@ ENV HEARTSWAY_BIND=0.0.0.0:8000 \
     HEARTSWAY_TIMEOUT_S=60 \
     HEARTSWAY_GRACEFUL_TIMEOUT_S=30 \
     HEARTSWAY_KEEPALIVE_S=5 \
-    HEARTSWAY_MAX_REQUESTS=1000
+    HEARTSWAY_MAX_REQUESTS=1000 \
+    MPLCONFIGDIR=/tmp/matplotlib
 
 EXPOSE 8000
 
