@@ -19,6 +19,8 @@ class EngineCall:
     subject: Subject | None
     recording: Recording | None
     options: Options
+    window_s: float | None = None
+    window_overlap_s: float = 0.0
 
 
 def engine_inputs(request: AnalysisRequest) -> EngineCall:
@@ -68,4 +70,6 @@ def engine_inputs(request: AnalysisRequest) -> EngineCall:
         subject=subject,
         recording=recording,
         options=Options(**option_values),
+        window_s=opts.window_s if "windows" in opts.include else None,
+        window_overlap_s=opts.window_overlap_s,
     )

@@ -106,6 +106,8 @@ class OptionsRequest:
     empty_load_kg: float | None = None
     rate_range_bpm: tuple[float, float] | None = None
     include: frozenset[str] = frozenset()
+    window_s: float | None = None
+    window_overlap_s: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -387,6 +389,17 @@ class OptionsSchema(Schema):
         validate=Length(equal=2),
         metadata={"description": "Plausible heart-rate range [low, high] in bpm, within 20-250."},
     )
+    window_s = StrictFloat(
+        validate=Range(min=30, max=3600),
+        metadata={"description": (
+            "Length of consecutive analysis windows in s, 30-3600; with `include: [\"windows\"]`"
+            " each window gets its own feature vector, confidence and usable fraction."
+        )},
+    )
+    window_overlap_s = StrictFloat(
+        validate=Range(min=0, max=3599),
+        metadata={"description": "Overlap of consecutive windows in s, 0 <= overlap < window_s."},
+    )
     include = fields.List(
         fields.String(
             validate=OneOf(
@@ -399,6 +412,23 @@ class OptionsSchema(Schema):
             "uniqueItems": True,
         },
     )
+
+    @validates_schema
+    def _windows_defined(self, data: Mapping[str, Any], **kwargs: Any) -> None:
+        window = data.get("window_s")
+        overlap = data.get("window_overlap_s")
+        if "windows" in data.get("include", ()) and window is None:
+            raise ValidationError(
+                "`options.window_s` is required when `include` has `windows`; got none. "
+                "Give the window length in seconds (30-3600).",
+                field_name="window_s",
+            )
+        if overlap is not None and (window is None or not overlap < window):
+            raise ValidationError(
+                f"`options.window_overlap_s` must be below `options.window_s`; got {overlap} "
+                f"with window_s {window}.",
+                field_name="window_overlap_s",
+            )
 
     @validates_schema
     def _range_ordered(self, data: Mapping[str, Any], **kwargs: Any) -> None:

@@ -43,6 +43,7 @@ class AnalysisReport:
 
     result: Any
     include: frozenset[str] = frozenset()
+    windows: Any = None
     analysis_id: str = field(default_factory=lambda: str(uuid.uuid4()))
 
 
@@ -379,6 +380,47 @@ def _replace_non_finite(node: Any, path: str, found: list[str]) -> Any:
     return node
 
 
+class WindowErrorSchema(Schema):
+    """Why one window has no analysis."""
+
+    kind = fields.String(required=True)
+    code = fields.String(required=True)
+    message = fields.String(required=True)
+
+
+class WindowVectorSchema(Schema):
+    """A window's feature vector."""
+
+    feature_set_version = fields.String(required=True)
+    features = fields.List(fields.Nested(FeatureValueSchema), required=True)
+
+
+class WindowSchema(Schema):
+    """One window of a windowed analysis."""
+
+    index = fields.Integer(required=True)
+    start_s = Number(required=True)
+    end_s = Number(required=True)
+    feature_vector = fields.Nested(WindowVectorSchema, required=True, allow_none=True)
+    confidence = Number(required=True)
+    usable_fraction = Number(required=True)
+    flags = fields.List(fields.String(), required=True)
+    error = fields.Nested(WindowErrorSchema, required=True, allow_none=True)
+
+
+class WindowsSchema(Schema):
+    """Consecutive windows over the recording."""
+
+    window_s = Number(required=True)
+    overlap_s = Number(required=True)
+    step_s = Number(required=True)
+    unanalysed_tail_s = Number(required=True, metadata={
+        "description": "Time after the last whole window, not analysed (s)."})
+    n_failed = fields.Integer(required=True)
+    flags = fields.List(fields.String(), required=True)
+    windows = fields.List(fields.Nested(WindowSchema), required=True)
+
+
 class AnalysisResponseSchema(Schema):
     """Body of a 200 answer to ``POST /v1/analyses``."""
 
@@ -410,11 +452,10 @@ class AnalysisResponseSchema(Schema):
     })
     windows = fields.Method("_windows", metadata={
         "description": (
-            "Present when `include` has `windows`: per-window features, or null (named in "
-            "warnings) when the engine does not compute them."
+            "Present when `include` has `windows` (with `options.window_s`): the analysis "
+            "of consecutive windows, each with its own feature vector."
         ),
-        "type": ["array", "null"],
-        "items": {"type": "object"},
+        "allOf": [{"$ref": "#/components/schemas/Windows"}],
     })
     feature_vector = fields.Method("_feature_vector", required=True, metadata={
         "type": "object",
@@ -460,12 +501,9 @@ class AnalysisResponseSchema(Schema):
         return SignalsSchema().dump(report.result)
 
     def _windows(self, report: AnalysisReport) -> Any:
-        if not self._asked(report, "windows"):
+        if not self._asked(report, "windows") or report.windows is None:
             return missing
-        windows = getattr(report.result, "windows", None)
-        if windows is None:
-            return None
-        return [_plain(window) for window in windows]
+        return WindowsSchema().dump(report.windows)
 
     def _morphology(self, report: AnalysisReport) -> Any:
         value = getattr(report.result, "morphology", None)
@@ -498,8 +536,6 @@ class AnalysisResponseSchema(Schema):
         for family in OPTIONAL_FAMILIES:
             if data.get(family) is None:
                 warnings.append(f"{family}: not computed by this engine version")
-        if "windows" in data and data["windows"] is None:
-            warnings.append("windows: not computed by this engine version")
         found: list[str] = []
         data = _replace_non_finite(data, "", found)
         if found:

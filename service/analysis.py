@@ -29,7 +29,14 @@ def run_analysis(request: AnalysisRequest) -> dict[str, Any]:
         recording=call.recording,
         options=call.options,
     )
+    windows = None
+    if call.window_s is not None:
+        windows = features.analyze_windows(
+            call.channels, call.fs_hz, window_s=call.window_s,
+            overlap_s=call.window_overlap_s, subject=call.subject,
+            recording=call.recording, options=call.options,
+        )
     record_analysis(time.perf_counter() - started, sum(c.samples.size for c in call.channels))
-    report = AnalysisReport(result=result, include=request.options.include)
+    report = AnalysisReport(result=result, include=request.options.include, windows=windows)
     document: dict[str, Any] = AnalysisResponseSchema().dump(report)
     return document

@@ -38,6 +38,7 @@ from schemas.responses import (
     RespirationSchema,
     SignalsSchema,
     TemplateSchema,
+    WindowsSchema,
 )
 from service import openapi_extras
 from service.access import AUTH_SCHEME, REALM
@@ -333,6 +334,7 @@ def build_spec() -> dict[str, Any]:
     )
     spec.components.schema("ChannelSummary", schema=ChannelSummarySchema)
     spec.components.schema("Beats", schema=BeatsSchema)
+    spec.components.schema("Windows", schema=WindowsSchema)
     spec.components.schema("Template", schema=TemplateSchema)
     spec.components.schema("Signals", schema=SignalsSchema)
     spec.components.schema("Morphology", schema=MorphologySchema)

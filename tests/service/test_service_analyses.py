@@ -69,7 +69,8 @@ def test_families_not_computed_are_null_with_a_reason(client, demo_body):
 
 
 def test_include_adds_beats_template_signals_windows(client, demo_body):
-    asked = {**demo_body, "options": {"include": ["beats", "template", "signals", "windows"]}}
+    asked = {**demo_body, "options": {"include": ["beats", "template", "signals", "windows"],
+                                      "window_s": 60, "window_overlap_s": 30}}
     response = _post(client, asked)
     assert response.status_code == 200
     check_against_contract(response, "/v1/analyses", "post")
@@ -84,9 +85,34 @@ def test_include_adds_beats_template_signals_windows(client, demo_body):
     assert min(beats["intervals_ms"]) >= 1000 * np.diff(times).min() - 1e-6
     assert body["template"]["fs_hz"] > 0 and body["template"]["samples"]
     assert len(body["signals"]["psd_frequencies_hz"]) == len(body["signals"]["psd_ms2_per_hz"])
-    assert "windows" in body
-    if body["windows"] is None:
-        assert any(w.startswith("windows:") for w in body["warnings"])
+    # The demo lasts 120 s: 60-s windows every 30 s start at 0, 30 and 60 s.
+    windows = body["windows"]
+    assert [w["start_s"] for w in windows["windows"]] == [0.0, 30.0, 60.0]
+    assert windows["window_s"] == 60.0 and windows["step_s"] == 30.0
+    names = [f["name"] for f in body["feature_vector"]["features"]]
+    for w in windows["windows"]:
+        assert w["error"] is None and 0.0 <= w["confidence"] <= 1.0
+        assert [f["name"] for f in w["feature_vector"]["features"]] == names
+        hr = {f["name"]: f["value"] for f in w["feature_vector"]["features"]}
+        # Each window's heart rate is that of the same trace: within 5 bpm of the whole.
+        assert abs(hr["heart_rate_mean_bpm"] - body["heart_rate"]["mean_bpm"]) < 5.0
+
+
+def test_windows_need_a_window_length(client, demo_body):
+    asked = {**demo_body, "options": {"include": ["windows"]}}
+    response = _post(client, asked)
+    assert response.status_code == 422
+    assert response.mimetype == "application/problem+json"
+    fields = {e["field"] for e in response.get_json()["errors"]}
+    assert "options.window_s" in fields
+
+
+def test_window_overlap_must_be_below_the_window(client, demo_body):
+    asked = {**demo_body, "options": {"include": ["windows"], "window_s": 60,
+                                      "window_overlap_s": 60}}
+    response = _post(client, asked)
+    assert response.status_code == 422
+    assert "options.window_overlap_s" in {e["field"] for e in response.get_json()["errors"]}
 
 
 def test_base64_channels_give_the_same_numbers_as_lists(client, demo_body):
