@@ -31,6 +31,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
 from features.errors import InvalidInputError
+from features.filters import bridge_masked
 from features.wavelets import WAVELET, levels_for_band, swt_component
 
 WORK_RATE_HZ = 125.0
@@ -238,7 +239,7 @@ def detect_beats(
     flags: list[str] = []
     xw, fs_w, usable_w = _to_work_rate(x, fs_hz, mask)
     levels = levels_for_band(fs_w, BEAT_BAND_HZ)
-    comp = swt_component(_bridge_masked(xw, usable_w), levels=levels, wavelet=WAVELET)
+    comp = swt_component(bridge_masked(xw, usable_w), levels=levels, wavelet=WAVELET)
     comp = _zero_masked(comp, usable_w, int(round(0.1 * fs_w)))
     scale = _robust_sd(comp[usable_w]) if usable_w.any() else 0.0
     if not np.isfinite(scale) or scale <= 0.0:
@@ -400,20 +401,6 @@ def _to_work_rate(
         bad = ndimage.binary_dilation(bad, iterations=spread)
     idx = np.minimum(np.round(np.arange(xw.size) * fs_hz / fs_w).astype(np.int64), x.size - 1)
     return xw, fs_w, ~bad[idx]
-
-
-def _bridge_masked(x: NDArray[np.float64], usable: NDArray[np.bool_]) -> NDArray[np.float64]:
-    """Replace masked samples by a straight line between the usable ones around them.
-
-    The wavelet filters then never see a movement's energy, so it cannot leak
-    into the beat-band component of the usable samples next to the mask.
-    """
-    if usable.all() or not usable.any():
-        return x
-    idx = np.arange(x.size)
-    out = x.copy()
-    out[~usable] = np.interp(idx[~usable], idx[usable], x[usable])
-    return out
 
 
 def _zero_masked(comp: NDArray[np.float64], usable: NDArray[np.bool_], widen: int) -> NDArray[

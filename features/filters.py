@@ -176,3 +176,28 @@ def apply_frequency_response(row: FloatArray, fs_hz: float,
         out = scipy.fft.irfft(spectrum, size, axis=-1)[:, guard: guard + keep]
         left = row[b - guard: b].copy() if b - guard >= a else ext[b - a: b - a + guard].copy()
         row[a:b] = out.reshape(-1)[: b - a]
+
+
+def bridge_masked(x: FloatArray, usable: NDArray[np.bool_]) -> FloatArray:
+    """Replace masked samples by a straight line between the usable ones around them.
+
+    Stages that filter or transform a trace bridge masked spans first, so that a
+    movement's energy cannot leak into the usable samples next to it. The input is
+    returned as is when every sample is usable, and zeros when none is.
+    """
+    if usable.all():
+        return x
+    idx = np.flatnonzero(usable)
+    if idx.size == 0:
+        return np.zeros_like(x)
+    out = x.copy()
+    bad = np.flatnonzero(~usable)
+    out[bad] = np.interp(bad, idx, x[idx])
+    return out
+
+
+def frozen(a: NDArray[np.floating]) -> FloatArray:
+    """A read-only float64 copy, for arrays held by frozen result dataclasses."""
+    out = np.array(a, dtype=float)
+    out.setflags(write=False)
+    return out

@@ -20,6 +20,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
 from features.errors import InvalidInputError
+from features.filters import bridge_masked, frozen
 from features.wavelets import WAVELET, detail_bands
 
 __all__ = ["MorphologyResult", "WaveLocation", "beat_morphology"]
@@ -149,10 +150,10 @@ class MorphologyResult:
     template_correlation_median: float | None = None
     jk_amplitude_cv_pct: float | None = None
     beat_times_s: NDArray[np.float64] = field(
-        default_factory=lambda: _frozen(np.empty(0)), repr=False
+        default_factory=lambda: frozen(np.empty(0)), repr=False
     )
     beat_jk_amplitudes: NDArray[np.float64] = field(
-        default_factory=lambda: _frozen(np.empty(0)), repr=False
+        default_factory=lambda: frozen(np.empty(0)), repr=False
     )
     wavelet_signature: tuple[float, ...] | None = None
     wavelet_bands_hz: tuple[tuple[float, float], ...] = ()
@@ -314,7 +315,7 @@ def beat_morphology(
         amplitude_unit=amplitude_unit,
         beats_offered=offered,
         beats_used=int(chosen.sum()),
-        template=_frozen(template),
+        template=frozen(template),
         template_fs_hz=fs,
         template_start_s=float(tau_s[0]),
         template_noise=noise,
@@ -333,8 +334,8 @@ def beat_morphology(
         j_width_ms=_j_width_ms(template, tau_s, by_name),
         template_correlation_median=r_med,
         jk_amplitude_cv_pct=cv,
-        beat_times_s=_frozen(beat_t),
-        beat_jk_amplitudes=_frozen(beat_jk),
+        beat_times_s=frozen(beat_t),
+        beat_jk_amplitudes=frozen(beat_jk),
         wavelet_signature=signature,
         wavelet_bands_hz=bands,
     )
@@ -410,25 +411,8 @@ def _validate(
             f"`min_beat_confidence` must be between 0 and 1; got {min_beat_confidence}.",
         )
     if not mask.all():
-        x = _bridge(x, mask)
+        x = bridge_masked(x, mask)
     return x, fs, beats, conf, mask
-
-
-def _bridge(x: NDArray[np.float64], mask: NDArray[np.bool_]) -> NDArray[np.float64]:
-    """Replace masked samples by linear interpolation between usable ones."""
-    idx = np.flatnonzero(mask)
-    if idx.size == 0:
-        return np.zeros_like(x)
-    out = x.copy()
-    bad = np.flatnonzero(~mask)
-    out[bad] = np.interp(bad, idx, x[idx])
-    return out
-
-
-def _frozen(a: NDArray[np.float64]) -> NDArray[np.float64]:
-    out = np.array(a, dtype=float)
-    out.setflags(write=False)
-    return out
 
 
 def _diff(a: float | None, b: float | None) -> float | None:

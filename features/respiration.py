@@ -17,6 +17,7 @@ from scipy import ndimage, stats
 from scipy import signal as sps
 
 from features.errors import InvalidInputError
+from features.filters import bridge_masked, frozen
 
 __all__ = ["RespirationResult", "breathing"]
 
@@ -85,7 +86,7 @@ class RespirationResult:
     spectral_rate_per_min: float | None = None
     breath_count: int = 0
     breath_times_s: NDArray[np.float64] = field(
-        default_factory=lambda: _frozen(np.empty(0)), repr=False
+        default_factory=lambda: frozen(np.empty(0)), repr=False
     )
     interval_sd_s: float | None = None
     interval_cv_pct: float | None = None
@@ -98,7 +99,7 @@ class RespirationResult:
     pauses_per_hour: float | None = None
     longest_pause_s: float | None = None
     breathing_signal: NDArray[np.float64] = field(
-        default_factory=lambda: _frozen(np.empty(0)), repr=False
+        default_factory=lambda: frozen(np.empty(0)), repr=False
     )
 
 
@@ -222,7 +223,7 @@ def breathing(
         return RespirationResult(
             confidence=0.0, flags=tuple(flags), source=source, breathing_fs_hz=fs_b,
             usable_duration_s=usable_s, pause_threshold_pct=thr_pct,
-            breathing_signal=_frozen(np.where(mask_b, y, np.nan)),
+            breathing_signal=frozen(np.where(mask_b, y, np.nan)),
         )
     amp = float(1.4826 * stats.median_abs_deviation(y[mask_b]))
     if amp <= 0:
@@ -276,7 +277,7 @@ def breathing(
         rate_per_min=rate,
         spectral_rate_per_min=spectral,
         breath_count=int(rises.size),
-        breath_times_s=_frozen(rises),
+        breath_times_s=frozen(rises),
         interval_sd_s=sd,
         interval_cv_pct=cv,
         rise_time_s=rise_t,
@@ -287,7 +288,7 @@ def breathing(
         pause_spans_s=tuple(spans),
         pauses_per_hour=None if noise_limited else len(spans) / (usable_s / 3600.0),
         longest_pause_s=max(durations) if durations else None,
-        breathing_signal=_frozen(np.where(mask_b, y, np.nan)),
+        breathing_signal=frozen(np.where(mask_b, y, np.nan)),
     )
 
 
@@ -359,26 +360,7 @@ def _validate(
             "pause_threshold_pct",
             f"`pause_threshold_pct` must be between 10 and 50 %; got {pause_threshold_pct}.",
         )
-    return _bridge(x, mask), fs, mask, cop, cop_fs, thr
-
-
-def _bridge(x: NDArray[np.float64], mask: NDArray[np.bool_]) -> NDArray[np.float64]:
-    """Replace masked samples by linear interpolation between usable ones."""
-    if mask.all():
-        return x
-    idx = np.flatnonzero(mask)
-    if idx.size == 0:
-        return np.zeros_like(x)
-    out = x.copy()
-    bad = np.flatnonzero(~mask)
-    out[bad] = np.interp(bad, idx, x[idx])
-    return out
-
-
-def _frozen(a: NDArray[np.float64]) -> NDArray[np.float64]:
-    out = np.array(a, dtype=float)
-    out.setflags(write=False)
-    return out
+    return bridge_masked(x, mask), fs, mask, cop, cop_fs, thr
 
 
 def _runs(flag: NDArray[np.bool_]) -> NDArray[np.int64]:
@@ -422,7 +404,7 @@ def _cop_candidates(
         m = np.isfinite(col)
         if m.sum() < 2:
             continue
-        bp, lp, fs_c, m_c = _breathing_band(_bridge(col, m), cop_fs, m)
+        bp, lp, fs_c, m_c = _breathing_band(bridge_masked(col, m), cop_fs, m)
         t_c = np.arange(bp.size) / fs_c
         near = np.clip(np.round(t_b * fs_c).astype(np.int64), 0, bp.size - 1)
         ok = np.asarray(m_c[near] & (t_b <= t_c[-1]), dtype=bool)
