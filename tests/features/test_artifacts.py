@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from synthetic_beats import ijk_train
 
 from features.artifacts import Segment, mask_artifacts
 from features.errors import InvalidInputError
@@ -14,25 +15,12 @@ DURATION_S = 300.0
 LOAD_FS = 10.0
 
 
-def _bcg(duration_s: float, fs: float, rng: np.random.Generator) -> np.ndarray:
-    """Synthetic I-J-K complex (three Gaussians) at ~60 bpm with 5 % RR jitter."""
-    n = int(duration_s * fs)
-    beats = np.cumsum(rng.normal(1.0, 0.05, int(duration_s * 2)))
-    beats = beats[beats < duration_s - 1.0]
-    imp = np.zeros(n)
-    imp[(beats * fs).astype(int)] = 1.0
-    kt = np.arange(-0.3, 0.3, 1.0 / fs)
-    kern = (-0.4 * np.exp(-(((kt + 0.08) / 0.03) ** 2)) + np.exp(-((kt / 0.03) ** 2))
-            - 0.6 * np.exp(-(((kt - 0.08) / 0.035) ** 2)))
-    return np.convolve(imp, kern, mode="same")
-
-
 def _record(seed: int = 0) -> tuple[np.ndarray, list[np.ndarray], np.ndarray]:
     """Fused trace, four raw load-cell traces (N) and a 10 Hz occupant load trace."""
     rng = np.random.default_rng(seed)
     n = int(DURATION_S * FS)
     t = np.arange(n) / FS
-    body = _bcg(DURATION_S, FS, rng) + 0.3 * np.sin(2 * np.pi * 0.25 * t)
+    body = ijk_train(DURATION_S, FS, rng) + 0.3 * np.sin(2 * np.pi * 0.25 * t)
     fused = body + 0.05 * rng.standard_normal(n)
     share = [0.4, 0.3, 0.2, 0.1]
     raw = [s * 75.0 * G + s * body + 0.02 * rng.standard_normal(n) for s in share]

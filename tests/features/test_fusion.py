@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from synthetic_beats import ijk_train
 
 from features.conditioning import ChannelInput, condition_channels
 from features.errors import InvalidInputError
@@ -14,17 +15,7 @@ G = 9.80665  # standard gravity, m/s^2 (NIST SP 811, 2008, B.8)
 
 
 def _bcg(duration_s: float, fs: float = FS, seed: int = 0) -> np.ndarray:
-    """Synthetic I-J-K complex (three Gaussians) at ~60 bpm with 5 % RR jitter."""
-    rng = np.random.default_rng(seed)
-    n = int(duration_s * fs)
-    beats = np.cumsum(rng.normal(1.0, 0.05, int(duration_s * 2)))
-    beats = beats[beats < duration_s - 1.0]
-    imp = np.zeros(n)
-    imp[(beats * fs).astype(int)] = 1.0
-    kt = np.arange(-0.3, 0.3, 1.0 / fs)
-    kern = (-0.4 * np.exp(-(((kt + 0.08) / 0.03) ** 2)) + np.exp(-((kt / 0.03) ** 2))
-            - 0.6 * np.exp(-(((kt - 0.08) / 0.035) ** 2)))
-    return np.convolve(imp, kern, mode="same")
+    return ijk_train(duration_s, fs, np.random.default_rng(seed))
 
 
 def test_inverted_channel_gets_negative_weight_and_noise_is_down_weighted() -> None:
