@@ -16,7 +16,7 @@ import time
 import pytest
 
 from features.simulation import SimulationSettings, simulate
-from service.loadtest import demo_mix, request, rss_kib, run_load, serve
+from service.loadtest import demo_mix, request, rss_kib, run_load, serve, warm_up
 
 #: Moderate for two shared cores: one demo analysis (2 min, 4 channels) takes ~0.35 s.
 RATE_PER_S = 3.0
@@ -60,7 +60,7 @@ def test_load_at_a_moderate_rate_gives_no_errors_and_flat_memory(tmp_path):
     with serve(tmp_path, env) as server:
         pids = server.wait_for_workers(2)
         mix = demo_mix(server.base)
-        warm = run_load(server.base, mix, rate_per_s=RATE_PER_S, duration_s=6.0)
+        warm = warm_up(server, mix, RATE_PER_S, pids)
         before = {pid: rss_kib(pid) for pid in pids}
         report = run_load(server.base, mix, rate_per_s=RATE_PER_S, duration_s=LOAD_S)
         after = {pid: rss_kib(pid) for pid in server.workers()}
