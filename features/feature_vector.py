@@ -252,9 +252,9 @@ def _var(name: str, block: str, attr: str, unit: str | None, text: str,
 
 def _morph(name: str, attr: str, unit: str | None, text: str,
            rng: tuple[float | None, float | None], waves: tuple[str, ...],
-           ref: str = _INAN) -> FeatureDefinition:
+           ref: str = _INAN, conf: str = "confidence") -> FeatureDefinition:
     return FeatureDefinition(name, "morphology", unit, text, rng, ref, f"{_MO}.{attr}",
-                             f"{_MO}.confidence", waves, (f"{_MO}.flags",))
+                             f"{_MO}.{conf}", waves, (f"{_MO}.flags",))
 
 
 def _resp(name: str, attr: str, unit: str | None, text: str,
@@ -318,10 +318,12 @@ FEATURES: tuple[FeatureDefinition, ...] = (
          "NN series.", (None, None), _PENG),
     _morph("ij_interval_ms", "ij_interval_ms", "ms",
            "Time from the I-wave minimum to the J-wave maximum of the beat-ensemble template.",
-           (24.0, 166.0), ("I", "J")),
+           (24.0, 166.0), ("I", "J"),
+           conf="ij_interval_confidence"),
     _morph("jk_interval_ms", "jk_interval_ms", "ms",
            "Time from the J-wave maximum to the K-wave minimum of the template.",
-           (24.0, 216.0), ("J", "K")),
+           (24.0, 216.0), ("J", "K"),
+           conf="jk_interval_confidence"),
     _morph("ik_interval_ms", "ik_interval_ms", "ms",
            "Time from the I-wave minimum to the K-wave minimum of the template.",
            (48.0, 382.0), ("I", "J", "K")),
@@ -333,16 +335,20 @@ FEATURES: tuple[FeatureDefinition, ...] = (
            "extrema.", (0.0, 382.0), ("I", "J", "K")),
     _morph("ij_amplitude", "ij_amplitude", AMPLITUDE_UNIT,
            "Peak-to-peak amplitude J minus I of the template, in the input's amplitude unit.",
-           (0.0, None), ("I", "J")),
+           (0.0, None), ("I", "J"),
+           conf="ij_amplitude_confidence"),
     _morph("jk_amplitude", "jk_amplitude", AMPLITUDE_UNIT,
            "Peak-to-peak amplitude J minus K of the template, in the input's amplitude unit.",
-           (0.0, None), ("J", "K")),
+           (0.0, None), ("J", "K"),
+           conf="jk_amplitude_confidence"),
     _morph("ij_amplitude_per_kg", "ij_amplitude_per_kg", AMPLITUDE_UNIT + "/kg",
            "ij_amplitude divided by the body mass (stated, else the measured load); None "
-           "without a mass.", (0.0, None), ("I", "J")),
+           "without a mass.", (0.0, None), ("I", "J"),
+           conf="ij_amplitude_confidence"),
     _morph("jk_amplitude_per_kg", "jk_amplitude_per_kg", AMPLITUDE_UNIT + "/kg",
            "jk_amplitude divided by the body mass (stated, else the measured load); None "
-           "without a mass.", (0.0, None), ("J", "K")),
+           "without a mass.", (0.0, None), ("J", "K"),
+           conf="jk_amplitude_confidence"),
     _morph("template_correlation", "template_correlation_median", None,
            "Median Pearson correlation of the template beats with the template.",
            (-1.0, 1.0), (), _OURS),

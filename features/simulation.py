@@ -243,7 +243,13 @@ class SimulationTruth:
     rsa_depth_ms, sv_modulation : float
         Settings used (peak-to-trough RSA in ms, fractional SV modulation amplitude).
     template : BeatTemplate or None
-        None for an empty support.
+        Response to one isolated normal beat at the mean rate; None for an empty support.
+    ensemble_template : BeatTemplate or None
+        Mean of the noise-free cardiac component over the normal beats, aligned on their
+        true J instants (see Notes of :func:`simulate`, step 5): what a perfect ensemble
+        average of this recording shows. It differs from ``template`` where one beat's
+        response still rings when the next begins (a lightly damped support at a fast
+        rate); None for an empty support or with fewer than 3 normal beats.
     cardiac_signal : np.ndarray
         Noise-free cardiac component of the summed channels, recording unit, J-positive.
     blood_momentum_kg_m_s : np.ndarray
@@ -271,6 +277,7 @@ class SimulationTruth:
     rsa_depth_ms: float
     sv_modulation: float
     template: BeatTemplate | None
+    ensemble_template: BeatTemplate | None
     cardiac_signal: np.ndarray
     blood_momentum_kg_m_s: np.ndarray
     clean_channels: tuple[np.ndarray, ...]
@@ -951,6 +958,52 @@ def _label_waves(x: np.ndarray, onset_index: int, fs_hz: float) -> tuple[WaveMar
     )
 
 
+def _template_from_waves(samples: np.ndarray, fs: float, j_index: int,
+                         waves: tuple[WaveMark, ...], to_unit: float, unit: str) -> BeatTemplate:
+    w = {m.name: m for m in waves}
+    return BeatTemplate(
+        samples=samples,
+        fs_hz=fs,
+        j_index=j_index,
+        waves=tuple(WaveMark(m.name, m.time_s, m.amplitude * to_unit) for m in waves),
+        i_j_interval_ms=1e3 * (w["J"].time_s - w["I"].time_s),
+        j_k_interval_ms=1e3 * (w["K"].time_s - w["J"].time_s),
+        i_j_amplitude=(w["J"].amplitude - w["I"].amplitude) * to_unit,
+        j_k_amplitude=(w["J"].amplitude - w["K"].amplitude) * to_unit,
+        unit=unit,
+    )
+
+
+def _ensemble_template(cardiac_int: np.ndarray, fs_int: float, factor: int,
+                       j_times: np.ndarray, onsets: np.ndarray, kinds: list[str],
+                       to_unit: float,
+                       unit: str) -> BeatTemplate | None:
+    """Mean noise-free recoil over the normal beats, aligned on their true J (step 5)."""
+    pre, post = int(round(0.35 * fs_int)), int(round(0.5 * fs_int))
+    pre -= pre % factor
+    post -= post % factor
+    offsets = np.arange(-pre, post + 1) / fs_int
+    normal = np.array([k == "normal" for k in kinds], dtype=bool)
+    t_end = (cardiac_int.size - 1) / fs_int
+    ok = normal & (j_times - 0.35 >= 0.0) & (j_times + 0.5 <= t_end)
+    if int(ok.sum()) < 3:
+        return None
+    grid = np.arange(cardiac_int.size) / fs_int
+    mean = np.zeros(offsets.size)
+    for tj in j_times[ok]:
+        mean += np.interp(tj + offsets, grid, cardiac_int)
+    mean /= float(ok.sum())
+    onset_index = pre - int(round(0.2 * fs_int))  # J is searched 0.05-0.35 s after "onset"
+    waves = _label_waves(mean, onset_index, fs_int)
+    # Times from the mean ejection onset of the averaged beats, as for the isolated beat.
+    shift = float(np.mean(j_times[ok] - onsets[ok])) - next(
+        m.time_s for m in waves if m.name == "J")
+    waves = tuple(WaveMark(m.name, m.time_s + shift, m.amplitude) for m in waves)
+    fs = fs_int / factor
+    samples = _decimate(mean, factor) * to_unit
+    return _template_from_waves(samples, fs, pre // factor, waves, to_unit, unit)
+
+
 def _systole_s(rate_bpm: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Ejection time and pre-ejection period from the rate (Weissler et al. 1968, men)."""
     lvet = np.clip(0.413 - 0.0017 * rate_bpm, 0.16, 0.40)
@@ -1005,7 +1058,10 @@ def simulate(settings: SimulationSettings) -> SimulatedRecording:
        (:func:`support_response`) to give the dynamic support force.
     5. The recoil force ``f_bcg = -(F_s - M g)`` is decimated to fs with a linear-phase
        polyphase filter (no delay). Each beat's J time is the local maximum of the noise-free
-       internal-rate recoil near the template J, refined by a parabola (sub-sample).
+       internal-rate recoil near the template J, refined by a parabola (sub-sample). The
+       ensemble template is the mean over normal beats of the noise-free internal-rate recoil
+       read at J - 0.35 s ... J + 0.5 s (linear interpolation on the >= 2 kHz grid), with
+       its waves labelled by the same rule as the isolated template.
     6. Static load ``M g`` (g = 9.80665 m/s^2) split among cells by the lever rule at the
        centre of pressure, which sways fore-aft with breathing; a respiratory force
        ``respiration_force_n`` peak-to-peak follows lung volume on the summed load.
@@ -1083,18 +1139,7 @@ def simulate(settings: SimulationSettings) -> SimulatedRecording:
     tpl_fs = _decimate(tpl_int, factor) * to_unit
     j_index = int(round(j_target * fs))
     lo, hi = max(0, j_index - int(0.35 * fs)), min(tpl_fs.size, j_index + int(0.5 * fs))
-    w = {m.name: m for m in waves}
-    template = BeatTemplate(
-        samples=tpl_fs[lo:hi],
-        fs_hz=fs,
-        j_index=j_index - lo,
-        waves=tuple(WaveMark(m.name, m.time_s, m.amplitude * to_unit) for m in waves),
-        i_j_interval_ms=1e3 * (w["J"].time_s - w["I"].time_s),
-        j_k_interval_ms=1e3 * (w["K"].time_s - w["J"].time_s),
-        i_j_amplitude=(w["J"].amplitude - w["I"].amplitude) * to_unit,
-        j_k_amplitude=(w["J"].amplitude - w["K"].amplitude) * to_unit,
-        unit=unit,
-    )
+    template = _template_from_waves(tpl_fs[lo:hi], fs, j_index - lo, waves, to_unit, unit)
 
     # Whole-record cardiac force.
     cardiac_int, momentum_int = recoil(onsets, volumes, lvet, n_int)
@@ -1107,6 +1152,9 @@ def simulate(settings: SimulationSettings) -> SimulatedRecording:
         else:
             j_times[k], _ = _find_peak(cardiac_int, centre - half, centre + half, fs_int, 1.0)
     keep = (j_times >= 0.0) & (j_times < s.duration_s) & occupied
+    ensemble = (_ensemble_template(cardiac_int, fs_int, factor, j_times, onsets, kinds,
+                                   to_unit, unit)
+                if occupied else None)
     cardiac = _decimate(cardiac_int, factor) * to_unit
     momentum = _decimate(momentum_int, factor)
     if not occupied:
@@ -1236,6 +1284,7 @@ def simulate(settings: SimulationSettings) -> SimulatedRecording:
         rsa_depth_ms=s.rsa_depth_ms,
         sv_modulation=s.sv_modulation,
         template=template if occupied else None,
+        ensemble_template=ensemble,
         cardiac_signal=cardiac,
         blood_momentum_kg_m_s=momentum,
         clean_channels=tuple(clean),

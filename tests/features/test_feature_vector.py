@@ -25,6 +25,8 @@ from features.simulation import SimulationSettings, SimulationTruth, simulate
 # fingerprint here: an old version must never name a different catalogue.
 KNOWN_CATALOGUES = {
     "1": "685e2aa15a0118e023edef148b73f06951eddf96cb32a3aeffe087e4e26d991c",
+    # 2: I-J / J-K interval and amplitude confidences include their split-ensemble precision.
+    "2": "2c971e440e0bae534f73c73a10dd31895faae38508e790c39606b9cf6c35e37d",
 }
 
 # UCUM symbols for the unit suffixes (Unified Code for Units of Measure, ucum.org; from

@@ -228,23 +228,74 @@ def test_masked_artifacts_do_not_reach_the_template():
 
 
 def test_simulated_recordings_match_the_noise_free_template():
-    # Truth: features.simulation's noise-free BeatTemplate of each recording (I-J, J-K
-    # intervals and amplitudes). Acceptance from the project brief: intervals within 10 ms,
-    # amplitudes within 15 %. Default 180-s recording at the default 10 dB SNR. The "ringing"
-    # support is left out: there each beat rides on the previous beat's ringing, so the
-    # ensemble average is not the single-beat response the simulator labels.
+    # Truth: features.simulation's noise-free ensemble template of each recording (mean of
+    # the noise-free cardiac component over its normal beats at their true J). Acceptance
+    # from the project brief: intervals within 10 ms, amplitudes within 15 %. Default
+    # 180-s recording at the default 10 dB SNR, on every support preset including the
+    # lightly damped "ringing" one, where each beat rides on the previous beat's ringing.
     from features.simulation import SimulationSettings, simulate
 
-    for seed, support in ((1, "cushion"), (2, "firm"), (3, "rigid")):
+    for seed, support in ((1, "cushion"), (2, "firm"), (3, "rigid"), (4, "ringing")):
         rec = simulate(SimulationSettings(seed=seed, support=support))
         x = np.sum(rec.channels, axis=0)
-        truth = rec.truth.template
+        truth = rec.truth.ensemble_template
         r = beat_morphology(x - np.median(x), rec.fs_hz, rec.truth.j_times_s,
                             body_mass_kg=rec.truth.body_mass_kg)
         assert r.ij_interval_ms == pytest.approx(truth.i_j_interval_ms, abs=10.0), support
         assert r.jk_interval_ms == pytest.approx(truth.j_k_interval_ms, abs=10.0), support
         assert r.ij_amplitude == pytest.approx(truth.i_j_amplitude, rel=0.15), support
         assert r.jk_amplitude == pytest.approx(truth.j_k_amplitude, rel=0.15), support
+
+
+def _mean_se(noise: float, duration_s: float, seeds=range(4)) -> dict[str, float]:
+    out: dict[str, list[float]] = {"ij": [], "jk": [], "jka": []}
+    for seed in seeds:
+        x, beats = recording(250.0, duration_s=duration_s, noise=noise, rr_jitter_s=0.03,
+                             seed=100 + seed)
+        r = beat_morphology(x, 250.0, beats)
+        out["ij"].append(r.ij_interval_se_ms)
+        out["jk"].append(r.jk_interval_se_ms)
+        out["jka"].append(r.jk_amplitude_se)
+    return {k: float(np.mean(v)) for k, v in out.items()}
+
+
+def test_split_ensemble_standard_error_follows_the_standard_error_of_a_mean():
+    # Textbook statistics: the standard error of an average of n beats with independent
+    # noise falls as 1/sqrt(n) and grows in proportion to the noise SD. Four times the
+    # beats should halve it and four times the noise should multiply it by about four;
+    # the bounds allow for the spread of a 6-group estimate averaged over 4 seeds.
+    short, long = _mean_se(0.3, 60.0), _mean_se(0.3, 240.0)
+    for key in short:
+        assert 1.3 < short[key] / long[key] < 3.2, (key, short[key], long[key])
+    quiet, loud = _mean_se(0.1, 120.0), _mean_se(0.4, 120.0)
+    for key in quiet:
+        assert 2.0 < loud[key] / quiet[key] < 8.0, (key, quiet[key], loud[key])
+
+
+def test_measure_confidences_fall_with_noise_and_stay_within_the_family_confidence():
+    x1, b1 = recording(250.0, noise=0.03, seed=11)
+    x2, b2 = recording(250.0, noise=0.5, seed=11)
+    quiet, loud = beat_morphology(x1, 250.0, b1), beat_morphology(x2, 250.0, b2)
+    for name in ("ij_interval", "jk_interval", "ij_amplitude", "jk_amplitude"):
+        cq, cl = getattr(quiet, f"{name}_confidence"), getattr(loud, f"{name}_confidence")
+        assert 0.0 <= cl < cq <= quiet.confidence, name
+        assert cl <= loud.confidence, name
+
+
+def test_broad_trough_under_heavy_noise_is_placed_near_its_true_time():
+    # Known answer (scipy.optimize on the analytic formula): a broad, shallow I wave
+    # (40 ms SD instead of 15 ms) under noise of 60 % of the I depth per sample; 120 beats.
+    # Without the 25 Hz low-pass of the template the trough is placed by the residual
+    # noise (several ms off); with it the I-J interval stays within 4 ms.
+    waves = {**WAVES, "I": (-0.085, -0.45, 0.04)}
+    truth = analytic_extrema(waves)
+    errors = []
+    for seed in range(5):
+        x, beats = recording(250.0, duration_s=120.0, noise=0.27, seed=200 + seed,
+                             waves=waves)
+        r = beat_morphology(x, 250.0, beats)
+        errors.append(r.ij_interval_ms - 1e3 * (truth["J"][0] - truth["I"][0]))
+    assert np.max(np.abs(errors)) < 4.0, errors
 
 
 # --------------------------------------------------------------------------- errors

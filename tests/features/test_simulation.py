@@ -192,6 +192,25 @@ def test_j_wave_timing_and_dominance() -> None:
         assert amps["J"] > amps["H"] and amps["J"] > amps["L"]
 
 
+def test_ensemble_template_is_the_isolated_beat_unless_responses_overlap() -> None:
+    # A damped oscillator's response decays as exp(-zeta * omega_n * t) (textbook
+    # mechanics). Cushion (zeta 0.35, f_n 9 Hz): after one beat period at 68 bpm it has
+    # decayed to exp(-0.35 * 2 pi 9 * 0.88) ~ 3e-8, so the average of successive beats is
+    # the single-beat response. Ringing (zeta 0.07, f_n 6 Hz) at 100 bpm: exp(-0.07 *
+    # 2 pi 6 * 0.6) ~ 0.2 of the previous beat is still there, so the averaged waves move.
+    calm = simulate(_quiet(support="cushion"))
+    iso, ens = calm.truth.template, calm.truth.ensemble_template
+    assert ens is not None and iso is not None
+    assert ens.i_j_interval_ms == pytest.approx(iso.i_j_interval_ms, abs=1.0)
+    assert ens.j_k_interval_ms == pytest.approx(iso.j_k_interval_ms, abs=1.0)
+    assert ens.j_k_amplitude == pytest.approx(iso.j_k_amplitude, rel=0.02)
+    ringing = simulate(_quiet(support="ringing", heart_rate_bpm=100.0))
+    iso, ens = ringing.truth.template, ringing.truth.ensemble_template
+    assert ens is not None and iso is not None
+    assert abs(ens.i_j_interval_ms - iso.i_j_interval_ms) > 5.0
+    assert [w.name for w in ens.waves] == ["H", "I", "J", "K", "L"]
+
+
 def test_j_times_are_sub_sample_local_maxima() -> None:
     # Truth J of each beat: the local maximum of the noise-free recoil (definition above);
     # at 100 Hz the sample nearest each J must be a local maximum of the clean trace.
