@@ -75,6 +75,9 @@ def test_base64_is_little_endian():
         (base64.b64encode(b"\x00" * 3).decode(), "int16", "multiple of 2 bytes"),
         ("", "float64", "at least one sample"),
         (base64.b64encode(np.array([np.nan], "<f8").tobytes()).decode(), "float64", "finite"),
+        # IEEE 754 binary32 signalling NaN 0x7F800001 (exponent all ones, quiet bit clear):
+        # widening it to float64 makes numpy warn; it must still be a plain "finite" error.
+        (base64.b64encode(bytes([0x01, 0x00, 0x80, 0x7F])).decode(), "float32", "finite"),
     ],
 )
 def test_base64_errors(text, dtype, fragment):
