@@ -65,6 +65,10 @@ irregular rhythm (atrial-fibrillation-like intervals) decorrelates the envelope
 to about 0.2, and then the period would only mislead the refractory period and
 the heart-rate cross-check.
 """
+TREND_MIN_BEATS = 30
+"""Fewest beats with a preceding interval from which the J-timing trend is fitted."""
+TREND_Z = 2.0
+"""The trend is removed only when its slope is this many standard errors from zero."""
 
 #: Samples per block of the envelope autocorrelation, and blocks per FFT batch.
 _AC_BLOCK = 8192
@@ -218,7 +222,17 @@ def detect_beats(
        when the correlation of the template's core (``CORE_WINDOW_S``) reaches
        ``CORE_ACCEPT`` (a beat closely followed by the next shares the long
        window with it), and their amplitude a quarter of the median. J times are refined by
-       parabolic interpolation of the correlation peak (sub-sample).
+       parabolic interpolation of the correlation peak (sub-sample). The template match
+       times the complex as a whole; when the beat's shape changes with its filling time
+       (a short preceding interval shortens ejection, so the J wave moves within the
+       complex, as in irregular rhythm and after ectopic beats), that time drifts from the
+       J peak. So, after steps 7 and 8, the offset of each beat's J peak (3-point parabola
+       within +/-2 working samples on the component) from its matched time is regressed on
+       the beat's preceding interval (same run, at most the longest plausible period) by
+       least squares over all beats (at least 30); when the slope is at least 2 standard
+       errors from zero, the fitted trend (slope x (preceding interval - its mean)) is
+       added to every beat with a preceding interval (flag). Only the trend is used, never
+       the per-beat peak, whose noise the template match exists to avoid.
     7. Extra beats: a beat that splits one interval into two short ones
        (summing to under 1.3 local medians) goes when its match score is
        weak (under 0.75 of the median). Missed beats: where an interval is 1.6 or more local
@@ -316,15 +330,18 @@ def detect_beats(
     inside = _complex_usable(beats, usable_w, fs_w)
     beats = beats[inside]
 
+    seg = np.cumsum(~usable_w)
+    run_ids = seg[beats].astype(np.int64)
     offset = _parabolic_offset(corr, beats)
+    offset, trend = _preceding_interval_trend(comp, beats, offset, run_ids, fs_w, max_period)
+    if trend is not None:
+        flags.append("j_timing_trend_with_preceding_interval_removed")
     times = (beats + offset) / fs_w
     r = corr[beats]
     a = amp[beats] * scale
     conf = np.clip((r - 0.2) / 0.7, 0.0, 1.0) * np.clip(a / (0.5 * amp_ref * scale), 0.0, 1.0)
     if not has_beats:
         conf = conf * 0.0
-    seg = np.cumsum(~usable_w)
-    run_ids = seg[beats].astype(np.int64)
     return BeatDetection(
         times_s=times.astype(np.float64),
         confidence=conf.astype(np.float64),
@@ -688,6 +705,54 @@ def _complex_usable(beats: NDArray[np.intp], usable: NDArray[np.bool_], fs: floa
     hi_c = np.clip(beats + after + 1, 0, usable.size)
     ok: NDArray[np.bool_] = (bad_c[hi_c] - bad_c[lo_c]) == 0
     return ok
+
+
+def _preceding_interval_trend(
+    comp: NDArray[np.float64],
+    beats: NDArray[np.intp],
+    offset: NDArray[np.float64],
+    run_ids: NDArray[np.int64],
+    fs_w: float,
+    max_period_s: float,
+) -> tuple[NDArray[np.float64], float | None]:
+    """Remove the trend of (J peak - matched time) with the preceding interval (step 6).
+
+    Returns the corrected offsets (samples) and the slope (s of J shift per s of
+    preceding interval), or the offsets unchanged and None when no significant trend.
+    """
+    n = beats.size
+    t = (beats + offset) / fs_w
+    prev = np.full(n, np.nan)
+    if n > 1:
+        same = run_ids[1:] == run_ids[:-1]
+        gaps = np.diff(t)
+        prev[1:] = np.where(same & (gaps <= max_period_s), gaps, np.nan)
+    w = np.arange(-2, 3)
+    inside = (beats >= 3) & (beats < comp.size - 3)
+    seg = comp[np.clip(beats[:, None] + w[None, :], 0, comp.size - 1)]
+    k = np.argmax(seg, axis=1)
+    rows = np.arange(n)
+    y0 = seg[rows, np.clip(k - 1, 0, w.size - 1)]
+    y1 = seg[rows, k]
+    y2 = seg[rows, np.clip(k + 1, 0, w.size - 1)]
+    den = y0 - 2.0 * y1 + y2
+    good = inside & (k > 0) & (k < w.size - 1) & (den < 0) & np.isfinite(prev)
+    if int(good.sum()) < TREND_MIN_BEATS:
+        return offset, None
+    j_peak = w[k[good]] + 0.5 * (y0[good] - y2[good]) / den[good]
+    x = prev[good]
+    y = (j_peak - offset[good]) / fs_w
+    xm, ym = float(x.mean()), float(y.mean())
+    sxx = float(np.sum((x - xm) ** 2))
+    if sxx <= 0.0:
+        return offset, None
+    slope = float(np.sum((x - xm) * (y - ym)) / sxx)
+    resid = y - ym - slope * (x - xm)
+    se = float(np.sqrt(np.sum(resid**2) / (x.size - 2) / sxx))
+    if not abs(slope) >= TREND_Z * se:
+        return offset, None
+    shift = slope * np.where(np.isfinite(prev), prev - xm, 0.0)
+    return offset + shift * fs_w, slope
 
 
 def _parabolic_offset(y: NDArray[np.float64], idx: NDArray[np.intp]) -> NDArray[np.float64]:
