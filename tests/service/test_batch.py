@@ -78,7 +78,7 @@ def test_dask_cluster_of_two_processes_gives_the_same_table(study, tmp_path):
     local, remote = tmp_path / "local.parquet", tmp_path / "dask.parquet"
     run_batch([folder], local, form={}, progress=False)
     with LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                      dashboard_address=None, silence_logs=50) as cluster:
+                      dashboard_address=":0", silence_logs=50) as cluster:
         summary = run_batch([folder], remote, form={}, scheduler=cluster.scheduler_address,
                             progress=False)
         workers = len(cluster.workers)
