@@ -10,6 +10,7 @@ beat_morphology
 
 from __future__ import annotations
 
+import functools
 import warnings
 from dataclasses import dataclass, field
 from fractions import Fraction
@@ -534,13 +535,19 @@ def _parabola_rows(
     """
     kc = np.clip(k, h, y.shape[1] - 1 - h)
     u = np.arange(-h, h + 1)
-    design = np.column_stack((np.ones(u.size), u, u**2)).astype(float)
     seg = y[np.arange(y.shape[0])[:, None], kc[:, None] + u[None, :]]
-    a, b, c = np.linalg.pinv(design) @ seg.T
+    a, b, c = _parabola_solver(h) @ seg.T
     good = c < 0
     d = np.where(good, np.clip(-b / (2.0 * np.where(good, c, -1.0)), -h, h), 0.0)
     value = np.where(good, a + b * d + c * d**2, seg[:, h])
     return np.asarray((kc - k) + d, dtype=float), np.asarray(value, dtype=float)
+
+
+@functools.lru_cache(maxsize=16)
+def _parabola_solver(h: int) -> NDArray[np.float64]:
+    """Least-squares solver (pseudo-inverse, read-only) of a parabola on offsets -h..h."""
+    u = np.arange(-h, h + 1)
+    return frozen(np.linalg.pinv(np.column_stack((np.ones(u.size), u, u**2)).astype(float)))
 
 
 def _fit_half_width(fs: float) -> int:
@@ -588,14 +595,15 @@ def _locate_waves(
 
 
 def _wave_view(template: NDArray[np.float64], fs: float) -> NDArray[np.float64]:
-    """The template as the waves are located on: low-passed at 25 Hz (Notes, step 4)."""
+    """The template (or rows of templates) low-passed at 25 Hz, as waves are located on."""
     if WAVE_LOWPASS_HZ >= 0.45 * fs:
         return template
-    return lowpass(template, fs, WAVE_LOWPASS_HZ, order=2)
+    return lowpass(template, fs, WAVE_LOWPASS_HZ, order=2, axis=-1)
 
 
 def _wave_times_values(located: NDArray[np.float64], tau_s: NDArray[np.float64], fs: float,
-                       raw: NDArray[np.float64]) -> dict[str, tuple[int, float, float]]:
+                       raw: NDArray[np.float64],
+                       names: str = "HIJKL") -> dict[str, tuple[int, float, float]]:
     """Sample index, time (s) and value of each wave found by the rules of step 4.
 
     Index and time come from ``located`` (the low-passed template), the value from the
@@ -603,7 +611,7 @@ def _wave_times_values(located: NDArray[np.float64], tau_s: NDArray[np.float64],
     """
     found: dict[str, tuple[int, float, float]] = {}
     for name, sign, anchor, lo, hi in _WAVE_RULES:
-        if anchor is not None and anchor not in found:
+        if name not in names or (anchor is not None and anchor not in found):
             continue
         t0 = 0.0 if anchor is None else found[anchor][1]
         i = _extremum(located, tau_s, t0 + lo, t0 + hi, sign)
@@ -622,9 +630,10 @@ def _split_standard_errors(epochs: NDArray[np.float64], tau_s: NDArray[np.float6
     n = epochs.shape[0]
     k = max(2, min(SPLIT_GROUPS, n // 5))
     rows: list[tuple[float, float, float, float]] = []
-    for g in range(k):
-        part, _ = _robust_template(epochs[g::k])
-        w = _wave_times_values(_wave_view(part, fs), tau_s, fs, part)
+    parts = np.array([_trimmed_mean(epochs[g::k]) for g in range(k)])
+    views = _wave_view(parts, fs)
+    for part, view in zip(parts, views, strict=True):
+        w = _wave_times_values(view, tau_s, fs, part, names="IJK")
         if not {"I", "J", "K"} <= set(w):
             return dict.fromkeys(("ij_interval", "jk_interval", "ij_amplitude",
                                   "jk_amplitude"))
@@ -663,6 +672,15 @@ def _location_sd_ms(epochs: NDArray[np.float64], i: int, sign: int, fs: float) -
     off, _ = _beat_extrema(epochs, i, sign, fs)
     med = np.median(off)
     return float(1e3 * 1.4826 * np.median(np.abs(off - med)) / fs)
+
+
+def _trimmed_mean(epochs: NDArray[np.float64]) -> NDArray[np.float64]:
+    """20 % trimmed mean over beats minus its median (the template of step 3, no noise)."""
+    n = epochs.shape[0]
+    cut = int(_TRIM_PROPORTION * n)
+    part = np.partition(epochs, sorted({cut, n - cut - 1}), axis=0)
+    template = part[cut : n - cut].mean(axis=0)
+    return np.asarray(template - np.median(template), dtype=float)
 
 
 def _robust_template(epochs: NDArray[np.float64]) -> tuple[NDArray[np.float64], float]:
