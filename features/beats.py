@@ -284,10 +284,14 @@ def detect_beats(
         flags.append("no_repeating_beat_waveform")
     reach_j = int(round(0.15 * fs_w))
     template = _recentre(polarity * mean_epoch, half[0], reach_j)
+    # Running sums of the component and its square, shared by every match below
+    # (a sign flip only negates the first).
+    sums = (np.concatenate(([0.0], np.cumsum(comp))),
+            np.concatenate(([0.0], np.cumsum(comp * comp))), 1)
     for attempt in range(2):
         signed = comp * polarity
         for _ in range(2):
-            corr, amp = _match(signed, template, half[0])
+            corr, amp = _match(signed, template, half[0], sums=_signed_sums(sums, polarity))
             cand, _ = signal.find_peaks(corr, distance=dist, height=0.2)
             cand = cand[(cand >= half[0]) & (cand < comp.size - half[1])]
             if cand.size < 4:
@@ -306,7 +310,8 @@ def detect_beats(
         break
     comp = signed
 
-    corr, amp = _match(comp, template, half[0])
+    sums = _signed_sums(sums, polarity)
+    corr, amp = _match(comp, template, half[0], sums=sums)
     cand, _ = signal.find_peaks(corr, distance=dist, height=0.2)
     cand = cand[(cand >= 1) & (cand < comp.size - 1)]
     n_candidates = int(cand.size)
@@ -318,7 +323,7 @@ def detect_beats(
     # template window with it; judge it again on the core of the complex alone.
     core = (half[0] - int(round(CORE_WINDOW_S[0] * fs_w)),
             half[0] + int(round(CORE_WINDOW_S[1] * fs_w)) + 1)
-    corr_core, _ = _match(comp, template[core[0]:core[1]], half[0] - core[0])
+    corr_core, _ = _match(comp, template[core[0]:core[1]], half[0] - core[0], sums=sums)
     matched = (corr[cand] >= accept) | (corr_core[cand] >= max(accept, CORE_ACCEPT))
     keep = matched & (amp[cand] >= 0.25 * amp_ref)
     beats = cand[keep]
@@ -548,12 +553,21 @@ def _recentre(template: NDArray[np.float64], centre: int, reach: int) -> NDArray
     return out
 
 
-def _match(comp: NDArray[np.float64], template: NDArray[np.float64], centre: int) -> tuple[
+def _signed_sums(sums: tuple[NDArray[np.float64], NDArray[np.float64], int],
+                 polarity: int) -> tuple[NDArray[np.float64], NDArray[np.float64], int]:
+    """Running sums of ``polarity`` times the component they were taken of."""
+    c1, c2, sign = sums
+    return (c1 if sign == polarity else -c1), c2, polarity
+
+
+def _match(comp: NDArray[np.float64], template: NDArray[np.float64], centre: int, *,
+           sums: tuple[NDArray[np.float64], NDArray[np.float64], int]) -> tuple[
         NDArray[np.float64], NDArray[np.float64]]:
     """Normalised cross-correlation and template amplitude at every sample.
 
     Index ``i`` of both outputs describes the template placed with its sample
-    ``centre`` (the J wave) on sample ``i`` of ``comp``.
+    ``centre`` (the J wave) on sample ``i`` of ``comp``. ``sums`` holds the running
+    sums of ``comp`` and of its square (with a leading 0) and the sign they carry.
     """
     t = template - template.mean()
     norm = np.sqrt(np.sum(t * t))
@@ -566,8 +580,7 @@ def _match(comp: NDArray[np.float64], template: NDArray[np.float64], centre: int
     first = m - 1 - centre
     num = full[first : first + n]
     # Running sums over the same window as the correlation.
-    c1 = np.concatenate(([0.0], np.cumsum(comp)))
-    c2 = np.concatenate(([0.0], np.cumsum(comp * comp)))
+    c1, c2, _ = sums
     s1 = _window_sums(c1, centre, m)
     s2 = _window_sums(c2, centre, m)
     var = s2 - s1 * s1 / m
