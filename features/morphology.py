@@ -34,6 +34,9 @@ MIN_TEMPLATE_BEATS = 10
 """Fewest confident, fully usable beats from which a template is built."""
 SIGNATURE_FS_HZ = 250.0
 """Reference rate the template is resampled to before the wavelet signature (Hz)."""
+ANALYSIS_FS_HZ = 250.0
+"""Traces sampled at twice this rate or more are decimated by an integer factor to at least
+this rate before the epochs are read (Hz)."""
 SIGNATURE_WAVELET = WAVELET
 SIGNATURE_LEVELS = 6
 WAVE_LOWPASS_HZ = 25.0
@@ -239,7 +242,12 @@ def beat_morphology(
 
     Notes
     -----
-    1. Epochs run from J - 0.35 s to J + 0.45 s on a grid of 1/fs_hz steps. The beat times
+    1. A trace sampled at 500 Hz or more is first decimated by the integer factor
+       q = floor(fs_hz / 250) (``scipy.signal.resample_poly``, linear-phase anti-alias FIR,
+       no delay), so epochs are read at 250-499 Hz: the recoil waves carry their energy
+       below about 25 Hz and the wavelet signature below is computed at 250 Hz anyway;
+       ``template_fs_hz`` reports the rate used. Epochs run from J - 0.35 s to J + 0.45 s
+       on a grid of one sample at that rate. The beat times
        are sub-sample, so each epoch is read from the cubic B-spline interpolant of the trace
        (``scipy.ndimage.map_coordinates``, order 3), which aligns all beats on J exactly.
        Masked samples are bridged linearly before the spline is built; a beat is used only
@@ -327,6 +335,7 @@ def beat_morphology(
         )
     flags: list[str] = []
     offered = int(beats.size)
+    x, fs, mask = _to_analysis_rate(x, fs, mask)
     epochs, inside = _epochs(x, fs, beats, mask)
     chosen = inside & (conf >= min_beat_confidence)
     if int(chosen.sum()) < MIN_TEMPLATE_BEATS:
@@ -475,6 +484,23 @@ def _validate(
     if not mask.all():
         x = bridge_masked(x, mask)
     return x, fs, beats, conf, mask
+
+
+def _to_analysis_rate(
+    x: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]
+) -> tuple[NDArray[np.float64], float, NDArray[np.bool_]]:
+    """Decimate by q = floor(fs / 250) when q >= 2 (Notes, step 1); a decimated sample is
+    usable when all q source samples are."""
+    q = int(fs // ANALYSIS_FS_HZ)
+    if q < 2:
+        return x, fs, mask
+    y = np.asarray(signal.resample_poly(x, 1, q), dtype=float)
+    n_full = x.size // q
+    ok = np.ones(y.size, dtype=bool)
+    ok[:n_full] = mask[: n_full * q].reshape(n_full, q).all(axis=1)
+    if y.size > n_full:
+        ok[n_full:] = mask[n_full * q :].all()
+    return y, fs / q, ok
 
 
 def _diff(a: float | None, b: float | None) -> float | None:
