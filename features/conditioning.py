@@ -17,7 +17,6 @@ from typing import Literal
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
-from scipy import signal
 
 from features.errors import InvalidInputError
 from features.filters import (
@@ -30,6 +29,7 @@ from features.filters import (
     raised_cosine_notches,
     subtract_block_series,
 )
+from features.spectral import welch_spectra
 
 #: Standard acceleration of gravity, m/s^2 (3rd CGPM, 1901; NIST SP 811, 2008, B.8).
 STANDARD_GRAVITY_M_S2 = 9.80665
@@ -579,7 +579,10 @@ def _hum_ratio(x: NDArray[np.generic], fs: float, mains: int) -> float:
     count = min(16, x.shape[0] // seg)
     starts = np.linspace(0, x.shape[0] - seg, count).astype(np.int64)
     segments = np.stack([np.asarray(x[s:s + seg], dtype=np.float64) for s in starts])
-    freqs, psd = signal.periodogram(segments, fs=fs, window="hann", detrend="constant", axis=-1)
+    # the periodogram of scipy.signal.periodogram(segments, fs=fs, window="hann",
+    # detrend="constant", axis=-1), one row per segment
+    est = welch_spectra(segments, fs, segment_n=seg, overlap_n=0)
+    freqs, psd = est.frequencies_hz, est.psd_x
     mean_psd = psd.mean(axis=0)
     dist = np.abs(freqs - mains)
     peak = float(mean_psd[dist <= 0.5].max())

@@ -14,6 +14,7 @@ linear (or ``n log n`` for the FFT) and the memory at a few copies of one channe
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Callable
 
 import numpy as np
@@ -51,6 +52,22 @@ def block_centres(m: int, factor: int) -> FloatArray:
     return np.arange(m, dtype=np.float64) * factor + (factor - 1) / 2.0
 
 
+@functools.lru_cache(maxsize=128)
+def butter_sos(order: int, cutoff_hz: float | tuple[float, float], btype: str,
+               fs_hz: float) -> FloatArray:
+    """Butterworth design in second-order sections, designed once per argument set.
+
+    The same as ``scipy.signal.butter(order, cutoff_hz, btype=btype, fs=fs_hz,
+    output="sos")`` (the call is made once and its result kept), returned read-only
+    because it is shared: pass ``sos.copy()`` to :func:`scipy.signal.sosfilt` and
+    :func:`scipy.signal.sosfiltfilt`, which need a writable array. A design costs
+    about a millisecond, and the engine asks for the same few designs many times.
+    """
+    sos = np.asarray(signal.butter(order, cutoff_hz, btype=btype, fs=fs_hz, output="sos"))
+    sos.setflags(write=False)
+    return sos
+
+
 def _padlen(n: int, fs_hz: float, cutoff_hz: float) -> int:
     # Two periods of the lowest cutoff keep the forward-backward edge transient
     # inside the padding; never more than the series allows.
@@ -66,7 +83,7 @@ def lowpass(x: NDArray[np.floating], fs_hz: float, cutoff_hz: float, *, order: i
     carries the usual edge error of any filter (a fraction of a percent of the
     in-band oscillation amplitude for the 0.05 Hz baseline).
     """
-    sos = signal.butter(order, cutoff_hz, btype="lowpass", fs=fs_hz, output="sos")
+    sos = butter_sos(order, float(cutoff_hz), "lowpass", float(fs_hz)).copy()
     n = np.shape(x)[axis]
     if n < 2:
         return np.array(x, dtype=np.float64)
@@ -78,7 +95,7 @@ def bandpass(x: NDArray[np.floating], fs_hz: float, band_hz: tuple[float, float]
              order: int = 2, axis: int = -1) -> FloatArray:
     """Zero-phase Butterworth band-pass between ``band_hz[0]`` and ``band_hz[1]``."""
     low, high = band_hz
-    sos = signal.butter(order, (low, high), btype="bandpass", fs=fs_hz, output="sos")
+    sos = butter_sos(order, (float(low), float(high)), "bandpass", float(fs_hz)).copy()
     n = np.shape(x)[axis]
     if n < 2:
         return np.zeros(np.shape(x), dtype=np.float64)
@@ -89,7 +106,7 @@ def bandpass(x: NDArray[np.floating], fs_hz: float, band_hz: tuple[float, float]
 def highpass(x: NDArray[np.floating], fs_hz: float, cutoff_hz: float, *, order: int = 2,
              axis: int = -1) -> FloatArray:
     """Zero-phase Butterworth high-pass."""
-    sos = signal.butter(order, cutoff_hz, btype="highpass", fs=fs_hz, output="sos")
+    sos = butter_sos(order, float(cutoff_hz), "highpass", float(fs_hz)).copy()
     n = np.shape(x)[axis]
     if n < 2:
         return np.zeros(np.shape(x), dtype=np.float64)

@@ -280,3 +280,17 @@ def test_invalid_input(kwargs, field, match):
     with pytest.raises(InvalidInputError, match=match) as info:
         breathing(args.pop("x"), args.pop("fs_hz"), **args)
     assert info.value.field == field
+
+
+def test_window_nanmedian_equals_numpy_nanmedian() -> None:
+    from features.respiration import _window_nanmedian
+
+    rng = np.random.default_rng(11)
+    v = rng.standard_normal(300)
+    v[rng.random(300) < 0.3] = np.nan
+    v[100:120] = np.nan  # a stretch where whole windows are empty
+    for half in (0, 1, 6):
+        # reference library: numpy.nanmedian of each window (NaN where it holds none)
+        ref = np.array([np.nanmedian(w) if np.isfinite(w).any() else np.nan
+                        for w in (v[max(0, k - half):k + half + 1] for k in range(v.size))])
+        np.testing.assert_array_equal(_window_nanmedian(v, half), ref)

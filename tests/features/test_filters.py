@@ -1,0 +1,36 @@
+"""Tests of the shared filter helpers."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.signal
+
+from features.filters import bandpass, butter_sos, lowpass
+
+
+@pytest.mark.parametrize(("order", "cutoff", "btype", "fs"),
+                         [(2, 0.05, "lowpass", 10.0), (2, (1.5, 16.0), "bandpass", 250.0),
+                          (4, (0.1, 0.7), "bandpass", 12.5), (2, 0.3, "highpass", 100.0)])
+def test_cached_design_is_scipy_butter(order: int, cutoff: float | tuple[float, float],
+                                       btype: str, fs: float) -> None:
+    # reference library: scipy.signal.butter, second-order sections
+    ref = scipy.signal.butter(order, cutoff, btype=btype, fs=fs, output="sos")
+    got = butter_sos(order, cutoff, btype, fs)
+    np.testing.assert_array_equal(got, ref)
+    assert not got.flags.writeable
+    assert butter_sos(order, cutoff, btype, fs) is got
+
+
+def test_filters_equal_scipy_sosfiltfilt_with_even_padding() -> None:
+    rng = np.random.default_rng(5)
+    x = np.cumsum(rng.standard_normal(5000))
+    # reference library: scipy.signal.sosfiltfilt with even extension (padlen as documented:
+    # two periods of the lowest cutoff)
+    sos = scipy.signal.butter(2, 0.5, btype="lowpass", fs=10.0, output="sos")
+    np.testing.assert_array_equal(
+        lowpass(x, 10.0, 0.5), scipy.signal.sosfiltfilt(sos, x, padtype="even", padlen=40))
+    sos = scipy.signal.butter(2, (1.5, 16.0), btype="bandpass", fs=250.0, output="sos")
+    np.testing.assert_array_equal(
+        bandpass(x, 250.0, (1.5, 16.0)),
+        scipy.signal.sosfiltfilt(sos, x, padtype="even", padlen=334))
