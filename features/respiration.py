@@ -9,6 +9,7 @@ breathing
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -17,7 +18,7 @@ from scipy import ndimage, stats
 from scipy import signal as sps
 
 from features.errors import InvalidInputError
-from features.filters import bridge_masked, butter_sos, frozen
+from features.filters import bridge_masked, butter_filtfilt, frozen
 from features.spectral import welch_spectra
 
 __all__ = ["RespirationResult", "breathing"]
@@ -377,6 +378,15 @@ def _runs(flag: NDArray[np.bool_]) -> NDArray[np.int64]:
 # --------------------------------------------------------------------------- kernels
 
 
+@functools.lru_cache(maxsize=16)
+def _decimation_fir(q: int) -> NDArray[np.float64]:
+    """The anti-alias FIR that ``scipy.signal.resample_poly(x, 1, q)`` designs by default
+    (``firwin(20 q + 1, 1 / q, window=("kaiser", 5.0))``), designed once per factor."""
+    h = np.asarray(sps.firwin(2 * 10 * q + 1, 1.0 / q, window=("kaiser", 5.0)))
+    h.setflags(write=False)
+    return h
+
+
 def _breathing_band(
     x: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]
 ) -> tuple[NDArray[np.float64], NDArray[np.float64], float, NDArray[np.bool_]]:
@@ -384,7 +394,7 @@ def _breathing_band(
     q = max(1, int(fs // TARGET_FS_HZ))
     x0 = x - np.median(x)
     if q > 1:
-        y = sps.resample_poly(x0, 1, q, padtype="line")
+        y = sps.resample_poly(x0, 1, q, padtype="line", window=_decimation_fir(q))
         n_b = y.size
         pad = n_b * q - mask.size
         blocks = np.concatenate((mask, np.zeros(pad, dtype=bool))).reshape(n_b, q)
@@ -394,9 +404,10 @@ def _breathing_band(
     else:
         y, mask_b = x0, mask.copy()
     fs_b = fs / q
-    band = butter_sos(4, BAND_HZ, "bandpass", float(fs_b)).copy()
-    low = butter_sos(4, BAND_HZ[1], "lowpass", float(fs_b)).copy()
-    return sps.sosfiltfilt(band, y), sps.sosfiltfilt(low, y), fs_b, mask_b
+    # scipy.signal.sosfiltfilt (odd extension, default length) of the two designs
+    band = butter_filtfilt(y, (4, BAND_HZ, "bandpass", float(fs_b)))
+    low = butter_filtfilt(y, (4, BAND_HZ[1], "lowpass", float(fs_b)))
+    return band, low, fs_b, mask_b
 
 
 def _cop_candidates(
@@ -511,18 +522,50 @@ def _rise_fall(
 ) -> tuple[float | None, float | None]:
     if valid.size == 0:
         return None, None
-    peaks, troughs = [], []
-    for a, b in zip(rise_idx[:-1], rise_idx[1:], strict=True):
-        p = a + int(np.argmax(y[a:b]))
-        peaks.append(p)
-        troughs.append(p + int(np.argmin(y[p:b])))
-    pk, tr = np.asarray(peaks), np.asarray(troughs)
+    pk, tr = _peaks_and_troughs(y, rise_idx)
     fall = (tr - pk)[valid]
     both = valid[:-1] & valid[1:]
     rise = (pk[1:] - tr[:-1])[both]
     if rise.size < 5 or fall.size < 5:
         return None, None
     return float(np.median(rise)) / fs, float(np.median(fall)) / fs
+
+
+def _segment_arg(y: NDArray[np.float64], a: NDArray[np.int64], b: NDArray[np.int64],
+                 ufunc: np.ufunc) -> NDArray[np.int64]:
+    """First index of the maximum (``np.maximum``) or minimum (``np.minimum``) of every
+    ``y[a:b]``, for disjoint ordered segments with ``a < b``: ``a + argmax(y[a:b])``."""
+    idx = np.column_stack((a, b)).ravel()
+    ext = np.append(y, 0.0)  # lets an end index equal y.size
+    best = ufunc.reduceat(ext, idx)[::2]
+    owner = np.repeat(np.arange(a.size), b - a)
+    pos = _span_positions(a, b)
+    hit = np.flatnonzero(y[pos] == best[owner])
+    first = np.searchsorted(owner[hit], np.arange(a.size))
+    return pos[hit[first]]
+
+
+def _span_positions(a: NDArray[np.int64], b: NDArray[np.int64]) -> NDArray[np.int64]:
+    """Every index of every ``[a, b)``, in order."""
+    lengths = b - a
+    starts = np.repeat(a - np.concatenate(([0], np.cumsum(lengths)[:-1])), lengths)
+    return starts + np.arange(int(lengths.sum()))
+
+
+def _peaks_and_troughs(y: NDArray[np.float64], rise_idx: NDArray[np.int64]
+                       ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """Per pair of rises: the first maximum after the earlier one, and the first minimum
+    between that maximum and the later rise (``argmax`` / ``argmin`` per breath)."""
+    a, b = rise_idx[:-1], rise_idx[1:]
+    if a.size == 0 or not np.isfinite(y[a[0]:b[-1]]).all():
+        peaks, troughs = [], []
+        for i, j in zip(a, b, strict=True):
+            p = i + int(np.argmax(y[i:j]))
+            peaks.append(p)
+            troughs.append(p + int(np.argmin(y[p:j])))
+        return np.asarray(peaks, dtype=np.int64), np.asarray(troughs, dtype=np.int64)
+    pk = _segment_arg(y, a, b, np.maximum)
+    return pk, _segment_arg(y, pk, b, np.minimum)
 
 
 def _window(period_s: float, fs: float) -> int:
