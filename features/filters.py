@@ -43,6 +43,14 @@ def block_means(x: NDArray[np.generic], factor: int) -> FloatArray:
     m = x.shape[-1] // factor
     if factor == 1:
         return np.asarray(x[..., :m], dtype=np.float64)
+    if factor < 8 and x.dtype == np.float64:
+        # numpy sums fewer than 8 numbers one after the other: the same sum, added up
+        # over strided slices instead of along a short axis (several times faster)
+        total = x[..., 0 : m * factor : factor].copy()
+        for i in range(1, factor):
+            total += x[..., i : m * factor : factor]
+        total /= factor
+        return total
     shaped = x[..., : m * factor].reshape(*x.shape[:-1], m, factor)
     return np.asarray(shaped.mean(axis=-1, dtype=np.float64))
 

@@ -58,3 +58,19 @@ def test_cached_filtfilt_refuses_a_trace_shorter_than_its_padding() -> None:
 
     with pytest.raises(ValueError, match="greater than padlen"):
         butter_filtfilt(np.zeros(20), (2, 0.5, "lowpass", 10.0), padlen=20)
+
+
+@pytest.mark.parametrize("factor", [2, 3, 7, 8, 25])
+def test_block_means_equal_numpy_mean_of_blocks(factor: int) -> None:
+    from features.filters import block_means
+
+    rng = np.random.default_rng(factor)
+    x = rng.standard_normal((3, 10_007)) * 1e3
+    m = x.shape[-1] // factor
+    # reference library: numpy.mean over the reshaped blocks (the same sums, so equal)
+    ref = x[:, : m * factor].reshape(3, m, factor).mean(axis=-1)
+    np.testing.assert_array_equal(block_means(x, factor), ref)
+    np.testing.assert_array_equal(block_means(x[0], factor), ref[0])
+    ints = rng.integers(-1000, 1000, 10_007)
+    np.testing.assert_array_equal(block_means(ints, factor),
+                                  ints[: m * factor].reshape(m, factor).mean(axis=-1))
