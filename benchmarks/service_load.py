@@ -9,9 +9,9 @@ script below gives wrk the body and prints its latency percentiles and error cou
 Nothing listens beyond loopback.
 
 :func:`request_shares` times, in-process and on the same body, the steps of one request:
-JSON parsing (``json.loads``), the request schema's load, the engine call (with
-``schemas.engine_inputs``), the response schema's dump and JSON encoding; and the whole
-request through Flask's test client.
+JSON parsing (``service.bodies.parse_json``, as the service parses), the request schema's
+load, the engine call (with ``schemas.engine_inputs``), the response schema's dump and
+JSON encoding; and the whole request through Flask's test client.
 """
 
 from __future__ import annotations
@@ -80,6 +80,7 @@ def request_shares(body: bytes, repeats: int) -> dict[str, float]:
     from schemas.requests import DEFAULT_MAX_SAMPLES, AnalysisRequestSchema
     from schemas.responses import AnalysisReport, AnalysisResponseSchema
     from service import create_app
+    from service.bodies import parse_json
 
     clock = time.perf_counter
     runs: dict[str, list[float]] = {k: [] for k in
@@ -87,7 +88,7 @@ def request_shares(body: bytes, repeats: int) -> dict[str, float]:
     client = create_app({"HEARTSWAY_LOG_LEVEL": "WARNING"}).test_client()
     for i in range(repeats + 1):
         t0 = clock()
-        data = json.loads(body)
+        data = parse_json(body)
         t1 = clock()
         req = AnalysisRequestSchema(max_samples=DEFAULT_MAX_SAMPLES).load(data)
         t2 = clock()

@@ -295,8 +295,9 @@ def _positive(field: str, value: object, *, allow_zero: bool = False) -> float:
 
 def _runs(mask: NDArray[np.bool_]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
     """Start and end (exclusive) indices of the runs of True in ``mask``."""
-    edges = np.diff(mask.astype(np.int8), prepend=np.int8(0), append=np.int8(0))
-    return np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+    padded = np.concatenate(([False], np.asarray(mask, dtype=bool), [False]))
+    change = np.flatnonzero(padded[1:] != padded[:-1])  # alternately rises and falls
+    return change[0::2], change[1::2]
 
 
 def _block_std(x: NDArray[np.generic], length: int) -> FloatArray:

@@ -17,7 +17,6 @@ from typing import Literal
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
-from scipy import signal
 
 from features.errors import InvalidInputError
 from features.filters import (
@@ -30,6 +29,7 @@ from features.filters import (
     raised_cosine_notches,
     subtract_block_series,
 )
+from features.spectral import welch_spectra
 
 #: Standard acceleration of gravity, m/s^2 (3rd CGPM, 1901; NIST SP 811, 2008, B.8).
 STANDARD_GRAVITY_M_S2 = 9.80665
@@ -558,7 +558,9 @@ def _choose_mains(arrays: list[NDArray[np.generic]], chans: list[ChannelInput], 
         if not candidates:
             flags.append("mains_detection_skipped_rate_too_low")
             return None
-        ratios = {f: max(_hum_ratio(x, fs, f) for x in arrays) for f in candidates}
+        spectra = [_hum_spectrum(x, fs) for x in arrays]  # one per channel, for both
+        ratios = {f: max(_hum_ratio_of(freqs, psd, f) for freqs, psd in spectra)
+                  for f in candidates}
         best = max(ratios, key=lambda f: ratios[f])
         if ratios[best] < MAINS_PEAK_RATIO:
             flags.append("mains_hum_not_detected")
@@ -573,14 +575,20 @@ def _choose_mains(arrays: list[NDArray[np.generic]], chans: list[ChannelInput], 
     return mains
 
 
-def _hum_ratio(x: NDArray[np.generic], fs: float, mains: int) -> float:
-    """Peak power near ``mains`` over the median power 2-5 Hz away (Hann periodograms)."""
+def _hum_spectrum(x: NDArray[np.generic], fs: float) -> tuple[FloatArray, FloatArray]:
+    """Mean Hann periodogram (0.25 Hz resolution) of up to 16 spread 4-s segments."""
     seg = int(round(4.0 * fs))
     count = min(16, x.shape[0] // seg)
     starts = np.linspace(0, x.shape[0] - seg, count).astype(np.int64)
     segments = np.stack([np.asarray(x[s:s + seg], dtype=np.float64) for s in starts])
-    freqs, psd = signal.periodogram(segments, fs=fs, window="hann", detrend="constant", axis=-1)
-    mean_psd = psd.mean(axis=0)
+    # the periodogram of scipy.signal.periodogram(segments, fs=fs, window="hann",
+    # detrend="constant", axis=-1), one row per segment
+    est = welch_spectra(segments, fs, segment_n=seg, overlap_n=0)
+    return est.frequencies_hz, est.psd_x.mean(axis=0)
+
+
+def _hum_ratio_of(freqs: FloatArray, mean_psd: FloatArray, mains: int) -> float:
+    """Peak power near ``mains`` over the median power 2-5 Hz away."""
     dist = np.abs(freqs - mains)
     peak = float(mean_psd[dist <= 0.5].max())
     floor = float(np.median(mean_psd[(dist >= 2.0) & (dist <= 5.0)]))

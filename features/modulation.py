@@ -14,10 +14,9 @@ from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
-from scipy import signal as sps
 
 from features.errors import InvalidInputError
-from features.spectral import lomb_scargle_power
+from features.spectral import lomb_scargle_power, welch_spectra
 
 __all__ = ["ModulationResult", "respiratory_modulation"]
 
@@ -168,7 +167,8 @@ def respiratory_modulation(
     6. ``coherence``: valid intervals are interpolated linearly onto a 4-Hz grid (grid points
        more than 3 s from a valid interval are unusable) and the breathing signal is
        interpolated onto the same grid; on the longest stretch usable in both,
-       ``scipy.signal.coherence`` (Hann, 32-s segments, 50 % overlap) is read at the
+       the coherence of ``scipy.signal.coherence`` (Hann, 32-s segments, 50 % overlap;
+       computed by :func:`features.spectral.welch_spectra`, same numbers) is read at the
        frequency of the breathing auto-spectrum peak within f_b +/- 0.05 Hz. Needs >= 3
        segments; confidence = min(1, segments / 10). With K segments an uncoupled pair still
        reads about 1 / K on average (estimator bias).
@@ -227,7 +227,7 @@ def respiratory_modulation(
         card = float(np.nanmedian(amps))
     baseline, c_base = None, 0.0
     if card is not None and card > 0:
-        swings = [np.nanmax(seg) - np.nanmin(seg) for seg in _cycle_segments(y, fs, starts, ends)]
+        swings = _cycle_swings(y, fs, starts, ends)
         baseline = float(np.median(swings)) / card
         c_base = min(1.0, starts.size / 10.0)
     else:
@@ -360,6 +360,28 @@ def _cycle_segments(
     return out
 
 
+def _cycle_swings(
+    y: NDArray[np.float64], fs: float, starts: NDArray[np.float64], ends: NDArray[np.float64]
+) -> NDArray[np.float64]:
+    """``nanmax - nanmin`` of each cycle's segment (:func:`_cycle_segments`), in one pass."""
+    a = np.floor(starts * fs).astype(np.int64)
+    b = np.minimum(y.size, np.ceil(ends * fs).astype(np.int64) + 1)
+    if a.size == 0 or np.any(a < 0) or np.any(b <= a):
+        return np.array([np.nanmax(seg) - np.nanmin(seg)
+                         for seg in _cycle_segments(y, fs, starts, ends)])
+    return _segment_ptp(y, a, b, np.fmax, np.fmin)
+
+
+def _segment_ptp(x: NDArray[np.float64], a: NDArray[np.int64], b: NDArray[np.int64],
+                 top: np.ufunc = np.maximum, bottom: np.ufunc = np.minimum
+                 ) -> NDArray[np.float64]:
+    """``top(x[a:b]) - bottom(x[a:b])`` per segment, ``0 <= a < b <= x.size`` (reduceat)."""
+    ext = np.append(x, 0.0)  # lets an end index equal x.size
+    idx = np.column_stack((a, b)).ravel()
+    out: NDArray[np.float64] = top.reduceat(ext, idx)[::2] - bottom.reduceat(ext, idx)[::2]
+    return out
+
+
 def _rsa(
     t: NDArray[np.float64],
     iv: NDArray[np.float64],
@@ -368,10 +390,12 @@ def _rsa(
 ) -> tuple[float | None, float]:
     lo = np.searchsorted(t, starts, side="left")
     hi = np.searchsorted(t, ends, side="left")
-    per_breath = [float(np.ptp(iv[a:b])) for a, b in zip(lo, hi, strict=True) if b - a >= 2]
-    if len(per_breath) < MIN_BREATHS:
+    two = (hi - lo) >= 2
+    # np.ptp of each breath's intervals (max - min), for breaths holding two or more
+    per_breath = _segment_ptp(iv, lo[two], hi[two])
+    if per_breath.size < MIN_BREATHS:
         return None, 0.0
-    conf = min(1.0, len(per_breath) / 20.0) * len(per_breath) / starts.size
+    conf = min(1.0, per_breath.size / 20.0) * per_breath.size / starts.size
     return float(np.median(per_breath)), float(conf)
 
 
@@ -484,11 +508,12 @@ def _coherence(
         return None, 0.0, int(k_seg), ["stretch_too_short_for_coherence"]
     if np.ptp(tach[sl]) == 0 or np.ptp(br[sl]) == 0:
         return None, 0.0, int(k_seg), ["flat_series_for_coherence"]
+    est = welch_spectra(tach[sl], RESAMPLE_FS_HZ, segment_n=nper, overlap_n=nper // 2,
+                        y=br[sl])
     with np.errstate(invalid="ignore", divide="ignore"):  # 0/0 in empty bins -> NaN, checked
-        f, cxy = sps.coherence(tach[sl], br[sl], fs=RESAMPLE_FS_HZ, window="hann",
-                               nperseg=nper, noverlap=nper // 2)
-    _, pyy = sps.welch(br[sl], fs=RESAMPLE_FS_HZ, window="hann", nperseg=nper,
-                       noverlap=nper // 2)
+        cxy = est.coherence()
+    f, pyy = est.frequencies_hz, est.psd_y
+    assert pyy is not None
     band = np.flatnonzero(np.abs(f - f_b) <= BAND_HALF_WIDTH_HZ)
     if band.size == 0:
         band = np.array([int(np.argmin(np.abs(f - f_b)))])

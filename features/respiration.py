@@ -9,6 +9,7 @@ breathing
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -17,7 +18,8 @@ from scipy import ndimage, stats
 from scipy import signal as sps
 
 from features.errors import InvalidInputError
-from features.filters import bridge_masked, frozen
+from features.filters import bridge_masked, butter_filtfilt, frozen
+from features.spectral import welch_spectra
 
 __all__ = ["RespirationResult", "breathing"]
 
@@ -208,12 +210,16 @@ def breathing(
     flags: list[str] = []
     y, y_low, fs_b, mask_b = _breathing_band(x, fs, mask)
     source = "trace"
+    # One Welch estimate of the chosen breathing signal serves the source choice, the
+    # noise test and the spectral rate.
+    psd = _welch_psd(y, fs_b, mask_b)
     if cop is not None:
-        best = _concentration(y, fs_b, mask_b)
+        best = _concentration(psd)
         for bp_c, lp_c, m_c in _cop_candidates(cop, cop_fs, y.size, fs_b):
-            c = _concentration(bp_c, fs_b, mask_b & m_c)
+            psd_c = _welch_psd(bp_c, fs_b, mask_b & m_c)
+            c = _concentration(psd_c)
             if c > best:
-                best, y, y_low, mask_b = c, bp_c, lp_c, mask_b & m_c
+                best, y, y_low, mask_b, psd = c, bp_c, lp_c, mask_b & m_c, psd_c
                 source = "centre_of_pressure"
         if source == "centre_of_pressure":
             flags.append("breathing_from_centre_of_pressure")
@@ -236,7 +242,7 @@ def breathing(
     period = float(np.median(all_iv)) if all_iv.size else _DEFAULT_PERIOD_S
     spans, pause_flags = _pauses(y_low, fs_b, mask_b, thr_pct / 100.0, period)
     flags.extend(pause_flags)
-    noise_limited = _noise_limited(y, y_low, fs_b, mask_b, thr_pct / 100.0, period)
+    noise_limited = _noise_limited(psd, y_low, fs_b, mask_b, thr_pct / 100.0, period)
     if noise_limited:
         flags.append("pause_detection_noise_limited")
         spans = []
@@ -249,7 +255,7 @@ def breathing(
         cv = 100.0 * sd / float(np.mean(intervals))
     else:
         flags.append("too_few_breaths")
-    spectral = _spectral_rate_per_min(y, fs_b, mask_b)
+    spectral = _spectral_rate_per_min(psd)
     if spectral is None:
         flags.append("no_spectral_peak")
     rise_t, fall_t = _rise_fall(y, fs_b, rise_idx, valid)
@@ -372,6 +378,15 @@ def _runs(flag: NDArray[np.bool_]) -> NDArray[np.int64]:
 # --------------------------------------------------------------------------- kernels
 
 
+@functools.lru_cache(maxsize=16)
+def _decimation_fir(q: int) -> NDArray[np.float64]:
+    """The anti-alias FIR that ``scipy.signal.resample_poly(x, 1, q)`` designs by default
+    (``firwin(20 q + 1, 1 / q, window=("kaiser", 5.0))``), designed once per factor."""
+    h = np.asarray(sps.firwin(2 * 10 * q + 1, 1.0 / q, window=("kaiser", 5.0)))
+    h.setflags(write=False)
+    return h
+
+
 def _breathing_band(
     x: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]
 ) -> tuple[NDArray[np.float64], NDArray[np.float64], float, NDArray[np.bool_]]:
@@ -379,7 +394,7 @@ def _breathing_band(
     q = max(1, int(fs // TARGET_FS_HZ))
     x0 = x - np.median(x)
     if q > 1:
-        y = sps.resample_poly(x0, 1, q, padtype="line")
+        y = sps.resample_poly(x0, 1, q, padtype="line", window=_decimation_fir(q))
         n_b = y.size
         pad = n_b * q - mask.size
         blocks = np.concatenate((mask, np.zeros(pad, dtype=bool))).reshape(n_b, q)
@@ -389,9 +404,10 @@ def _breathing_band(
     else:
         y, mask_b = x0, mask.copy()
     fs_b = fs / q
-    band = sps.butter(4, BAND_HZ, btype="bandpass", fs=fs_b, output="sos")
-    low = sps.butter(4, BAND_HZ[1], btype="lowpass", fs=fs_b, output="sos")
-    return sps.sosfiltfilt(band, y), sps.sosfiltfilt(low, y), fs_b, mask_b
+    # scipy.signal.sosfiltfilt (odd extension, default length) of the two designs
+    band = butter_filtfilt(y, (4, BAND_HZ, "bandpass", float(fs_b)))
+    low = butter_filtfilt(y, (4, BAND_HZ[1], "lowpass", float(fs_b)))
+    return band, low, fs_b, mask_b
 
 
 def _cop_candidates(
@@ -415,6 +431,7 @@ def _cop_candidates(
 def _welch_psd(
     y: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
+    """Welch PSD averaged over the usable runs (each weighted by its segment count)."""
     runs = _runs(mask)
     lengths = runs[:, 1] - runs[:, 0] if runs.size else np.empty(0, dtype=np.int64)
     if lengths.size == 0 or lengths.max() < _MIN_WELCH_RUN_S * fs:
@@ -427,8 +444,8 @@ def _welch_psd(
     for (a, b), n in zip(runs, lengths, strict=True):
         if n < nper:
             continue
-        freqs, p = sps.welch(y[a:b], fs=fs, window="hann", nperseg=nper, noverlap=nper // 2,
-                             nfft=nfft, detrend="constant")
+        est = welch_spectra(y[a:b], fs, segment_n=nper, overlap_n=nper // 2, nfft=nfft)
+        freqs, p = est.frequencies_hz, est.psd_x
         k = 1 + (n - nper) // (nper // 2)
         total = p * k if total is None else total + p * k
         weight += k
@@ -436,10 +453,11 @@ def _welch_psd(
     return freqs, total / weight
 
 
-def _spectral_rate_per_min(
-    y: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]
-) -> float | None:
-    est = _welch_psd(y, fs, mask)
+_Psd = tuple[NDArray[np.float64], NDArray[np.float64]] | None
+"""A Welch estimate from :func:`_welch_psd` (frequencies, PSD), or None."""
+
+
+def _spectral_rate_per_min(est: _Psd) -> float | None:
     if est is None:
         return None
     f, p = est
@@ -453,9 +471,8 @@ def _spectral_rate_per_min(
     return 60.0 * float(f[i] + d * (f[1] - f[0]))
 
 
-def _concentration(y: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]) -> float:
+def _concentration(est: _Psd) -> float:
     """Share of in-band Welch power within +/-0.05 Hz of the peak (0 when not estimable)."""
-    est = _welch_psd(y, fs, mask)
     if est is None:
         return 0.0
     f, p = est
@@ -505,18 +522,50 @@ def _rise_fall(
 ) -> tuple[float | None, float | None]:
     if valid.size == 0:
         return None, None
-    peaks, troughs = [], []
-    for a, b in zip(rise_idx[:-1], rise_idx[1:], strict=True):
-        p = a + int(np.argmax(y[a:b]))
-        peaks.append(p)
-        troughs.append(p + int(np.argmin(y[p:b])))
-    pk, tr = np.asarray(peaks), np.asarray(troughs)
+    pk, tr = _peaks_and_troughs(y, rise_idx)
     fall = (tr - pk)[valid]
     both = valid[:-1] & valid[1:]
     rise = (pk[1:] - tr[:-1])[both]
     if rise.size < 5 or fall.size < 5:
         return None, None
     return float(np.median(rise)) / fs, float(np.median(fall)) / fs
+
+
+def _segment_arg(y: NDArray[np.float64], a: NDArray[np.int64], b: NDArray[np.int64],
+                 ufunc: np.ufunc) -> NDArray[np.int64]:
+    """First index of the maximum (``np.maximum``) or minimum (``np.minimum``) of every
+    ``y[a:b]``, for disjoint ordered segments with ``a < b``: ``a + argmax(y[a:b])``."""
+    idx = np.column_stack((a, b)).ravel()
+    ext = np.append(y, 0.0)  # lets an end index equal y.size
+    best = ufunc.reduceat(ext, idx)[::2]
+    owner = np.repeat(np.arange(a.size), b - a)
+    pos = _span_positions(a, b)
+    hit = np.flatnonzero(y[pos] == best[owner])
+    first = np.searchsorted(owner[hit], np.arange(a.size))
+    return pos[hit[first]]
+
+
+def _span_positions(a: NDArray[np.int64], b: NDArray[np.int64]) -> NDArray[np.int64]:
+    """Every index of every ``[a, b)``, in order."""
+    lengths = b - a
+    starts = np.repeat(a - np.concatenate(([0], np.cumsum(lengths)[:-1])), lengths)
+    return starts + np.arange(int(lengths.sum()))
+
+
+def _peaks_and_troughs(y: NDArray[np.float64], rise_idx: NDArray[np.int64]
+                       ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """Per pair of rises: the first maximum after the earlier one, and the first minimum
+    between that maximum and the later rise (``argmax`` / ``argmin`` per breath)."""
+    a, b = rise_idx[:-1], rise_idx[1:]
+    if a.size == 0 or not np.isfinite(y[a[0]:b[-1]]).all():
+        peaks, troughs = [], []
+        for i, j in zip(a, b, strict=True):
+            p = i + int(np.argmax(y[i:j]))
+            peaks.append(p)
+            troughs.append(p + int(np.argmin(y[p:j])))
+        return np.asarray(peaks, dtype=np.int64), np.asarray(troughs, dtype=np.int64)
+    pk = _segment_arg(y, a, b, np.maximum)
+    return pk, _segment_arg(y, pk, b, np.minimum)
 
 
 def _window(period_s: float, fs: float) -> int:
@@ -537,17 +586,34 @@ def _baseline(env: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]) -> N
     nb = max(1, round(_BASELINE_BLOCK_S * fs))
     n_blocks = -(-env.size // nb)
     level = np.full(n_blocks, np.nan)
-    for k in range(n_blocks):
+    n_full = env.size // nb
+    # complete blocks that are wholly usable: one median per row; the rest one by one
+    whole = mask[: n_full * nb].reshape(n_full, nb).all(axis=1)
+    if whole.any():
+        level[:n_full][whole] = np.median(env[: n_full * nb].reshape(n_full, nb)[whole], axis=1)
+    for k in np.flatnonzero(~np.concatenate((whole, np.zeros(n_blocks - n_full, dtype=bool)))):
         seg, m = env[k * nb : (k + 1) * nb], mask[k * nb : (k + 1) * nb]
         if m.mean() >= 0.5:
             level[k] = np.median(seg[m])
     half = round(_BASELINE_SPAN_S / _BASELINE_BLOCK_S / 2)
-    base = np.full(n_blocks, np.nan)
-    for k in range(n_blocks):
-        w = level[max(0, k - half) : k + half + 1]
-        if np.isfinite(w).any():
-            base[k] = np.nanmedian(w)
-    return np.repeat(base, nb)[: env.size]
+    return np.repeat(_window_nanmedian(level, half), nb)[: env.size]
+
+
+def _window_nanmedian(v: NDArray[np.float64], half: int) -> NDArray[np.float64]:
+    """``nanmedian(v[max(0, k - half) : k + half + 1])`` for every k; NaN where all are NaN.
+
+    Each window is sorted (NaN last) and its middle finite value taken, or the mean of
+    the middle two, ``(a + b) / 2``: the arithmetic of :func:`numpy.nanmedian`.
+    """
+    padded = np.concatenate((np.full(half, np.nan), v, np.full(half, np.nan)))
+    windows = np.sort(np.lib.stride_tricks.sliding_window_view(padded, 2 * half + 1), axis=1)
+    count = np.isfinite(windows).sum(axis=1)
+    rows = np.arange(v.size)
+    lo = windows[rows, np.maximum(count - 1, 0) // 2]
+    hi = windows[rows, count // 2]
+    out = np.where(count % 2 == 1, lo, (lo + hi) / 2.0)
+    out[count == 0] = np.nan
+    return out
 
 
 def _pauses(
@@ -588,7 +654,7 @@ def _refine_edges(
 
 
 def _noise_limited(
-    y: NDArray[np.float64], y_low: NDArray[np.float64], fs: float, mask: NDArray[np.bool_],
+    est: _Psd, y_low: NDArray[np.float64], fs: float, mask: NDArray[np.bool_],
     fraction: float, period_s: float,
 ) -> bool:
     """True when the band noise alone would swing past the pause threshold.
@@ -600,7 +666,6 @@ def _noise_limited(
     there, at 10 dB cardiac SNR, pauses were not separable from breathing and the ratio
     6 SD / (0.25 swing) was 1.0-2.2; noise free and at 20 dB it was 0.3-0.8.
     """
-    est = _welch_psd(y, fs, mask)
     if est is None:
         return False
     f, p = est

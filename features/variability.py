@@ -773,12 +773,16 @@ def _dfa_fluctuations(
         if n_boxes == 0:
             fluct[j] = 0.0
             continue
-        # start index of every box, forward from each run's start
-        owner = np.repeat(np.arange(run_start.size), per_run)
-        first_box = np.cumsum(per_run) - per_run
-        within = np.arange(n_boxes) - np.repeat(first_box, per_run)
-        box_start = run_start[owner] + within * size
-        y = profile[box_start[:, None] + np.arange(size)[None, :]]
+        if run_start.size == 1:
+            # one run (no gaps): the boxes tile the profile from its start
+            y = profile[: n_boxes * size].reshape(n_boxes, size)
+        else:
+            # start index of every box, forward from each run's start
+            owner = np.repeat(np.arange(run_start.size), per_run)
+            first_box = np.cumsum(per_run) - per_run
+            within = np.arange(n_boxes) - np.repeat(first_box, per_run)
+            box_start = run_start[owner] + within * size
+            y = profile[box_start[:, None] + np.arange(size)[None, :]]
         x = np.arange(size, dtype=float) - (size - 1) / 2.0
         yc = y - y.mean(axis=1, keepdims=True)
         slope = (yc @ x) / float(x @ x)

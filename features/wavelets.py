@@ -17,6 +17,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -117,5 +118,36 @@ def _mra(padded: NDArray[np.float64], levels: tuple[int, ...], top: int, wavelet
     zero = np.zeros_like(coeffs[0])
     keep = set(levels)
     kept = [zero] + [c if top - i in keep else zero for i, c in enumerate(coeffs[1:])]
-    out: NDArray[np.float64] = pywt.iswt(kept, wavelet, norm=True)
+    return _iswt(kept, wavelet)
+
+
+@functools.lru_cache(maxsize=8)
+def _inverse_wavelet(wavelet: str) -> pywt.Wavelet:
+    """The filter bank scaled by sqrt(2), as ``pywt.iswt(..., norm=True)`` scales it."""
+    base = pywt.Wavelet(wavelet)
+    scaled = pywt.Wavelet(base.name + "r", [np.asarray(f) * np.sqrt(2) for f in base.filter_bank])
+    scaled.orthogonal = base.orthogonal
+    scaled.biorthogonal = base.biorthogonal
+    return scaled
+
+
+def _iswt(coeffs: list[NDArray[np.float64]], wavelet: str) -> NDArray[np.float64]:
+    """``pywt.iswt(coeffs, wavelet, norm=True)`` for ``trim_approx`` coefficients.
+
+    The same steps as PyWavelets' implementation (per level and phase: inverse DWT,
+    periodization, of the even and the odd subsequences, the odd result shifted
+    right by one, their mean), with strided slices where it gathers and scatters
+    through index arrays; the same numbers.
+    """
+    out = np.array(coeffs[0], dtype=np.float64, copy=True)
+    details = coeffs[1:]
+    wav = _inverse_wavelet(wavelet)
+    for j in range(len(details), 0, -1):
+        step = 2 ** (j - 1)
+        c_d = details[-j]
+        for first in range(step):
+            x1 = pywt.idwt(out[first::2 * step], c_d[first::2 * step], wav, "periodization")
+            x2 = pywt.idwt(out[first + step::2 * step], c_d[first + step::2 * step], wav,
+                           "periodization")
+            out[first::step] = (x1 + np.roll(x2, 1)) / 2.0
     return out

@@ -198,3 +198,19 @@ def test_error_rules() -> None:
         fuse_channels(x, FS, positions_m=[(0.0, 0.0)], static_n=[1.0, 1.0])
     with pytest.raises(InvalidInputError, match=r"`static_fs_hz` must be a rate in Hz"):
         fuse_channels(x, FS, positions_m=[(0, 0), (1, 0)], static_n=np.ones((2, 300)))
+
+
+def test_weighted_sum_in_chunks_equals_one_blas_axpy() -> None:
+    from scipy.linalg import blas
+
+    from features.fusion import _weighted_sum
+
+    rng = np.random.default_rng(9)
+    x = rng.standard_normal((3, 30_001))
+    w = np.array([0.7, -1.3, 0.25])
+    # reference library: scipy.linalg.blas.daxpy over whole rows (the same per-sample
+    # arithmetic, so the chunked sum is equal to the bit)
+    ref = x[0] * w[0]
+    for i in (1, 2):
+        ref = blas.daxpy(x[i], ref, a=float(w[i]))
+    np.testing.assert_array_equal(_weighted_sum(x, w), ref)

@@ -248,3 +248,16 @@ def test_invalid_input(kwargs, field, match):
     with pytest.raises(InvalidInputError, match=match) as info:
         respiratory_modulation(args.pop("y"), args.pop("fs_hz"), **args)
     assert info.value.field == field
+
+
+def test_segment_peak_to_peak_equals_numpy_ptp() -> None:
+    from features.modulation import _segment_ptp
+
+    rng = np.random.default_rng(4)
+    x = rng.standard_normal(500)
+    a = np.sort(rng.integers(0, 490, 40))
+    b = np.minimum(a + rng.integers(1, 30, 40), x.size)
+    b[-1] = x.size  # a segment that ends at the last sample
+    # reference library: numpy.ptp of each slice
+    ref = np.array([np.ptp(x[i:j]) for i, j in zip(a, b, strict=True)])
+    np.testing.assert_array_equal(_segment_ptp(x, a, b), ref)

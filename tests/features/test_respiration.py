@@ -280,3 +280,42 @@ def test_invalid_input(kwargs, field, match):
     with pytest.raises(InvalidInputError, match=match) as info:
         breathing(args.pop("x"), args.pop("fs_hz"), **args)
     assert info.value.field == field
+
+
+def test_window_nanmedian_equals_numpy_nanmedian() -> None:
+    from features.respiration import _window_nanmedian
+
+    rng = np.random.default_rng(11)
+    v = rng.standard_normal(300)
+    v[rng.random(300) < 0.3] = np.nan
+    v[100:120] = np.nan  # a stretch where whole windows are empty
+    for half in (0, 1, 6):
+        # reference library: numpy.nanmedian of each window (NaN where it holds none)
+        ref = np.array([np.nanmedian(w) if np.isfinite(w).any() else np.nan
+                        for w in (v[max(0, k - half):k + half + 1] for k in range(v.size))])
+        np.testing.assert_array_equal(_window_nanmedian(v, half), ref)
+
+
+def test_cached_decimation_filter_is_resample_polys_own() -> None:
+    from features.respiration import _decimation_fir
+
+    x = np.cumsum(np.random.default_rng(2).standard_normal(5000))
+    for q in (12, 25, 100):
+        # reference library: scipy.signal.resample_poly with its default Kaiser design
+        np.testing.assert_array_equal(
+            sps.resample_poly(x, 1, q, padtype="line", window=_decimation_fir(q)),
+            sps.resample_poly(x, 1, q, padtype="line"))
+
+
+def test_breath_peaks_and_troughs_equal_argmax_and_argmin_per_breath() -> None:
+    from features.respiration import _peaks_and_troughs
+
+    rng = np.random.default_rng(8)
+    y = np.round(3.0 * np.sin(np.arange(2000) * 0.05) + rng.standard_normal(2000))  # ties
+    rises = np.unique(rng.integers(0, 2000, 40))
+    # reference library: numpy.argmax / numpy.argmin (first occurrence) on each breath
+    peaks = [a + int(np.argmax(y[a:b])) for a, b in zip(rises[:-1], rises[1:], strict=True)]
+    troughs = [p + int(np.argmin(y[p:b])) for p, b in zip(peaks, rises[1:], strict=True)]
+    got_p, got_t = _peaks_and_troughs(y, rises)
+    np.testing.assert_array_equal(got_p, peaks)
+    np.testing.assert_array_equal(got_t, troughs)

@@ -36,3 +36,20 @@ def test_blocked_equals_whole_trace(monkeypatch: pytest.MonkeyPatch, n: int,
     got = wavelets.swt_component(x, levels=levels)
     ref = _whole_trace_component(x, levels)
     np.testing.assert_allclose(got, ref, rtol=0, atol=1e-12 * np.abs(ref).max())
+
+
+@pytest.mark.parametrize("wavelet", ["sym4", "db2", "haar"])
+@pytest.mark.parametrize("level", [1, 3, 5])
+def test_inverse_transform_equals_pywt_iswt(wavelet: str, level: int) -> None:
+    from features.wavelets import _iswt
+
+    rng = np.random.default_rng(level)
+    x = rng.standard_normal(2**level * 40)
+    coeffs = pywt.swt(x, wavelet, level=level, trim_approx=True, norm=True)
+    zero = np.zeros_like(coeffs[0])
+    # every other detail level dropped, as the MRA component drops levels
+    kept = [zero] + [c if i % 2 == 0 else zero for i, c in enumerate(coeffs[1:])]
+    # reference library: PyWavelets pywt.iswt (norm=True); the same arithmetic, so equal
+    np.testing.assert_array_equal(_iswt(kept, wavelet), pywt.iswt(kept, wavelet, norm=True))
+    # all levels kept: perfect reconstruction (Percival & Walden 2000, MODWT, from memory)
+    np.testing.assert_allclose(_iswt(list(coeffs), wavelet), x, atol=1e-10)

@@ -1,0 +1,76 @@
+"""Tests of the shared filter helpers."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.signal
+
+from features.filters import bandpass, butter_sos, lowpass
+
+
+@pytest.mark.parametrize(("order", "cutoff", "btype", "fs"),
+                         [(2, 0.05, "lowpass", 10.0), (2, (1.5, 16.0), "bandpass", 250.0),
+                          (4, (0.1, 0.7), "bandpass", 12.5), (2, 0.3, "highpass", 100.0)])
+def test_cached_design_is_scipy_butter(order: int, cutoff: float | tuple[float, float],
+                                       btype: str, fs: float) -> None:
+    # reference library: scipy.signal.butter, second-order sections
+    ref = scipy.signal.butter(order, cutoff, btype=btype, fs=fs, output="sos")
+    got = butter_sos(order, cutoff, btype, fs)
+    np.testing.assert_array_equal(got, ref)
+    assert not got.flags.writeable
+    assert butter_sos(order, cutoff, btype, fs) is got
+
+
+def test_filters_equal_scipy_sosfiltfilt_with_even_padding() -> None:
+    rng = np.random.default_rng(5)
+    x = np.cumsum(rng.standard_normal(5000))
+    # reference library: scipy.signal.sosfiltfilt with even extension (padlen as documented:
+    # two periods of the lowest cutoff)
+    sos = scipy.signal.butter(2, 0.5, btype="lowpass", fs=10.0, output="sos")
+    np.testing.assert_array_equal(
+        lowpass(x, 10.0, 0.5), scipy.signal.sosfiltfilt(sos, x, padtype="even", padlen=40))
+    sos = scipy.signal.butter(2, (1.5, 16.0), btype="bandpass", fs=250.0, output="sos")
+    np.testing.assert_array_equal(
+        bandpass(x, 250.0, (1.5, 16.0)),
+        scipy.signal.sosfiltfilt(sos, x, padtype="even", padlen=334))
+
+
+@pytest.mark.parametrize("padtype", ["odd", "even", None])
+@pytest.mark.parametrize("padlen", [None, 37])
+def test_cached_filtfilt_equals_scipy_sosfiltfilt(padtype: str | None,
+                                                  padlen: int | None) -> None:
+    from features.filters import butter_filtfilt
+
+    rng = np.random.default_rng(6)
+    x = np.cumsum(rng.standard_normal((3, 2000)), axis=-1)
+    design = (4, (0.1, 0.7), "bandpass", 10.0)
+    sos = scipy.signal.butter(4, (0.1, 0.7), btype="bandpass", fs=10.0, output="sos")
+    # reference library: scipy.signal.sosfiltfilt (the same steps, so equal to the bit)
+    for axis, data in ((-1, x), (0, x.T), (-1, x[0])):
+        ref = scipy.signal.sosfiltfilt(sos, data, axis=axis, padtype=padtype, padlen=padlen)
+        got = butter_filtfilt(data, design, axis=axis, padtype=padtype, padlen=padlen)
+        np.testing.assert_array_equal(got, ref)
+
+
+def test_cached_filtfilt_refuses_a_trace_shorter_than_its_padding() -> None:
+    from features.filters import butter_filtfilt
+
+    with pytest.raises(ValueError, match="greater than padlen"):
+        butter_filtfilt(np.zeros(20), (2, 0.5, "lowpass", 10.0), padlen=20)
+
+
+@pytest.mark.parametrize("factor", [2, 3, 7, 8, 25])
+def test_block_means_equal_numpy_mean_of_blocks(factor: int) -> None:
+    from features.filters import block_means
+
+    rng = np.random.default_rng(factor)
+    x = rng.standard_normal((3, 10_007)) * 1e3
+    m = x.shape[-1] // factor
+    # reference library: numpy.mean over the reshaped blocks (the same sums, so equal)
+    ref = x[:, : m * factor].reshape(3, m, factor).mean(axis=-1)
+    np.testing.assert_array_equal(block_means(x, factor), ref)
+    np.testing.assert_array_equal(block_means(x[0], factor), ref[0])
+    ints = rng.integers(-1000, 1000, 10_007)
+    np.testing.assert_array_equal(block_means(ints, factor),
+                                  ints[: m * factor].reshape(m, factor).mean(axis=-1))
