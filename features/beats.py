@@ -600,15 +600,19 @@ def _window_sums(csum: NDArray[np.float64], centre: int, m: int) -> NDArray[np.f
     """
     n = csum.size - 1
     ahead = m - centre  # hi = i + ahead, lo = i - centre, both clipped
-    hi = np.empty(n)
-    k = max(0, min(n, n + 1 - ahead))
-    hi[:k] = csum[ahead : ahead + k]
-    hi[k:] = csum[n]
-    lo = np.empty(n)
-    j = min(centre, n)
-    lo[:j] = csum[0]
-    lo[j:] = csum[: n - j]
-    return hi - lo
+    k = max(0, min(n, n + 1 - ahead))  # hi is csum[i + ahead] below k, csum[n] from k
+    j = min(centre, n)  # lo is csum[0] below j, csum[i - centre] from j
+    out = np.empty(n)
+    # One subtraction per stretch where each end is a slice or a constant: the same
+    # csum[hi] - csum[lo] per sample, without two full-length temporaries.
+    for a, b in ((0, min(j, k)), (min(j, k), max(j, k)), (max(j, k), n)):
+        if b <= a:
+            continue
+        hi = csum[a + ahead : b + ahead] if b <= k else (csum[n] if a >= k else None)
+        lo = csum[0] if b <= j else (csum[a - centre : b - centre] if a >= j else None)
+        assert hi is not None and lo is not None  # stretches are split at j and k
+        np.subtract(hi, lo, out=out[a:b])
+    return out
 
 
 def _local_median(values: NDArray[np.float64], half: int = 5) -> NDArray[np.float64]:

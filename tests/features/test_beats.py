@@ -244,3 +244,17 @@ def test_a_fixed_beat_shape_loses_nothing_to_the_trend_step(monkeypatch):
         mae_a = np.mean(np.abs(np.diff(a.times_s) - np.diff(ref)))
         mae_b = np.mean(np.abs(np.diff(b.times_s) - np.diff(ref)))
         assert mae_a < mae_b + 1e-4, (seed, mae_a, mae_b)
+
+
+def test_window_sums_match_their_definition():
+    # Definition in the docstring: csum[min(i - centre + m, n)] - csum[max(i - centre, 0)].
+    from features.beats import _window_sums
+
+    rng = np.random.default_rng(7)
+    for n in (1, 5, 101, 1000):
+        csum = np.concatenate(([0.0], np.cumsum(rng.standard_normal(n))))
+        for m in (1, 10, 200):
+            for centre in (0, m // 2, m - 1):
+                i = np.arange(n)
+                want = (csum[np.clip(i - centre + m, 0, n)] - csum[np.clip(i - centre, 0, n)])
+                assert np.array_equal(_window_sums(csum, centre, m), want), (n, m, centre)
