@@ -163,8 +163,15 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
        is where ``|D - median(D)|`` exceeds max(k * 1.4826 * MAD(D), 2 x the median
        within-window spread) and, at the run's peak, the step is larger than 2x the
        spread of the window medians on either side (a step between two stable
-       levels, not a swing during movement). The segment spans the run of such
-       boundaries (about +-2.5 s around a sharp step).
+       levels, not a swing during movement). Near a step several boundaries see the
+       same difference, so the segment is not the run of them: the step is placed at
+       the first window (of the two 5-window blocks at the run's peak) whose median is
+       nearer the level after than the level before, and the segment covers that window
+       and the one before it, any neighbouring windows whose median is more than a
+       quarter of the step from both levels (the body still shifting), and half a
+       window on either side: about 3 s around a sharp step. The data on either side
+       stay usable at their own level (the step itself is what would bias a beat or a
+       breath), and the movement detector masks the motion that usually comes with it.
 
     All steps are vectorised (reshaped blocks, sliding windows); the cost is linear
     in the record length.
@@ -445,10 +452,37 @@ def _posture(src: NDArray[np.generic], src_fs: float, src_factor: int, k: float,
         before, after = side_mad[peak], side_mad[peak + side]
         if dev[peak] <= _POSTURE_MIN_SPREADS * max(before, after):
             continue
-        t0 = (int(a) + side) * samples_per_window - samples_per_window // 2
-        t1 = (int(b) - 1 + side) * samples_per_window + samples_per_window // 2
+        first, last = _transition_windows(med, side_med, peak, side)
+        t0 = first * samples_per_window - samples_per_window // 2
+        t1 = (last + 1) * samples_per_window + samples_per_window // 2
         out.append(("posture_change", max(0, t0), min(n, t1)))
     return out
+
+
+def _transition_windows(med: NDArray[np.float64], side_med: NDArray[np.float64], peak: int,
+                        side: int) -> tuple[int, int]:
+    """First and last 1-s window of the step detected at boundary ``peak``.
+
+    The detecting boundary compares the block of ``side`` windows from ``peak`` (level
+    L0) with the next block (level L1); near a clean step several boundaries see the
+    same difference, so the step itself is placed at the first window of the two
+    blocks whose median is nearer L1 than L0. The windows on either side of it whose
+    median is farther than a quarter of the step from both levels are in transition
+    and are kept too; at least the two windows meeting at the step are returned.
+    """
+    seg = med[peak : peak + 2 * side]
+    level0, level1 = float(side_med[peak]), float(side_med[peak + side])
+    nearer_after = np.abs(seg - level1) < np.abs(seg - level0)
+    step = int(np.argmax(nearer_after)) if nearer_after.any() else side
+    step = min(max(step, 1), seg.size - 1)
+    tol = 0.25 * abs(level1 - level0)
+    between = (np.abs(seg - level0) > tol) & (np.abs(seg - level1) > tol)
+    first, last = step - 1, step
+    while first > 0 and between[first - 1]:
+        first -= 1
+    while last < seg.size - 1 and between[last + 1]:
+        last += 1
+    return peak + first, peak + last
 
 
 def _assemble(spans: list[tuple[str, int, int]], n: int, fs: float
