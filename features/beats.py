@@ -746,17 +746,13 @@ def _preceding_interval_trend(
         prev[1:] = np.where(same & (gaps <= max_period_s), gaps, np.nan)
     w = np.arange(-2, 3)
     inside = (beats >= 3) & (beats < comp.size - 3)
-    seg = comp[np.clip(beats[:, None] + w[None, :], 0, comp.size - 1)]
-    k = np.argmax(seg, axis=1)
-    rows = np.arange(n)
-    y0 = seg[rows, np.clip(k - 1, 0, w.size - 1)]
-    y1 = seg[rows, k]
-    y2 = seg[rows, np.clip(k + 1, 0, w.size - 1)]
-    den = y0 - 2.0 * y1 + y2
+    k = np.argmax(comp[np.clip(beats[:, None] + w[None, :], 0, comp.size - 1)], axis=1)
+    peak = np.clip(beats + w[k], 1, comp.size - 2)
+    den = comp[peak - 1] - 2.0 * comp[peak] + comp[peak + 1]
     good = inside & (k > 0) & (k < w.size - 1) & (den < 0) & np.isfinite(prev)
     if int(good.sum()) < TREND_MIN_BEATS:
         return offset, None
-    j_peak = w[k[good]] + 0.5 * (y0[good] - y2[good]) / den[good]
+    j_peak = w[k[good]] + _parabolic_offset(comp, peak[good])
     x = prev[good]
     y = (j_peak - offset[good]) / fs_w
     xm, ym = float(x.mean()), float(y.mean())

@@ -126,15 +126,28 @@ def effective_sv_modulation(truth: SimulationTruth, settings: SimulationSettings
     return 0.0 if settings.irregular_rhythm else float(truth.sv_modulation)
 
 
+#: (feature, label, kind, tolerance, BeatTemplate attribute) of the morphology checks.
+_MORPHOLOGY = (
+    ("ij_interval_ms", "I-J interval (ms)", "abs", 10.0, "i_j_interval_ms"),
+    ("jk_interval_ms", "J-K interval (ms)", "abs", 10.0, "j_k_interval_ms"),
+    ("ij_amplitude", "I-J amplitude (%)", "pct", 15.0, "i_j_amplitude"),
+    ("jk_amplitude", "J-K amplitude (%)", "pct", 15.0, "j_k_amplitude"),
+)
+
+
+def _morphology_checks(which: str) -> tuple[Check, ...]:
+    """The morphology checks against ``truth.<which>`` (amplitudes compared when units agree)."""
+    return tuple(
+        Check(feature, label, kind, tol, _template(attr, which),
+              _template_unit if kind == "pct" else (lambda t: None))
+        for feature, label, kind, tol, attr in _MORPHOLOGY
+    )
+
+
 CHECKS: tuple[Check, ...] = (
     Check("breathing_rate_per_min", "breathing rate (/min)", "abs", 1.0,
           lambda t, s: t.breathing_rate_per_min),
-    Check("ij_interval_ms", "I-J interval (ms)", "abs", 10.0, _template("i_j_interval_ms")),
-    Check("jk_interval_ms", "J-K interval (ms)", "abs", 10.0, _template("j_k_interval_ms")),
-    Check("ij_amplitude", "I-J amplitude (%)", "pct", 15.0, _template("i_j_amplitude"),
-          _template_unit),
-    Check("jk_amplitude", "J-K amplitude (%)", "pct", 15.0, _template("j_k_amplitude"),
-          _template_unit),
+    *_morphology_checks("ensemble_template"),
     Check("rsa_ms", "rsa_ms - set depth (ms)", "abs", None, effective_rsa_ms),
     Check("amplitude_index", "amplitude_index - 2 x sv_mod", "abs", None,
           lambda t, s: 2.0 * effective_sv_modulation(t, s)),
@@ -142,16 +155,7 @@ CHECKS: tuple[Check, ...] = (
 
 
 #: The same morphology checks against the response to one isolated beat (information only).
-ISOLATED_CHECKS: tuple[Check, ...] = tuple(
-    Check(feature, label, kind, tol, _template(attr, "template"),
-          _template_unit if kind == "pct" else (lambda t: None))
-    for feature, label, kind, tol, attr in (
-        ("ij_interval_ms", "I-J interval (ms)", "abs", 10.0, "i_j_interval_ms"),
-        ("jk_interval_ms", "J-K interval (ms)", "abs", 10.0, "j_k_interval_ms"),
-        ("ij_amplitude", "I-J amplitude (%)", "pct", 15.0, "i_j_amplitude"),
-        ("jk_amplitude", "J-K amplitude (%)", "pct", 15.0, "j_k_amplitude"),
-    )
-)
+ISOLATED_CHECKS: tuple[Check, ...] = _morphology_checks("template")
 
 
 @dataclass(frozen=True)
