@@ -283,15 +283,35 @@ def demo_mix(base: str) -> list[Call]:
     ]
 
 
+def analyses_by_worker(server: Server) -> Counter[int]:
+    """Analyses answered so far by each worker, from the service's JSON request lines."""
+    served: Counter[int] = Counter()
+    for line in server.log().splitlines():
+        if not line.startswith("{"):
+            continue
+        try:
+            entry = json.loads(line)
+        except ValueError:
+            continue
+        if entry.get("event") == "request" and entry.get("route") == "/v1/analyses":
+            served[int(entry.get("pid", 0))] += 1
+    return served
+
+
 def warm_up(server: Server, mix: list[Call], rate_per_s: float, pids: list[int], *,
-            round_s: float = 5.0, steady_kib: int = 2048, max_rounds: int = 6) -> LoadReport:
-    """Send the mix in short rounds until no worker's memory grows by ``steady_kib``.
+            round_s: float = 5.0, steady_kib: int = 2048, min_analyses: int = 8,
+            max_rounds: int = 10) -> LoadReport:
+    """Send the mix in short rounds until every worker is warm and its memory steady.
 
     Which worker accepts a request is up to the kernel, and each worker thread that
     first runs an analysis brings its own allocator arena and caches, so one fixed
-    warm-up can leave a worker cold (seen: 88 MB against its twin's 110 MB). The
-    rounds stop when every worker's RSS changed by less than ``steady_kib`` in the
-    last round, or after ``max_rounds``; the returned report holds every round.
+    warm-up can leave a worker cold (seen twice: 88 MB against its twin's 110 MB,
+    then +19 MB during the measured load). A worker that served no analysis in a
+    round also shows a steady memory, so steadiness alone is not enough: the rounds
+    stop when every worker has answered at least ``min_analyses`` analyses (counted
+    from the request log lines, which carry the worker's pid) and every worker's RSS
+    changed by less than ``steady_kib`` in the last round, or after ``max_rounds``.
+    The returned report holds every round.
     """
     combined = LoadReport(duration_s=0.0, rate_per_s=rate_per_s, outcomes=[])
     previous = {pid: rss_kib(pid) for pid in pids}
@@ -300,9 +320,11 @@ def warm_up(server: Server, mix: list[Call], rate_per_s: float, pids: list[int],
         combined.outcomes.extend(report.outcomes)
         combined.duration_s += report.duration_s
         current = {pid: rss_kib(pid) for pid in pids}
+        served = analyses_by_worker(server)
         steady = all(abs(current[pid] - previous[pid]) < steady_kib for pid in pids)
+        warm = all(served[pid] >= min_analyses for pid in pids)
         previous = current
-        if steady:
+        if steady and warm:
             break
     return combined
 

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import json
 import logging
+import os
 import re
 import sys
 import time
@@ -104,6 +105,8 @@ def _finish(response: Response) -> Response:
                 "status": response.status_code,
                 "duration_ms": round(elapsed_ms, 1),
                 "bytes_in": request.content_length,
+                # The serving process: tells gunicorn's workers apart (no person in it).
+                "pid": os.getpid(),
             }
         },
     )

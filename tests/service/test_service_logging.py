@@ -5,6 +5,7 @@ from __future__ import annotations
 import io
 import json
 import logging
+import os
 
 import pytest
 
@@ -34,6 +35,7 @@ def test_every_request_logs_one_json_line_with_its_id(client, log_lines):
     assert line["request_id"] == "trace-42" == response.headers["X-Request-ID"]
     assert line["route"] == "/healthz" and line["status"] == 200 and line["method"] == "GET"
     assert line["duration_ms"] >= 0
+    assert line["pid"] == os.getpid()  # which worker served it (service.loadtest counts by it)
 
 
 def test_no_samples_subject_or_device_id_reach_the_logs(client, log_lines):
