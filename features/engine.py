@@ -31,7 +31,7 @@ from features.morphology import MorphologyResult, beat_morphology
 from features.respiration import RespirationResult, breathing
 from features.variability import VariabilityResult, heart_rate_variability
 
-FEATURE_SET_VERSION = "2"
+FEATURE_SET_VERSION = "3"
 """Changes whenever the definition of any emitted feature changes."""
 
 PLACEMENTS = ("bed", "other", "platform", "seat")

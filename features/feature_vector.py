@@ -202,6 +202,11 @@ _WELCH = (
     "Transactions on Audio and Electroacoustics 15(2):70-73, 1967. "
     "doi:10.1109/TAU.1967.1161901"
 )
+_KARLEN = (
+    "Karlen W, Raman S, Ansermino JM, Dumont GA. Multiparameter respiratory rate estimation "
+    "from the photoplethysmogram. IEEE Transactions on Biomedical Engineering "
+    "60(7):1946-1953, 2013. doi:10.1109/TBME.2013.2246160"
+)
 _AASM = (
     "Berry RB et al. The AASM Manual for the Scoring of Sleep and Associated Events, version "
     "2.x. American Academy of Sleep Medicine, 2012 onward (10-s duration criterion only)"
@@ -364,6 +369,10 @@ FEATURES: tuple[FeatureDefinition, ...] = (
         for k, band in enumerate(_SIGNATURE_BANDS)
     ),
     _resp("breathing_rate_per_min", "rate_per_min", "/min",
+          "Breathing rate: mean of breathing_rate_counted_per_min and "
+          "breathing_rate_spectral_per_min when their SD is at most 4 per min (Smart Fusion), "
+          "else None.", _BREATH, _KARLEN),
+    _resp("breathing_rate_counted_per_min", "counted_rate_per_min", "/min",
           "Breathing rate by counting: 60 over the median interval between breaths detected "
           "with hysteresis on the 0.1-0.7 Hz band of the trace.", _BREATH, _OURS),
     _resp("breathing_rate_spectral_per_min", "spectral_rate_per_min", "/min",

@@ -32,6 +32,8 @@ HYSTERESIS = 0.3
 PAUSE_MIN_S = 10.0
 """Shortest pause counted (s): the adult apnoea duration criterion of the AASM manual."""
 MIN_DURATION_S = 20.0
+FUSION_MAX_SD_PER_MIN = 4.0
+"""Largest SD of the two rate estimates that are still averaged (Karlen et al. 2013)."""
 
 _BASELINE_BLOCK_S = 10.0
 _BASELINE_SPAN_S = 120.0
@@ -51,6 +53,9 @@ class RespirationResult:
     source
         ``"trace"`` or ``"centre_of_pressure"``: the input the breathing signal came from.
     rate_per_min
+        Breathing rate reported (breaths/min): the mean of the counted and the spectral
+        rates when their standard deviation is at most 4 per min (Notes, 3), else None.
+    counted_rate_per_min
         Breathing rate from counting: 60 / median breath interval (breaths/min).
     spectral_rate_per_min
         Breathing rate at the Welch spectral peak within the band (breaths/min).
@@ -85,6 +90,7 @@ class RespirationResult:
     usable_duration_s: float
     pause_threshold_pct: float
     rate_per_min: float | None = None
+    counted_rate_per_min: float | None = None
     spectral_rate_per_min: float | None = None
     breath_count: int = 0
     breath_times_s: NDArray[np.float64] = field(
@@ -203,6 +209,10 @@ def breathing(
     .. [2] Welch PD. "The use of fast Fourier transform for the estimation of power spectra:
        a method based on time averaging over short, modified periodograms." IEEE Transactions
        on Audio and Electroacoustics 15(2):70-73, 1967. doi:10.1109/TAU.1967.1161901
+    .. [3] Karlen W, Raman S, Ansermino JM, Dumont GA. "Multiparameter respiratory rate
+       estimation from the photoplethysmogram." IEEE Transactions on Biomedical Engineering
+       60(7):1946-1953, 2013. doi:10.1109/TBME.2013.2246160 (the 4-per-min SD limit from
+       memory).
     """
     x, fs, mask, cop, cop_fs, thr_pct = _validate(
         signal_or_lowband, fs_hz, usable, cop_signal, cop_fs_hz, pause_threshold_pct
@@ -247,10 +257,10 @@ def breathing(
         flags.append("pause_detection_noise_limited")
         spans = []
     intervals, valid = _breath_intervals(rises, rise_idx, mask_b, spans, fs_b)
-    rate = None
+    counted = None
     sd = cv = None
     if intervals.size >= 2:
-        rate = 60.0 / float(np.median(intervals))
+        counted = 60.0 / float(np.median(intervals))
         sd = float(np.std(intervals, ddof=1))
         cv = 100.0 * sd / float(np.mean(intervals))
     else:
@@ -264,9 +274,12 @@ def breathing(
         flags.append("too_few_breaths_for_rise_fall")
     else:
         ratio = rise_t / fall_t
+    rate = _fused_rate(counted, spectral)
+    if counted is not None and spectral is not None and rate is None:
+        flags.append("breathing_rate_estimates_disagree")
     confidence = 0.0
-    if rate is not None and spectral is not None:
-        c_agree = float(np.clip(1.0 - abs(rate - spectral) / 3.0, 0.0, 1.0))
+    if counted is not None and spectral is not None:
+        c_agree = float(np.clip(1.0 - abs(counted - spectral) / 3.0, 0.0, 1.0))
         confidence = c_agree * min(1.0, intervals.size / 10.0) * np.sqrt(mask_b.mean())
     if spans:
         flags.append("pauses_are_signal_observations_not_diagnosis")
@@ -281,6 +294,7 @@ def breathing(
         usable_duration_s=usable_s,
         pause_threshold_pct=thr_pct,
         rate_per_min=rate,
+        counted_rate_per_min=counted,
         spectral_rate_per_min=spectral,
         breath_count=int(rises.size),
         breath_times_s=frozen(rises),
@@ -469,6 +483,15 @@ def _spectral_rate_per_min(est: _Psd) -> float | None:
     den = a - 2 * b + c
     d = 0.0 if den == 0 else float(np.clip(0.5 * (a - c) / den, -0.5, 0.5))
     return 60.0 * float(f[i] + d * (f[1] - f[0]))
+
+
+def _fused_rate(counted: float | None, spectral: float | None) -> float | None:
+    """Mean of the two rates when their SD is at most 4 per min (Karlen et al. 2013), else None."""
+    if counted is None or spectral is None:
+        return None
+    if abs(counted - spectral) / np.sqrt(2.0) > FUSION_MAX_SD_PER_MIN:
+        return None
+    return 0.5 * (counted + spectral)
 
 
 def _concentration(est: _Psd) -> float:

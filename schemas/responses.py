@@ -319,6 +319,7 @@ class RespirationSchema(Schema):
 
     source = fields.String(required=True)
     rate_per_min = Number(required=True)
+    counted_rate_per_min = Number(required=True)
     spectral_rate_per_min = Number(required=True)
     breath_count = fields.Integer(required=True)
     interval_sd_s = Number(required=True)

@@ -2,7 +2,7 @@
 
 Usage::
 
-    python -m validation.features_check [--quick] [--seed N] [--json PATH]
+    python -m validation.features_check [--quick] [--seed N [N ...]] [--json PATH]
 
 Cases: the validation cohort (:func:`validation.cohort.build_cases`) plus two sweeps with
 default conditions otherwise, one of ``rsa_depth_ms`` and one of ``sv_modulation``. Every
@@ -50,7 +50,7 @@ import math
 import sys
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 from scipy import stats
@@ -197,7 +197,7 @@ class FeatureCase:
 class FeaturesReport:
     """Cases and summaries (see :func:`summarise`)."""
 
-    seed: int
+    seeds: tuple[int, ...]
     quick: bool
     cases: tuple[FeatureCase, ...]
     acceptance: tuple[dict[str, object], ...]
@@ -374,14 +374,14 @@ def _confidence_rows(cases: Sequence[FeatureCase]) -> list[dict[str, object]]:
     return rows
 
 
-def summarise(cases: Sequence[FeatureCase], *, seed: int = 0,
+def summarise(cases: Sequence[FeatureCase], *, seeds: Sequence[int] = (0,),
               quick: bool = False) -> FeaturesReport:
     """Acceptance fractions, rank correlations and the confidence-error table."""
     empty = [c for c in cases if c.empty and c.error is None]
     all_none = sum(all(m.value is None for m in c.measured if m.feature not in (
         "rsa_ms", "amplitude_index")) for c in empty)
     return FeaturesReport(
-        seed=seed, quick=quick, cases=tuple(cases),
+        seeds=tuple(seeds), quick=quick, cases=tuple(cases),
         acceptance=tuple(_acceptance(cases)),
         isolated_acceptance=tuple(_acceptance(cases, isolated=True)),
         spearman=tuple(_rank_rows(cases)),
@@ -391,11 +391,23 @@ def summarise(cases: Sequence[FeatureCase], *, seed: int = 0,
     )
 
 
-def run_features_check(quick: bool = False, seed: int = 0, *,
+def run_features_check(quick: bool = False, seed: int | Sequence[int] = 0, *,
                        cases: Sequence[CaseSpec] | None = None) -> FeaturesReport:
-    """Build (or take) the cases, score them and summarise."""
-    specs = tuple(cases) if cases is not None else build_feature_cases(quick=quick, seed=seed)
-    return summarise([score_case(s) for s in specs], seed=seed, quick=quick)
+    """Build (or take) the cases, score them and summarise.
+
+    With several seeds the cases of every seed are pooled into one report (names get an
+    ``@s<seed>`` suffix): the acceptance lines, rank correlations and the
+    confidence-error table are then computed over all of them.
+    """
+    seeds = (seed,) if isinstance(seed, int) else tuple(seed)
+    if cases is not None:
+        specs = tuple(cases)
+    elif len(seeds) == 1:
+        specs = build_feature_cases(quick=quick, seed=seeds[0])
+    else:
+        specs = tuple(replace(spec, name=f"{spec.name}@s{k}") for k in seeds
+                      for spec in build_feature_cases(quick=quick, seed=k))
+    return summarise([score_case(s) for s in specs], seeds=seeds, quick=quick)
 
 
 # --------------------------------------------------------------------------- output
@@ -419,7 +431,9 @@ def format_report(report: FeaturesReport) -> str:
             f"{'conf':>4} | {'JKms':>7} {'conf':>4} | {'IJamp%':>7} {'conf':>4} | "
             f"{'JKamp%':>7} {'conf':>4} | {'rsaSet':>6} {'rsa':>6} {'conf':>4} | "
             f"{'svSet':>5} {'AI':>6} {'conf':>4} | note")
-    lines = [f"Feature checks (seed {report.seed}{', quick' if report.quick else ''}): "
+    seeds = ", ".join(str(k) for k in report.seeds)
+    lines = [f"Feature checks (seed{'s' if len(report.seeds) > 1 else ''} {seeds}"
+             f"{', quick' if report.quick else ''}): "
              "errors are reported minus truth (morphology: the noise-free ensemble "
              "template); amplitude errors in % of it", head, "-" * len(head)]
     for c in report.cases:
@@ -498,7 +512,8 @@ def main(argv: Sequence[str] | None = None) -> int:
                                      description=__doc__,
                                      formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--quick", action="store_true", help="quick cohort and short sweeps")
-    parser.add_argument("--seed", type=int, default=0, help="cohort seed (default 0)")
+    parser.add_argument("--seed", type=int, nargs="+", default=[0],
+                        help="cohort seed(s) (default 0); several are pooled in one report")
     parser.add_argument("--json", metavar="PATH", help="write the report as JSON")
     args = parser.parse_args(argv)
     report = run_features_check(quick=args.quick, seed=args.seed)

@@ -27,6 +27,8 @@ KNOWN_CATALOGUES = {
     "1": "685e2aa15a0118e023edef148b73f06951eddf96cb32a3aeffe087e4e26d991c",
     # 2: I-J / J-K interval and amplitude confidences include their split-ensemble precision.
     "2": "2c971e440e0bae534f73c73a10dd31895faae38508e790c39606b9cf6c35e37d",
+    # 3: breathing_rate_per_min is the fused (Smart Fusion) rate; the counted rate is its own.
+    "3": "b5b32088ca5803e31b792db5f7218bb1570b65646e45c8d11f9c331f63e139fa",
 }
 
 # UCUM symbols for the unit suffixes (Unified Code for Units of Measure, ucum.org; from

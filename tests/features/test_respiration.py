@@ -91,7 +91,10 @@ def test_breath_interval_variability_hand_computed():
     n = r.breath_count - 1
     assert r.interval_sd_s == pytest.approx(0.5 * np.sqrt(n / (n - 1)), abs=0.03)
     assert r.interval_cv_pct == pytest.approx(12.5, abs=0.8)
-    assert r.rate_per_min == pytest.approx(15.0, abs=0.5)
+    assert r.counted_rate_per_min == pytest.approx(15.0, abs=0.5)
+    # The spectrum has two peaks here (13.3 and 17.1 per min) and reports one of them, so the
+    # fused rate lies between it and the count; still within 1/min of 60 / mean cycle.
+    assert r.rate_per_min == pytest.approx(15.0, abs=1.0)
 
 
 def test_rise_fall_ratio_of_an_asymmetric_breath():
@@ -319,3 +322,35 @@ def test_breath_peaks_and_troughs_equal_argmax_and_argmin_per_breath() -> None:
     got_p, got_t = _peaks_and_troughs(y, rises)
     np.testing.assert_array_equal(got_p, peaks)
     np.testing.assert_array_equal(got_t, troughs)
+
+
+# --------------------------------------------------------------------------- fused rate
+
+
+def test_reported_rate_is_the_mean_of_two_agreeing_estimates():
+    # Smart Fusion (Karlen et al., IEEE TBME 60(7):1946-1953, 2013): the reported rate is the
+    # mean of the estimates when they agree. Breath periods alternate 3.6 s / 4.4 s: the
+    # median interval gives one rate, the spectral peak another near 15/min.
+    fs = 25.0
+    x = phase_signal([3.6, 4.4] * 40, fs)
+    r = breathing(x, fs)
+    assert r.counted_rate_per_min is not None and r.spectral_rate_per_min is not None
+    assert r.rate_per_min == pytest.approx(
+        0.5 * (r.counted_rate_per_min + r.spectral_rate_per_min), abs=1e-12)
+    assert 13.5 <= r.rate_per_min <= 16.7  # between 60/4.4 and 60/3.6 (hand-computed)
+
+
+def test_estimates_that_disagree_by_more_than_4_per_min_sd_give_no_rate():
+    # Karlen et al. 2013 discard the fused estimate when the SD of the estimates exceeds
+    # 4 breaths/min (limit from memory). 240 s of slow breathing (9/min, amplitude 1) then
+    # 120 s of fast shallow breathing (30/min, amplitude 0.8): the slow part holds 3.3x the
+    # energy, so the spectral peak is near 9/min, while the fast part gives 60 of the 96
+    # intervals, so the median interval is 2 s (30/min). SD = 21 / sqrt(2) > 4.
+    fs = 25.0
+    slow = phase_signal([60 / 9] * 36, fs)
+    fast = 0.8 * phase_signal([2.0] * 60, fs)
+    r = breathing(np.concatenate((slow, fast)), fs)
+    assert r.counted_rate_per_min == pytest.approx(30.0, abs=1.0)
+    assert r.spectral_rate_per_min == pytest.approx(9.0, abs=1.0)
+    assert r.rate_per_min is None and r.confidence == 0.0
+    assert "breathing_rate_estimates_disagree" in r.flags

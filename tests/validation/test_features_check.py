@@ -123,3 +123,24 @@ def test_confidence_table_on_a_monotone_example() -> None:
     assert (row["mean_abs_error_low_conf"], row["mean_abs_error_mid_conf"],
             row["mean_abs_error_high_conf"]) == pytest.approx((5.5, 3.5, 1.5))
     assert row["falls"] is True
+
+
+def test_several_seeds_are_pooled_into_one_report(monkeypatch) -> None:
+    # Two seeds, two sweep cases each (the rest of the cohort left out to keep this short):
+    # every case appears once per seed, tagged with its seed, and the sweep group survives
+    # the tag (the rank correlation runs over the pooled sweep).
+    import validation.features_check as fc
+
+    def two_cases(*, quick: bool = False, seed: int = 0) -> tuple[CaseSpec, ...]:
+        return tuple(s for s in build_feature_cases(quick=True, seed=seed)
+                     if s.name.startswith("rsa_sweep_"))[:2]
+
+    monkeypatch.setattr(fc, "build_feature_cases", two_cases)
+    report = run_features_check(quick=True, seed=[3, 4])
+    assert report.seeds == (3, 4)
+    names = [c.name for c in report.cases]
+    assert len(names) == 4 and all(n.endswith(("@s3", "@s4")) for n in names)
+    assert {c.group for c in report.cases} == {"rsa_sweep"}
+    assert "seeds 3, 4" in format_report(report).splitlines()[0]
+    rsa = next(r for r in report.spearman if r["scope"] == "rsa_sweep")
+    assert rsa["n_cases"] == 4
