@@ -171,6 +171,15 @@ def breathing(
        and no pause inside. Spectral rate = Welch peak (Hann, 64 s segments or the longest
        usable run if shorter but >= 20 s, 50 % overlap, 8x zero padding, PSDs of the usable
        runs averaged by segment count) in 0.1-0.7 Hz, refined by a parabola.
+       The reported rate fuses the two as the Smart Fusion of Karlen and colleagues [3]
+       does with its three estimates: their mean when their SD (ddof=1, |difference| /
+       sqrt 2) is at most 4 per min, otherwise None (flag
+       ``breathing_rate_estimates_disagree``); None too when either is missing. The two
+       fail differently (counting over-counts when noise splits breaths; the spectral peak
+       is pulled by a sloping background and by breath-to-breath variability) and their
+       errors partly cancel: on the project's simulated cohort, three seeds pooled, the
+       worst error of the mean is 0.89 per min against 1.64 counted and 0.93 spectral
+       (docs/validation.md).
        Confidence = clip(1 - |counted - spectral| / 3 per min, 0, 1) x min(1, intervals / 10)
        x sqrt(usable fraction); 0 when either rate is missing.
     4. Rise/fall: within each breath cycle the peak is the maximum and the trough the
