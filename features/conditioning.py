@@ -317,21 +317,30 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
     static: list[float | None] = []
     force_blocks: list[FloatArray] = []
     live = 0
+    levels: list[float] = []
+    block_rows = np.empty((len(chans), m), dtype=np.float64)
     for i, (ch, x) in enumerate(zip(chans, arrays, strict=True)):
         row = signals[i]
         _to_si(x, ch, row)
         blocks = block_means(row, factor)
         level = float(np.median(blocks))
+        levels.append(level)
         row -= level
         derivs = _DERIVATIVES[ch.quantity]
         if derivs or notch_hz is not None:
             response = _response(fs, notch_hz, derivs, flags)
             apply_frequency_response(row, fs, response)
-        slow = lowpass(block_means(row, factor), slow_fs, BASELINE_CUTOFF_HZ)
+        block_rows[i] = block_means(row, factor)
+        if ch.quantity == "force":
+            force_blocks.append(blocks)
+    # One call for all channels (row by row the same numbers).
+    slow_rows = lowpass(block_rows, slow_fs, BASELINE_CUTOFF_HZ)
+    for i, (ch, x) in enumerate(zip(chans, arrays, strict=True)):
+        row, slow, level = signals[i], slow_rows[i], levels[i]
+        derivs = _DERIVATIVES[ch.quantity]
         subtract_block_series(row, slow, factor)
         if ch.quantity == "force":
             static.append(level)
-            force_blocks.append(blocks)
             baselines[i] = slow + level
         else:
             static.append(None)
@@ -558,9 +567,8 @@ def _choose_mains(arrays: list[NDArray[np.generic]], chans: list[ChannelInput], 
         if not candidates:
             flags.append("mains_detection_skipped_rate_too_low")
             return None
-        spectra = [_hum_spectrum(x, fs) for x in arrays]  # one per channel, for both
-        ratios = {f: max(_hum_ratio_of(freqs, psd, f) for freqs, psd in spectra)
-                  for f in candidates}
+        freqs, psds = _hum_spectra(arrays, fs)  # one per channel, for both candidates
+        ratios = {f: max(_hum_ratio_of(freqs, psd, f) for psd in psds) for f in candidates}
         best = max(ratios, key=lambda f: ratios[f])
         if ratios[best] < MAINS_PEAK_RATIO:
             flags.append("mains_hum_not_detected")
@@ -575,16 +583,20 @@ def _choose_mains(arrays: list[NDArray[np.generic]], chans: list[ChannelInput], 
     return mains
 
 
-def _hum_spectrum(x: NDArray[np.generic], fs: float) -> tuple[FloatArray, FloatArray]:
-    """Mean Hann periodogram (0.25 Hz resolution) of up to 16 spread 4-s segments."""
+def _hum_spectra(arrays: list[NDArray[np.generic]], fs: float
+                 ) -> tuple[FloatArray, FloatArray]:
+    """Per channel, the mean Hann periodogram (0.25 Hz resolution) of up to 16 spread 4-s
+    segments; one FFT call for all channels (equal lengths)."""
     seg = int(round(4.0 * fs))
-    count = min(16, x.shape[0] // seg)
-    starts = np.linspace(0, x.shape[0] - seg, count).astype(np.int64)
-    segments = np.stack([np.asarray(x[s:s + seg], dtype=np.float64) for s in starts])
+    count = min(16, arrays[0].shape[0] // seg)
+    starts = np.linspace(0, arrays[0].shape[0] - seg, count).astype(np.int64)
+    segments = np.stack([np.asarray(x[s:s + seg], dtype=np.float64)
+                         for x in arrays for s in starts])
     # the periodogram of scipy.signal.periodogram(segments, fs=fs, window="hann",
     # detrend="constant", axis=-1), one row per segment
     est = welch_spectra(segments, fs, segment_n=seg, overlap_n=0)
-    return est.frequencies_hz, est.psd_x.mean(axis=0)
+    psds = est.psd_x.reshape(len(arrays), count, -1).mean(axis=1)
+    return est.frequencies_hz, psds
 
 
 def _hum_ratio_of(freqs: FloatArray, mean_psd: FloatArray, mains: int) -> float:

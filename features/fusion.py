@@ -25,7 +25,7 @@ from features.conditioning import (
     check_sampling_rate,
 )
 from features.errors import InvalidInputError
-from features.filters import FloatArray, bandpass, block_centres, block_means
+from features.filters import FloatArray, bandpass, block_centres, block_factor, block_means
 
 #: Analysis rate for the weights and the CoP, Hz (block means; at least 2.5x the band top).
 ANALYSIS_FS_HZ = 100.0
@@ -41,6 +41,8 @@ MAX_PERIODIC_FRACTION = 0.95
 MIN_SNR = 0.05
 #: Respiratory band of the CoP, Hz (3 to 60 breaths/min).
 RESPIRATORY_BAND_HZ = (0.05, 1.0)
+#: Rate of the CoP trajectory, Hz (block means; 10x the top of the respiratory band).
+COP_FS_HZ = 10.0
 #: CoP is undefined where the total force is below the lightest plausible occupant.
 _MIN_TOTAL_FORCE_N = MIN_OCCUPANT_KG * STANDARD_GRAVITY_M_S2
 #: Robust scale of a normal distribution from the median absolute deviation.
@@ -71,7 +73,8 @@ class FusionResult:
     heart_lag_s
         Median heart-period lag of the autocorrelation, s; None for one channel.
     cop_m
-        (m, 2) CoP trajectory in m at ``cop_fs_hz``; NaN where the support is empty.
+        (m, 2) CoP trajectory in m at ``cop_fs_hz`` (about ``COP_FS_HZ``); NaN where the
+        support is empty.
     cop_fs_hz
         Rate of ``cop_m`` and ``cop_respiratory_m``, Hz.
     cop_respiratory_m
@@ -163,10 +166,22 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
        give the plain sum (four load cells sum to the total force, in N).
        Departure from [1]: amplitude and noise come from the autocorrelation above,
        not from a known pilot, and correlated noise between channels is ignored.
-    6. CoP [2]: ``CoP(t) = sum_i F_i(t) p_i / sum_i F_i(t)`` on block means of the
-       total force ``F_i = signals_i + static_i``; undefined (NaN) where the total
-       is below ``MIN_OCCUPANT_KG * g``. The cardiac excursion is the median over
-       10 s windows of the radial RMS of the CoP band-passed to ``band_hz``.
+    6. CoP [2]: ``CoP(t) = sum_i F_i(t) p_i / sum_i F_i(t)`` on block means (to about
+       ``COP_FS_HZ``) of the total force ``F_i = signals_i + static_i``; undefined
+       (NaN) where the total is below ``MIN_OCCUPANT_KG * g``. Its respiratory
+       component is that trajectory band-passed to ``RESPIRATORY_BAND_HZ``.
+    7. The cardiac excursion is the median, over the 10 s windows fully occupied, of
+       the radial RMS of the CoP's ``band_hz`` component, taken to first order: with
+       ``S_i`` the window's mean total force per cell, ``S = sum_i S_i`` and
+       ``c = sum_i S_i p_i / S``, ``CoP - c = sum_i (p_i - c) dF_i / S + O(dF^2 / S^2)``
+       for force changes ``dF_i``, so the band-passed CoP is
+       ``sum_i (p_i - c) cardiac_i / S`` with ``cardiac_i`` the step-1 band of cell
+       ``i``. Cardiac forces are of the order of 1 % of the body weight, so the neglected
+       term is about 1 % of the excursion; a window's sway of ``c`` (millimetres against
+       lever arms of decimetres) adds less, and a load swinging by 10 % with breathing
+       within the window moves the result by about 1 % (tests/features/test_fusion.py,
+       against the exact lever rule band-passed by scipy). This reuses the step-1 band
+       instead of band-passing the CoP again.
 
     References
     ----------
@@ -194,6 +209,7 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
                                 f"Hz at fs_hz={fs:g}; got {band[1]:g}.")
     slow = block_means(x, factor)
     cardiac = bandpass(slow, fs_a, band, axis=-1)
+    cardiac_force = cardiac  # in the channels' units, before any scale normalisation
 
     if n_ch == 1:
         weights = np.ones(1)
@@ -218,11 +234,12 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
         scales = None if scales_arr is None else tuple(float(s) for s in scales_arr)
         snr = tuple(None if not math.isfinite(v) else float(v) for v in snr_arr)
 
-    cop = _cop(slow, fs, factor, positions_m, static_n, static_fs_hz, unit_list, band, flags)
+    cop = _cop(x, fs, cardiac_force, fs_a, positions_m, static_n, static_fs_hz, unit_list,
+               flags)
     return FusionResult(
         fused=fused, weights=tuple(float(w) for w in weights), method=method, unit=unit,
         channel_snr=snr, channel_scales=scales, heart_lag_s=lag_s,
-        cop_m=cop[0], cop_fs_hz=fs_a if cop[0] is not None else None,
+        cop_m=cop[0], cop_fs_hz=cop[3],
         cop_respiratory_m=cop[1], cop_cardiac_excursion_mm=cop[2],
         confidence=conf, flags=tuple(flags),
     )
@@ -320,7 +337,9 @@ def _autocorr(w: FloatArray, max_lag: int) -> FloatArray:
     """Unbiased autocorrelation along the last axis for lags 0..max_lag (one channel at
     a time, so that only one channel's spectra are held)."""
     length = w.shape[-1]
-    nfft = scipy.fft.next_fast_len(2 * length, real=True)
+    # Lags up to max_lag only: with nfft >= length + max_lag the circular wrap-around
+    # (lag nfft - k) falls outside the window, so these lags equal the linear ones.
+    nfft = scipy.fft.next_fast_len(length + max_lag, real=True)
     out = np.empty((*w.shape[:-1], max_lag + 1))
     norm = length - np.arange(max_lag + 1)
     for i in range(w.shape[0]):
@@ -404,56 +423,76 @@ def _periodic_fraction(cardiac: FloatArray, fs_a: float) -> float:
     return float(np.clip(np.median(frac), 0.0, 1.0))
 
 
-def _cop(slow: FloatArray, fs: float, factor: int, positions_m: ArrayLike | None,
-         static_n: ArrayLike | None, static_fs_hz: float | None, units: list[str] | None,
-         band: tuple[float, float], flags: list[str]
-         ) -> tuple[FloatArray | None, FloatArray | None, float | None]:
+def _cop(x: FloatArray, fs: float, cardiac: FloatArray, fs_a: float,
+         positions_m: ArrayLike | None, static_n: ArrayLike | None,
+         static_fs_hz: float | None, units: list[str] | None, flags: list[str]
+         ) -> tuple[FloatArray | None, FloatArray | None, float | None, float | None]:
+    """CoP trajectory, its respiratory band (both at ~COP_FS_HZ) and the cardiac excursion."""
     if positions_m is None:
-        return None, None, None
-    n_ch, m = slow.shape
+        return None, None, None, None
+    n_ch = x.shape[0]
     pos = np.asarray(positions_m, dtype=np.float64)
     if pos.shape != (n_ch, 2) or not np.isfinite(pos).all():
         raise InvalidInputError("positions_m", f"`positions_m` must be a finite ({n_ch}, 2) "
                                 f"array in m; got shape {pos.shape}.")
     if units is not None and any(u != "N" for u in units):
         flags.append("cop_needs_force_channels")
-        return None, None, None
+        return None, None, None, None
     if units is None:
         flags.append("cop_assumes_force_channels")
     if static_n is None:
         flags.append("cop_needs_static_force")
-        return None, None, None
-    total = slow + _static_at(static_n, static_fs_hz, fs, factor, n_ch, m)
+        return None, None, None, None
+    factor = block_factor(fs, COP_FS_HZ)
+    fs_c = fs / factor
+    m = x.shape[1] // factor
+    total = block_means(x, factor) + _static_at(static_n, static_fs_hz, fs, factor, n_ch, m)
     force = total.sum(axis=0)
     valid = force >= _MIN_TOTAL_FORCE_N
     if not valid.any():
         flags.append("cop_support_empty")
-        return None, None, None
+        return None, None, None, None
     safe = np.where(valid, force, 1.0)
     cop = np.ascontiguousarray(((pos.T @ total) / safe).T)
     cop[~valid] = np.nan
-    filled = cop.copy()
     idx = np.arange(m)
-    for axis in range(2):
-        filled[:, axis] = np.interp(idx, idx[valid], cop[valid, axis])
-    fs_a = fs / factor
-    filled_t = np.ascontiguousarray(filled.T)
-    resp = np.ascontiguousarray(bandpass(filled_t, fs_a, RESPIRATORY_BAND_HZ).T)
+    filled_t = np.stack([np.interp(idx, idx[valid], cop[valid, axis]) for axis in range(2)])
+    resp = np.ascontiguousarray(bandpass(filled_t, fs_c, RESPIRATORY_BAND_HZ).T)
     resp[~valid] = np.nan
     excursion = None
     if valid.mean() < 0.5:
         flags.append("cop_support_mostly_empty_no_excursion")
     else:
-        card = bandpass(filled_t, fs_a, band)
-        power = (card ** 2).sum(axis=0)
-        win_p = _windows(power[None], fs_a)[0]
-        win_v = _windows(valid[None].astype(np.float64), fs_a)[0]
-        full = win_v.min(axis=-1) > 0.0
-        if full.any():
-            excursion = float(1000.0 * np.median(np.sqrt(win_p[full].mean(axis=-1))))
-        else:
+        excursion = _cardiac_excursion_mm(cardiac, fs_a, total, valid, fs_c, pos)
+        if excursion is None:
             flags.append("cop_no_fully_occupied_window_no_excursion")
-    return cop, resp, excursion
+    return cop, resp, excursion, fs_c
+
+
+def _cardiac_excursion_mm(cardiac: FloatArray, fs_a: float, total: FloatArray,
+                          valid: NDArray[np.bool_], fs_c: float, pos: FloatArray
+                          ) -> float | None:
+    """Median radial RMS of the first-order cardiac-band CoP over fully occupied windows."""
+    win = _windows(cardiac, fs_a)  # (n_ch, n_win, L)
+    m = total.shape[1]
+    # Each window's span on the CoP grid, by time (the two rates need not divide).
+    edges = np.round(np.arange(win.shape[1] + 1) * (win.shape[2] / fs_a) * fs_c)
+    edges = np.minimum(edges.astype(np.int64), m)
+    lengths = np.diff(edges)
+    cum_force = np.concatenate((np.zeros((total.shape[0], 1)), np.cumsum(total, axis=1)),
+                               axis=1)
+    cum_empty = np.concatenate(([0], np.cumsum(~valid)))
+    full = (lengths > 0) & (cum_empty[edges[1:]] == cum_empty[edges[:-1]])
+    if not full.any():
+        return None
+    keep = np.flatnonzero(full)
+    s_i = (cum_force[:, edges[1:][keep]] - cum_force[:, edges[:-1][keep]]) / lengths[keep]
+    s = s_i.sum(axis=0)  # (k,) mean total force of each kept window
+    centre = (pos.T @ s_i) / s  # (2, k)
+    lever = (pos[:, :, None] - centre[None, :, :]) / s  # (n_ch, 2, k)
+    band_cop = np.einsum("cak,ckl->kal", lever, win[:, keep])
+    rms = np.sqrt((band_cop * band_cop).sum(axis=1).mean(axis=-1))
+    return float(1000.0 * np.median(rms))
 
 
 def _static_at(static_n: ArrayLike, static_fs_hz: float | None, fs: float, factor: int,

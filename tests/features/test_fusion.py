@@ -214,3 +214,43 @@ def test_weighted_sum_in_chunks_equals_one_blas_axpy() -> None:
     for i in (1, 2):
         ref = blas.daxpy(x[i], ref, a=float(w[i]))
     np.testing.assert_array_equal(_weighted_sum(x, w), ref)
+
+
+def test_window_autocorrelation_equals_numpy_correlate() -> None:
+    # Reference: numpy.correlate(x, x, "full") divided by the overlap length (the unbiased
+    # estimate) for lags 0..max_lag; the FFT length only covers length + max_lag.
+    from features.fusion import _autocorr
+
+    rng = np.random.default_rng(21)
+    w = rng.standard_normal((2, 3, 1250))
+    r = _autocorr(w, 250)
+    for c in range(2):
+        for k in range(3):
+            full = np.correlate(w[c, k], w[c, k], mode="full")[1249:1249 + 251]
+            np.testing.assert_allclose(r[c, k], full / (1250 - np.arange(251)), atol=1e-12)
+
+
+def test_cardiac_excursion_follows_the_exact_lever_rule_with_a_varying_load() -> None:
+    # Reference: the CoP by the lever rule (Winter 2009) from the total cell forces,
+    # band-passed 1-20 Hz with scipy.signal.sosfiltfilt (Butterworth, order 2), radial
+    # RMS per 10-s window, median. The engine's first-order form must agree within 2 %
+    # while the load on the plate swings by 10 % with breathing.
+    from scipy import signal as sps
+
+    n = int(120 * FS)
+    t = np.arange(n) / FS
+    static = _plate_forces(70.0, (0.8, 0.5), (2.0, 0.9))
+    swing = 1.0 + 0.1 * np.sin(2 * np.pi * 0.25 * t)
+    beat = 3.0 * np.sin(2 * np.pi * 6.0 * t) * (1.0 + 0.5 * np.sin(2 * np.pi * 0.2 * t))
+    share = np.array([0.6, -0.2, 0.1, -0.5])
+    total = static[:, None] * swing[None, :] + share[:, None] * beat[None, :]
+    res = fuse_channels(total - static[:, None], FS, units=["N"] * 4, positions_m=CORNERS,
+                        static_n=static)
+    pos = np.asarray(CORNERS)
+    cop = (pos.T @ total) / total.sum(axis=0)
+    sos = sps.butter(2, (1.0, 20.0), btype="bandpass", fs=FS, output="sos")
+    band = sps.sosfiltfilt(sos, cop, axis=-1)
+    length = int(10 * FS)
+    wins = band[:, : (n // length) * length].reshape(2, -1, length)
+    expected_mm = 1000.0 * np.median(np.sqrt((wins ** 2).sum(axis=0).mean(axis=-1)))
+    assert res.cop_cardiac_excursion_mm == pytest.approx(expected_mm, rel=0.02)
