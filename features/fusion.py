@@ -453,10 +453,14 @@ def _cop(x: FloatArray, fs: float, cardiac: FloatArray, fs_a: float,
         flags.append("cop_support_empty")
         return None, None, None, None
     safe = np.where(valid, force, 1.0)
-    cop = np.ascontiguousarray(((pos.T @ total) / safe).T)
+    at_centres = (pos.T @ total) / safe  # (2, m), block k centred at block_centres(m)[k]
+    # Onto the grid k / fs_c of the result (a block's centre is half a block later, 48 ms
+    # at 10 Hz): interpolated over the occupied blocks only.
+    centres = block_centres(m, factor)
+    grid = np.arange(m, dtype=np.float64) * factor
+    filled_t = np.stack([np.interp(grid, centres[valid], row[valid]) for row in at_centres])
+    cop = np.ascontiguousarray(filled_t.T)
     cop[~valid] = np.nan
-    idx = np.arange(m)
-    filled_t = np.stack([np.interp(idx, idx[valid], cop[valid, axis]) for axis in range(2)])
     resp = np.ascontiguousarray(bandpass(filled_t, fs_c, RESPIRATORY_BAND_HZ).T)
     resp[~valid] = np.nan
     excursion = None

@@ -254,3 +254,25 @@ def test_cardiac_excursion_follows_the_exact_lever_rule_with_a_varying_load() ->
     wins = band[:, : (n // length) * length].reshape(2, -1, length)
     expected_mm = 1000.0 * np.median(np.sqrt((wins ** 2).sum(axis=0).mean(axis=-1)))
     assert res.cop_cardiac_excursion_mm == pytest.approx(expected_mm, rel=0.02)
+
+
+def test_cop_samples_sit_at_their_stated_times() -> None:
+    # A slow sway moves the load between the x = 0 and x = 2 m cells; by the lever rule
+    # (Winter 2009) x(t) = 2 m * F_right(t) / F_total. Sample k of cop_m must be the CoP
+    # at k / cop_fs_hz s: a half-block offset (48 ms at 10 Hz) would be 3.8 mm off here.
+    n = int(60 * FS)
+    t = np.arange(n) / FS
+    static = _plate_forces(70.0, (1.0, 0.45), (2.0, 0.9))
+    total_n = 70.0 * G
+    x_t = 1.0 + 0.05 * np.sin(2 * np.pi * 0.25 * t)
+    right = total_n * x_t / 2.0
+    forces = np.stack([(total_n - right) * 0.55, right * 0.55,
+                       (total_n - right) * 0.45, right * 0.45])
+    res = fuse_channels(forces - static[:, None], FS, units=["N"] * 4, positions_m=CORNERS,
+                        static_n=static)
+    assert res.cop_m is not None and res.cop_fs_hz is not None
+    times = np.arange(res.cop_m.shape[0]) / res.cop_fs_hz
+    inner = (times > 1.0) & (times < 59.0)
+    expected = 1.0 + 0.05 * np.sin(2 * np.pi * 0.25 * times[inner])
+    # block means and linear interpolation of a 0.25 Hz sway at 10 Hz: about 0.2 mm
+    np.testing.assert_allclose(res.cop_m[inner, 0], expected, atol=5e-4)
