@@ -27,7 +27,8 @@ from features.conditioning import (
 from features.errors import InvalidInputError
 from features.filters import FloatArray, bandpass, block_centres, block_factor, block_means
 
-#: Analysis rate for the weights and the CoP, Hz (block means; at least 2.5x the band top).
+#: Analysis rate for the weights and the cardiac band, Hz (block means; at least 2.5x the
+#: band top).
 ANALYSIS_FS_HZ = 100.0
 #: Window of the autocorrelation estimates, s (several beats even at 30 bpm).
 WINDOW_S = 10.0
