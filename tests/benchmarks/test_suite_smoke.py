@@ -31,6 +31,11 @@ def test_quick_suite_runs_and_reports_every_case(tmp_path: Path) -> None:
     for case in res["cases"]:
         assert case["engine"]["seconds"] > 0
         assert set(floor.PASSES) <= set(case["engine"]["floor"])
+        # engine and floor timed in pairs; the multiple is the median of the pairs' ratios
+        runs, floors = case["engine"]["runs"], case["engine"]["floor_runs"]
+        assert len(runs) == len(floors) >= 3
+        assert case["engine"]["floor_multiple"] == pytest.approx(
+            float(np.median([e / f for e, f in zip(runs, floors, strict=True)])))
         assert "seconds" in case["peer"] or "skipped" in case["peer"]
     # The simulator's default heart rate is 68 bpm (features/simulation.py, SimulationSettings).
     assert res["cases"][0]["engine"]["mean_bpm"] == pytest.approx(68.0, abs=3.0)
@@ -53,7 +58,8 @@ def test_floor_times_every_pass() -> None:
 
 def _result(speed_up: float, multiple: float, exponent: float) -> dict:
     case = {"fs_hz": 250.0, "channels": 1, "length_s": 3600.0,
-            "engine": {"seconds": 1.0, "floor": {"total": 1.0 / multiple}},
+            "engine": {"seconds": 1.0, "floor": {"total": 1.0 / multiple},
+                       "floor_multiple": multiple},
             "peer": {"seconds": speed_up}}
     return {"quick": False, "cases": [case], "scaling": {"engine": exponent},
             "windowed": {"hours": 8.0, "fs_hz": 1000.0, "ru_maxrss_mb": 2100.0},
