@@ -1,7 +1,8 @@
 """The floor: the numerical passes an engine like ours cannot avoid, timed on its input.
 
 :func:`floor_passes` runs each pass once on the same channels the engine gets and returns
-the wall time of each; :func:`median_floor` repeats that and keeps the median per pass.
+the wall time of each; the suite (:mod:`benchmarks.suite`) times it in pairs with the
+engine and keeps the medians.
 The passes, in the order they run:
 
 1. ``bandpass``: zero-phase 2nd-order Butterworth band-pass of the beat band
@@ -31,7 +32,6 @@ the sum of these passes is the "multiple of the floor" in the suite's table.
 
 from __future__ import annotations
 
-import statistics
 import time
 from fractions import Fraction
 
@@ -106,12 +106,3 @@ def floor_passes(signals: NDArray[np.float64], fs_hz: float) -> dict[str, float]
     signal.welch(summed, fs=fs_hz, window="hann", nperseg=nper, noverlap=nper // 2)
     times["welch"] = clock() - t0
     return times
-
-
-def median_floor(signals: NDArray[np.float64], fs_hz: float, repeats: int) -> dict[str, float]:
-    """Median over ``repeats`` runs (after one warm-up run) of each pass, plus their ``total``."""
-    floor_passes(signals, fs_hz)
-    runs = [floor_passes(signals, fs_hz) for _ in range(max(1, repeats))]
-    out = {name: statistics.median(r[name] for r in runs) for name in PASSES}
-    out["total"] = statistics.median(sum(r.values()) for r in runs)
-    return out
