@@ -208,11 +208,6 @@ def subtract_block_series(row: FloatArray, slow: FloatArray, factor: int) -> Non
         row[start:stop] -= np.interp(idx, centres, slow)
 
 
-def interpolate_block_series(slow: FloatArray, factor: int, at_index: FloatArray) -> FloatArray:
-    """Values of a block-rate series at fractional full-rate sample indices ``at_index``."""
-    return np.interp(at_index, block_centres(slow.shape[0], factor), slow)
-
-
 def raised_cosine_lowpass(freqs_hz: FloatArray, pass_hz: float, stop_hz: float) -> FloatArray:
     """Gain 1 up to ``pass_hz``, half-cosine taper to 0 at ``stop_hz``, 0 above."""
     t = np.clip((freqs_hz - pass_hz) / (stop_hz - pass_hz), 0.0, 1.0)
