@@ -18,8 +18,9 @@ run:
 	echo "heartsway is serving on http://$(HOST):$(PORT) (Ctrl-C to stop)."; \
 	wait $$server
 
-# Install the test extras into .venv, lint, and run the whole test suite.
+# Install the test extras into .venv and the programs the tests drive, lint, run the suite.
 test:
+	bash .ci/install-test-tools
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --disable-pip-version-check -e '.[test]'
 	$(BIN)/ruff check .
