@@ -41,3 +41,13 @@ def test_every_package_a_shipped_package_imports_is_shipped() -> None:
     assert "simulation" in needed
     assert needed <= shipped
     assert shipped == set(ALLOWED) - NOT_SHIPPED
+
+
+def test_the_image_build_context_holds_exactly_the_shipped_packages() -> None:
+    # The Dockerfile copies the build context and pip-installs it: a package the wheel
+    # ships but .dockerignore keeps out would be missing from the image (the demo needs
+    # simulation), and a repository-only one let in would be dead weight.
+    lines = (ROOT / ".dockerignore").read_text(encoding="utf-8").split()
+    let_in = {line[1:].strip("/") for line in lines if line.startswith("!") and
+              line.endswith("/")}
+    assert let_in == _packaged()
