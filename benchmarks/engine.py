@@ -20,7 +20,7 @@ import tracemalloc
 import numpy as np
 
 from features import ChannelInput, analyze
-from features.simulation import SimulationSettings, simulate
+from simulation import SimulationSettings, simulate
 
 BLOCK_S = 1800.0
 """Longest simulated block; longer traces repeat blocks of different seeds end to end."""

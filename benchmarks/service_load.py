@@ -58,7 +58,7 @@ end
 def request_body(duration_s: float, fs_hz: float, *, seed: int = 1,
                  encoding: str = "samples") -> bytes:
     """A one-channel analysis request of simulated force (N, 3 decimals), as JSON bytes."""
-    from features.simulation import SimulationSettings, simulate
+    from simulation import SimulationSettings, simulate
 
     rec = simulate(SimulationSettings(duration_s=duration_s, fs_hz=fs_hz, n_channels=1,
                                       seed=seed))

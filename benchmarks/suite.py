@@ -2,7 +2,7 @@
 
 Run from the repository root: ``python -m benchmarks.suite [--quick] [--json PATH]``.
 
-1. Traces: simulated seated force (``features.simulation``) in 30-minute blocks, seeds
+1. Traces: simulated seated force (``simulation``) in 30-minute blocks, seeds
    1-4 in turn, tiled to the longest length of each (rate, channels) pair; shorter
    lengths are the first minutes of the same trace. They are written as raw float64 files
    in a temporary directory.
@@ -143,7 +143,7 @@ def _peak_mb() -> float:
 
 def build_trace(path: str, duration_s: float, fs_hz: float, n_channels: int) -> dict[str, Any]:
     """Tile simulated blocks into a raw float64 (channels x samples) file; its metadata."""
-    from features.simulation import SimulationSettings, simulate
+    from simulation import SimulationSettings, simulate
 
     block_s = min(BLOCK_S, duration_s)
     n = round(duration_s * fs_hz)

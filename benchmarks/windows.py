@@ -83,7 +83,7 @@ class _WindowReader:
 
 def build_trace(path: str, hours: float, fs_hz: float, n_channels: int) -> tuple[int, dict]:
     """Tile simulated 30-min blocks into a (channels, samples) float32 memmap at ``path``."""
-    from features.simulation import SimulationSettings, simulate
+    from simulation import SimulationSettings, simulate
 
     n_block = round(BLOCK_S * fs_hz)
     n_blocks = int(np.ceil(hours * 3600.0 / BLOCK_S))

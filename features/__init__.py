@@ -32,8 +32,6 @@ feature vector
 windows
     analyze_windows(channels, fs_hz, *, window_s, overlap_s, ...) -> WindowedAnalysis
     iter_windows(...) -> iterator of WindowResult
-simulation (demo and validation only)
-    simulate(settings) -> SimulatedRecording
 """
 
 __version__ = "0.1.0"

@@ -694,7 +694,7 @@ def _noise_limited(
     Noise density = 20th percentile of the Welch PSD over 0.1-0.7 Hz (the breathing peak,
     its harmonics and their skirts can fill most of the band, so the median is not noise).
     Flagged when 6 noise SDs reach ``fraction`` of the median breathing swing. The factor 6
-    was set on simulated recordings (features.simulation, 1/f plus white sensor noise):
+    was set on simulated recordings (the simulation package, 1/f plus white sensor noise):
     there, at 10 dB cardiac SNR, pauses were not separable from breathing and the ratio
     6 SD / (0.25 swing) was 1.0-2.2; noise free and at 20 dB it was 0.3-0.8.
     """

@@ -2,7 +2,7 @@
 
 An assisted-living provider has a plate with four load cells under a
 resident's armchair; each evening a short seated trace is recorded. The trace
-here is synthesised by :mod:`features.simulation` (invented data, for the demo
+here is synthesised by :mod:`simulation` (invented data, for the demo
 only) with a fixed seed, so every run sends the same request.
 """
 
@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from features.simulation import SimulationSettings, simulate
+from simulation import SimulationSettings, simulate
 
 #: Settings of the demo trace: two minutes at 250 Hz, four cells, a 72 kg resident.
 DEMO_SETTINGS = SimulationSettings(

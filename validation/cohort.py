@@ -4,7 +4,7 @@ Usage::
 
     python -m validation.cohort [--quick] [--seed N] [--json PATH]
 
-Each case is a recording from :func:`features.simulation.simulate` with known truth. The
+Each case is a recording from :func:`simulation.simulate` with known truth. The
 engine (``features.analyze``) and the baseline (:mod:`validation.baseline`) run on the same
 channels; their beats are matched to the truth J times with :func:`validation.matching.
 match_beats` (tolerance 150 ms).
@@ -34,7 +34,7 @@ from typing import Any
 
 import numpy as np
 
-from features.simulation import SimulatedRecording, SimulationSettings, simulate
+from simulation import SimulatedRecording, SimulationSettings, simulate
 from validation.baseline import detect_beats_baseline
 from validation.matching import BeatMatch, match_beats
 

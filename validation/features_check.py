@@ -6,7 +6,7 @@ Usage::
 
 Cases: the validation cohort (:func:`validation.cohort.build_cases`) plus two sweeps with
 default conditions otherwise, one of ``rsa_depth_ms`` and one of ``sv_modulation``. Every
-case is simulated (:func:`features.simulation.simulate`), analysed with
+case is simulated (:func:`simulation.simulate`), analysed with
 :func:`features.engine.analyze` and reduced to the feature vector
 (:func:`features.feature_vector.feature_vector`), whose values and confidences are compared
 with the simulator's truth:
@@ -59,7 +59,7 @@ from features.conditioning import ChannelInput
 from features.engine import Subject, analyze
 from features.errors import EngineError
 from features.feature_vector import FeatureVector, feature_vector
-from features.simulation import SimulationSettings, SimulationTruth, simulate
+from simulation import SimulationSettings, SimulationTruth, simulate
 from validation.cohort import CaseSpec, build_cases
 
 __all__ = [

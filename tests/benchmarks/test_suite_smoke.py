@@ -37,7 +37,7 @@ def test_quick_suite_runs_and_reports_every_case(tmp_path: Path) -> None:
         assert case["engine"]["floor_multiple"] == pytest.approx(
             float(np.median([e / f for e, f in zip(runs, floors, strict=True)])))
         assert "seconds" in case["peer"] or "skipped" in case["peer"]
-    # The simulator's default heart rate is 68 bpm (features/simulation.py, SimulationSettings).
+    # The simulator's default heart rate is 68 bpm (simulation/settings.py, SimulationSettings).
     assert res["cases"][0]["engine"]["mean_bpm"] == pytest.approx(68.0, abs=3.0)
 
 

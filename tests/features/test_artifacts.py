@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+from functools import cache
+
 import numpy as np
 import pytest
-from synthetic_beats import ijk_train
 
 from features.artifacts import Segment, mask_artifacts
 from features.errors import InvalidInputError
+from simulation import SimulatedRecording, SimulationSettings, simulate
 
 FS = 250.0
 G = 9.80665  # standard gravity, m/s^2 (NIST SP 811, 2008, B.8)
@@ -15,16 +17,30 @@ DURATION_S = 300.0
 LOAD_FS = 10.0
 
 
+@cache
+def _simulated(seed: int) -> SimulatedRecording:
+    """A quiet seated recording on four load cells: a 75 kg occupant, cushion, SNR 10 dB."""
+    return simulate(SimulationSettings(duration_s=DURATION_S, fs_hz=FS, n_channels=4,
+                                       body_mass_kg=75.0, seed=seed))
+
+
+def _j_amplitude_n(seed: int) -> float:
+    """J amplitude of the simulated beat (noise-free template), N: the scale of the injections."""
+    template = _simulated(seed).truth.template
+    assert template is not None
+    return next(w.amplitude for w in template.waves if w.name == "J")
+
+
 def _record(seed: int = 0) -> tuple[np.ndarray, list[np.ndarray], np.ndarray]:
-    """Fused trace, four raw load-cell traces (N) and a 10 Hz occupant load trace."""
-    rng = np.random.default_rng(seed)
-    n = int(DURATION_S * FS)
-    t = np.arange(n) / FS
-    body = ijk_train(DURATION_S, FS, rng) + 0.3 * np.sin(2 * np.pi * 0.25 * t)
-    fused = body + 0.05 * rng.standard_normal(n)
-    share = [0.4, 0.3, 0.2, 0.1]
-    raw = [s * 75.0 * G + s * body + 0.02 * rng.standard_normal(n) for s in share]
-    load = np.full(int(DURATION_S * LOAD_FS), 75.0 * G)
+    """Fused trace, four raw load-cell traces (N) and a 10 Hz occupant load trace.
+
+    The cells and their static load come from the simulator; the fused trace is the summed
+    load less its static part (the plain sum is what fusion gives four equal cells).
+    """
+    rec = _simulated(seed)
+    raw = [np.array(c) for c in rec.channels]
+    fused = np.sum(raw, axis=0) - rec.truth.static_load_n
+    load = np.full(int(DURATION_S * LOAD_FS), rec.truth.static_load_n)
     return fused, raw, load
 
 
@@ -45,8 +61,9 @@ def _inject(seed: int = 1) -> tuple[np.ndarray, list[np.ndarray], np.ndarray]:
     fused, raw, load = _record(seed)
     rng = np.random.default_rng(100 + seed)
     i = lambda s: int(s * FS)  # noqa: E731
-    # Movement: 3 s of broadband motion, ten times the cardiac amplitude, 60-63 s.
-    burst = 3.0 * rng.standard_normal(i(3.0))
+    # Movement: 3 s of broadband motion, rms three J amplitudes (over ten times the
+    # cardiac rms), 60-63 s.
+    burst = 3.0 * _j_amplitude_n(seed) * rng.standard_normal(i(3.0))
     fused[i(60):i(63)] += burst
     for r in raw:
         r[i(60):i(63)] += burst
@@ -120,7 +137,7 @@ def test_mask_is_scale_invariant(factor: float) -> None:
 def test_time_shift_moves_the_movement_segment() -> None:
     fused, _, _ = _record(seed=3)
     rng = np.random.default_rng(7)
-    burst = 3.0 * rng.standard_normal(int(2 * FS))
+    burst = 3.0 * _j_amplitude_n(3) * rng.standard_normal(int(2 * FS))
     one, two = fused.copy(), fused.copy()
     one[int(100 * FS):int(102 * FS)] += burst
     two[int(150 * FS):int(152 * FS)] += burst

@@ -1,4 +1,12 @@
-"""Beat detector: handcrafted traces with known beat times, invariances, errors."""
+"""Beat detector: simulated and handcrafted traces with known beat times, invariances, errors.
+
+Simulated recordings (the simulation package) give the true J instant of every beat. Two
+properties need a beat whose shape the test controls exactly, and keep a handcrafted
+sum-of-Gaussians complex: one complex at a quarter of the others' amplitude (a simulated
+beat cannot be scaled alone: the support's response spreads it into its neighbours), and a
+shape that does not change with the preceding interval, or changes by a set law (the
+simulator's complexes shift with the interval by its own, milder physics).
+"""
 
 import numpy as np
 import pytest
@@ -6,6 +14,7 @@ from scipy import signal
 
 from features.beats import MIN_DURATION_S, detect_beats
 from features.errors import InvalidInputError
+from simulation import SimulationSettings, simulate
 
 # Wave offsets from J (s), relative amplitudes and widths (s) of an H-I-J-K-L
 # complex; J largest and positive, I and K the troughs around it, 40-90 ms
@@ -14,9 +23,16 @@ WAVES = ((-0.10, 0.25, 0.020), (-0.05, -0.6, 0.018), (0.0, 1.0, 0.020),
          (0.065, -0.8, 0.022), (0.14, 0.3, 0.030))
 
 
-def _trace(fs=250.0, dur=120.0, hr=70.0, snr_db=10.0, seed=0, jitter=0.05, gains=None,
-           waves=WAVES):
-    """Sum-of-Gaussians beats at known J times, band-limited noise at a set SNR."""
+def _simulated(fs=250.0, seed=0, **settings):
+    """One simulated seated force channel (2 min, 70 bpm, SNR 10 dB) and its true J times."""
+    rec = simulate(SimulationSettings(duration_s=120.0, fs_hz=fs, heart_rate_bpm=70.0,
+                                      seed=seed, **settings))
+    return rec.channels[0], rec.truth.j_times_s
+
+
+def _gaussian_trace(fs=250.0, dur=120.0, hr=70.0, snr_db=10.0, seed=0, jitter=0.05, gains=None,
+                    waves=WAVES):
+    """Sum-of-Gaussians beats of one fixed shape at known J times, noise at a set SNR."""
     rng = np.random.default_rng(seed)
     period = 60.0 / hr
     times = [1.0]
@@ -43,8 +59,8 @@ def _matched(det, ref, tol=0.15):
     return near <= tol
 
 
-def test_handcrafted_trace_finds_every_beat_at_its_j_time():
-    x, ref = _trace()
+def test_simulated_trace_finds_every_beat_at_its_j_time():
+    x, ref = _simulated()
     d = detect_beats(x, 250.0)
     assert d.has_beats and d.polarity == 1
     assert d.times_s.size == ref.size
@@ -57,22 +73,18 @@ def test_handcrafted_trace_finds_every_beat_at_its_j_time():
 
 
 def test_inverted_trace_is_detected_with_negative_polarity_and_same_times():
-    x, ref = _trace(seed=1)
+    x, ref = _simulated(seed=1)
     up = detect_beats(x, 250.0)
     down = detect_beats(-x, 250.0)
     assert down.polarity == -1 and up.polarity == 1
     np.testing.assert_allclose(down.times_s, up.times_s, atol=1e-9)
 
 
-# A lightly damped support rings after J: K deeper than J, L nearly as high
-# (the simulator's "ringing" preset shows the same pattern).
-RINGING = ((-0.05, -0.3, 0.018), (0.0, 1.0, 0.02), (0.08, -1.2, 0.022),
-           (0.16, 0.8, 0.025), (0.24, -0.4, 0.03))
-
-
 @pytest.mark.parametrize("sign", [1, -1])
 def test_polarity_follows_the_leading_j_wave_on_a_ringing_support(sign):
-    x, ref = _trace(seed=7, waves=RINGING)
+    # A lightly damped support rings after J: on the simulator's "ringing" preset K is
+    # deeper than J and L nearly as high (f_n 6 Hz, damping ratio 0.07).
+    x, ref = _simulated(seed=7, support="ringing")
     d = detect_beats(sign * x, 250.0)
     assert d.polarity == sign
     # J times, not K times: within 20 ms of the truth.
@@ -81,14 +93,14 @@ def test_polarity_follows_the_leading_j_wave_on_a_ringing_support(sign):
 
 @pytest.mark.parametrize("fs", [50.0, 100.0, 500.0, 1000.0])
 def test_sampling_rate_change_keeps_beats(fs):
-    x, ref = _trace(fs=fs, seed=2)
+    x, ref = _simulated(fs=fs, seed=2)
     d = detect_beats(x, fs)
     assert np.all(_matched(d.times_s, ref))
     assert d.times_s.size == ref.size
 
 
 def test_amplitude_scaling_and_time_shift():
-    x, ref = _trace(seed=3)
+    x, ref = _simulated(seed=3)
     base = detect_beats(x, 250.0)
     scaled = detect_beats(x * 1e-4, 250.0)
     np.testing.assert_allclose(scaled.times_s, base.times_s, atol=1e-9)
@@ -108,7 +120,7 @@ def test_noise_alone_has_no_beat_evidence():
 
 
 def test_masked_span_holds_no_beat():
-    x, ref = _trace(seed=5)
+    x, ref = _simulated(seed=5)
     usable = np.ones(x.size, dtype=bool)
     usable[250 * 40 : 250 * 50] = False
     d = detect_beats(x, 250.0, usable=usable)
@@ -128,7 +140,7 @@ def test_missed_beat_search_recovers_a_weak_beat():
         g[60] = 0.25
         return g
 
-    x, ref = _trace(seed=6, snr_db=20, gains=gains)
+    x, ref = _gaussian_trace(seed=6, snr_db=20, gains=gains)
     d = detect_beats(x, 250.0)
     assert d.n_recovered >= 1
     assert np.all(_matched(d.times_s, ref))
@@ -235,7 +247,7 @@ def test_a_fixed_beat_shape_loses_nothing_to_the_trend_step(monkeypatch):
     import features.beats as beats_module
 
     for seed, jitter in ((0, 0.05), (2, 0.1), (3, 0.1)):
-        x, ref = _trace(seed=seed, jitter=jitter)
+        x, ref = _gaussian_trace(seed=seed, jitter=jitter)
         monkeypatch.setattr(beats_module, "TREND_Z", 2.0)
         a = detect_beats(x, 250.0)
         monkeypatch.setattr(beats_module, "TREND_Z", np.inf)

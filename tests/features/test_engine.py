@@ -8,7 +8,7 @@ from hypothesis.extra.numpy import arrays
 
 from features import ChannelInput, InvalidInputError, UnusableSignalError, analyze
 from features.engine import Options, Subject
-from features.simulation import SimulationSettings, simulate
+from simulation import SimulationSettings, simulate
 
 
 def _channels(rec, scale=1.0, offset=0.0):

@@ -4,7 +4,7 @@
    count, with or without positions) gives a result or a documented error
    (InvalidInputError, UnusableSignalError), never another exception and never
    a library warning (pytest runs with filterwarnings=error).
-2. Invariances on realistic simulated traces (features.simulation), within
+2. Invariances on realistic simulated traces (the simulation package), within
    stated tolerances: amplitude scaling, constant offset, polarity (timing
    features), time shift.
 """
@@ -21,7 +21,7 @@ from hypothesis.extra.numpy import arrays
 from features import ChannelInput, InvalidInputError, UnusableSignalError, analyze
 from features.conditioning import valid_units
 from features.engine import Options
-from features.simulation import SimulationSettings, simulate
+from simulation import SimulationSettings, simulate
 
 QUICK = settings(max_examples=25, deadline=None, derandomize=True,
                  suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])

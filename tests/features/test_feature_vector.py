@@ -19,7 +19,7 @@ from features.feature_vector import (
     feature_vector,
 )
 from features.morphology import _WAVE_RULES
-from features.simulation import SimulationSettings, SimulationTruth, simulate
+from simulation import SimulationSettings, SimulationTruth, simulate
 
 # When a definition changes, bump FEATURE_SET_VERSION in features/engine.py and add the new
 # fingerprint here: an old version must never name a different catalogue.
@@ -135,7 +135,7 @@ def test_vector_of_a_seated_recording_tracks_the_truth(
     assert vector.feature_set_version == result.feature_set_version == FEATURE_SET_VERSION
     v = vector.as_dict()
     assert list(v) == list(FEATURE_NAMES)
-    # Truth of features.simulation; tolerances are the acceptance lines of the engine issues
+    # Truth of the simulator; tolerances are the acceptance lines of the engine issues
     # (3 bpm heart rate; 1 /min breathing; 10 ms wave intervals; 15 % amplitudes).
     assert truth.heart_rate_bpm is not None and truth.template is not None
     assert abs(v["heart_rate_mean_bpm"] - truth.heart_rate_bpm) <= 3.0  # type: ignore

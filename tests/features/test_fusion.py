@@ -4,18 +4,25 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from synthetic_beats import ijk_train
 
 from features.conditioning import ChannelInput, condition_channels
 from features.errors import InvalidInputError
 from features.fusion import fuse_channels
+from simulation import SimulationSettings, simulate
 
 FS = 250.0
 G = 9.80665  # standard gravity, m/s^2 (NIST SP 811, 2008, B.8)
 
 
 def _bcg(duration_s: float, fs: float = FS, seed: int = 0) -> np.ndarray:
-    return ijk_train(duration_s, fs, np.random.default_rng(seed))
+    """Noise-free cardiac force of a simulated seated recording, in units of its J amplitude.
+
+    The tests add their own channel noise to it, as fractions of the J wave.
+    """
+    rec = simulate(SimulationSettings(duration_s=duration_s, fs_hz=fs, snr_db=None, seed=seed))
+    assert rec.truth.template is not None
+    j_n = next(w.amplitude for w in rec.truth.template.waves if w.name == "J")
+    return rec.truth.cardiac_signal / j_n
 
 
 def test_inverted_channel_gets_negative_weight_and_noise_is_down_weighted() -> None:

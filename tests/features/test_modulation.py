@@ -171,13 +171,13 @@ def test_baseline_modulation_ratio_hand_computed():
 
 
 def test_indices_rank_the_simulated_modulation_depths():
-    # Eight simulated recordings (features.simulation) with set rsa_depth_ms and
+    # Eight simulated recordings (the simulation package) with set rsa_depth_ms and
     # sv_modulation in shuffled pairings; the full chain (breath times from the breathing
     # stage, J-K amplitudes from the morphology stage, truth beat times) must rank them:
     # Spearman rho >= 0.8 (scipy.stats.spearmanr; project acceptance).
     from features.morphology import beat_morphology
     from features.respiration import breathing
-    from features.simulation import SimulationSettings, simulate
+    from simulation import SimulationSettings, simulate
 
     rsa_set = [0.0, 15.0, 30.0, 45.0, 60.0, 80.0, 100.0, 130.0]
     sv_set = [0.25, 0.04, 0.16, 0.0, 0.3, 0.08, 0.2, 0.12]

@@ -228,12 +228,12 @@ def test_masked_artifacts_do_not_reach_the_template():
 
 
 def test_simulated_recordings_match_the_noise_free_template():
-    # Truth: features.simulation's noise-free ensemble template of each recording (mean of
+    # Truth: the simulator's noise-free ensemble template of each recording (mean of
     # the noise-free cardiac component over its normal beats at their true J). Acceptance
     # from the project brief: intervals within 10 ms, amplitudes within 15 %. Default
     # 180-s recording at the default 10 dB SNR, on every support preset including the
     # lightly damped "ringing" one, where each beat rides on the previous beat's ringing.
-    from features.simulation import SimulationSettings, simulate
+    from simulation import SimulationSettings, simulate
 
     for seed, support in ((1, "cushion"), (2, "firm"), (3, "rigid"), (4, "ringing")):
         rec = simulate(SimulationSettings(seed=seed, support=support))

@@ -212,7 +212,7 @@ def test_simulated_pauses_found_from_the_centre_of_pressure():
     # a rigid plate, common practice); its sway carries breathing. At the default 10 dB the
     # summed load's breathing band is noise limited, the centre of pressure is not. Each
     # true pause must overlap a detected one, with no detection elsewhere.
-    from features.simulation import SimulationSettings, simulate
+    from simulation import SimulationSettings, simulate
 
     rec = simulate(SimulationSettings(seed=6, n_channels=4, breathing_pause_count=2,
                                       duration_s=300.0))
@@ -233,7 +233,7 @@ def test_simulated_breathing_rate_within_one_per_minute():
     # Normal adult resting breathing rate 12-20 per minute (common practice): the
     # simulator's default lies in it, and the estimate is within 1 breath/min of its truth
     # (project acceptance) on the summed load of default recordings.
-    from features.simulation import SimulationSettings, simulate
+    from simulation import SimulationSettings, simulate
 
     assert 12.0 <= SimulationSettings().breathing_rate_per_min <= 20.0
     for seed, rate in ((1, 12.0), (2, 16.0), (3, 20.0)):

@@ -10,8 +10,8 @@ import pytest
 from features.conditioning import ChannelInput
 from features.errors import InvalidInputError
 from features.feature_vector import FEATURE_NAMES
-from features.simulation import SimulationSettings, simulate
 from features.windows import analyze_windows, iter_windows
+from simulation import SimulationSettings, simulate
 
 FS = 250.0
 
@@ -63,7 +63,7 @@ def test_window_grid_overlap_and_dropped_tail(recording: tuple[np.ndarray, float
         assert w.error is None and w.feature_vector is not None
         assert tuple(f.name for f in w.feature_vector.features) == FEATURE_NAMES
         assert 0.0 <= w.confidence <= 1.0 and w.usable_fraction == pytest.approx(1.0)
-        # Truth of features.simulation; 3 bpm is the heart-rate acceptance line of issue 1.
+        # Truth of the simulator; 3 bpm is the heart-rate acceptance line of issue 1.
         hr = w.feature_vector.get("heart_rate_mean_bpm").value
         assert hr is not None and abs(hr - truth_bpm) <= 3.0
 

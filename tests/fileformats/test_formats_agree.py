@@ -19,7 +19,7 @@ from service.batch import run_batch
 from service.cli import main
 
 FS_HZ = 100.0
-#: The simulator's default heart rate (features.simulation.SimulationSettings), bpm.
+#: The simulator's default heart rate (simulation.SimulationSettings), bpm.
 SIMULATED_HR_BPM = 68.0
 
 
@@ -75,7 +75,7 @@ def test_edf_wfdb_and_csv_agree_through_cli_api_and_batch(recordings, tmp_path, 
     batch = {row["recording"]: {n: row[n] for n in FEATURE_NAMES} for row in table}
 
     reference = _api(client, recordings["csv"])
-    # The trace is simulated at 68 bpm (features.simulation defaults): a check that the
+    # The trace is simulated at 68 bpm (the simulator's defaults): a check that the
     # files were read as a heartbeat, not as noise.
     assert abs(reference["heart_rate_mean_bpm"] - SIMULATED_HR_BPM) < 3.0
     assert sum(v is not None for v in reference.values()) > 30

@@ -4,7 +4,7 @@ All formats hold the same 16-bit samples: digital value d means ``STEP_N * (d + 
 newtons (EDF: physical range from ``STEP_N * (OFFSET - 32768)`` to
 ``STEP_N * (OFFSET + 32767)`` over the digital range -32768..32767; WFDB: ``adc_gain``
 1/STEP_N and ``baseline`` -OFFSET; CSV and the others: those physical values in full
-precision). The traces come from ``features.simulation`` (invented data, for the tests).
+precision). The traces come from ``simulation`` (invented data, for the tests).
 """
 
 from __future__ import annotations
@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
-from features.simulation import SimulationSettings, simulate
+from simulation import SimulationSettings, simulate
 
 STEP_N = 0.001
 OFFSET = 732_768

@@ -17,9 +17,9 @@ from jsonschema import Draft202012Validator
 
 import features
 from features.conditioning import ChannelInput
-from features.simulation import simulate
 from schemas.responses import NOTICE, AnalysisReport, AnalysisResponseSchema
 from service.demo import DEMO_SETTINGS
+from simulation import simulate
 
 ROOT = Path(__file__).resolve().parents[2]
 

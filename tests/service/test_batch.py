@@ -17,8 +17,8 @@ import pyarrow.parquet as pq
 import pytest
 
 from features.feature_vector import FEATURE_NAMES
-from features.simulation import SimulationSettings, simulate
 from service.batch import FIXED_COLUMNS, run_batch
+from simulation import SimulationSettings, simulate
 
 ROOT = Path(__file__).resolve().parents[2]
 N_RECORDINGS = 50
@@ -66,7 +66,7 @@ def test_local_table_has_a_row_per_recording_and_records_failures(study, tmp_pat
     assert rows[str(broken)]["error"].startswith("file: ")
     for path, hr in rates.items():
         assert rows[path]["status"] == "ok"
-        # Simulated at `hr` bpm (features.simulation settings): the table holds the engine's
+        # Simulated at `hr` bpm (simulation settings): the table holds the engine's
         # estimate of it, not a placeholder.
         assert abs(rows[path]["heart_rate_mean_bpm"] - hr) < 4.0, path
 

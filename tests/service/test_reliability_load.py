@@ -15,8 +15,8 @@ import time
 
 import pytest
 
-from features.simulation import SimulationSettings, simulate
 from service.loadtest import demo_mix, request, rss_kib, run_load, serve, warm_up
+from simulation import SimulationSettings, simulate
 
 #: Moderate for two shared cores: one demo analysis (2 min, 4 channels) takes ~0.35 s.
 RATE_PER_S = 3.0

@@ -18,9 +18,9 @@ import numpy as np
 import pytest
 from service_contract import check_against_contract, multipart
 
-from features.simulation import SimulationSettings, simulate
 from service import create_app
 from service.loadtest import serve
+from simulation import SimulationSettings, simulate
 
 VALIDATION = "urn:heartsway:problem:validation-error"
 

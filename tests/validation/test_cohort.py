@@ -7,7 +7,7 @@ import json
 import numpy as np
 import pytest
 
-from features.simulation import SimulationSettings
+from simulation import SimulationSettings
 from validation.baseline import detect_beats_baseline
 from validation.cohort import (
     CaseSpec,

@@ -7,7 +7,7 @@ import json
 import pytest
 from scipy import stats
 
-from features.simulation import SimulationSettings
+from simulation import SimulationSettings
 from validation.cohort import CaseSpec
 from validation.features_check import (
     CHECKS,
@@ -30,7 +30,7 @@ def quick_report():  # type: ignore[no-untyped-def]
 
 def test_quick_subset_meets_the_acceptance_lines(quick_report) -> None:  # type: ignore
     # Acceptance of the feature-engine issue, part 2, against the truth of
-    # features.simulation: breathing rate within 1 /min, I-J and J-K within 10 ms, the two
+    # simulation: breathing rate within 1 /min, I-J and J-K within 10 ms, the two
     # peak-to-peak amplitudes within 15 % of the noise-free template. Every confident case
     # must meet each line, and 90 % of all occupied cases (a missing value is a miss).
     assert quick_report.n_errors == 0
@@ -76,7 +76,7 @@ def test_sweeps_are_added_to_the_cohort() -> None:
 
 
 def test_irregular_rhythm_has_no_rsa_truth() -> None:
-    # features.simulation: "irregular_rhythm: random beat intervals (AF-like; no RSA ...)".
+    # simulation/settings.py: "irregular_rhythm: random beat intervals (AF-like; no RSA ...)".
     spec = CaseSpec("x", "x", SimulationSettings(irregular_rhythm=True, rsa_depth_ms=80.0))
     assert effective_rsa_ms(None, spec.settings) == 0.0  # type: ignore[arg-type]
 

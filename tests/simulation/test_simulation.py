@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from features.errors import InvalidInputError
-from features.simulation import (
+from simulation import (
     STANDARD_GRAVITY_M_S2,
+    SettingsError,
     SimulationSettings,
     blood_momentum,
     lever_rule_shares,
@@ -64,7 +64,7 @@ def test_stroke_volume_is_ejected_exactly() -> None:
     # Continuity: in a rigid tube of length L, momentum = rho L Q, so the time integral of the
     # ascending-aorta momentum divided by rho L is the ejected volume (fluid mechanics, e.g.
     # White, Fluid Mechanics, ch. 3, control-volume momentum).
-    from features.simulation import ArterialSegment
+    from simulation import ArterialSegment
 
     fs = 5000.0
     seg = (ArterialSegment("test tube", +1, 0.1, 1.0, 0.0, 1.0),)
@@ -353,6 +353,6 @@ def test_deterministic_for_a_seed() -> None:
     ],
 )
 def test_invalid_settings(kw: dict[str, object], field: str) -> None:
-    with pytest.raises(InvalidInputError, match=f"`{field}` must") as info:
+    with pytest.raises(SettingsError, match=f"`{field}` must") as info:
         SimulationSettings(**kw)  # type: ignore[arg-type]
     assert info.value.field == field
