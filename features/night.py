@@ -311,7 +311,7 @@ def summarize_night(windowed: WindowedAnalysis) -> NightSummary:
 def night_catalogue_markdown() -> str:
     """The text of ``docs/night.md``: every night measure with unit, definition, reference.
 
-    Regenerate the document with ``python tests/features/test_night_doc.py``; the test in
+    Regenerate the document with ``python tests/test_night_doc.py``; the test in
     that file fails while the two differ.
     """
     lines = [
@@ -327,10 +327,27 @@ def night_catalogue_markdown() -> str:
         "score, and the breathing pauses are observations of the trace, not a diagnosis. "
         "heartsway is not a medical device; defer to clinicians and local regulation.",
         "",
-        f"Constants: bed exits last at least {MIN_BED_EXIT_S:g} s; the 5-minute measures use "
-        f"{SEGMENT_S:g}-s windows at least {MIN_SEGMENT_USABLE_FRACTION:g} usable; SDANN and "
-        f"the SDNN index need at least {MIN_SEGMENTS} such segments and windows without "
-        "overlap.",
+        "## Rules",
+        "",
+        "- Occupied time comes from each window's empty-support mask (the load below the "
+        "occupant mass bound), so lying down, leaving and getting up are placed to about a "
+        "second, not to the window; a window without load information counts whole by its "
+        "occupancy, and a failed window's time is unknown (never occupied, never empty).",
+        f"- A bed exit is an unoccupied stretch of at least {MIN_BED_EXIT_S:g} s between "
+        "occupied ones: turning over, sitting on the edge of the bed or reaching for the "
+        "floor can take the load off the frame for some seconds without anyone leaving; a "
+        "minute is longer than such shifts and far shorter than any trip out of the room.",
+        f"- The 5-minute measures (lowest and highest heart rate, SDANN, SDNN index) use "
+        f"windows of {SEGMENT_S:g} s (`window_s=300`, the default of a night job) that are "
+        f"at least {MIN_SEGMENT_USABLE_FRACTION:g} usable. With windows of another length "
+        "they are null with reason `needs_300_s_windows`, and SDANN and the SDNN index are "
+        "null with `needs_300_s_windows_without_overlap` when windows overlap (the Task "
+        "Force segments are consecutive): they are never approximated from other windows. "
+        f"SDANN and the SDNN index need at least {MIN_SEGMENTS} segments.",
+        "- Per-window values are read from the windows' feature vectors (`docs/features.md`), "
+        "with their confidences; a measure's confidence is the mean of those it uses.",
+        "",
+        "## Measures",
         "",
     ]
     for i, m in enumerate(NIGHT_MEASURES, start=1):
