@@ -153,8 +153,6 @@ def main(argv: list[str] | None = None) -> int:
                                   args.read_whole)))
         return 0
 
-    from schemas.responses import NOTICE
-
     hours, rates = (1.0, [100.0]) if args.quick else (args.hours, args.fs)
     print(f"machine: {platform.machine()} cpus={os.cpu_count()} "
           f"python={platform.python_version()}; {hours:g} h night, 4 cells, EDF, "
@@ -194,6 +192,8 @@ def main(argv: list[str] | None = None) -> int:
           "hwm = VmHWM of the child; exit_err = worst distance of the exit's start or end "
           "from the truth; pass = exit within one window, mean heart rate within 1 bpm, "
           f"peak under {LIMIT_MIB:g} MiB ('whole' rows are for comparison and not judged)")
+    from schemas.responses import NOTICE  # after the children: the launcher stays small
+
     print(f"Caution: {NOTICE}")
     return 0 if ok else 1
 
