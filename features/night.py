@@ -521,6 +521,9 @@ def _heart_rate(sitting: Sequence[WindowResult], windowed: WindowedAnalysis,
         return {n: _none(n, reason or "no_occupied_window_with_value") for n in names}
     rates = np.array([v[0] for _, v in rows])
     confs = np.array([v[1] for _, v in rows])
+    # Each window's rate is its beats over its usable time, so the usable-time-weighted
+    # mean is all beats over all usable occupied time (heartsway definition of the night's
+    # mean rate).
     out = {"heart_rate_mean_bpm": _value("heart_rate_mean_bpm",
                                          float(np.sum(weights * rates) / weights.sum()),
                                          float(np.sum(weights * confs) / weights.sum()))}
@@ -608,6 +611,9 @@ def _per_hour_and_usable(windows: Sequence[WindowResult], owned: Sequence[tuple[
         out["breathing_pauses_per_hour"] = _none("breathing_pauses_per_hour",
                                                  "no_occupied_window_with_value")
     else:
+        # Each window's rate is pauses per usable hour (features.respiration; the 10-s
+        # criterion of the AASM scoring manual), so weighting by usable time gives all
+        # pauses over all usable occupied hours. An observation of the signal only.
         rates = np.array([v[0] for _, v in rows])
         confs = np.array([v[1] for _, v in rows])
         out["breathing_pauses_per_hour"] = _value(
@@ -627,6 +633,8 @@ def _per_hour_and_usable(windows: Sequence[WindowResult], owned: Sequence[tuple[
             quality.append(w.feature_vector.get("usable_fraction").confidence)
     occ_s = _total(occupied)
     conf = _mean(quality)
+    # Masked movement and posture-change segments of features.artifacts, joined where a
+    # window boundary cut one in two (heartsway definition).
     stretches = [(a + b) / 2.0 for a, b in _merge(moving)]
     inside = sum(any(a <= t < b for a, b in occupied) for t in stretches)
     out["movement_per_hour"] = _value("movement_per_hour", inside / (occ_s / 3600.0), conf)
