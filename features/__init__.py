@@ -32,6 +32,8 @@ feature vector
 windows
     analyze_windows(channels, fs_hz, *, window_s, overlap_s, ...) -> WindowedAnalysis
     iter_windows(...) -> iterator of WindowResult
+night
+    summarize_night(windowed) -> NightSummary; NIGHT_MEASURES, the catalogue
 """
 
 __version__ = "0.1.0"
@@ -58,6 +60,7 @@ from features.intervals import (
 )
 from features.modulation import ModulationResult, respiratory_modulation
 from features.morphology import MorphologyResult, beat_morphology
+from features.night import NIGHT_MEASURES, NightSummary, summarize_night
 from features.respiration import RespirationResult, breathing
 from features.variability import (
     VariabilityResult,
@@ -71,7 +74,7 @@ from features.windows import WindowedAnalysis, analyze_windows, iter_windows
 __all__ = [
     "FEATURES", "FeatureVector", "ModulationResult", "MorphologyResult", "RespirationResult",
     "WindowedAnalysis", "analyze_windows", "beat_morphology", "breathing", "feature_vector",
-    "iter_windows", "respiratory_modulation",
+    "iter_windows", "respiratory_modulation", "NIGHT_MEASURES", "NightSummary", "summarize_night",
     "AnalysisResult", "ArtifactMask", "BeatDetection", "ChannelInput", "ConditionedInput",
     "CountsScale", "EngineError", "FusionResult", "HeartRateResult", "IntervalLabels",
     "IntervalSeries", "InvalidInputError", "Options", "Recording", "Segment", "Subject",

@@ -17,10 +17,12 @@ from typing import Any
 
 import numpy as np
 
+from features.artifacts import Segment
 from features.conditioning import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ, ChannelInput
 from features.engine import (
     FEATURE_SET_VERSION,
     AnalysisResult,
+    OccupancyResult,
     Options,
     Recording,
     Subject,
@@ -91,6 +93,12 @@ class WindowResult:
         The engine's warnings for the window.
     error
         Set when the engine raised for this window, else None.
+    occupancy
+        The engine's :class:`features.engine.OccupancyResult` for the window; None when
+        ``error``.
+    segments
+        The engine's masked segments of the window (``QualityResult.segments``), with their
+        times moved to the recording's clock (window start added); empty when ``error``.
     """
 
     index: int
@@ -101,6 +109,8 @@ class WindowResult:
     usable_fraction: float | None
     flags: tuple[str, ...]
     error: WindowError | None = None
+    occupancy: OccupancyResult | None = None
+    segments: tuple[Segment, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -385,7 +395,9 @@ def _summary(k: int, a: int, b: int, fs: float, result: AnalysisResult) -> Windo
     return WindowResult(
         index=k, start_s=a / fs, end_s=b / fs, feature_vector=feature_vector(result),
         confidence=confidence, usable_fraction=float(result.quality.usable_fraction),
-        flags=tuple(result.warnings),
+        flags=tuple(result.warnings), occupancy=result.occupancy,
+        segments=tuple(replace(s, start_s=a / fs + s.start_s, end_s=a / fs + s.end_s)
+                       for s in result.quality.segments),
     )
 
 

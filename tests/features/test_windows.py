@@ -174,3 +174,21 @@ def test_channel_rules(recording: tuple[np.ndarray, float]) -> None:
         analyze_windows([], FS, window_s=60.0)
     with pytest.raises(InvalidInputError, match=r"`fs_hz` must be between 50 and 2000 Hz"):
         analyze_windows(_channels([x]), 10.0, window_s=60.0)
+
+
+def test_windows_keep_occupancy_and_segments_on_the_recording_clock() -> None:
+    # A 4-s movement at 130-134 s (the simulator's truth) falls in the third 60-s window;
+    # its masked segment must be reported at 130 s, not at 10 s from the window start.
+    rec = simulate(SimulationSettings(duration_s=200.0, fs_hz=FS, seed=31,
+                                      movement_spans_s=((130.0, 134.0),)))
+    out = analyze_windows(_channels([rec.channels[0]]), FS, window_s=60.0)
+    for w in out.windows:
+        assert w.occupancy is not None and w.occupancy.occupied  # 75 kg on the plate
+        for s in w.segments:
+            assert w.start_s <= s.start_s < s.end_s <= w.end_s
+    moves = [s for s in out.windows[2].segments if s.kind == "movement"]
+    # The engine pads a movement by MOVEMENT_PAD_S (0.5 s) and finds its edges to its
+    # 0.25-s envelope blocks over 1 s: allow 2 s either side.
+    assert any(s.start_s <= 134.0 and s.end_s >= 130.0 and abs(s.start_s - 130.0) <= 2.0
+               for s in moves), moves
+    assert not any(s.kind == "movement" for w in out.windows[:2] for s in w.segments)
