@@ -3,8 +3,6 @@
 from __future__ import annotations
 
 import importlib.util
-import sys
-import types
 from pathlib import Path
 
 import numpy as np
@@ -224,12 +222,8 @@ def _long_nn_series() -> np.ndarray:
 
 
 @pytest.fixture()
-def pyhrv_time_domain(monkeypatch):
-    # biosppy (imported by pyhrv's __init__) imports peakutils for an ECG detector that
-    # sdann and sdnn_index never call; peakutils is not installed, so a stand-in module
-    # lets the import through.
-    if "peakutils" not in sys.modules and importlib.util.find_spec("peakutils") is None:
-        monkeypatch.setitem(sys.modules, "peakutils", types.ModuleType("peakutils"))
+def pyhrv_time_domain():
+    # pyhrv imports biosppy, which needs peakutils (a test extra in pyproject.toml)
     return pytest.importorskip("pyhrv.time_domain")
 
 
