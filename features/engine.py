@@ -228,9 +228,9 @@ def analyze(
         warnings.append("less than half of the recording is usable")
     if not beats.has_beats:
         warnings.append("no repeating heartbeat waveform was found")
-    mass = subject.body_mass_kg
-    if mass is not None and cond.supported_mass_kg is not None and \
-            abs(cond.supported_mass_kg - mass) > 0.25 * mass:
+    stated = subject.body_mass_kg
+    if stated is not None and cond.supported_mass_kg is not None and \
+            abs(cond.supported_mass_kg - stated) > 0.25 * stated:
         warnings.append("the load on the support differs from the stated body mass by over 25%")
 
     n_samples = int(cond.signals.shape[1])

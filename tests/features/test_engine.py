@@ -137,3 +137,16 @@ def test_any_finite_input_gives_a_result_or_a_documented_error(x, quantity):
     assert 0.0 <= r.heart_rate.confidence <= 1.0
     assert r.heart_rate.mean_bpm is None or 30.0 <= r.heart_rate.mean_bpm <= 200.0
     assert 0.0 <= r.quality.usable_fraction <= 1.0
+
+
+def test_measured_load_is_reported_as_the_body_mass_when_none_is_stated(armchair):
+    # No stated mass on an occupied force plate: the per-kilogram amplitudes use the load, so
+    # the reported body mass must be that load, not the missing stated one.
+    r = analyze(_channels(armchair), armchair.fs_hz)
+    assert r.occupancy.occupied is True
+    assert r.body_mass_source == "load"
+    assert r.body_mass_kg is not None
+    # The simulated person weighs 75 kg; M = F / g at rest (Newton's second law), 2 % for the
+    # static-load estimate over the recording as in the test above.
+    assert r.body_mass_kg == pytest.approx(75.0, rel=0.02)
+    assert r.body_mass_kg == r.occupancy.supported_mass_kg
