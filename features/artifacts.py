@@ -17,14 +17,10 @@ import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 from numpy.typing import ArrayLike, NDArray
 
-from features.conditioning import (
-    MIN_DURATION_S,
-    MIN_OCCUPANT_KG,
-    STANDARD_GRAVITY_M_S2,
-    check_sampling_rate,
-)
+from features._checks import check_sampling_rate
 from features.errors import InvalidInputError
 from features.filters import FloatArray, block_factor, block_means, highpass
+from features.limits import MIN_DURATION_S, MIN_OCCUPANT_KG, STANDARD_GRAVITY_M_S2
 
 KINDS = ("movement", "posture_change", "clipping", "flat_line", "empty_support")
 
@@ -106,7 +102,7 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
     fused
         (n,) fused trace (``FusionResult.fused``), finite, at least ``MIN_DURATION_S``.
     fs_hz
-        Sampling rate, 50 to 2000 Hz.
+        Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     load_n
         Occupant load trace in N (``ConditionedInput.load_trace_n``), or None to skip
         the empty-support check.

@@ -30,8 +30,10 @@ import scipy.fft
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
+from features._checks import check_sampling_rate, check_trace
 from features.errors import InvalidInputError
 from features.filters import bridge_masked
+from features.limits import MAX_RATE_BPM, MIN_RATE_BPM
 from features.wavelets import WAVELET, levels_for_band, swt_component
 
 WORK_RATE_HZ = 125.0
@@ -165,7 +167,7 @@ def detect_beats(
         1-D fused trace in kinetic form (force or acceleration), any unit,
         any polarity, at least ``MIN_DURATION_S`` long.
     fs_hz
-        Sampling rate in Hz, 50 to 2000.
+        Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     usable
         Boolean mask, True where the trace is free of artifacts. No beat is
         reported whose complex touches a masked sample.
@@ -377,23 +379,13 @@ def _validate(
     usable: ArrayLike | None,
     rate_range_bpm: tuple[float, float],
 ) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
-    if not np.isfinite(fs_hz) or not 50.0 <= fs_hz <= 2000.0:
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be between 50 and 2000 Hz; got {fs_hz}.")
-    x = np.asarray(trace, dtype=np.float64)
-    if x.ndim != 1:
-        raise InvalidInputError("trace", f"`trace` must be 1-D; got shape {x.shape}.")
-    if x.size < MIN_DURATION_S * fs_hz:
-        raise InvalidInputError(
-            "trace",
-            f"`trace` must be at least {MIN_DURATION_S:g} s long; got {x.size / fs_hz:.2f} s.",
-        )
-    if not np.all(np.isfinite(x)):
-        raise InvalidInputError("trace", "`trace` must hold finite numbers only; got NaN or inf.")
+    fs_hz = check_sampling_rate(fs_hz)
+    x = check_trace(trace, name="trace", fs_hz=fs_hz, min_duration_s=MIN_DURATION_S)
     lo, hi = rate_range_bpm
-    if not (20.0 <= lo < hi <= 300.0):
+    if not (MIN_RATE_BPM <= lo < hi <= MAX_RATE_BPM):
         raise InvalidInputError(
-            "rate_range_bpm",
-            f"`rate_range_bpm` must be increasing within 20-300 bpm; got {rate_range_bpm}.",
+            "rate_range_bpm", f"`rate_range_bpm` must be increasing within "
+            f"{MIN_RATE_BPM:g}-{MAX_RATE_BPM:g} bpm; got {rate_range_bpm}.",
         )
     if usable is None:
         mask = np.ones(x.size, dtype=bool)

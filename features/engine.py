@@ -26,6 +26,12 @@ from features.intervals import (
     classify_intervals,
     intervals_from_beats,
 )
+from features.limits import (
+    DEFAULT_RATE_RANGE_BPM,
+    MAX_BODY_MASS_KG,
+    MIN_BODY_MASS_KG,
+    PLACEMENTS,
+)
 from features.modulation import ModulationResult, respiratory_modulation
 from features.morphology import MorphologyResult, beat_morphology
 from features.respiration import RespirationResult, breathing
@@ -33,8 +39,6 @@ from features.variability import VariabilityResult, heart_rate_variability
 
 FEATURE_SET_VERSION = "3"
 """Changes whenever the definition of any emitted feature changes."""
-
-PLACEMENTS = ("bed", "other", "platform", "seat")
 
 MOVEMENT_PAD_S = 0.5
 """Masked time added either side of a movement. A seated body settles within a few
@@ -78,7 +82,7 @@ class Options:
 
     mains_hz: float | str | None = "auto"
     empty_load_kg: float = 0.0
-    rate_range_bpm: tuple[float, float] = (30.0, 200.0)
+    rate_range_bpm: tuple[float, float] = DEFAULT_RATE_RANGE_BPM
 
 
 @dataclass(frozen=True)
@@ -170,7 +174,7 @@ def analyze(
     channels
         One to eight :class:`features.conditioning.ChannelInput`, equal length.
     fs_hz
-        Sampling rate in Hz, 50 to 2000.
+        Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     subject, recording, options
         Optional metadata and options.
 
@@ -272,9 +276,10 @@ def analyze(
 
 def _check_metadata(subject: Subject, recording: Recording) -> None:
     m = subject.body_mass_kg
-    if m is not None and not (np.isfinite(m) and 2.0 <= m <= 400.0):
+    if m is not None and not (np.isfinite(m) and MIN_BODY_MASS_KG <= m <= MAX_BODY_MASS_KG):
         raise InvalidInputError(
-            "subject.body_mass_kg", f"`subject.body_mass_kg` must be between 2 and 400 kg; got {m}."
+            "subject.body_mass_kg", f"`subject.body_mass_kg` must be between "
+            f"{MIN_BODY_MASS_KG:g} and {MAX_BODY_MASS_KG:g} kg; got {m}."
         )
     if recording.placement not in PLACEMENTS:
         raise InvalidInputError(

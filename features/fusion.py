@@ -17,15 +17,10 @@ import scipy.fft
 from numpy.typing import ArrayLike, NDArray
 from scipy.linalg import blas
 
-from features.conditioning import (
-    MAX_CHANNELS,
-    MIN_DURATION_S,
-    MIN_OCCUPANT_KG,
-    STANDARD_GRAVITY_M_S2,
-    check_sampling_rate,
-)
+from features._checks import check_2d, check_sampling_rate
 from features.errors import InvalidInputError
 from features.filters import FloatArray, bandpass, block_centres, block_factor, block_means
+from features.limits import MIN_DURATION_S, MIN_OCCUPANT_KG, STANDARD_GRAVITY_M_S2
 
 #: Analysis rate for the weights and the cardiac band, Hz (block means; at least 2.5x the
 #: band top).
@@ -115,7 +110,7 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
         (n_channels, n) conditioned traces (1 to 8 channels, static part removed), or a
         1-D trace for a single channel. Finite values only.
     fs_hz
-        Sampling rate, 50 to 2000 Hz.
+        Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     units
         Unit per channel (``ConditionedInput.units``). None means one common, unnamed
         unit: weights are computed as for equal units and ``unit`` is ``"a.u."``.
@@ -193,7 +188,7 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
        DOI 10.1002/9780470549148.
     """
     fs = check_sampling_rate(fs_hz)
-    x = _check_signals(signals, fs)
+    x = check_2d(signals, fs, name="signals", min_duration_s=MIN_DURATION_S)
     n_ch = x.shape[0]
     unit_list = _check_units(units, n_ch)
     band = _check_band(band_hz)
@@ -247,30 +242,6 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
 
 
 # ----------------------------------------------------------------------------- validation
-
-
-def _check_signals(signals: ArrayLike, fs: float) -> FloatArray:
-    x = np.asarray(signals)
-    if x.ndim == 1:
-        x = x[None, :]
-    if x.ndim != 2 or x.dtype.kind not in "iuf":
-        raise InvalidInputError("signals", "`signals` must be a real (n_channels, n) array; got "
-                                f"shape {x.shape} and dtype {x.dtype}.")
-    if not 1 <= x.shape[0] <= MAX_CHANNELS:
-        raise InvalidInputError("signals", f"`signals` must hold 1 to {MAX_CHANNELS} channels; "
-                                f"got {x.shape[0]}.")
-    if x.shape[1] / fs < MIN_DURATION_S:
-        raise InvalidInputError("signals", f"`signals` must span at least {MIN_DURATION_S:g} s; "
-                                f"got {x.shape[1] / fs:g} s.")
-    x = np.asarray(x, dtype=np.float64)
-    for i, row in enumerate(x):
-        # A row sum is finite exactly when every sample is (short of overflow), and
-        # needs no full-size temporary.
-        if not math.isfinite(float(row.sum())):
-            raise InvalidInputError(f"signals[{i}]", f"`signals[{i}]` must be finite (no NaN "
-                                    f"or inf); got {int(np.count_nonzero(~np.isfinite(row)))} "
-                                    "non-finite values.")
-    return x
 
 
 def _check_units(units: Sequence[str] | None, n_ch: int) -> list[str] | None:

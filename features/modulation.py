@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from features._checks import check_sampling_rate
 from features.errors import InvalidInputError
 from features.spectral import lomb_scargle_power, welch_spectra
 
@@ -33,6 +34,9 @@ RESAMPLE_FS_HZ = 4.0
 COHERENCE_SEGMENT_S = 32.0
 
 _MAX_GAP_S = 3.0
+
+MIN_SIGNAL_FS_HZ = 1.0
+"""Lowest rate of the breathing signal accepted (Hz): breathing stays below 0.7 Hz."""
 
 
 @dataclass(frozen=True)
@@ -99,7 +103,8 @@ def respiratory_modulation(
         1-D band-limited breathing signal (for example ``RespirationResult.breathing_signal``),
         NaN where unusable; sample 0 is at t = 0 s, the origin of all times here.
     fs_hz
-        Sampling rate of ``breathing_signal`` (Hz), 1 to 2000.
+        Sampling rate of ``breathing_signal`` (Hz), from ``MIN_SIGNAL_FS_HZ`` to
+        ``features.limits.MAX_FS_HZ``.
     beat_times_s
         Beat instants (s), strictly increasing.
     breath_times_s
@@ -281,12 +286,7 @@ def _validate(
     NDArray[np.float64], float, NDArray[np.float64], NDArray[np.float64], NDArray[np.float64],
     NDArray[np.float64] | None, NDArray[np.float64], float | None,
 ]:
-    try:
-        fs = float(fs_hz)
-    except (TypeError, ValueError):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be a number; got {fs_hz!r}.") from None
-    if not (np.isfinite(fs) and 1.0 <= fs <= 2000.0):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be between 1 and 2000 Hz; got {fs_hz}.")
+    fs = check_sampling_rate(fs_hz, low=MIN_SIGNAL_FS_HZ)
     y = np.asarray(breathing_signal, dtype=float)
     if y.ndim != 1 or y.size < 2:
         raise InvalidInputError(

@@ -20,8 +20,10 @@ import pywt
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
+from features._checks import check_between, check_sampling_rate
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, frozen, lowpass
+from features.limits import MAX_BODY_MASS_KG, MIN_BODY_MASS_KG
 from features.wavelets import WAVELET, detail_bands
 
 __all__ = ["MorphologyResult", "WaveLocation", "beat_morphology"]
@@ -212,7 +214,7 @@ def beat_morphology(
         1-D fused force trace in ``amplitude_unit``, polarity corrected so that J is positive.
         At least 1 s long, finite where ``usable``.
     fs_hz
-        Sampling rate (Hz), 50 to 2000.
+        Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     beat_times_s
         J-peak instants (s from the first sample), sub-sample precision, increasing.
     beat_confidence
@@ -221,7 +223,8 @@ def beat_morphology(
         Boolean mask, same length as ``signal``; True where the sample may be used. All usable
         when None.
     body_mass_kg
-        Body mass (kg), 1 to 500; enables the per-kilogram amplitudes.
+        Body mass (kg), within ``features.limits.MIN_BODY_MASS_KG`` to
+        ``MAX_BODY_MASS_KG``; enables the per-kilogram amplitudes.
     amplitude_unit
         Unit of ``signal`` (for example ``"N"``), copied into the result.
     min_beat_confidence
@@ -424,12 +427,7 @@ def _validate(
     body_mass_kg: float | None,
     min_beat_confidence: float,
 ) -> tuple[NDArray[np.float64], float, NDArray[np.float64], NDArray[np.float64], NDArray[np.bool_]]:
-    try:
-        fs = float(fs_hz)
-    except (TypeError, ValueError):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be a number; got {fs_hz!r}.") from None
-    if not (np.isfinite(fs) and 50.0 <= fs <= 2000.0):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be between 50 and 2000 Hz; got {fs_hz}.")
+    fs = check_sampling_rate(fs_hz)
     x = np.asarray(signal, dtype=float)
     if x.ndim != 1:
         raise InvalidInputError("signal", f"`signal` must be 1-D; got {x.ndim} dimensions.")
@@ -470,12 +468,9 @@ def _validate(
             raise InvalidInputError(
                 "beat_confidence", "`beat_confidence` must lie in [0, 1]; got values outside."
             )
-    if body_mass_kg is not None and not (
-        np.isfinite(float(body_mass_kg)) and 1.0 <= float(body_mass_kg) <= 500.0
-    ):
-        raise InvalidInputError(
-            "body_mass_kg", f"`body_mass_kg` must be between 1 and 500 kg; got {body_mass_kg}."
-        )
+    if body_mass_kg is not None:
+        check_between(body_mass_kg, name="body_mass_kg", low=MIN_BODY_MASS_KG,
+                      high=MAX_BODY_MASS_KG, unit="kg")
     if not 0.0 <= float(min_beat_confidence) <= 1.0:
         raise InvalidInputError(
             "min_beat_confidence",

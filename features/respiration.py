@@ -17,8 +17,10 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, stats
 from scipy import signal as sps
 
+from features._checks import check_sampling_rate
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, butter_filtfilt, frozen
+from features.limits import MIN_DURATION_S
 from features.spectral import welch_spectra
 
 __all__ = ["RespirationResult", "breathing"]
@@ -31,7 +33,8 @@ HYSTERESIS = 0.3
 """Schmitt-trigger thresholds, +/- this times the robust breathing amplitude."""
 PAUSE_MIN_S = 10.0
 """Shortest pause counted (s): the adult apnoea duration criterion of the AASM manual."""
-MIN_DURATION_S = 20.0
+MIN_SIGNAL_FS_HZ = 2.0
+"""Lowest rate of the trace or low band accepted (Hz): breathing stays below 0.7 Hz."""
 FUSION_MAX_SD_PER_MIN = 4.0
 """Largest SD of the two rate estimates that are still averaged (Karlen et al. 2013)."""
 
@@ -127,7 +130,8 @@ def breathing(
     signal_or_lowband
         1-D force trace (any rate) or its already low-passed band; at least 20 s.
     fs_hz
-        Sampling rate of ``signal_or_lowband`` (Hz), 2 to 2000.
+        Sampling rate of ``signal_or_lowband`` (Hz), from ``MIN_SIGNAL_FS_HZ`` to
+        ``features.limits.MAX_FS_HZ``.
     usable
         Boolean mask of the samples that may be used, same length; all usable when None.
     cop_signal
@@ -136,7 +140,7 @@ def breathing(
         trace. Used instead of the trace when its breathing band is more concentrated
         (Notes, 1).
     cop_fs_hz
-        Sampling rate of ``cop_signal`` (Hz), 2 to 2000; ``fs_hz`` when None.
+        Sampling rate of ``cop_signal`` (Hz), same range; ``fs_hz`` when None.
     pause_threshold_pct
         A pause is where the breathing amplitude stays below this share (10 to 50 %) of the
         surrounding baseline amplitude.
@@ -334,12 +338,7 @@ def _validate(
 ) -> tuple[
     NDArray[np.float64], float, NDArray[np.bool_], NDArray[np.float64] | None, float, float
 ]:
-    try:
-        fs = float(fs_hz)
-    except (TypeError, ValueError):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be a number; got {fs_hz!r}.") from None
-    if not (np.isfinite(fs) and 2.0 <= fs <= 2000.0):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be between 2 and 2000 Hz; got {fs_hz}.")
+    fs = check_sampling_rate(fs_hz, low=MIN_SIGNAL_FS_HZ)
     x = np.asarray(sig, dtype=float)
     if x.ndim != 1:
         raise InvalidInputError(
@@ -364,11 +363,8 @@ def _validate(
     cop = None
     cop_fs = fs
     if cop_signal is not None:
-        cop_fs = fs if cop_fs_hz is None else float(cop_fs_hz)
-        if not (np.isfinite(cop_fs) and 2.0 <= cop_fs <= 2000.0):
-            raise InvalidInputError(
-                "cop_fs_hz", f"`cop_fs_hz` must be between 2 and 2000 Hz; got {cop_fs_hz}."
-            )
+        cop_fs = fs if cop_fs_hz is None else check_sampling_rate(cop_fs_hz, name="cop_fs_hz",
+                                                                  low=MIN_SIGNAL_FS_HZ)
         cop = np.asarray(cop_signal, dtype=float)
         if cop.ndim == 1:
             cop = cop[:, None]

@@ -315,7 +315,7 @@ def _ok():
         ({"beat_times_s": [3.0, 2.0]}, "beat_times_s", r"strictly increasing"),
         ({"beat_confidence": [1.0]}, "beat_confidence", r"length of `beat_times_s`"),
         ({"usable": np.ones(10, bool)}, "usable", r"`usable` must have the length"),
-        ({"body_mass_kg": 0.0}, "body_mass_kg", r"between 1 and 500 kg; got 0"),
+        ({"body_mass_kg": 0.0}, "body_mass_kg", r"between 2 and 400 kg; got 0"),
         ({"min_beat_confidence": 2.0}, "min_beat_confidence", r"between 0 and 1; got 2"),
         ({"amplitude_unit": ""}, "amplitude_unit", r"must be a non-empty string; got ''"),
     ],
