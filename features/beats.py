@@ -31,6 +31,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
 from features._checks import check_sampling_rate, check_trace
+from features._numeric import robust_sd, vertex_offset
 from features.errors import InvalidInputError
 from features.filters import bridge_masked
 from features.limits import MAX_RATE_BPM, MIN_RATE_BPM
@@ -195,7 +196,7 @@ def detect_beats(
        [1]_, [3]_. Masked spans are bridged by a straight line before the
        transform (so a movement's energy cannot leak into the component next
        to it) and set to zero after it (widened by 0.1 s); the component is
-       scaled by its robust standard deviation (1.4826 MAD).
+       scaled by its robust standard deviation (``MAD_TO_SD`` x MAD).
     3. Energy envelope: the squared component smoothed over
        ``ENVELOPE_WINDOW_S``. Its autocorrelation gives the dominant beat
        period (first strong peak in the plausible lag range, claimed only
@@ -257,7 +258,7 @@ def detect_beats(
     levels = levels_for_band(fs_w, BEAT_BAND_HZ)
     comp = swt_component(bridge_masked(xw, usable_w), levels=levels, wavelet=WAVELET)
     comp = _zero_masked(comp, usable_w, int(round(0.1 * fs_w)))
-    scale = _robust_sd(comp[usable_w]) if usable_w.any() else 0.0
+    scale = robust_sd(comp[usable_w]) if usable_w.any() else 0.0
     if not np.isfinite(scale) or scale <= 0.0:
         return _empty(fs_w, levels, flags + ["no_signal_in_beat_band"])
     comp = comp / scale
@@ -427,11 +428,6 @@ def _zero_masked(comp: NDArray[np.float64], usable: NDArray[np.bool_], widen: in
     return out
 
 
-def _robust_sd(v: NDArray[np.float64]) -> float:
-    med = np.median(v)
-    return float(1.4826 * np.median(np.abs(v - med)))
-
-
 def _envelope_period(
     env: NDArray[np.float64], fs: float, min_period: float, max_period: float
 ) -> float | None:
@@ -480,9 +476,7 @@ def _autocorrelation(e: NDArray[np.float64], lags: int) -> NDArray[np.float64]:
 def _vertex(y: NDArray[np.float64], i: int) -> float:
     if i <= 0 or i >= y.size - 1:
         return 0.0
-    a, b, c = y[i - 1], y[i], y[i + 1]
-    den = a - 2 * b + c
-    return float(0.5 * (a - c) / den) if den < 0 else 0.0
+    return float(vertex_offset(y[i - 1], y[i], y[i + 1]))
 
 
 def _epochs(comp: NDArray[np.float64], centres: NDArray[np.intp], half: tuple[int, int]) -> NDArray[
@@ -763,12 +757,7 @@ def _preceding_interval_trend(
 def _parabolic_offset(y: NDArray[np.float64], idx: NDArray[np.intp]) -> NDArray[np.float64]:
     if idx.size == 0:
         return np.zeros(0)
-    a, b, c = y[idx - 1], y[idx], y[idx + 1]
-    den = a - 2 * b + c
-    off = np.zeros(idx.size)
-    ok = den < 0
-    off[ok] = 0.5 * (a[ok] - c[ok]) / den[ok]
-    return np.clip(off, -0.5, 0.5)
+    return np.clip(vertex_offset(y[idx - 1], y[idx], y[idx + 1]), -0.5, 0.5)
 
 
 def _empty(

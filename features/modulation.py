@@ -16,6 +16,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from features._checks import check_sampling_rate
+from features._numeric import runs
 from features.errors import InvalidInputError
 from features.spectral import lomb_scargle_power, welch_spectra
 
@@ -495,8 +496,7 @@ def _coherence(
     a = np.clip(np.floor(grid * fs).astype(np.int64), 0, y.size - 1)
     ok &= (bad_y[np.minimum(a + 2, y.size)] - bad_y[a]) == 0
     ok &= grid <= ty[-1]
-    d = np.diff(np.concatenate(([0], ok.astype(np.int8), [0])))
-    run_a, run_b = np.flatnonzero(d == 1), np.flatnonzero(d == -1)
+    run_a, run_b = runs(ok)
     if run_a.size == 0:
         return None, 0.0, 0, ["no_common_stretch_for_coherence"]
     j = int(np.argmax(run_b - run_a))

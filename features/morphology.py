@@ -21,6 +21,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
 from features._checks import check_between, check_sampling_rate
+from features._numeric import MAD_TO_SD
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, frozen, lowpass
 from features.limits import MAX_BODY_MASS_KG, MIN_BODY_MASS_KG
@@ -84,7 +85,7 @@ class WaveLocation:
         Prominence of the extremum on the template (``scipy.signal.peak_prominences``), in
         ``amplitude_unit``; None when not found.
     location_sd_ms
-        Robust spread (1.4826 x MAD) of the wave time over individual beats (ms).
+        Robust spread (``MAD_TO_SD`` x MAD) of the wave time over individual beats (ms).
     confidence
         In [0, 1]: prominence-to-noise factor times location-consistency factor (see Notes of
         :func:`beat_morphology`).
@@ -259,7 +260,7 @@ def beat_morphology(
     3. Template = 20 % trimmed mean (``scipy.stats.trim_mean``, 20 % cut at each end) over the
        confident beats (confidence >= ``min_beat_confidence``). Its baseline, the median of the
        template, is subtracted; signed amplitudes are measured from it. Template noise =
-       median over samples of 1.4826 x MAD across beats, divided by sqrt(beats).
+       median over samples of ``MAD_TO_SD`` x MAD across beats, divided by sqrt(beats).
     4. Waves are located on the template low-passed at 25 Hz (zero-phase Butterworth,
        order 2 forward and backward, skipped when 25 Hz is above 0.45 fs_hz): the recoil
        waves carry their energy below about 20 Hz (common practice: BCG is band-limited to
@@ -692,7 +693,7 @@ def _beat_extrema(
 def _location_sd_ms(epochs: NDArray[np.float64], i: int, sign: int, fs: float) -> float:
     off, _ = _beat_extrema(epochs, i, sign, fs)
     med = np.median(off)
-    return float(1e3 * 1.4826 * np.median(np.abs(off - med)) / fs)
+    return float(1e3 * MAD_TO_SD * np.median(np.abs(off - med)) / fs)
 
 
 def _trimmed_mean(epochs: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -720,7 +721,7 @@ def _robust_template(epochs: NDArray[np.float64]) -> tuple[NDArray[np.float64], 
     template = part[:, cut : n - cut].mean(axis=1)
     template = template - np.median(template)
     centre = part[:, mid[0]] if n % 2 else part[:, list(mid)].mean(axis=1)
-    spread = 1.4826 * np.median(np.abs(rows - centre[:, None]), axis=1)
+    spread = MAD_TO_SD * np.median(np.abs(rows - centre[:, None]), axis=1)
     return template, float(np.median(spread) / np.sqrt(n))
 
 

@@ -14,10 +14,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
-from scipy import ndimage, stats
+from scipy import ndimage
 from scipy import signal as sps
 
 from features._checks import check_sampling_rate
+from features._numeric import robust_sd, runs, vertex_offset
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, butter_filtfilt, frozen
 from features.limits import MIN_DURATION_S
@@ -73,7 +74,7 @@ class RespirationResult:
         ratio. A force sensor does not tell inspiration from expiration by sign, so this is
         reported as rise/fall and not as an inspiration/expiration ratio.
     breathing_amplitude
-        Robust amplitude of the breathing signal (1.4826 x MAD), in the input's unit.
+        Robust amplitude of the breathing signal (``MAD_TO_SD`` x MAD), in the input's unit.
     pause_count, pause_spans_s, pauses_per_hour, longest_pause_s
         Breathing pauses of >= 10 s: spans where the breathing amplitude stays below
         ``pause_threshold_pct`` of the surrounding baseline. A signal observation, not a
@@ -166,7 +167,7 @@ def breathing(
        axes, the candidate with the largest share of band power within +/-0.05 Hz of its
        Welch peak is kept (flag when a centre-of-pressure axis wins; its amplitudes are
        then in its own unit, and its empty samples are unusable too).
-    2. Breaths: the signal is divided by its robust amplitude A = 1.4826 x MAD over usable
+    2. Breaths: the signal is divided by its robust amplitude A = ``MAD_TO_SD`` x MAD over usable
        samples (A is 1.05 times the amplitude of a sinusoid). A Schmitt trigger with thresholds
        +0.3 and -0.3 marks a breath each time the signal rises above +0.3 after having been
        below -0.3; the breath instant is the interpolated upward crossing of +0.3. The
@@ -254,7 +255,7 @@ def breathing(
             usable_duration_s=usable_s, pause_threshold_pct=thr_pct,
             breathing_signal=frozen(np.where(mask_b, y, np.nan)),
         )
-    amp = float(1.4826 * stats.median_abs_deviation(y[mask_b]))
+    amp = float(robust_sd(y[mask_b]))
     if amp <= 0:
         flags.append("no_breathing_signal")
         amp_z = np.zeros_like(y)
@@ -390,8 +391,7 @@ def _validate(
 
 def _runs(flag: NDArray[np.bool_]) -> NDArray[np.int64]:
     """(start, stop) index pairs of the runs of True in ``flag`` (stop exclusive)."""
-    d = np.diff(np.concatenate(([0], flag.astype(np.int8), [0])))
-    return np.column_stack((np.flatnonzero(d == 1), np.flatnonzero(d == -1)))
+    return np.column_stack(runs(flag))
 
 
 # --------------------------------------------------------------------------- kernels
@@ -484,9 +484,7 @@ def _spectral_rate_per_min(est: _Psd) -> float | None:
     i = int(band[np.argmax(p[band])])
     if i in (band[0], band[-1]) or p[i] <= 0:
         return None
-    a, b, c = p[i - 1], p[i], p[i + 1]
-    den = a - 2 * b + c
-    d = 0.0 if den == 0 else float(np.clip(0.5 * (a - c) / den, -0.5, 0.5))
+    d = float(np.clip(vertex_offset(p[i - 1], p[i], p[i + 1]), -0.5, 0.5))
     return 60.0 * float(f[i] + d * (f[1] - f[0]))
 
 
