@@ -16,7 +16,9 @@ from numpy.typing import ArrayLike, NDArray
 from features.errors import InvalidInputError
 from features.limits import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ
 
-__all__ = ["check_2d", "check_between", "check_sampling_rate", "check_trace"]
+__all__ = [
+    "check_2d", "check_between", "check_sampling_rate", "check_trace", "check_usable",
+]
 
 
 def check_sampling_rate(fs_hz: object, *, name: str = "fs_hz", low: float = MIN_FS_HZ,
@@ -164,3 +166,29 @@ def check_2d(signals: ArrayLike, fs_hz: float, *, name: str = "signals",
                                     f"or inf); got {int(np.count_nonzero(~np.isfinite(row)))} "
                                     "non-finite values.")
     return x
+
+
+def check_usable(usable: ArrayLike | None, n: int, *, of: str) -> NDArray[np.bool_]:
+    """Return the usable-sample mask as booleans of length ``n`` (all True when None).
+
+    Parameters
+    ----------
+    usable
+        True where a sample may be used, or None.
+    n
+        Length of the trace the mask goes with.
+    of
+        Name of that trace, for the message.
+
+    Raises
+    ------
+    InvalidInputError
+        When the mask is not 1-D of length ``n``.
+    """
+    if usable is None:
+        return np.ones(n, dtype=bool)
+    mask = np.asarray(usable, dtype=bool)
+    if mask.shape != (n,):
+        raise InvalidInputError(
+            "usable", f"`usable` must have the length of `{of}` ({n}); got {mask.size}.")
+    return mask

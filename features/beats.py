@@ -30,7 +30,7 @@ import scipy.fft
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
-from features._checks import check_sampling_rate, check_trace
+from features._checks import check_sampling_rate, check_trace, check_usable
 from features._numeric import robust_sd, vertex_offset
 from features.errors import InvalidInputError
 from features.filters import bridge_masked
@@ -388,15 +388,7 @@ def _validate(
             "rate_range_bpm", f"`rate_range_bpm` must be increasing within "
             f"{MIN_RATE_BPM:g}-{MAX_RATE_BPM:g} bpm; got {rate_range_bpm}.",
         )
-    if usable is None:
-        mask = np.ones(x.size, dtype=bool)
-    else:
-        mask = np.asarray(usable, dtype=bool)
-        if mask.shape != x.shape:
-            raise InvalidInputError(
-                "usable", f"`usable` must have the trace's length {x.size}; got {mask.size}."
-            )
-    return x, mask
+    return x, check_usable(usable, x.size, of="trace")
 
 
 # --- kernels --------------------------------------------------------------

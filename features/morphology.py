@@ -20,7 +20,7 @@ import pywt
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
-from features._checks import check_between, check_sampling_rate
+from features._checks import check_between, check_sampling_rate, check_usable
 from features._numeric import MAD_TO_SD
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, frozen, lowpass
@@ -437,15 +437,7 @@ def _validate(
             "signal", f"`signal` must hold at least 1 s ({int(np.ceil(fs))} samples); "
             f"got {x.size}."
         )
-    if usable is None:
-        mask = np.ones(x.size, dtype=bool)
-    else:
-        mask = np.asarray(usable, dtype=bool)
-        if mask.shape != x.shape:
-            raise InvalidInputError(
-                "usable", f"`usable` must have the length of `signal` ({x.size}); got "
-                f"{mask.size}."
-            )
+    mask = check_usable(usable, x.size, of="signal")
     if not np.all(np.isfinite(x[mask])):
         raise InvalidInputError(
             "signal", "`signal` must be finite where `usable` is True; got NaN or infinity."

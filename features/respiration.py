@@ -17,7 +17,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 from scipy import signal as sps
 
-from features._checks import check_sampling_rate
+from features._checks import check_sampling_rate, check_usable
 from features._numeric import robust_sd, runs, vertex_offset
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, butter_filtfilt, frozen
@@ -351,11 +351,7 @@ def _validate(
             f"`signal_or_lowband` must last at least {MIN_DURATION_S:g} s "
             f"({int(np.ceil(MIN_DURATION_S * fs))} samples); got {x.size}.",
         )
-    mask = np.ones(x.size, dtype=bool) if usable is None else np.asarray(usable, dtype=bool)
-    if mask.shape != x.shape:
-        raise InvalidInputError(
-            "usable", f"`usable` must have the length of the signal ({x.size}); got {mask.size}."
-        )
+    mask = check_usable(usable, x.size, of="signal_or_lowband")
     if not np.all(np.isfinite(x[mask])):
         raise InvalidInputError(
             "signal_or_lowband",
