@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from features import __version__
-from features.artifacts import ArtifactMask, Segment, mask_artifacts
+from features.artifacts import ArtifactMask, mask_artifacts
 from features.beats import BeatDetection, detect_beats
 from features.conditioning import ChannelInput, condition_channels
 from features.errors import InvalidInputError
@@ -34,6 +34,7 @@ from features.limits import (
 )
 from features.modulation import ModulationResult, respiratory_modulation
 from features.morphology import MorphologyResult, beat_morphology
+from features.quality import OccupancyResult, QualityResult, occupancy, signal_quality
 from features.respiration import RespirationResult, breathing
 from features.variability import VariabilityResult, heart_rate_variability
 
@@ -98,42 +99,6 @@ class InputSummary:
     amplitude_unit: str
     mains_hz_removed: float | None
     cop_cardiac_excursion_mm: float | None
-    flags: tuple[str, ...]
-
-
-@dataclass(frozen=True)
-class QualityResult:
-    """Usable share of the recording and the masked segments."""
-
-    usable_fraction: float
-    segments: tuple[Segment, ...]
-    confidence: float
-    flags: tuple[str, ...]
-
-
-@dataclass(frozen=True)
-class OccupancyResult:
-    """Whether someone sat on the support, from the load and the heartbeat.
-
-    Attributes
-    ----------
-    occupied
-        True, False, or None when neither load nor heartbeat can tell.
-    supported_mass_kg
-        Static load over standard gravity, less the empty load; None without
-        force channels.
-    from_load, from_heartbeat
-        The two independent pieces of evidence (None when not available).
-    confidence
-        0.95 when both agree, 0.7 when only one is available, 0.4 when they
-        disagree, 0.0 when neither is.
-    """
-
-    occupied: bool | None
-    supported_mass_kg: float | None
-    from_load: bool | None
-    from_heartbeat: bool
-    confidence: float
     flags: tuple[str, ...]
 
 
@@ -208,10 +173,10 @@ def analyze(
                          rate_range_bpm=options.rate_range_bpm)
     series = intervals_from_beats(beats.times_s, run_ids=beats.run_ids)
     labels = classify_intervals(series.times_s, series.intervals_ms)
-    occupancy = _occupancy(cond.occupancy_from_load, cond.supported_mass_kg, beats)
-    hr = heart_rate(beats, series, labels, occupied=occupancy.occupied)
+    occupied = occupancy(cond.occupancy_from_load, cond.supported_mass_kg, beats)
+    hr = heart_rate(beats, series, labels, occupied=occupied.occupied)
     hrv = heart_rate_variability(series.times_s, series.intervals_ms, labels.labels)
-    mass, mass_source = _body_mass(subject, cond.supported_mass_kg, occupancy.occupied)
+    mass, mass_source = _body_mass(subject, cond.supported_mass_kg, occupied.occupied)
     morph = beat_morphology(
         fusion.fused * (beats.polarity or 1), fs_hz, beats.times_s,
         beat_confidence=beats.confidence, usable=mask.usable, body_mass_kg=mass,
@@ -238,12 +203,7 @@ def analyze(
         warnings.append("the load on the support differs from the stated body mass by over 25%")
 
     n_samples = int(cond.signals.shape[1])
-    quality = QualityResult(
-        usable_fraction=mask.usable_fraction,
-        segments=mask.segments,
-        confidence=float(mask.usable_fraction * (1.0 if beats.has_beats else 0.2)),
-        flags=tuple(mask.flags),
-    )
+    quality = signal_quality(mask, beats)
     summary = InputSummary(
         duration_s=n_samples / fs_hz,
         sampling_rate_hz=float(fs_hz),
@@ -259,7 +219,7 @@ def analyze(
     return AnalysisResult(
         input=summary,
         quality=quality,
-        occupancy=occupancy,
+        occupancy=occupied,
         heart_rate=hr,
         beats=beats,
         intervals=series,
@@ -297,22 +257,3 @@ def _body_mass(subject: Subject, supported_mass_kg: float | None,
     if occupied and supported_mass_kg is not None and supported_mass_kg > 0:
         return float(supported_mass_kg), "load"
     return None, None
-
-
-def _occupancy(from_load: bool | None, mass_kg: float | None,
-               beats: BeatDetection) -> OccupancyResult:
-    from_beat = bool(beats.has_beats)
-    flags: list[str] = []
-    if from_load is None:
-        occupied: bool | None = from_beat
-        conf = 0.7
-        flags.append("no_load_information")
-    elif from_load == from_beat:
-        occupied, conf = from_load, 0.95
-    else:
-        # The load is the direct measurement; a heartbeat on an unloaded
-        # support or none under a load is reported, with low confidence.
-        occupied, conf = from_load, 0.4
-        flags.append("load_and_heartbeat_disagree")
-    return OccupancyResult(occupied=occupied, supported_mass_kg=mass_kg, from_load=from_load,
-                           from_heartbeat=from_beat, confidence=conf, flags=tuple(flags))

@@ -17,10 +17,20 @@ from numpy.typing import ArrayLike, NDArray
 
 from features._checks import check_sampling_rate
 from features._numeric import runs
+from features.catalogue import (
+    NONNEGATIVE,
+    PERCENT,
+    REF_CARTER,
+    REF_GROSSMAN,
+    REF_LOMB,
+    REF_OURS,
+    UNIT_INTERVAL,
+    FeatureDefinition,
+)
 from features.errors import InvalidInputError
 from features.spectral import lomb_scargle_power, welch_spectra
 
-__all__ = ["ModulationResult", "respiratory_modulation"]
+__all__ = ["CATALOGUE", "ModulationResult", "respiratory_modulation"]
 
 MIN_BREATHS = 5
 """Fewest usable breath cycles for the per-breath indices."""
@@ -522,3 +532,39 @@ def _coherence(
     if value is None:
         return None, 0.0, int(k_seg), ["coherence_undefined"]
     return value, min(1.0, k_seg / 10.0), int(k_seg), []
+
+
+# --------------------------------------------------------------------------- catalogue
+
+
+def _entry(name: str, attr: str, conf: str, unit: str | None, text: str,
+           rng: tuple[float | None, float | None], ref: str, key: str) -> FeatureDefinition:
+    return FeatureDefinition(name, "modulation", unit, text, rng, ref, f"modulation.{attr}",
+                             f"modulation.{conf}", (), ("modulation.flags",), (key,))
+
+
+CATALOGUE: tuple[FeatureDefinition, ...] = (
+    _entry("rsa_ms", "rsa_ms", "rsa_confidence", "ms",
+           "Respiratory sinus arrhythmia, peak-to-trough: median over breaths of the longest "
+           "minus the shortest NN interval ending within the breath.", NONNEGATIVE,
+           REF_GROSSMAN, "rsa"),
+    _entry("amplitude_index", "amplitude_index", "amplitude_confidence", None,
+           "Respiratory modulation of beat amplitude: (max - min) / mean of the first-harmonic "
+           "fit of the per-beat J-K amplitudes against breathing phase.", NONNEGATIVE,
+           REF_OURS, "amplitude"),
+    _entry("timing_modulation_pct", "timing_modulation_pct", "timing_confidence", "%",
+           f"Share of the NN-series Lomb-Scargle power within {BAND_HALF_WIDTH_HZ:g} Hz of the "
+           f"breathing frequency (of the power from {TOTAL_BAND_LOW_HZ:g} Hz to the "
+           "beat-series Nyquist frequency).", PERCENT, REF_LOMB, "timing"),
+    _entry("baseline_modulation_ratio", "baseline_modulation_ratio", "baseline_confidence",
+           None,
+           "Median per-breath peak-to-trough of the breathing signal over the J-K amplitude; "
+           "None when the breathing signal came from the centre of pressure.", NONNEGATIVE,
+           REF_OURS, "baseline"),
+    _entry("cardiorespiratory_coherence", "coherence", "coherence_confidence", None,
+           f"Magnitude-squared coherence of the {RESAMPLE_FS_HZ:g}-Hz NN series and the "
+           "breathing signal at the breathing frequency (Welch, "
+           f"{COHERENCE_SEGMENT_S:g}-s Hann segments).", UNIT_INTERVAL, REF_CARTER,
+           "coherence"),
+)
+"""Catalogue entries of the respiratory-modulation family (see :mod:`features.catalogue`)."""

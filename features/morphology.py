@@ -22,12 +22,21 @@ from scipy import ndimage, signal
 
 from features._checks import check_between, check_sampling_rate, check_usable
 from features._numeric import MAD_TO_SD
+from features.catalogue import (
+    AMPLITUDE_UNIT,
+    NONNEGATIVE,
+    REF_INAN,
+    REF_OURS,
+    REF_PYWT,
+    UNIT_INTERVAL,
+    FeatureDefinition,
+)
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, frozen, lowpass
 from features.limits import MAX_BODY_MASS_KG, MIN_BODY_MASS_KG
 from features.wavelets import WAVELET, detail_bands
 
-__all__ = ["MorphologyResult", "WaveLocation", "beat_morphology"]
+__all__ = ["CATALOGUE", "MorphologyResult", "WaveLocation", "beat_morphology"]
 
 EPOCH_START_S = -0.35
 """Start of each beat epoch relative to the J peak (s)."""
@@ -826,3 +835,82 @@ def _wavelet_signature(
         flags.append("wavelet_signature_zero_energy")
         return None, bands, flags
     return tuple(float(e) for e in energy / energy.sum()), bands, flags
+
+
+# --------------------------------------------------------------------------- catalogue
+
+_WINDOWS_S = {name: (start, end) for name, _, _, start, end in _WAVE_RULES}
+_J_MINUS_I_S = (-_WINDOWS_S["I"][1], -_WINDOWS_S["I"][0])
+_I_MINUS_H_S = (-_WINDOWS_S["H"][1], -_WINDOWS_S["H"][0])
+_K_MINUS_J_S = _WINDOWS_S["K"]
+
+
+def _interval_range_ms(*legs: tuple[float, float]) -> tuple[float, float]:
+    """Valid range of a wave interval made of ``legs`` (search windows, s): their sum,
+    widened by two parabola half-widths per leg (each end moves by at most one when
+    refined), in ms, rounded to 1 us."""
+    slack_ms = len(legs) * 2e3 * _FIT_HALF_WIDTH_S
+    low = 1e3 * sum(leg[0] for leg in legs) - slack_ms
+    high = 1e3 * sum(leg[1] for leg in legs) + slack_ms
+    return round(low, 3), round(high, 3)
+
+
+_IK_RANGE_MS = _interval_range_ms(_J_MINUS_I_S, _K_MINUS_J_S)
+# Nominal detail bands of the signature levels at SIGNATURE_FS_HZ (features.wavelets.
+# detail_bands), as written in the catalogue (rounded by hand; a test checks them).
+SIGNATURE_BAND_LABELS = ("62.5-125", "31.25-62.5", "15.6-31.25", "7.8-15.6", "3.9-7.8",
+                         "1.95-3.9")
+
+
+def _entry(name: str, attr: str, unit: str | None, text: str,
+           rng: tuple[float | None, float | None], waves: tuple[str, ...],
+           ref: str = REF_INAN, conf: str = "confidence") -> FeatureDefinition:
+    return FeatureDefinition(name, "morphology", unit, text, rng, ref, f"morphology.{attr}",
+                             f"morphology.{conf}", waves, ("morphology.flags",))
+
+
+CATALOGUE: tuple[FeatureDefinition, ...] = (
+    _entry("ij_interval_ms", "ij_interval_ms", "ms",
+           "Time from the I-wave minimum to the J-wave maximum of the beat-ensemble template.",
+           _interval_range_ms(_J_MINUS_I_S), ("I", "J"), conf="ij_interval_confidence"),
+    _entry("jk_interval_ms", "jk_interval_ms", "ms",
+           "Time from the J-wave maximum to the K-wave minimum of the template.",
+           _interval_range_ms(_K_MINUS_J_S), ("J", "K"), conf="jk_interval_confidence"),
+    _entry("ik_interval_ms", "ik_interval_ms", "ms",
+           "Time from the I-wave minimum to the K-wave minimum of the template.",
+           _IK_RANGE_MS, ("I", "J", "K")),
+    _entry("hj_interval_ms", "hj_interval_ms", "ms",
+           "Time from the H-wave maximum to the J-wave maximum of the template.",
+           _interval_range_ms(_I_MINUS_H_S, _J_MINUS_I_S), ("H", "I", "J")),
+    _entry("j_width_ms", "j_width_ms", "ms",
+           "Full width of the J wave at half its height above the line joining the I and K "
+           "extrema.", (0.0, _IK_RANGE_MS[1]), ("I", "J", "K")),
+    _entry("ij_amplitude", "ij_amplitude", AMPLITUDE_UNIT,
+           "Peak-to-peak amplitude J minus I of the template, in the input's amplitude unit.",
+           (0.0, None), ("I", "J"), conf="ij_amplitude_confidence"),
+    _entry("jk_amplitude", "jk_amplitude", AMPLITUDE_UNIT,
+           "Peak-to-peak amplitude J minus K of the template, in the input's amplitude unit.",
+           (0.0, None), ("J", "K"), conf="jk_amplitude_confidence"),
+    _entry("ij_amplitude_per_kg", "ij_amplitude_per_kg", AMPLITUDE_UNIT + "/kg",
+           "ij_amplitude divided by the body mass (stated, else the measured load); None "
+           "without a mass.", (0.0, None), ("I", "J"), conf="ij_amplitude_confidence"),
+    _entry("jk_amplitude_per_kg", "jk_amplitude_per_kg", AMPLITUDE_UNIT + "/kg",
+           "jk_amplitude divided by the body mass (stated, else the measured load); None "
+           "without a mass.", (0.0, None), ("J", "K"), conf="jk_amplitude_confidence"),
+    _entry("template_correlation", "template_correlation_median", None,
+           "Median Pearson correlation of the template beats with the template.",
+           (-1.0, 1.0), (), REF_OURS),
+    _entry("jk_amplitude_cv_pct", "jk_amplitude_cv_pct", "%",
+           "Coefficient of variation (SD, ddof=1, over the mean) of the per-beat J-K "
+           f"amplitudes of the beats correlating >= {_MIN_BEAT_CORRELATION:g} with the "
+           "template.", NONNEGATIVE, ("J", "K"), REF_OURS),
+    *(
+        _entry(f"wavelet_energy_d{k + 1}", f"wavelet_signature[{k}]", None,
+               f"Share of the template's stationary-wavelet detail energy in level d{k + 1} "
+               f"({band} Hz; template resampled to {SIGNATURE_FS_HZ:g} Hz, "
+               f"{SIGNATURE_WAVELET}, {SIGNATURE_LEVELS} levels; the six shares sum to 1).",
+               UNIT_INTERVAL, (), REF_PYWT)
+        for k, band in enumerate(SIGNATURE_BAND_LABELS)
+    ),
+)
+"""Catalogue entries of the morphology family (see :mod:`features.catalogue`)."""

@@ -18,13 +18,22 @@ from scipy import ndimage
 from scipy import signal as sps
 
 from features._checks import check_sampling_rate, check_usable
-from features._numeric import robust_sd, runs, vertex_offset
+from features._numeric import MAD_TO_SD, robust_sd, runs, vertex_offset
+from features.catalogue import (
+    AMPLITUDE_UNIT,
+    NONNEGATIVE,
+    REF_AASM,
+    REF_KARLEN,
+    REF_OURS,
+    REF_WELCH,
+    FeatureDefinition,
+)
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, butter_filtfilt, frozen
 from features.limits import MIN_DURATION_S
 from features.spectral import welch_spectra
 
-__all__ = ["RespirationResult", "breathing"]
+__all__ = ["CATALOGUE", "RespirationResult", "breathing"]
 
 BAND_HZ = (0.1, 0.7)
 """Breathing band (Hz): 6 to 42 breaths/min."""
@@ -38,6 +47,8 @@ MIN_SIGNAL_FS_HZ = 2.0
 """Lowest rate of the trace or low band accepted (Hz): breathing stays below 0.7 Hz."""
 FUSION_MAX_SD_PER_MIN = 4.0
 """Largest SD of the two rate estimates that are still averaged (Karlen et al. 2013)."""
+PAUSE_THRESHOLD_PCT = 25.0
+"""Default pause threshold: swing below this share of the surrounding baseline (%)."""
 
 _BASELINE_BLOCK_S = 10.0
 _BASELINE_SPAN_S = 120.0
@@ -122,7 +133,7 @@ def breathing(
     usable: ArrayLike | None = None,
     cop_signal: ArrayLike | None = None,
     cop_fs_hz: float | None = None,
-    pause_threshold_pct: float = 25.0,
+    pause_threshold_pct: float = PAUSE_THRESHOLD_PCT,
 ) -> RespirationResult:
     """Measure breathing from the low band of a force trace.
 
@@ -695,3 +706,46 @@ def _noise_limited(
     sd = float(np.sqrt(np.percentile(p[band], 20) * (BAND_HZ[1] - BAND_HZ[0])))
     swing = float(np.median(_swing(y_low, _window(period_s, fs))[mask]))
     return 6.0 * sd >= fraction * swing
+
+
+# --------------------------------------------------------------------------- catalogue
+
+#: Breathing rates the band admits, /min.
+_RATE_RANGE_PER_MIN = (round(60.0 * BAND_HZ[0], 6), round(60.0 * BAND_HZ[1], 6))
+
+
+def _entry(name: str, attr: str, unit: str | None, text: str,
+           rng: tuple[float | None, float | None], ref: str) -> FeatureDefinition:
+    return FeatureDefinition(name, "respiration", unit, text, rng, ref, f"respiration.{attr}",
+                             "respiration.confidence", (), ("respiration.flags",))
+
+
+CATALOGUE: tuple[FeatureDefinition, ...] = (
+    _entry("breathing_rate_per_min", "rate_per_min", "/min",
+           "Breathing rate: mean of breathing_rate_counted_per_min and "
+           f"breathing_rate_spectral_per_min when their SD is at most "
+           f"{FUSION_MAX_SD_PER_MIN:g} per min (Smart Fusion), else None.",
+           _RATE_RANGE_PER_MIN, REF_KARLEN),
+    _entry("breathing_rate_counted_per_min", "counted_rate_per_min", "/min",
+           "Breathing rate by counting: 60 over the median interval between breaths detected "
+           f"with hysteresis on the {BAND_HZ[0]:g}-{BAND_HZ[1]:g} Hz band of the trace.",
+           _RATE_RANGE_PER_MIN, REF_OURS),
+    _entry("breathing_rate_spectral_per_min", "spectral_rate_per_min", "/min",
+           "Breathing rate at the Welch spectral peak of the breathing band.",
+           _RATE_RANGE_PER_MIN, REF_WELCH),
+    _entry("breath_interval_cv_pct", "interval_cv_pct", "%",
+           "Coefficient of variation of the breath-to-breath intervals.", NONNEGATIVE, REF_OURS),
+    _entry("breathing_rise_fall_ratio", "rise_fall_ratio", None,
+           "Median rise (trough to peak) time over median fall time of the breathing signal; "
+           "not an inspiration/expiration ratio, since the sign of a force trace does not tell "
+           "them apart.", (0.0, None), REF_OURS),
+    _entry("breathing_amplitude", "breathing_amplitude", AMPLITUDE_UNIT,
+           f"Robust amplitude ({MAD_TO_SD:g} x MAD) of the breathing signal; None when the "
+           "breathing signal came from the centre of pressure (another unit).", NONNEGATIVE,
+           REF_OURS),
+    _entry("breathing_pauses_per_hour", "pauses_per_hour", "/h",
+           f"Breathing pauses of {PAUSE_MIN_S:g} s or more (swing below "
+           f"{PAUSE_THRESHOLD_PCT:g} % of the surrounding baseline) per usable hour; a signal "
+           "observation, not a diagnosis.", NONNEGATIVE, REF_AASM),
+)
+"""Catalogue entries of the respiration family (see :mod:`features.catalogue`)."""

@@ -32,6 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike
 
+from features.catalogue import FeatureDefinition
 from features.errors import InvalidInputError
 from features.intervals import LABELS, IntervalLabels, validate_interval_series
 from features.variability._shared import _SHORT_TERM_S
@@ -44,15 +45,19 @@ from features.variability.frequency_domain import (
     frequency_domain,
     lomb_psd_ms2_per_hz,
 )
+from features.variability.frequency_domain import CATALOGUE as _FREQUENCY_CATALOGUE
 from features.variability.nonlinear import (
     _SAMPEN_MIN_INTERVALS,
     NonlinearResult,
     _nonlinear,
     nonlinear,
 )
+from features.variability.nonlinear import CATALOGUE as _NONLINEAR_CATALOGUE
+from features.variability.time_domain import CATALOGUE as _TIME_CATALOGUE
 from features.variability.time_domain import TimeDomainResult, _time_domain, time_domain
 
 __all__ = [
+    "CATALOGUE",
     "FrequencyDomainResult",
     "NonlinearResult",
     "TimeDomainResult",
@@ -187,3 +192,8 @@ def heart_rate_variability(
         flags=tuple(flags),
     )
 
+
+CATALOGUE: tuple[FeatureDefinition, ...] = (
+    _TIME_CATALOGUE + _FREQUENCY_CATALOGUE + _NONLINEAR_CATALOGUE
+)
+"""Catalogue entries of the variability families, time domain first."""

@@ -8,6 +8,7 @@ import math
 import numpy as np
 from numpy.typing import NDArray
 
+from features.catalogue import FeatureDefinition
 from features.intervals import adjacent_to_previous
 
 # Task Force (1996) short-term standard: 5-min recordings.
@@ -27,3 +28,13 @@ def _adjacent_pairs(
     adjacent = adjacent_to_previous(times, nn)
     later = np.flatnonzero(adjacent)
     return nn[later - 1], nn[later]
+
+
+def _entry(name: str, block: str, attr: str, unit: str | None, text: str,
+           rng: tuple[float | None, float | None], ref: str,
+           keys: tuple[str, ...] = ()) -> FeatureDefinition:
+    """Catalogue entry of a variability feature read at ``variability.<block>.<attr>``."""
+    path = f"variability.{block}"
+    return FeatureDefinition(name, "variability", unit, text, rng, ref, f"{path}.{attr}",
+                             f"{path}.confidence", (), (f"{path}.flags", "variability.flags"),
+                             keys)

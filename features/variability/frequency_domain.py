@@ -13,12 +13,15 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from features.catalogue import NONNEGATIVE, REF_LOMB, REF_TASK_FORCE, FeatureDefinition
 from features.errors import InvalidInputError
 from features.intervals import validate_interval_series
 from features.spectral import lomb_scargle_power
-from features.variability._shared import _SHORT_TERM_S
+from features.variability._shared import _SHORT_TERM_S, _entry
 
-__all__ = ["FrequencyDomainResult", "frequency_domain", "lomb_psd_ms2_per_hz"]
+__all__ = [
+    "CATALOGUE", "FrequencyDomainResult", "frequency_domain", "lomb_psd_ms2_per_hz",
+]
 
 # Task Force (1996) band edges, Hz.
 _VLF_BAND_HZ = (0.0033, 0.04)
@@ -414,3 +417,25 @@ def _frequency_domain(
         confidence=float(min(1.0, covered / _SHORT_TERM_S) * coverage),
         flags=tuple(flags),
     )
+
+
+# --------------------------------------------------------------------------- catalogue
+
+
+def _power_text(band: tuple[float, float], name: str) -> str:
+    return (f"Lomb-Scargle power of the NN series in {band[0]:g}-{band[1]:g} Hz "
+            f"(needs {_MIN_DURATION_S[name]:g} s).")
+
+
+_FD = "frequency_domain"
+CATALOGUE: tuple[FeatureDefinition, ...] = (
+    _entry("vlf_power_ms2", _FD, "vlf_power_ms2", "ms2", _power_text(_VLF_BAND_HZ, "vlf"),
+           NONNEGATIVE, REF_LOMB, ("vlf",)),
+    _entry("lf_power_ms2", _FD, "lf_power_ms2", "ms2", _power_text(_LF_BAND_HZ, "lf"),
+           NONNEGATIVE, REF_LOMB, ("lf",)),
+    _entry("hf_power_ms2", _FD, "hf_power_ms2", "ms2", _power_text(_HF_BAND_HZ, "hf"),
+           NONNEGATIVE, REF_LOMB, ("hf",)),
+    _entry("lf_hf_ratio", _FD, "lf_hf_ratio", None, "LF power divided by HF power.",
+           NONNEGATIVE, REF_TASK_FORCE, ("lf_hf_ratio", "lf", "hf")),
+)
+"""Catalogue entries of the frequency-domain family (see :mod:`features.catalogue`)."""

@@ -14,14 +14,15 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
 
+from features.catalogue import NONNEGATIVE, REF_BRENNAN, REF_PENG, REF_RICHMAN, FeatureDefinition
 from features.intervals import (
     adjacent_to_previous,
     run_ids_from_adjacency,
     validate_interval_series,
 )
-from features.variability._shared import _adjacent_pairs, _fin
+from features.variability._shared import _adjacent_pairs, _entry, _fin
 
-__all__ = ["NonlinearResult", "nonlinear"]
+__all__ = ["CATALOGUE", "NonlinearResult", "nonlinear"]
 
 # Sample entropy: m = 2, r = 0.2 SD (Richman & Moorman 2000); N > 200
 # (Yentes et al. 2013).
@@ -286,3 +287,24 @@ def _nonlinear(times: NDArray[np.float64], nn: NDArray[np.float64]) -> Nonlinear
         confidence=float(min(1.0, n_pairs / _SAMPEN_MIN_INTERVALS) * adjacency),
         flags=tuple(flags),
     )
+
+
+# --------------------------------------------------------------------------- catalogue
+
+_NL = "nonlinear"
+CATALOGUE: tuple[FeatureDefinition, ...] = (
+    _entry("sd1_ms", _NL, "sd1_ms", "ms",
+           "Poincare plot SD1: spread of adjacent NN pairs across the line of identity.",
+           NONNEGATIVE, REF_BRENNAN, ("poincare",)),
+    _entry("sd2_ms", _NL, "sd2_ms", "ms",
+           "Poincare plot SD2: spread of adjacent NN pairs along the line of identity.",
+           NONNEGATIVE, REF_BRENNAN, ("poincare",)),
+    _entry("sample_entropy", _NL, "sample_entropy", None,
+           f"Sample entropy SampEn(m={_SAMPEN_M}, r={_SAMPEN_R_SD:g} SD) of the NN series, "
+           f"natural log (needs {_SAMPEN_MIN_INTERVALS} intervals).", NONNEGATIVE, REF_RICHMAN),
+    _entry("dfa_alpha1", _NL, "dfa_alpha1", None,
+           f"Short-term ({_DFA_ALPHA1_SCALES[0]}-{_DFA_ALPHA1_SCALES[-1]} beats) scaling "
+           "exponent of detrended fluctuation analysis of the NN series.", (None, None),
+           REF_PENG),
+)
+"""Catalogue entries of the nonlinear family (see :mod:`features.catalogue`)."""

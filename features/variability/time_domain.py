@@ -11,10 +11,22 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from features.catalogue import (
+    MS_PER_MIN,
+    NN_RANGE_MS,
+    NONNEGATIVE,
+    PERCENT,
+    REF_TASK_FORCE,
+    FeatureDefinition,
+)
 from features.intervals import validate_interval_series
-from features.variability._shared import _SHORT_TERM_S, _adjacent_pairs, _fin
+from features.variability._shared import _SHORT_TERM_S, _adjacent_pairs, _entry, _fin
 
-__all__ = ["TimeDomainResult", "time_domain"]
+__all__ = ["CATALOGUE", "TimeDomainResult", "time_domain"]
+
+#: Thresholds of the NN50 and NN20 counts, ms (Task Force 1996).
+_NN50_MS = 50.0
+_NN20_MS = 20.0
 
 
 @dataclass(frozen=True)
@@ -136,7 +148,7 @@ def _time_domain(times: NDArray[np.float64], nn: NDArray[np.float64]) -> TimeDom
     n_diff = diffs.size
 
     mean_nn = _fin(nn.mean()) if n else None
-    hr = 60000.0 / nn
+    hr = MS_PER_MIN / nn
     mean_hr = _fin(hr.mean()) if n else None
     if n == 0:
         flags.append("no_intervals")
@@ -151,8 +163,8 @@ def _time_domain(times: NDArray[np.float64], nn: NDArray[np.float64]) -> TimeDom
     if n_diff >= 1:
         rmssd = _fin(np.sqrt(np.mean(diffs**2)))
         absd = np.abs(diffs)
-        pnn50 = 100.0 * float(np.count_nonzero(absd > 50.0)) / n_diff
-        pnn20 = 100.0 * float(np.count_nonzero(absd > 20.0)) / n_diff
+        pnn50 = 100.0 * float(np.count_nonzero(absd > _NN50_MS)) / n_diff
+        pnn20 = 100.0 * float(np.count_nonzero(absd > _NN20_MS)) / n_diff
     else:
         flags.append("rmssd_needs_1_adjacent_pair")
     if n_diff >= 2:
@@ -177,3 +189,33 @@ def _time_domain(times: NDArray[np.float64], nn: NDArray[np.float64]) -> TimeDom
         confidence=float(confidence),
         flags=tuple(flags),
     )
+
+
+# --------------------------------------------------------------------------- catalogue
+
+_TD = "time_domain"
+# Bounds: a difference of two NN intervals is at most the width of NN_RANGE_MS; the SD of
+# values inside it at most half that width (Popoviciu's inequality, population SD).
+_NN_SPAN_MS = NN_RANGE_MS[1] - NN_RANGE_MS[0]
+CATALOGUE: tuple[FeatureDefinition, ...] = (
+    _entry("mean_nn_ms", _TD, "mean_nn_ms", "ms",
+           "Mean of the normal-to-normal (NN) intervals.", NN_RANGE_MS, REF_TASK_FORCE),
+    _entry("sdnn_ms", _TD, "sdnn_ms", "ms",
+           "Sample standard deviation (ddof=1) of the NN intervals.", (0.0, _NN_SPAN_MS / 2),
+           REF_TASK_FORCE),
+    _entry("rmssd_ms", _TD, "rmssd_ms", "ms",
+           "Root mean square of the differences of adjacent NN intervals.", (0.0, _NN_SPAN_MS),
+           REF_TASK_FORCE),
+    _entry("sdsd_ms", _TD, "sdsd_ms", "ms",
+           "Sample standard deviation of the differences of adjacent NN intervals.",
+           (0.0, _NN_SPAN_MS), REF_TASK_FORCE),
+    _entry("pnn50_pct", _TD, "pnn50_pct", "%",
+           f"Share of adjacent-NN differences larger than {_NN50_MS:g} ms.", PERCENT,
+           REF_TASK_FORCE),
+    _entry("pnn20_pct", _TD, "pnn20_pct", "%",
+           f"Share of adjacent-NN differences larger than {_NN20_MS:g} ms.", PERCENT,
+           REF_TASK_FORCE),
+    _entry("cvnn_pct", _TD, "cvnn_pct", "%",
+           "SDNN divided by the mean NN interval, in %.", NONNEGATIVE, REF_TASK_FORCE),
+)
+"""Catalogue entries of the time-domain family (see :mod:`features.catalogue`)."""
