@@ -34,7 +34,13 @@ from features.limits import (
 )
 from features.modulation import ModulationResult, respiratory_modulation
 from features.morphology import MorphologyResult, beat_morphology
-from features.quality import OccupancyResult, QualityResult, occupancy, signal_quality
+from features.quality import (
+    OccupancyResult,
+    QualityResult,
+    check_signal_present,
+    occupancy,
+    signal_quality,
+)
 from features.respiration import RespirationResult, breathing
 from features.variability import VariabilityResult, heart_rate_variability
 
@@ -151,6 +157,11 @@ def analyze(
     ------
     InvalidInputError
         When any input breaks a documented rule (the field is named).
+    UnusableSignalError
+        When the trace itself shows that no feature can be computed: every channel flat
+        or clipped (``reason`` one of :data:`features.errors.UNUSABLE_REASONS`; see
+        :func:`features.quality.check_signal_present`). An empty support is a valid
+        result (``occupancy.occupied`` False), not this error.
     """
     subject = subject or Subject()
     recording = recording or Recording()
@@ -159,6 +170,7 @@ def analyze(
 
     cond = condition_channels(channels, fs_hz, mains_hz=options.mains_hz,
                               empty_load_kg=options.empty_load_kg)
+    check_signal_present(cond.raw_signals, unloaded=cond.occupancy_from_load is False)
     force_only = all(q == "force" for q in cond.quantities)
     fusion = fuse_channels(
         cond.signals, fs_hz, units=cond.units,

@@ -7,16 +7,22 @@ on the support, the static load and a repeating heartbeat.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
 
 from features.artifacts import ArtifactMask, Segment
 from features.beats import BeatDetection
 from features.catalogue import REF_OURS, UNIT_INTERVAL, FeatureDefinition
+from features.errors import CLIPPED_SIGNAL, FLAT_SIGNAL, UnusableSignalError
 
 __all__ = [
     "CATALOGUE",
     "OccupancyResult",
     "QualityResult",
+    "check_signal_present",
     "occupancy",
     "signal_quality",
 ]
@@ -30,6 +36,10 @@ part may still be noise."""
 BOTH_AGREE_CONFIDENCE = 0.95
 ONE_SOURCE_CONFIDENCE = 0.7
 DISAGREE_CONFIDENCE = 0.4
+CLIPPED_SHARE = 0.5
+"""A channel with more than this share of its samples at its own lowest or highest value
+is clipped over most of its length."""
+_CHUNK = 1 << 20  # samples compared at a time (bounds the temporary boolean arrays)
 
 
 @dataclass(frozen=True)
@@ -66,6 +76,66 @@ class OccupancyResult:
     from_heartbeat: bool
     confidence: float
     flags: tuple[str, ...]
+
+
+def check_signal_present(raw_signals: Sequence[NDArray[np.generic]], *,
+                         unloaded: bool = False) -> None:
+    """Raise :class:`UnusableSignalError` when no channel can carry a waveform.
+
+    Parameters
+    ----------
+    raw_signals
+        The channels as received (``ConditionedInput.raw_signals``), equal length.
+    unloaded
+        True when the static load says nobody is on the support
+        (``ConditionedInput.occupancy_from_load`` is False): flat channels are then an
+        empty support, a valid answer, and not an error.
+
+    Raises
+    ------
+    UnusableSignalError
+        ``"flat_signal"`` when every channel takes at most two distinct values (constant,
+        or toggling by one quantisation step: a disconnected or stuck sensor) and the
+        support is not known to be unloaded;
+        ``"clipped_signal"`` when every channel is flat or has more than
+        :data:`CLIPPED_SHARE` of its samples at its own lowest or highest value (a
+        saturated sensor).
+
+    Notes
+    -----
+    Both tests read the samples alone, so they hold for any unit, gain or offset. A
+    heartbeat or breathing waveform takes many distinct values and reaches its extremes
+    only briefly; a channel at the rails for most of the record carries neither, and a
+    loaded support never holds perfectly still, since breathing alone moves the body. One
+    usable channel is enough: the artifact stage masks a channel's clipped spans, and an
+    empty support (a noisy, unloaded sensor) is a valid answer, not an unusable signal.
+    """
+    shares = [_share_at_extremes(x) for x in raw_signals]
+    if all(share is None for share in shares):
+        if unloaded:
+            return
+        raise UnusableSignalError(
+            FLAT_SIGNAL, "Every channel is constant or toggles between two values, as from a "
+            "disconnected or stuck sensor; no feature can be computed. Check the sensor's "
+            "connection and that its samples change with the load.")
+    if all(share is None or share > CLIPPED_SHARE for share in shares):
+        raise UnusableSignalError(
+            CLIPPED_SIGNAL, f"Every channel sits at its lowest or highest value for more than "
+            f"{CLIPPED_SHARE:.0%} of its samples, as from a saturated sensor; no feature can be "
+            "computed. Lower the gain or use a sensor with a wider range.")
+
+
+def _share_at_extremes(x: NDArray[np.generic]) -> float | None:
+    """Share of the samples equal to the minimum or the maximum; None when those two are all
+    the values (at most two distinct values, a flat channel)."""
+    if x.size == 0:
+        return None
+    low, high = x.min(), x.max()
+    count = 0
+    for start in range(0, x.size, _CHUNK):
+        part = x[start:start + _CHUNK]
+        count += int(np.count_nonzero((part == low) | (part == high)))
+    return None if count == x.size else count / x.size
 
 
 def signal_quality(mask: ArtifactMask, beats: BeatDetection) -> QualityResult:
