@@ -11,23 +11,34 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from features.limits import MAX_RATE_BPM, MIN_RATE_BPM
+from features.limits import MAX_RATE_BPM, MIN_RATE_BPM, MS_PER_MIN
 
 __all__ = [
     "AMPLITUDE_UNIT",
     "FeatureDefinition",
+    "MS_PER_MIN",
     "NN_RANGE_MS",
     "NONNEGATIVE",
     "PERCENT",
     "RATE_RANGE_BPM",
+    "REF_AASM",
+    "REF_BRENNAN",
+    "REF_CARTER",
+    "REF_GROSSMAN",
+    "REF_INAN",
+    "REF_KARLEN",
+    "REF_LOMB",
+    "REF_OURS",
+    "REF_PENG",
+    "REF_PYWT",
+    "REF_RICHMAN",
+    "REF_TASK_FORCE",
+    "REF_WELCH",
     "UNIT_INTERVAL",
 ]
 
 AMPLITUDE_UNIT = "{amplitude_unit}"
 """Unit template of the amplitudes, filled with ``InputSummary.amplitude_unit``."""
-
-#: Milliseconds per minute: a rate in /min is MS_PER_MIN over an interval in ms.
-MS_PER_MIN = 60_000.0
 
 # Bounds that follow from the definitions. Heart rate: the widest rate_range_bpm the beat
 # detector accepts, hence NN intervals of 60000/300 to 60000/20 ms.

@@ -27,12 +27,16 @@ __all__ = [
     "MIN_OCCUPANT_KG",
     "MIN_RATE_BPM",
     "MIN_WINDOW_S",
+    "MS_PER_MIN",
     "PLACEMENTS",
     "QUANTITIES",
     "STANDARD_GRAVITY_M_S2",
     "UNIT_FACTORS",
     "units_of",
 ]
+
+#: Milliseconds per minute: a rate in /min is MS_PER_MIN over an interval in ms.
+MS_PER_MIN = 60_000.0
 
 #: Standard acceleration of gravity, m/s^2 (3rd CGPM, 1901; NIST SP 811, 2008, B.8).
 STANDARD_GRAVITY_M_S2 = 9.80665

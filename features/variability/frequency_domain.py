@@ -164,10 +164,8 @@ def frequency_domain(
 
     Parameters
     ----------
-    times_s
-        End-beat time of each NN interval, seconds, strictly increasing.
-    nn_ms
-        NN intervals, milliseconds, positive.
+    times_s, nn_ms
+        The NN series, as for :func:`features.variability.time_domain`.
     vlf_band_hz, lf_band_hz, hf_band_hz
         ``(low, high)`` band edges in Hz, ordered and not overlapping
         (``vlf_high <= lf_low``, ``lf_high <= hf_low``). Defaults are the Task

@@ -154,10 +154,8 @@ def nonlinear(times_s: ArrayLike, nn_ms: ArrayLike) -> NonlinearResult:
 
     Parameters
     ----------
-    times_s
-        End-beat time of each NN interval, seconds, strictly increasing.
-    nn_ms
-        NN intervals, milliseconds, positive.
+    times_s, nn_ms
+        The NN series, as for :func:`features.variability.time_domain`.
 
     Returns
     -------
