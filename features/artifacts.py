@@ -17,19 +17,14 @@ import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 from numpy.typing import ArrayLike, NDArray
 
-from features.conditioning import (
-    MIN_DURATION_S,
-    MIN_OCCUPANT_KG,
-    STANDARD_GRAVITY_M_S2,
-    check_sampling_rate,
-)
+from features._checks import check_sampling_rate
+from features._numeric import MAD_TO_SD, robust_sd, runs
 from features.errors import InvalidInputError
 from features.filters import FloatArray, block_factor, block_means, highpass
+from features.limits import MIN_DURATION_S, MIN_OCCUPANT_KG, STANDARD_GRAVITY_M_S2
 
 KINDS = ("movement", "posture_change", "clipping", "flat_line", "empty_support")
 
-#: Robust scale of a normal distribution from the median absolute deviation.
-_MAD_TO_SD = 1.4826
 #: Envelope: 0.25 s blocks, averaged over 1 s (about one beat), above 0.5 Hz.
 _ENV_BLOCK_S = 0.25
 _ENV_SPAN_BLOCKS = 4
@@ -106,7 +101,7 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
     fused
         (n,) fused trace (``FusionResult.fused``), finite, at least ``MIN_DURATION_S``.
     fs_hz
-        Sampling rate, 50 to 2000 Hz.
+        Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     load_n
         Occupant load trace in N (``ConditionedInput.load_trace_n``), or None to skip
         the empty-support check.
@@ -151,7 +146,7 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
     3. Empty support: ``load_n < min_occupant_kg * g``, padded by ``pad_s``.
     4. Movement: block means to about 100 Hz, high-pass 0.5 Hz, mean square in
        0.25 s blocks, averaged over 1 s, log RMS. Over the blocks not already
-       flat or empty, threshold = median + max(k * 1.4826 * MAD, ln 2). With a
+       flat or empty, threshold = median + max(k * ``MAD_TO_SD`` * MAD, ln 2). With a
        Gaussian null, k = 5 gives a false-alarm probability of 2.9e-7 per window,
        i.e. < 0.02 expected false windows in 8 h of 0.25 s blocks; real envelopes
        have heavier tails, which is why k is not lower. The ln 2 floor (RMS at
@@ -160,7 +155,7 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
     5. Posture changes, per raw channel (or the load, or ``fused``): medians of 1 s
        windows of 0.1 s block means; at each window boundary the difference ``D``
        between the medians of the 5 windows after and the 5 windows before. A step
-       is where ``|D - median(D)|`` exceeds max(k * 1.4826 * MAD(D), 2 x the median
+       is where ``|D - median(D)|`` exceeds max(k * ``MAD_TO_SD`` * MAD(D), 2 x the median
        within-window spread) and, at the run's peak, the step is larger than 2x the
        spread of the window medians on either side (a step between two stable
        levels, not a swing during movement). Near a step several boundaries see the
@@ -300,13 +295,6 @@ def _positive(field: str, value: object, *, allow_zero: bool = False) -> float:
 # ----------------------------------------------------------------------------- kernels
 
 
-def _runs(mask: NDArray[np.bool_]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
-    """Start and end (exclusive) indices of the runs of True in ``mask``."""
-    padded = np.concatenate(([False], np.asarray(mask, dtype=bool), [False]))
-    change = np.flatnonzero(padded[1:] != padded[:-1])  # alternately rises and falls
-    return change[0::2], change[1::2]
-
-
 def _block_std(x: NDArray[np.generic], length: int) -> FloatArray:
     """Standard deviation of consecutive blocks of ``length`` samples, two-pass, chunked."""
     m = x.shape[0] // length
@@ -335,7 +323,7 @@ def _flat_and_clipping(sources: list[NDArray[np.generic]], fs: float, min_flat_s
             per_channel.append([("flat_line", 0, n)])
             continue
         for extreme in (hi, lo):
-            starts, ends = _runs(src == extreme)
+            starts, ends = runs(src == extreme)
             keep = ends - starts >= min_clip
             brief = keep & (ends - starts < brief_clip)
             if brief.any():
@@ -343,7 +331,7 @@ def _flat_and_clipping(sources: list[NDArray[np.generic]], fs: float, min_flat_s
             keep &= ~brief
             spans += [("clipping", int(a), int(b)) for a, b in zip(starts[keep], ends[keep],
                                                                     strict=True)]
-        starts, ends = _runs(src[1:] == src[:-1])
+        starts, ends = runs(src[1:] == src[:-1])
         ends = ends + 1
         keep = ends - starts >= min_run
         for a, b in zip(starts[keep], ends[keep], strict=True):
@@ -352,7 +340,7 @@ def _flat_and_clipping(sources: list[NDArray[np.generic]], fs: float, min_flat_s
         std = _block_std(src, blk)
         ref = float(np.median(std))
         quiet = std <= _FLAT_STD_RATIO * ref
-        starts, ends = _runs(quiet)
+        starts, ends = runs(quiet)
         keep = ends - starts >= 2
         spans += [("flat_line", int(a) * blk, int(b) * blk)
                   for a, b in zip(starts[keep], ends[keep], strict=True)
@@ -380,7 +368,7 @@ def _covered_fraction(spans: list[tuple[str, int, int]], n: int) -> float:
 
 def _empty_support(load: FloatArray, factor: int, level_n: float, pad: int, n: int
                    ) -> list[tuple[str, int, int]]:
-    starts, ends = _runs(load < level_n)
+    starts, ends = runs(load < level_n)
     return [("empty_support", max(0, int(a) * factor - pad), min(n, int(b) * factor + pad))
             for a, b in zip(starts, ends, strict=True)]
 
@@ -409,13 +397,13 @@ def _movement(x: FloatArray, fs: float, k: float, pad: int,
         flags.append("movement_statistics_over_whole_record")
     ref = log_env[include]
     med = float(np.median(ref))
-    sigma = _MAD_TO_SD * float(np.median(np.abs(ref - med)))
+    sigma = robust_sd(ref)
     margin = max(k * sigma, math.log(_MIN_MOVEMENT_RATIO))
     if k * sigma < math.log(_MIN_MOVEMENT_RATIO):
         flags.append("movement_threshold_floor_used")
     threshold = med + margin
     decisive = np.abs(ref - threshold) >= math.log(_DECISIVE_RATIO)
-    starts, ends = _runs(log_env > threshold)
+    starts, ends = runs(log_env > threshold)
     spans = [("movement", max(0, int(a) * samples_per_block - pad),
               min(x.shape[0], int(b) * samples_per_block + pad))
              for a, b in zip(starts, ends, strict=True)]
@@ -437,14 +425,14 @@ def _posture(src: NDArray[np.generic], src_fs: float, src_factor: int, k: float,
     spread = float(np.median(wins.std(axis=1)))
     side_view = sliding_window_view(med, side)
     side_med = np.median(side_view, axis=1)
-    side_mad = _MAD_TO_SD * np.median(np.abs(side_view - side_med[:, None]), axis=1)
+    side_mad = MAD_TO_SD * np.median(np.abs(side_view - side_med[:, None]), axis=1)
     d = side_med[side:] - side_med[:-side]          # boundary j = side .. count - side
     dev = np.abs(d - np.median(d))
-    sigma = _MAD_TO_SD * float(np.median(np.abs(d - np.median(d))))
+    sigma = robust_sd(d)
     threshold = max(k * sigma, _POSTURE_MIN_SPREADS * spread)
     if threshold <= 0.0:
         threshold = math.inf if not dev.any() else float(dev[dev > 0].min()) / 2.0
-    starts, ends = _runs(dev > threshold)
+    starts, ends = runs(dev > threshold)
     samples_per_window = width * factor * src_factor
     out = []
     for a, b in zip(starts, ends, strict=True):

@@ -30,8 +30,11 @@ import scipy.fft
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
+from features._checks import check_sampling_rate, check_trace, check_usable
+from features._numeric import robust_sd, vertex_offset
 from features.errors import InvalidInputError
 from features.filters import bridge_masked
+from features.limits import MAX_RATE_BPM, MIN_RATE_BPM
 from features.wavelets import WAVELET, levels_for_band, swt_component
 
 WORK_RATE_HZ = 125.0
@@ -165,7 +168,7 @@ def detect_beats(
         1-D fused trace in kinetic form (force or acceleration), any unit,
         any polarity, at least ``MIN_DURATION_S`` long.
     fs_hz
-        Sampling rate in Hz, 50 to 2000.
+        Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     usable
         Boolean mask, True where the trace is free of artifacts. No beat is
         reported whose complex touches a masked sample.
@@ -193,7 +196,7 @@ def detect_beats(
        [1]_, [3]_. Masked spans are bridged by a straight line before the
        transform (so a movement's energy cannot leak into the component next
        to it) and set to zero after it (widened by 0.1 s); the component is
-       scaled by its robust standard deviation (1.4826 MAD).
+       scaled by its robust standard deviation (``MAD_TO_SD`` x MAD).
     3. Energy envelope: the squared component smoothed over
        ``ENVELOPE_WINDOW_S``. Its autocorrelation gives the dominant beat
        period (first strong peak in the plausible lag range, claimed only
@@ -255,7 +258,7 @@ def detect_beats(
     levels = levels_for_band(fs_w, BEAT_BAND_HZ)
     comp = swt_component(bridge_masked(xw, usable_w), levels=levels, wavelet=WAVELET)
     comp = _zero_masked(comp, usable_w, int(round(0.1 * fs_w)))
-    scale = _robust_sd(comp[usable_w]) if usable_w.any() else 0.0
+    scale = robust_sd(comp[usable_w]) if usable_w.any() else 0.0
     if not np.isfinite(scale) or scale <= 0.0:
         return _empty(fs_w, levels, flags + ["no_signal_in_beat_band"])
     comp = comp / scale
@@ -377,33 +380,15 @@ def _validate(
     usable: ArrayLike | None,
     rate_range_bpm: tuple[float, float],
 ) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
-    if not np.isfinite(fs_hz) or not 50.0 <= fs_hz <= 2000.0:
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be between 50 and 2000 Hz; got {fs_hz}.")
-    x = np.asarray(trace, dtype=np.float64)
-    if x.ndim != 1:
-        raise InvalidInputError("trace", f"`trace` must be 1-D; got shape {x.shape}.")
-    if x.size < MIN_DURATION_S * fs_hz:
-        raise InvalidInputError(
-            "trace",
-            f"`trace` must be at least {MIN_DURATION_S:g} s long; got {x.size / fs_hz:.2f} s.",
-        )
-    if not np.all(np.isfinite(x)):
-        raise InvalidInputError("trace", "`trace` must hold finite numbers only; got NaN or inf.")
+    fs_hz = check_sampling_rate(fs_hz)
+    x = check_trace(trace, name="trace", fs_hz=fs_hz, min_duration_s=MIN_DURATION_S)
     lo, hi = rate_range_bpm
-    if not (20.0 <= lo < hi <= 300.0):
+    if not (MIN_RATE_BPM <= lo < hi <= MAX_RATE_BPM):
         raise InvalidInputError(
-            "rate_range_bpm",
-            f"`rate_range_bpm` must be increasing within 20-300 bpm; got {rate_range_bpm}.",
+            "rate_range_bpm", f"`rate_range_bpm` must be increasing within "
+            f"{MIN_RATE_BPM:g}-{MAX_RATE_BPM:g} bpm; got {rate_range_bpm}.",
         )
-    if usable is None:
-        mask = np.ones(x.size, dtype=bool)
-    else:
-        mask = np.asarray(usable, dtype=bool)
-        if mask.shape != x.shape:
-            raise InvalidInputError(
-                "usable", f"`usable` must have the trace's length {x.size}; got {mask.size}."
-            )
-    return x, mask
+    return x, check_usable(usable, x.size, of="trace")
 
 
 # --- kernels --------------------------------------------------------------
@@ -433,11 +418,6 @@ def _zero_masked(comp: NDArray[np.float64], usable: NDArray[np.bool_], widen: in
     out = comp.copy()
     out[bad] = 0.0
     return out
-
-
-def _robust_sd(v: NDArray[np.float64]) -> float:
-    med = np.median(v)
-    return float(1.4826 * np.median(np.abs(v - med)))
 
 
 def _envelope_period(
@@ -488,9 +468,7 @@ def _autocorrelation(e: NDArray[np.float64], lags: int) -> NDArray[np.float64]:
 def _vertex(y: NDArray[np.float64], i: int) -> float:
     if i <= 0 or i >= y.size - 1:
         return 0.0
-    a, b, c = y[i - 1], y[i], y[i + 1]
-    den = a - 2 * b + c
-    return float(0.5 * (a - c) / den) if den < 0 else 0.0
+    return float(vertex_offset(y[i - 1], y[i], y[i + 1]))
 
 
 def _epochs(comp: NDArray[np.float64], centres: NDArray[np.intp], half: tuple[int, int]) -> NDArray[
@@ -771,12 +749,7 @@ def _preceding_interval_trend(
 def _parabolic_offset(y: NDArray[np.float64], idx: NDArray[np.intp]) -> NDArray[np.float64]:
     if idx.size == 0:
         return np.zeros(0)
-    a, b, c = y[idx - 1], y[idx], y[idx + 1]
-    den = a - 2 * b + c
-    off = np.zeros(idx.size)
-    ok = den < 0
-    off[ok] = 0.5 * (a[ok] - c[ok]) / den[ok]
-    return np.clip(off, -0.5, 0.5)
+    return np.clip(vertex_offset(y[idx - 1], y[idx], y[idx + 1]), -0.5, 0.5)
 
 
 def _empty(

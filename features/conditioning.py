@@ -18,6 +18,7 @@ from typing import Literal
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from features._checks import check_sampling_rate
 from features.errors import InvalidInputError
 from features.filters import (
     FloatArray,
@@ -29,36 +30,22 @@ from features.filters import (
     raised_cosine_notches,
     subtract_block_series,
 )
+from features.limits import (
+    COUNTS_UNIT,
+    MAINS_HZ,
+    MAX_CHANNELS,
+    MAX_DURATION_S,
+    MAX_OCCUPANT_KG,
+    MAX_SAMPLE_MAGNITUDE,
+    MIN_DURATION_S,
+    MIN_OCCUPANT_KG,
+    STANDARD_GRAVITY_M_S2,
+    UNIT_FACTORS,
+    units_of,
+)
 from features.spectral import welch_spectra
 
-#: Standard acceleration of gravity, m/s^2 (3rd CGPM, 1901; NIST SP 811, 2008, B.8).
-STANDARD_GRAVITY_M_S2 = 9.80665
-
-#: Accepted sampling rates, Hz. Below 50 Hz the J wave (energy up to ~20 Hz) is not
-#: resolved; above 2000 Hz nothing in the cardiac band is gained.
-MIN_FS_HZ = 50.0
-MAX_FS_HZ = 2000.0
-MAX_CHANNELS = 8
-
-#: Shortest record accepted, s: about 10 beats at 30 bpm and one slow breath
-#: (6 breaths/min is a 10 s cycle), so every later stage has something to work on.
-MIN_DURATION_S = 20.0
-#: Longest record accepted, s (24 h): one day of monitoring.
-MAX_DURATION_S = 86_400.0
-
-#: Plausible occupant mass bounds, kg (common practice). Below 10 kg the load is an
-#: object, a pet or calibration drift rather than a person; above 350 kg it is
-#: beyond the heaviest adults seen in clinical practice and points to a
-#: calibration or tare problem.
-MIN_OCCUPANT_KG = 10.0
-MAX_OCCUPANT_KG = 350.0
-
 #: Cut-off of the static/slow part removed from every trace, Hz.
-MAX_SAMPLE_MAGNITUDE = 1e12
-"""Largest sample magnitude accepted (in the channel's unit): far beyond any force or
-acceleration sensor, and far from float64 overflow in the squares and spectra the
-stages compute."""
-
 BASELINE_CUTOFF_HZ = 0.05
 #: Cut-off of the slow load trace handed to the artifact stage, Hz.
 LOAD_CUTOFF_HZ = 0.5
@@ -78,17 +65,6 @@ MAINS_PEAK_RATIO = 10.0
 
 Quantity = Literal["force", "acceleration", "velocity", "displacement"]
 
-# Multiplicative factor to the SI unit of the quantity. Factors from NIST SP 811
-# (2008), Appendix B.8/B.9: 1 lbf = 4.448 221 615 260 5 N; 1 kgf = 9.806 65 N;
-# standard gravity g_n = 9.806 65 m/s^2 (so 1 g = 9.806 65 m/s^2 and
-# 1 mg = 9.806 65e-3 m/s^2, "mg" meaning milli-g here, not milligram).
-_UNIT_FACTORS: dict[str, dict[str, float]] = {
-    "force": {"N": 1.0, "kN": 1.0e3, "lbf": 4.4482216152605, "kgf": 9.80665},
-    "acceleration": {"m/s2": 1.0, "m/s^2": 1.0, "g": STANDARD_GRAVITY_M_S2,
-                     "mg": STANDARD_GRAVITY_M_S2 * 1.0e-3},
-    "velocity": {"m/s": 1.0, "mm/s": 1.0e-3},
-    "displacement": {"m": 1.0, "mm": 1.0e-3, "um": 1.0e-6},
-}
 _KINETIC_UNIT = {"force": "N", "acceleration": "m/s^2", "velocity": "m/s^2",
                  "displacement": "m/s^2"}
 _DERIVATIVES = {"force": 0, "acceleration": 0, "velocity": 1, "displacement": 2}
@@ -205,12 +181,12 @@ class ConditionedInput:
 
 def valid_units(quantity: str) -> list[str]:
     """Sorted units accepted for ``quantity`` (``"counts"`` included)."""
-    return sorted([*_UNIT_FACTORS[quantity], "counts"])
+    return units_of(quantity)
 
 
 def si_factor(quantity: str, unit: str) -> float:
     """Factor that converts ``unit`` to the SI unit of ``quantity`` (NIST SP 811 values)."""
-    return _UNIT_FACTORS[quantity][unit]
+    return UNIT_FACTORS[quantity][unit]
 
 
 def occupancy_from_mass(mass_kg: float | None) -> tuple[bool | None, tuple[str, ...]]:
@@ -234,7 +210,8 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
     channels
         1 to 8 :class:`ChannelInput` of equal length, unique labels.
     fs_hz
-        Sampling rate common to all channels, 50 to 2000 Hz.
+        Sampling rate common to all channels, Hz, within ``features.limits.MIN_FS_HZ`` to
+        ``MAX_FS_HZ``.
     mains_hz
         ``"auto"`` (detect 50 or 60 Hz hum from a narrow spectral peak), 50, 60, or
         None to skip hum removal.
@@ -365,17 +342,6 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
 # ----------------------------------------------------------------------------- validation
 
 
-def check_sampling_rate(fs_hz: object) -> float:
-    """Return ``fs_hz`` as a float, or raise InvalidInputError unless 50 <= fs_hz <= 2000."""
-    if isinstance(fs_hz, bool) or not isinstance(fs_hz, (int, float, np.integer, np.floating)):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be a number of Hz; got {fs_hz!r}.")
-    fs = float(fs_hz)
-    if not (math.isfinite(fs) and MIN_FS_HZ <= fs <= MAX_FS_HZ):
-        raise InvalidInputError(
-            "fs_hz", f"`fs_hz` must be between {MIN_FS_HZ:g} and {MAX_FS_HZ:g} Hz; got {fs:g}.")
-    return fs
-
-
 def _check_channels(channels: object) -> list[ChannelInput]:
     if not isinstance(channels, Sequence) or isinstance(channels, (str, bytes)):
         raise InvalidInputError(
@@ -404,17 +370,17 @@ def _check_channels(channels: object) -> list[ChannelInput]:
 
 
 def _check_unit(ch: ChannelInput, i: int) -> None:
-    if ch.quantity not in _UNIT_FACTORS:
+    if ch.quantity not in UNIT_FACTORS:
         raise InvalidInputError(
             f"channels[{i}].quantity", f"`channels[{i}].quantity` must be one of "
-            f"{sorted(_UNIT_FACTORS)}; got {ch.quantity!r}.")
+            f"{sorted(UNIT_FACTORS)}; got {ch.quantity!r}.")
     choices = valid_units(ch.quantity)
     if ch.unit not in choices:
         raise InvalidInputError(
             f"channels[{i}].unit", f"`channels[{i}].unit` must be one of {choices} for "
             f"quantity {ch.quantity!r}; got {ch.unit!r}.")
     scale = ch.counts_scale
-    if ch.unit != "counts":
+    if ch.unit != COUNTS_UNIT:
         if scale is not None:
             raise InvalidInputError(
                 f"channels[{i}].counts_scale", f"`channels[{i}].counts_scale` must be None "
@@ -424,7 +390,7 @@ def _check_unit(ch: ChannelInput, i: int) -> None:
         raise InvalidInputError(
             f"channels[{i}].counts_scale", f"`channels[{i}].counts_scale` must be a CountsScale "
             f"when unit is 'counts'; got {scale!r}.")
-    physical = sorted(_UNIT_FACTORS[ch.quantity])
+    physical = sorted(UNIT_FACTORS[ch.quantity])
     if scale.unit not in physical:
         raise InvalidInputError(
             f"channels[{i}].counts_scale.unit", f"`channels[{i}].counts_scale.unit` must be "
@@ -520,7 +486,7 @@ def _check_mains(mains_hz: object) -> str | int | None:
     if mains_hz is None or (isinstance(mains_hz, str) and mains_hz == "auto"):
         return mains_hz
     if not isinstance(mains_hz, bool) and isinstance(mains_hz, (int, float)) and \
-            mains_hz in (50, 60):
+            mains_hz in MAINS_HZ:
         return int(mains_hz)
     raise InvalidInputError("mains_hz", "`mains_hz` must be one of 'auto', 50, 60 or None; "
                             f"got {mains_hz!r}.")
@@ -538,7 +504,7 @@ def _check_empty_load(empty_load_kg: object) -> float:
 
 
 def _to_si(x: NDArray[np.generic], ch: ChannelInput, out: FloatArray) -> None:
-    if ch.unit == "counts":
+    if ch.unit == COUNTS_UNIT:
         assert ch.counts_scale is not None
         scale = ch.counts_scale
         np.subtract(x, float(scale.offset_counts), out=out)

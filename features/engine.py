@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from features import __version__
-from features.artifacts import ArtifactMask, Segment, mask_artifacts
+from features.artifacts import ArtifactMask, mask_artifacts
 from features.beats import BeatDetection, detect_beats
 from features.conditioning import ChannelInput, condition_channels
 from features.errors import InvalidInputError
@@ -26,15 +26,26 @@ from features.intervals import (
     classify_intervals,
     intervals_from_beats,
 )
+from features.limits import (
+    DEFAULT_RATE_RANGE_BPM,
+    MAX_BODY_MASS_KG,
+    MIN_BODY_MASS_KG,
+    PLACEMENTS,
+)
 from features.modulation import ModulationResult, respiratory_modulation
 from features.morphology import MorphologyResult, beat_morphology
+from features.quality import (
+    OccupancyResult,
+    QualityResult,
+    check_signal_present,
+    occupancy,
+    signal_quality,
+)
 from features.respiration import RespirationResult, breathing
 from features.variability import VariabilityResult, heart_rate_variability
 
 FEATURE_SET_VERSION = "3"
 """Changes whenever the definition of any emitted feature changes."""
-
-PLACEMENTS = ("bed", "other", "platform", "seat")
 
 MOVEMENT_PAD_S = 0.5
 """Masked time added either side of a movement. A seated body settles within a few
@@ -78,7 +89,7 @@ class Options:
 
     mains_hz: float | str | None = "auto"
     empty_load_kg: float = 0.0
-    rate_range_bpm: tuple[float, float] = (30.0, 200.0)
+    rate_range_bpm: tuple[float, float] = DEFAULT_RATE_RANGE_BPM
 
 
 @dataclass(frozen=True)
@@ -94,42 +105,6 @@ class InputSummary:
     amplitude_unit: str
     mains_hz_removed: float | None
     cop_cardiac_excursion_mm: float | None
-    flags: tuple[str, ...]
-
-
-@dataclass(frozen=True)
-class QualityResult:
-    """Usable share of the recording and the masked segments."""
-
-    usable_fraction: float
-    segments: tuple[Segment, ...]
-    confidence: float
-    flags: tuple[str, ...]
-
-
-@dataclass(frozen=True)
-class OccupancyResult:
-    """Whether someone sat on the support, from the load and the heartbeat.
-
-    Attributes
-    ----------
-    occupied
-        True, False, or None when neither load nor heartbeat can tell.
-    supported_mass_kg
-        Static load over standard gravity, less the empty load; None without
-        force channels.
-    from_load, from_heartbeat
-        The two independent pieces of evidence (None when not available).
-    confidence
-        0.95 when both agree, 0.7 when only one is available, 0.4 when they
-        disagree, 0.0 when neither is.
-    """
-
-    occupied: bool | None
-    supported_mass_kg: float | None
-    from_load: bool | None
-    from_heartbeat: bool
-    confidence: float
     flags: tuple[str, ...]
 
 
@@ -170,7 +145,7 @@ def analyze(
     channels
         One to eight :class:`features.conditioning.ChannelInput`, equal length.
     fs_hz
-        Sampling rate in Hz, 50 to 2000.
+        Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     subject, recording, options
         Optional metadata and options.
 
@@ -182,6 +157,11 @@ def analyze(
     ------
     InvalidInputError
         When any input breaks a documented rule (the field is named).
+    UnusableSignalError
+        When the trace itself shows that no feature can be computed: every channel flat
+        or clipped (``reason`` one of :data:`features.errors.UNUSABLE_REASONS`; see
+        :func:`features.quality.check_signal_present`). An empty support is a valid
+        result (``occupancy.occupied`` False), not this error.
     """
     subject = subject or Subject()
     recording = recording or Recording()
@@ -190,6 +170,7 @@ def analyze(
 
     cond = condition_channels(channels, fs_hz, mains_hz=options.mains_hz,
                               empty_load_kg=options.empty_load_kg)
+    check_signal_present(cond.raw_signals, unloaded=cond.occupancy_from_load is False)
     force_only = all(q == "force" for q in cond.quantities)
     fusion = fuse_channels(
         cond.signals, fs_hz, units=cond.units,
@@ -204,10 +185,10 @@ def analyze(
                          rate_range_bpm=options.rate_range_bpm)
     series = intervals_from_beats(beats.times_s, run_ids=beats.run_ids)
     labels = classify_intervals(series.times_s, series.intervals_ms)
-    occupancy = _occupancy(cond.occupancy_from_load, cond.supported_mass_kg, beats)
-    hr = heart_rate(beats, series, labels, occupied=occupancy.occupied)
+    occupied = occupancy(cond.occupancy_from_load, cond.supported_mass_kg, beats)
+    hr = heart_rate(beats, series, labels, occupied=occupied.occupied)
     hrv = heart_rate_variability(series.times_s, series.intervals_ms, labels.labels)
-    mass, mass_source = _body_mass(subject, cond.supported_mass_kg, occupancy.occupied)
+    mass, mass_source = _body_mass(subject, cond.supported_mass_kg, occupied.occupied)
     morph = beat_morphology(
         fusion.fused * (beats.polarity or 1), fs_hz, beats.times_s,
         beat_confidence=beats.confidence, usable=mask.usable, body_mass_kg=mass,
@@ -228,18 +209,13 @@ def analyze(
         warnings.append("less than half of the recording is usable")
     if not beats.has_beats:
         warnings.append("no repeating heartbeat waveform was found")
-    mass = subject.body_mass_kg
-    if mass is not None and cond.supported_mass_kg is not None and \
-            abs(cond.supported_mass_kg - mass) > 0.25 * mass:
+    stated = subject.body_mass_kg
+    if stated is not None and cond.supported_mass_kg is not None and \
+            abs(cond.supported_mass_kg - stated) > 0.25 * stated:
         warnings.append("the load on the support differs from the stated body mass by over 25%")
 
     n_samples = int(cond.signals.shape[1])
-    quality = QualityResult(
-        usable_fraction=mask.usable_fraction,
-        segments=mask.segments,
-        confidence=float(mask.usable_fraction * (1.0 if beats.has_beats else 0.2)),
-        flags=tuple(mask.flags),
-    )
+    quality = signal_quality(mask, beats)
     summary = InputSummary(
         duration_s=n_samples / fs_hz,
         sampling_rate_hz=float(fs_hz),
@@ -255,7 +231,7 @@ def analyze(
     return AnalysisResult(
         input=summary,
         quality=quality,
-        occupancy=occupancy,
+        occupancy=occupied,
         heart_rate=hr,
         beats=beats,
         intervals=series,
@@ -272,9 +248,10 @@ def analyze(
 
 def _check_metadata(subject: Subject, recording: Recording) -> None:
     m = subject.body_mass_kg
-    if m is not None and not (np.isfinite(m) and 2.0 <= m <= 400.0):
+    if m is not None and not (np.isfinite(m) and MIN_BODY_MASS_KG <= m <= MAX_BODY_MASS_KG):
         raise InvalidInputError(
-            "subject.body_mass_kg", f"`subject.body_mass_kg` must be between 2 and 400 kg; got {m}."
+            "subject.body_mass_kg", f"`subject.body_mass_kg` must be between "
+            f"{MIN_BODY_MASS_KG:g} and {MAX_BODY_MASS_KG:g} kg; got {m}."
         )
     if recording.placement not in PLACEMENTS:
         raise InvalidInputError(
@@ -292,22 +269,3 @@ def _body_mass(subject: Subject, supported_mass_kg: float | None,
     if occupied and supported_mass_kg is not None and supported_mass_kg > 0:
         return float(supported_mass_kg), "load"
     return None, None
-
-
-def _occupancy(from_load: bool | None, mass_kg: float | None,
-               beats: BeatDetection) -> OccupancyResult:
-    from_beat = bool(beats.has_beats)
-    flags: list[str] = []
-    if from_load is None:
-        occupied: bool | None = from_beat
-        conf = 0.7
-        flags.append("no_load_information")
-    elif from_load == from_beat:
-        occupied, conf = from_load, 0.95
-    else:
-        # The load is the direct measurement; a heartbeat on an unloaded
-        # support or none under a load is reported, with low confidence.
-        occupied, conf = from_load, 0.4
-        flags.append("load_and_heartbeat_disagree")
-    return OccupancyResult(occupied=occupied, supported_mass_kg=mass_kg, from_load=from_load,
-                           from_heartbeat=from_beat, confidence=conf, flags=tuple(flags))

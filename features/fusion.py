@@ -17,15 +17,11 @@ import scipy.fft
 from numpy.typing import ArrayLike, NDArray
 from scipy.linalg import blas
 
-from features.conditioning import (
-    MAX_CHANNELS,
-    MIN_DURATION_S,
-    MIN_OCCUPANT_KG,
-    STANDARD_GRAVITY_M_S2,
-    check_sampling_rate,
-)
+from features._checks import check_2d, check_sampling_rate
+from features._numeric import MAD_TO_SD, robust_sd
 from features.errors import InvalidInputError
 from features.filters import FloatArray, bandpass, block_centres, block_factor, block_means
+from features.limits import MIN_DURATION_S, MIN_OCCUPANT_KG, STANDARD_GRAVITY_M_S2
 
 #: Analysis rate for the weights and the cardiac band, Hz (block means; at least 2.5x the
 #: band top).
@@ -46,8 +42,6 @@ RESPIRATORY_BAND_HZ = (0.05, 1.0)
 COP_FS_HZ = 10.0
 #: CoP is undefined where the total force is below the lightest plausible occupant.
 _MIN_TOTAL_FORCE_N = MIN_OCCUPANT_KG * STANDARD_GRAVITY_M_S2
-#: Robust scale of a normal distribution from the median absolute deviation.
-_MAD_TO_SD = 1.4826
 #: Standard error of the median over that of the mean for normal data, sqrt(pi/2).
 _SE_MEDIAN = 1.2533
 
@@ -115,7 +109,7 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
         (n_channels, n) conditioned traces (1 to 8 channels, static part removed), or a
         1-D trace for a single channel. Finite values only.
     fs_hz
-        Sampling rate, 50 to 2000 Hz.
+        Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     units
         Unit per channel (``ConditionedInput.units``). None means one common, unnamed
         unit: weights are computed as for equal units and ``unit`` is ``"a.u."``.
@@ -145,7 +139,7 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
     -----
     1. Block-mean the channels to about ``ANALYSIS_FS_HZ`` and band-pass to ``band_hz``.
        Steps 2-4 use at most ``MAX_ANALYSIS_WINDOWS`` windows, evenly spaced.
-       For mixed units, divide each channel by its robust scale (1.4826 x MAD).
+       For mixed units, divide each channel by its robust scale (``MAD_TO_SD`` x MAD).
     2. In 10 s windows, compute each channel's unbiased autocorrelation ``r(k)`` by
        FFT. The heart-period lag ``T`` of a window is the peak within 0.3-2 s of the
        sum of ``r(k) / r(0)`` over the channels; with three or more live channels,
@@ -155,7 +149,7 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
        while band-limited noise has decorrelated, so the periodic fraction
        ``q = r(T) / r(0)`` estimates SNR / (1 + SNR). Its median over windows (robust
        to movement) is shrunk by two standard errors of the median
-       (1.2533 x 1.4826 x MAD / sqrt(windows)) and clipped to [0, 0.95], so that a
+       (1.2533 x ``MAD_TO_SD`` x MAD / sqrt(windows)) and clipped to [0, 0.95], so that a
        pure-noise channel ends at or near zero. With ``P`` the median window power,
        ``P_s = q P`` and ``P_n = P - P_s``.
     4. The sign of a channel is the sign of the median zero-lag correlation with the
@@ -193,7 +187,7 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
        DOI 10.1002/9780470549148.
     """
     fs = check_sampling_rate(fs_hz)
-    x = _check_signals(signals, fs)
+    x = check_2d(signals, fs, name="signals", min_duration_s=MIN_DURATION_S)
     n_ch = x.shape[0]
     unit_list = _check_units(units, n_ch)
     band = _check_band(band_hz)
@@ -249,30 +243,6 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
 # ----------------------------------------------------------------------------- validation
 
 
-def _check_signals(signals: ArrayLike, fs: float) -> FloatArray:
-    x = np.asarray(signals)
-    if x.ndim == 1:
-        x = x[None, :]
-    if x.ndim != 2 or x.dtype.kind not in "iuf":
-        raise InvalidInputError("signals", "`signals` must be a real (n_channels, n) array; got "
-                                f"shape {x.shape} and dtype {x.dtype}.")
-    if not 1 <= x.shape[0] <= MAX_CHANNELS:
-        raise InvalidInputError("signals", f"`signals` must hold 1 to {MAX_CHANNELS} channels; "
-                                f"got {x.shape[0]}.")
-    if x.shape[1] / fs < MIN_DURATION_S:
-        raise InvalidInputError("signals", f"`signals` must span at least {MIN_DURATION_S:g} s; "
-                                f"got {x.shape[1] / fs:g} s.")
-    x = np.asarray(x, dtype=np.float64)
-    for i, row in enumerate(x):
-        # A row sum is finite exactly when every sample is (short of overflow), and
-        # needs no full-size temporary.
-        if not math.isfinite(float(row.sum())):
-            raise InvalidInputError(f"signals[{i}]", f"`signals[{i}]` must be finite (no NaN "
-                                    f"or inf); got {int(np.count_nonzero(~np.isfinite(row)))} "
-                                    "non-finite values.")
-    return x
-
-
 def _check_units(units: Sequence[str] | None, n_ch: int) -> list[str] | None:
     if units is None:
         return None
@@ -317,8 +287,7 @@ def _weighted_sum(x: FloatArray, weights: FloatArray) -> FloatArray:
 
 
 def _robust_scale(x: FloatArray) -> FloatArray:
-    med = np.median(x, axis=-1, keepdims=True)
-    return np.asarray(_MAD_TO_SD * np.median(np.abs(x - med), axis=-1))
+    return np.asarray(robust_sd(x, axis=-1))
 
 
 def _windows(x: FloatArray, fs_a: float, max_windows: int | None = None) -> FloatArray:
@@ -383,7 +352,7 @@ def _mrc_weights(cardiac: FloatArray, fs_a: float, flags: list[str]
     rt = np.take_along_axis(r, lag[..., None], axis=-1)[..., 0]
     frac = np.divide(rt, r0, out=np.zeros_like(rt), where=r0 > 0.0)
     med = np.median(frac, axis=-1)
-    se = _SE_MEDIAN * _MAD_TO_SD * np.median(np.abs(frac - med[:, None]), axis=-1) \
+    se = _SE_MEDIAN * MAD_TO_SD * np.median(np.abs(frac - med[:, None]), axis=-1) \
         / np.sqrt(frac.shape[-1])
     frac_hat = np.clip(med - 2.0 * se, 0.0, MAX_PERIODIC_FRACTION)
     ps = frac_hat * total

@@ -22,6 +22,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from features.beats import BeatDetection
+from features.catalogue import MS_PER_MIN, RATE_RANGE_BPM, REF_OURS, FeatureDefinition
 from features.intervals import IntervalLabels, IntervalSeries
 
 DETECTION_ERROR_REASONS = frozenset({"extra_beat", "missed_beat", "out_of_range"})
@@ -120,8 +121,8 @@ def heart_rate(
     used: NDArray[np.float64] = iv[keep]
     if used.size < MIN_INTERVALS:
         return _none("too_few_intervals", env_bpm)
-    mean_bpm = 60000.0 / float(np.mean(used))
-    median_bpm = 60000.0 / float(np.median(used))
+    mean_bpm = MS_PER_MIN / float(np.mean(used))
+    median_bpm = MS_PER_MIN / float(np.median(used))
 
     r_med = float(np.median(beats.correlation)) if beats.correlation.size else 0.0
     c_template = _clip01((r_med - 0.3) / 0.5)
@@ -163,3 +164,22 @@ def _none(reason: str, env_bpm: float | None) -> HeartRateResult:
         mean_bpm=None, median_bpm=None, envelope_bpm=env_bpm, intervals_used=0,
         confidence=0.0, reason=reason, flags=(reason,),
     )
+
+
+# --------------------------------------------------------------------------- catalogue
+
+
+def _entry(name: str, attr: str, text: str) -> FeatureDefinition:
+    return FeatureDefinition(name, "heart_rate", "/min", text, RATE_RANGE_BPM, REF_OURS,
+                             f"heart_rate.{attr}", "heart_rate.confidence", (),
+                             ("heart_rate.flags",))
+
+
+CATALOGUE: tuple[FeatureDefinition, ...] = (
+    _entry("heart_rate_mean_bpm", "mean_bpm",
+           f"{MS_PER_MIN:g} divided by the mean of the beat-to-beat intervals kept (normal and "
+           "ectopic-like, not those screened out as detection errors)."),
+    _entry("heart_rate_median_bpm", "median_bpm",
+           f"{MS_PER_MIN:g} divided by the median of the same intervals."),
+)
+"""Catalogue entries of the heart-rate family (see :mod:`features.catalogue`)."""

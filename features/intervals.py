@@ -27,6 +27,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from features.errors import InvalidInputError
+from features.limits import DEFAULT_RATE_RANGE_BPM, MS_PER_MIN
 
 __all__ = [
     "ADJACENCY_TOLERANCE_S",
@@ -45,9 +46,9 @@ ADJACENCY_TOLERANCE_S = 1e-6
 #: The three labels :func:`classify_intervals` can give, sorted.
 LABELS = ("artifact", "ectopic", "normal")
 
-# Physiological range of a single interval: 30-200 beats/min (common practice
-# for adult HRV editing; also the range named by the project brief).
-_DEFAULT_RANGE_MS = (300.0, 2000.0)
+# Physiological range of a single interval: the default heart-rate range (30-200
+# beats/min, common practice for adult HRV editing) as intervals.
+_DEFAULT_RANGE_MS = (MS_PER_MIN / DEFAULT_RATE_RANGE_BPM[1], MS_PER_MIN / DEFAULT_RATE_RANGE_BPM[0])
 # Fewer in-range neighbours than this and the local median is not trusted.
 _MIN_REFERENCE_NEIGHBOURS = 3
 

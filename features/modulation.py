@@ -15,10 +15,22 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from features._checks import check_sampling_rate
+from features._numeric import runs
+from features.catalogue import (
+    NONNEGATIVE,
+    PERCENT,
+    REF_CARTER,
+    REF_GROSSMAN,
+    REF_LOMB,
+    REF_OURS,
+    UNIT_INTERVAL,
+    FeatureDefinition,
+)
 from features.errors import InvalidInputError
 from features.spectral import lomb_scargle_power, welch_spectra
 
-__all__ = ["ModulationResult", "respiratory_modulation"]
+__all__ = ["CATALOGUE", "ModulationResult", "respiratory_modulation"]
 
 MIN_BREATHS = 5
 """Fewest usable breath cycles for the per-breath indices."""
@@ -33,6 +45,9 @@ RESAMPLE_FS_HZ = 4.0
 COHERENCE_SEGMENT_S = 32.0
 
 _MAX_GAP_S = 3.0
+
+MIN_SIGNAL_FS_HZ = 1.0
+"""Lowest rate of the breathing signal accepted (Hz): breathing stays below 0.7 Hz."""
 
 
 @dataclass(frozen=True)
@@ -99,7 +114,8 @@ def respiratory_modulation(
         1-D band-limited breathing signal (for example ``RespirationResult.breathing_signal``),
         NaN where unusable; sample 0 is at t = 0 s, the origin of all times here.
     fs_hz
-        Sampling rate of ``breathing_signal`` (Hz), 1 to 2000.
+        Sampling rate of ``breathing_signal`` (Hz), from ``MIN_SIGNAL_FS_HZ`` to
+        ``features.limits.MAX_FS_HZ``.
     beat_times_s
         Beat instants (s), strictly increasing.
     breath_times_s
@@ -281,12 +297,7 @@ def _validate(
     NDArray[np.float64], float, NDArray[np.float64], NDArray[np.float64], NDArray[np.float64],
     NDArray[np.float64] | None, NDArray[np.float64], float | None,
 ]:
-    try:
-        fs = float(fs_hz)
-    except (TypeError, ValueError):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be a number; got {fs_hz!r}.") from None
-    if not (np.isfinite(fs) and 1.0 <= fs <= 2000.0):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be between 1 and 2000 Hz; got {fs_hz}.")
+    fs = check_sampling_rate(fs_hz, low=MIN_SIGNAL_FS_HZ)
     y = np.asarray(breathing_signal, dtype=float)
     if y.ndim != 1 or y.size < 2:
         raise InvalidInputError(
@@ -495,8 +506,7 @@ def _coherence(
     a = np.clip(np.floor(grid * fs).astype(np.int64), 0, y.size - 1)
     ok &= (bad_y[np.minimum(a + 2, y.size)] - bad_y[a]) == 0
     ok &= grid <= ty[-1]
-    d = np.diff(np.concatenate(([0], ok.astype(np.int8), [0])))
-    run_a, run_b = np.flatnonzero(d == 1), np.flatnonzero(d == -1)
+    run_a, run_b = runs(ok)
     if run_a.size == 0:
         return None, 0.0, 0, ["no_common_stretch_for_coherence"]
     j = int(np.argmax(run_b - run_a))
@@ -522,3 +532,39 @@ def _coherence(
     if value is None:
         return None, 0.0, int(k_seg), ["coherence_undefined"]
     return value, min(1.0, k_seg / 10.0), int(k_seg), []
+
+
+# --------------------------------------------------------------------------- catalogue
+
+
+def _entry(name: str, attr: str, conf: str, unit: str | None, text: str,
+           rng: tuple[float | None, float | None], ref: str, key: str) -> FeatureDefinition:
+    return FeatureDefinition(name, "modulation", unit, text, rng, ref, f"modulation.{attr}",
+                             f"modulation.{conf}", (), ("modulation.flags",), (key,))
+
+
+CATALOGUE: tuple[FeatureDefinition, ...] = (
+    _entry("rsa_ms", "rsa_ms", "rsa_confidence", "ms",
+           "Respiratory sinus arrhythmia, peak-to-trough: median over breaths of the longest "
+           "minus the shortest NN interval ending within the breath.", NONNEGATIVE,
+           REF_GROSSMAN, "rsa"),
+    _entry("amplitude_index", "amplitude_index", "amplitude_confidence", None,
+           "Respiratory modulation of beat amplitude: (max - min) / mean of the first-harmonic "
+           "fit of the per-beat J-K amplitudes against breathing phase.", NONNEGATIVE,
+           REF_OURS, "amplitude"),
+    _entry("timing_modulation_pct", "timing_modulation_pct", "timing_confidence", "%",
+           f"Share of the NN-series Lomb-Scargle power within {BAND_HALF_WIDTH_HZ:g} Hz of the "
+           f"breathing frequency (of the power from {TOTAL_BAND_LOW_HZ:g} Hz to the "
+           "beat-series Nyquist frequency).", PERCENT, REF_LOMB, "timing"),
+    _entry("baseline_modulation_ratio", "baseline_modulation_ratio", "baseline_confidence",
+           None,
+           "Median per-breath peak-to-trough of the breathing signal over the J-K amplitude; "
+           "None when the breathing signal came from the centre of pressure.", NONNEGATIVE,
+           REF_OURS, "baseline"),
+    _entry("cardiorespiratory_coherence", "coherence", "coherence_confidence", None,
+           f"Magnitude-squared coherence of the {RESAMPLE_FS_HZ:g}-Hz NN series and the "
+           "breathing signal at the breathing frequency (Welch, "
+           f"{COHERENCE_SEGMENT_S:g}-s Hann segments).", UNIT_INTERVAL, REF_CARTER,
+           "coherence"),
+)
+"""Catalogue entries of the respiratory-modulation family (see :mod:`features.catalogue`)."""

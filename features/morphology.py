@@ -20,11 +20,23 @@ import pywt
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
+from features._checks import check_between, check_sampling_rate, check_usable
+from features._numeric import MAD_TO_SD
+from features.catalogue import (
+    AMPLITUDE_UNIT,
+    NONNEGATIVE,
+    REF_INAN,
+    REF_OURS,
+    REF_PYWT,
+    UNIT_INTERVAL,
+    FeatureDefinition,
+)
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, frozen, lowpass
+from features.limits import MAX_BODY_MASS_KG, MIN_BODY_MASS_KG
 from features.wavelets import WAVELET, detail_bands
 
-__all__ = ["MorphologyResult", "WaveLocation", "beat_morphology"]
+__all__ = ["CATALOGUE", "MorphologyResult", "WaveLocation", "beat_morphology"]
 
 EPOCH_START_S = -0.35
 """Start of each beat epoch relative to the J peak (s)."""
@@ -82,7 +94,7 @@ class WaveLocation:
         Prominence of the extremum on the template (``scipy.signal.peak_prominences``), in
         ``amplitude_unit``; None when not found.
     location_sd_ms
-        Robust spread (1.4826 x MAD) of the wave time over individual beats (ms).
+        Robust spread (``MAD_TO_SD`` x MAD) of the wave time over individual beats (ms).
     confidence
         In [0, 1]: prominence-to-noise factor times location-consistency factor (see Notes of
         :func:`beat_morphology`).
@@ -212,7 +224,7 @@ def beat_morphology(
         1-D fused force trace in ``amplitude_unit``, polarity corrected so that J is positive.
         At least 1 s long, finite where ``usable``.
     fs_hz
-        Sampling rate (Hz), 50 to 2000.
+        Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     beat_times_s
         J-peak instants (s from the first sample), sub-sample precision, increasing.
     beat_confidence
@@ -221,7 +233,8 @@ def beat_morphology(
         Boolean mask, same length as ``signal``; True where the sample may be used. All usable
         when None.
     body_mass_kg
-        Body mass (kg), 1 to 500; enables the per-kilogram amplitudes.
+        Body mass (kg), within ``features.limits.MIN_BODY_MASS_KG`` to
+        ``MAX_BODY_MASS_KG``; enables the per-kilogram amplitudes.
     amplitude_unit
         Unit of ``signal`` (for example ``"N"``), copied into the result.
     min_beat_confidence
@@ -256,7 +269,7 @@ def beat_morphology(
     3. Template = 20 % trimmed mean (``scipy.stats.trim_mean``, 20 % cut at each end) over the
        confident beats (confidence >= ``min_beat_confidence``). Its baseline, the median of the
        template, is subtracted; signed amplitudes are measured from it. Template noise =
-       median over samples of 1.4826 x MAD across beats, divided by sqrt(beats).
+       median over samples of ``MAD_TO_SD`` x MAD across beats, divided by sqrt(beats).
     4. Waves are located on the template low-passed at 25 Hz (zero-phase Butterworth,
        order 2 forward and backward, skipped when 25 Hz is above 0.45 fs_hz): the recoil
        waves carry their energy below about 20 Hz (common practice: BCG is band-limited to
@@ -424,12 +437,7 @@ def _validate(
     body_mass_kg: float | None,
     min_beat_confidence: float,
 ) -> tuple[NDArray[np.float64], float, NDArray[np.float64], NDArray[np.float64], NDArray[np.bool_]]:
-    try:
-        fs = float(fs_hz)
-    except (TypeError, ValueError):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be a number; got {fs_hz!r}.") from None
-    if not (np.isfinite(fs) and 50.0 <= fs <= 2000.0):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be between 50 and 2000 Hz; got {fs_hz}.")
+    fs = check_sampling_rate(fs_hz)
     x = np.asarray(signal, dtype=float)
     if x.ndim != 1:
         raise InvalidInputError("signal", f"`signal` must be 1-D; got {x.ndim} dimensions.")
@@ -438,15 +446,7 @@ def _validate(
             "signal", f"`signal` must hold at least 1 s ({int(np.ceil(fs))} samples); "
             f"got {x.size}."
         )
-    if usable is None:
-        mask = np.ones(x.size, dtype=bool)
-    else:
-        mask = np.asarray(usable, dtype=bool)
-        if mask.shape != x.shape:
-            raise InvalidInputError(
-                "usable", f"`usable` must have the length of `signal` ({x.size}); got "
-                f"{mask.size}."
-            )
+    mask = check_usable(usable, x.size, of="signal")
     if not np.all(np.isfinite(x[mask])):
         raise InvalidInputError(
             "signal", "`signal` must be finite where `usable` is True; got NaN or infinity."
@@ -470,12 +470,9 @@ def _validate(
             raise InvalidInputError(
                 "beat_confidence", "`beat_confidence` must lie in [0, 1]; got values outside."
             )
-    if body_mass_kg is not None and not (
-        np.isfinite(float(body_mass_kg)) and 1.0 <= float(body_mass_kg) <= 500.0
-    ):
-        raise InvalidInputError(
-            "body_mass_kg", f"`body_mass_kg` must be between 1 and 500 kg; got {body_mass_kg}."
-        )
+    if body_mass_kg is not None:
+        check_between(body_mass_kg, name="body_mass_kg", low=MIN_BODY_MASS_KG,
+                      high=MAX_BODY_MASS_KG, unit="kg")
     if not 0.0 <= float(min_beat_confidence) <= 1.0:
         raise InvalidInputError(
             "min_beat_confidence",
@@ -697,7 +694,7 @@ def _beat_extrema(
 def _location_sd_ms(epochs: NDArray[np.float64], i: int, sign: int, fs: float) -> float:
     off, _ = _beat_extrema(epochs, i, sign, fs)
     med = np.median(off)
-    return float(1e3 * 1.4826 * np.median(np.abs(off - med)) / fs)
+    return float(1e3 * MAD_TO_SD * np.median(np.abs(off - med)) / fs)
 
 
 def _trimmed_mean(epochs: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -725,7 +722,7 @@ def _robust_template(epochs: NDArray[np.float64]) -> tuple[NDArray[np.float64], 
     template = part[:, cut : n - cut].mean(axis=1)
     template = template - np.median(template)
     centre = part[:, mid[0]] if n % 2 else part[:, list(mid)].mean(axis=1)
-    spread = 1.4826 * np.median(np.abs(rows - centre[:, None]), axis=1)
+    spread = MAD_TO_SD * np.median(np.abs(rows - centre[:, None]), axis=1)
     return template, float(np.median(spread) / np.sqrt(n))
 
 
@@ -838,3 +835,82 @@ def _wavelet_signature(
         flags.append("wavelet_signature_zero_energy")
         return None, bands, flags
     return tuple(float(e) for e in energy / energy.sum()), bands, flags
+
+
+# --------------------------------------------------------------------------- catalogue
+
+_WINDOWS_S = {name: (start, end) for name, _, _, start, end in _WAVE_RULES}
+_J_MINUS_I_S = (-_WINDOWS_S["I"][1], -_WINDOWS_S["I"][0])
+_I_MINUS_H_S = (-_WINDOWS_S["H"][1], -_WINDOWS_S["H"][0])
+_K_MINUS_J_S = _WINDOWS_S["K"]
+
+
+def _interval_range_ms(*legs: tuple[float, float]) -> tuple[float, float]:
+    """Valid range of a wave interval made of ``legs`` (search windows, s): their sum,
+    widened by two parabola half-widths per leg (each end moves by at most one when
+    refined), in ms, rounded to 1 us."""
+    slack_ms = len(legs) * 2e3 * _FIT_HALF_WIDTH_S
+    low = 1e3 * sum(leg[0] for leg in legs) - slack_ms
+    high = 1e3 * sum(leg[1] for leg in legs) + slack_ms
+    return round(low, 3), round(high, 3)
+
+
+_IK_RANGE_MS = _interval_range_ms(_J_MINUS_I_S, _K_MINUS_J_S)
+# Nominal detail bands of the signature levels at SIGNATURE_FS_HZ (features.wavelets.
+# detail_bands), as written in the catalogue (rounded by hand; a test checks them).
+SIGNATURE_BAND_LABELS = ("62.5-125", "31.25-62.5", "15.6-31.25", "7.8-15.6", "3.9-7.8",
+                         "1.95-3.9")
+
+
+def _entry(name: str, attr: str, unit: str | None, text: str,
+           rng: tuple[float | None, float | None], waves: tuple[str, ...],
+           ref: str = REF_INAN, conf: str = "confidence") -> FeatureDefinition:
+    return FeatureDefinition(name, "morphology", unit, text, rng, ref, f"morphology.{attr}",
+                             f"morphology.{conf}", waves, ("morphology.flags",))
+
+
+CATALOGUE: tuple[FeatureDefinition, ...] = (
+    _entry("ij_interval_ms", "ij_interval_ms", "ms",
+           "Time from the I-wave minimum to the J-wave maximum of the beat-ensemble template.",
+           _interval_range_ms(_J_MINUS_I_S), ("I", "J"), conf="ij_interval_confidence"),
+    _entry("jk_interval_ms", "jk_interval_ms", "ms",
+           "Time from the J-wave maximum to the K-wave minimum of the template.",
+           _interval_range_ms(_K_MINUS_J_S), ("J", "K"), conf="jk_interval_confidence"),
+    _entry("ik_interval_ms", "ik_interval_ms", "ms",
+           "Time from the I-wave minimum to the K-wave minimum of the template.",
+           _IK_RANGE_MS, ("I", "J", "K")),
+    _entry("hj_interval_ms", "hj_interval_ms", "ms",
+           "Time from the H-wave maximum to the J-wave maximum of the template.",
+           _interval_range_ms(_I_MINUS_H_S, _J_MINUS_I_S), ("H", "I", "J")),
+    _entry("j_width_ms", "j_width_ms", "ms",
+           "Full width of the J wave at half its height above the line joining the I and K "
+           "extrema.", (0.0, _IK_RANGE_MS[1]), ("I", "J", "K")),
+    _entry("ij_amplitude", "ij_amplitude", AMPLITUDE_UNIT,
+           "Peak-to-peak amplitude J minus I of the template, in the input's amplitude unit.",
+           (0.0, None), ("I", "J"), conf="ij_amplitude_confidence"),
+    _entry("jk_amplitude", "jk_amplitude", AMPLITUDE_UNIT,
+           "Peak-to-peak amplitude J minus K of the template, in the input's amplitude unit.",
+           (0.0, None), ("J", "K"), conf="jk_amplitude_confidence"),
+    _entry("ij_amplitude_per_kg", "ij_amplitude_per_kg", AMPLITUDE_UNIT + "/kg",
+           "ij_amplitude divided by the body mass (stated, else the measured load); None "
+           "without a mass.", (0.0, None), ("I", "J"), conf="ij_amplitude_confidence"),
+    _entry("jk_amplitude_per_kg", "jk_amplitude_per_kg", AMPLITUDE_UNIT + "/kg",
+           "jk_amplitude divided by the body mass (stated, else the measured load); None "
+           "without a mass.", (0.0, None), ("J", "K"), conf="jk_amplitude_confidence"),
+    _entry("template_correlation", "template_correlation_median", None,
+           "Median Pearson correlation of the template beats with the template.",
+           (-1.0, 1.0), (), REF_OURS),
+    _entry("jk_amplitude_cv_pct", "jk_amplitude_cv_pct", "%",
+           "Coefficient of variation (SD, ddof=1, over the mean) of the per-beat J-K "
+           f"amplitudes of the beats correlating >= {_MIN_BEAT_CORRELATION:g} with the "
+           "template.", NONNEGATIVE, ("J", "K"), REF_OURS),
+    *(
+        _entry(f"wavelet_energy_d{k + 1}", f"wavelet_signature[{k}]", None,
+               f"Share of the template's stationary-wavelet detail energy in level d{k + 1} "
+               f"({band} Hz; template resampled to {SIGNATURE_FS_HZ:g} Hz, "
+               f"{SIGNATURE_WAVELET}, {SIGNATURE_LEVELS} levels; the six shares sum to 1).",
+               UNIT_INTERVAL, (), REF_PYWT)
+        for k, band in enumerate(SIGNATURE_BAND_LABELS)
+    ),
+)
+"""Catalogue entries of the morphology family (see :mod:`features.catalogue`)."""

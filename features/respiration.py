@@ -14,14 +14,26 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
-from scipy import ndimage, stats
+from scipy import ndimage
 from scipy import signal as sps
 
+from features._checks import check_sampling_rate, check_usable
+from features._numeric import MAD_TO_SD, robust_sd, runs, vertex_offset
+from features.catalogue import (
+    AMPLITUDE_UNIT,
+    NONNEGATIVE,
+    REF_AASM,
+    REF_KARLEN,
+    REF_OURS,
+    REF_WELCH,
+    FeatureDefinition,
+)
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, butter_filtfilt, frozen
+from features.limits import MIN_DURATION_S
 from features.spectral import welch_spectra
 
-__all__ = ["RespirationResult", "breathing"]
+__all__ = ["CATALOGUE", "RespirationResult", "breathing"]
 
 BAND_HZ = (0.1, 0.7)
 """Breathing band (Hz): 6 to 42 breaths/min."""
@@ -31,10 +43,14 @@ HYSTERESIS = 0.3
 """Schmitt-trigger thresholds, +/- this times the robust breathing amplitude."""
 PAUSE_MIN_S = 10.0
 """Shortest pause counted (s): the adult apnoea duration criterion of the AASM manual."""
-MIN_DURATION_S = 20.0
+MIN_SIGNAL_FS_HZ = 2.0
+"""Lowest rate of the trace or low band accepted (Hz): breathing stays below 0.7 Hz."""
 FUSION_MAX_SD_PER_MIN = 4.0
 """Largest SD of the two rate estimates that are still averaged (Karlen et al. 2013)."""
+PAUSE_THRESHOLD_PCT = 25.0
+"""Default pause threshold: swing below this share of the surrounding baseline (%)."""
 
+_S_PER_HOUR = 3600.0
 _BASELINE_BLOCK_S = 10.0
 _BASELINE_SPAN_S = 120.0
 _WELCH_SEGMENT_S = 64.0
@@ -70,7 +86,7 @@ class RespirationResult:
         ratio. A force sensor does not tell inspiration from expiration by sign, so this is
         reported as rise/fall and not as an inspiration/expiration ratio.
     breathing_amplitude
-        Robust amplitude of the breathing signal (1.4826 x MAD), in the input's unit.
+        Robust amplitude of the breathing signal (``MAD_TO_SD`` x MAD), in the input's unit.
     pause_count, pause_spans_s, pauses_per_hour, longest_pause_s
         Breathing pauses of >= 10 s: spans where the breathing amplitude stays below
         ``pause_threshold_pct`` of the surrounding baseline. A signal observation, not a
@@ -118,7 +134,7 @@ def breathing(
     usable: ArrayLike | None = None,
     cop_signal: ArrayLike | None = None,
     cop_fs_hz: float | None = None,
-    pause_threshold_pct: float = 25.0,
+    pause_threshold_pct: float = PAUSE_THRESHOLD_PCT,
 ) -> RespirationResult:
     """Measure breathing from the low band of a force trace.
 
@@ -127,7 +143,8 @@ def breathing(
     signal_or_lowband
         1-D force trace (any rate) or its already low-passed band; at least 20 s.
     fs_hz
-        Sampling rate of ``signal_or_lowband`` (Hz), 2 to 2000.
+        Sampling rate of ``signal_or_lowband`` (Hz), from ``MIN_SIGNAL_FS_HZ`` to
+        ``features.limits.MAX_FS_HZ``.
     usable
         Boolean mask of the samples that may be used, same length; all usable when None.
     cop_signal
@@ -136,7 +153,7 @@ def breathing(
         trace. Used instead of the trace when its breathing band is more concentrated
         (Notes, 1).
     cop_fs_hz
-        Sampling rate of ``cop_signal`` (Hz), 2 to 2000; ``fs_hz`` when None.
+        Sampling rate of ``cop_signal`` (Hz), same range; ``fs_hz`` when None.
     pause_threshold_pct
         A pause is where the breathing amplitude stays below this share (10 to 50 %) of the
         surrounding baseline amplitude.
@@ -162,7 +179,7 @@ def breathing(
        axes, the candidate with the largest share of band power within +/-0.05 Hz of its
        Welch peak is kept (flag when a centre-of-pressure axis wins; its amplitudes are
        then in its own unit, and its empty samples are unusable too).
-    2. Breaths: the signal is divided by its robust amplitude A = 1.4826 x MAD over usable
+    2. Breaths: the signal is divided by its robust amplitude A = ``MAD_TO_SD`` x MAD over usable
        samples (A is 1.05 times the amplitude of a sinusoid). A Schmitt trigger with thresholds
        +0.3 and -0.3 marks a breath each time the signal rises above +0.3 after having been
        below -0.3; the breath instant is the interpolated upward crossing of +0.3. The
@@ -250,7 +267,7 @@ def breathing(
             usable_duration_s=usable_s, pause_threshold_pct=thr_pct,
             breathing_signal=frozen(np.where(mask_b, y, np.nan)),
         )
-    amp = float(1.4826 * stats.median_abs_deviation(y[mask_b]))
+    amp = float(robust_sd(y[mask_b]))
     if amp <= 0:
         flags.append("no_breathing_signal")
         amp_z = np.zeros_like(y)
@@ -292,7 +309,7 @@ def breathing(
         confidence = c_agree * min(1.0, intervals.size / 10.0) * np.sqrt(mask_b.mean())
     if spans:
         flags.append("pauses_are_signal_observations_not_diagnosis")
-    if usable_s < 3600.0 and not noise_limited:
+    if usable_s < _S_PER_HOUR and not noise_limited:
         flags.append("pauses_per_hour_extrapolated_from_under_1_h")
     durations = [b - a for a, b in spans]
     return RespirationResult(
@@ -315,7 +332,7 @@ def breathing(
         breathing_amplitude=amp if amp > 0 else None,
         pause_count=None if noise_limited else len(spans),
         pause_spans_s=tuple(spans),
-        pauses_per_hour=None if noise_limited else len(spans) / (usable_s / 3600.0),
+        pauses_per_hour=None if noise_limited else len(spans) / (usable_s / _S_PER_HOUR),
         longest_pause_s=max(durations) if durations else None,
         breathing_signal=frozen(np.where(mask_b, y, np.nan)),
     )
@@ -334,12 +351,7 @@ def _validate(
 ) -> tuple[
     NDArray[np.float64], float, NDArray[np.bool_], NDArray[np.float64] | None, float, float
 ]:
-    try:
-        fs = float(fs_hz)
-    except (TypeError, ValueError):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be a number; got {fs_hz!r}.") from None
-    if not (np.isfinite(fs) and 2.0 <= fs <= 2000.0):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be between 2 and 2000 Hz; got {fs_hz}.")
+    fs = check_sampling_rate(fs_hz, low=MIN_SIGNAL_FS_HZ)
     x = np.asarray(sig, dtype=float)
     if x.ndim != 1:
         raise InvalidInputError(
@@ -351,11 +363,7 @@ def _validate(
             f"`signal_or_lowband` must last at least {MIN_DURATION_S:g} s "
             f"({int(np.ceil(MIN_DURATION_S * fs))} samples); got {x.size}.",
         )
-    mask = np.ones(x.size, dtype=bool) if usable is None else np.asarray(usable, dtype=bool)
-    if mask.shape != x.shape:
-        raise InvalidInputError(
-            "usable", f"`usable` must have the length of the signal ({x.size}); got {mask.size}."
-        )
+    mask = check_usable(usable, x.size, of="signal_or_lowband")
     if not np.all(np.isfinite(x[mask])):
         raise InvalidInputError(
             "signal_or_lowband",
@@ -364,11 +372,8 @@ def _validate(
     cop = None
     cop_fs = fs
     if cop_signal is not None:
-        cop_fs = fs if cop_fs_hz is None else float(cop_fs_hz)
-        if not (np.isfinite(cop_fs) and 2.0 <= cop_fs <= 2000.0):
-            raise InvalidInputError(
-                "cop_fs_hz", f"`cop_fs_hz` must be between 2 and 2000 Hz; got {cop_fs_hz}."
-            )
+        cop_fs = fs if cop_fs_hz is None else check_sampling_rate(cop_fs_hz, name="cop_fs_hz",
+                                                                  low=MIN_SIGNAL_FS_HZ)
         cop = np.asarray(cop_signal, dtype=float)
         if cop.ndim == 1:
             cop = cop[:, None]
@@ -394,8 +399,7 @@ def _validate(
 
 def _runs(flag: NDArray[np.bool_]) -> NDArray[np.int64]:
     """(start, stop) index pairs of the runs of True in ``flag`` (stop exclusive)."""
-    d = np.diff(np.concatenate(([0], flag.astype(np.int8), [0])))
-    return np.column_stack((np.flatnonzero(d == 1), np.flatnonzero(d == -1)))
+    return np.column_stack(runs(flag))
 
 
 # --------------------------------------------------------------------------- kernels
@@ -488,9 +492,7 @@ def _spectral_rate_per_min(est: _Psd) -> float | None:
     i = int(band[np.argmax(p[band])])
     if i in (band[0], band[-1]) or p[i] <= 0:
         return None
-    a, b, c = p[i - 1], p[i], p[i + 1]
-    den = a - 2 * b + c
-    d = 0.0 if den == 0 else float(np.clip(0.5 * (a - c) / den, -0.5, 0.5))
+    d = float(np.clip(vertex_offset(p[i - 1], p[i], p[i + 1]), -0.5, 0.5))
     return 60.0 * float(f[i] + d * (f[1] - f[0]))
 
 
@@ -705,3 +707,46 @@ def _noise_limited(
     sd = float(np.sqrt(np.percentile(p[band], 20) * (BAND_HZ[1] - BAND_HZ[0])))
     swing = float(np.median(_swing(y_low, _window(period_s, fs))[mask]))
     return 6.0 * sd >= fraction * swing
+
+
+# --------------------------------------------------------------------------- catalogue
+
+#: Breathing rates the band admits, /min.
+_RATE_RANGE_PER_MIN = (round(60.0 * BAND_HZ[0], 6), round(60.0 * BAND_HZ[1], 6))
+
+
+def _entry(name: str, attr: str, unit: str | None, text: str,
+           rng: tuple[float | None, float | None], ref: str) -> FeatureDefinition:
+    return FeatureDefinition(name, "respiration", unit, text, rng, ref, f"respiration.{attr}",
+                             "respiration.confidence", (), ("respiration.flags",))
+
+
+CATALOGUE: tuple[FeatureDefinition, ...] = (
+    _entry("breathing_rate_per_min", "rate_per_min", "/min",
+           "Breathing rate: mean of breathing_rate_counted_per_min and "
+           f"breathing_rate_spectral_per_min when their SD is at most "
+           f"{FUSION_MAX_SD_PER_MIN:g} per min (Smart Fusion), else None.",
+           _RATE_RANGE_PER_MIN, REF_KARLEN),
+    _entry("breathing_rate_counted_per_min", "counted_rate_per_min", "/min",
+           "Breathing rate by counting: 60 over the median interval between breaths detected "
+           f"with hysteresis on the {BAND_HZ[0]:g}-{BAND_HZ[1]:g} Hz band of the trace.",
+           _RATE_RANGE_PER_MIN, REF_OURS),
+    _entry("breathing_rate_spectral_per_min", "spectral_rate_per_min", "/min",
+           "Breathing rate at the Welch spectral peak of the breathing band.",
+           _RATE_RANGE_PER_MIN, REF_WELCH),
+    _entry("breath_interval_cv_pct", "interval_cv_pct", "%",
+           "Coefficient of variation of the breath-to-breath intervals.", NONNEGATIVE, REF_OURS),
+    _entry("breathing_rise_fall_ratio", "rise_fall_ratio", None,
+           "Median rise (trough to peak) time over median fall time of the breathing signal; "
+           "not an inspiration/expiration ratio, since the sign of a force trace does not tell "
+           "them apart.", (0.0, None), REF_OURS),
+    _entry("breathing_amplitude", "breathing_amplitude", AMPLITUDE_UNIT,
+           f"Robust amplitude ({MAD_TO_SD:g} x MAD) of the breathing signal; None when the "
+           "breathing signal came from the centre of pressure (another unit).", NONNEGATIVE,
+           REF_OURS),
+    _entry("breathing_pauses_per_hour", "pauses_per_hour", "/h",
+           f"Breathing pauses of {PAUSE_MIN_S:g} s or more (swing below "
+           f"{PAUSE_THRESHOLD_PCT:g} % of the surrounding baseline) per usable hour; a signal "
+           "observation, not a diagnosis.", NONNEGATIVE, REF_AASM),
+)
+"""Catalogue entries of the respiration family (see :mod:`features.catalogue`)."""

@@ -17,8 +17,9 @@ from typing import Any
 
 import numpy as np
 
+from features._checks import check_sampling_rate
 from features.artifacts import Segment
-from features.conditioning import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ, ChannelInput
+from features.conditioning import ChannelInput
 from features.engine import (
     FEATURE_SET_VERSION,
     AnalysisResult,
@@ -30,6 +31,7 @@ from features.engine import (
 )
 from features.errors import InvalidInputError, UnusableSignalError
 from features.feature_vector import FeatureVector, feature_vector
+from features.limits import MAX_CHANNELS, MAX_WINDOW_S, MIN_WINDOW_S
 
 __all__ = [
     "MAX_WINDOW_S",
@@ -41,10 +43,6 @@ __all__ = [
     "iter_windows",
 ]
 
-MIN_WINDOW_S = 30.0
-"""Shortest window (s): enough for about 30 beats and a few breaths."""
-MAX_WINDOW_S = 3600.0
-"""Longest window (s)."""
 
 # Error fields that describe the call rather than the samples of one window: raised at once,
 # since every window would fail alike.
@@ -170,9 +168,10 @@ def analyze_windows(
         supports ``len`` and slicing; they are sliced one window at a time and never copied
         or concatenated whole.
     fs_hz
-        Sampling rate (Hz), 50 to 2000.
+        Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     window_s
-        Window length (s), 30 to 3600, at most the recording length.
+        Window length (s), within ``features.limits.MIN_WINDOW_S`` to ``MAX_WINDOW_S``, at
+        most the recording length.
     overlap_s
         Overlap of consecutive windows (s), at least 0 and less than ``window_s``.
     subject, recording, options
@@ -248,7 +247,7 @@ def iter_windows(
     before the first window is yielded. Holding no list of results, this keeps memory at one
     window's analysis for recordings of any length.
     """
-    fs = _check_fs(fs_hz)
+    fs = check_sampling_rate(fs_hz)
     _check_channels(channels)
     n = _length(channels)
     n_win, n_step = _grid(window_s, overlap_s, fs)
@@ -261,19 +260,6 @@ def iter_windows(
 
 
 # --------------------------------------------------------------------------- validation
-
-
-def _check_fs(fs_hz: float) -> float:
-    try:
-        fs = float(fs_hz)
-    except (TypeError, ValueError):
-        raise InvalidInputError("fs_hz", f"`fs_hz` must be a number of Hz; got {fs_hz!r}.") \
-            from None
-    if not (math.isfinite(fs) and MIN_FS_HZ <= fs <= MAX_FS_HZ):
-        raise InvalidInputError(
-            "fs_hz", f"`fs_hz` must be between {MIN_FS_HZ:g} and {MAX_FS_HZ:g} Hz; got {fs:g}."
-        )
-    return fs
 
 
 def _check_channels(channels: Sequence[ChannelInput]) -> None:

@@ -9,6 +9,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from features.conditioning import ChannelInput, valid_units
+from features.limits import COUNTS_UNIT, QUANTITIES
 from fileformats import arrays, edf, wfdb_records
 from fileformats.errors import UnreadableFileError
 from fileformats.raw import RawTrace
@@ -20,7 +21,7 @@ _SUFFIXES = {
     ".bdf": "bdf", ".csv": "csv", ".txt": "csv", ".edf": "edf", ".npy": "npy", ".npz": "npz",
     ".parquet": "parquet", ".pq": "parquet", ".hea": "wfdb", ".dat": "wfdb",
 }
-_QUANTITIES = ("acceleration", "displacement", "force", "velocity")
+_QUANTITIES = QUANTITIES
 
 Source = str | os.PathLike[str] | bytes | Mapping[str, bytes]
 
@@ -209,7 +210,7 @@ def _unit(raw: RawTrace, k: int, quantity: str | None, unit: str | None,
     elif raw.units[k] is not None:
         resolved = normalise_unit(raw.units[k])  # type: ignore[assignment]
         if resolved is None:
-            known = sorted({u for q in _QUANTITIES for u in valid_units(q)} - {"counts"})
+            known = sorted({u for q in _QUANTITIES for u in valid_units(q)} - {COUNTS_UNIT})
             raise UnreadableFileError(
                 "unit", f"`unit` must be given for channel {label!r}: its header unit "
                 f"{raw.units[k]!r} is not a force, acceleration, velocity or displacement "

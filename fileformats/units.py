@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from features.conditioning import valid_units
+from features.limits import COUNTS_UNIT, QUANTITIES
+from features.limits import units_of as valid_units
 
 #: Header spellings (compared after stripping) -> the engine's unit.
 _ALIASES = {
@@ -36,7 +37,7 @@ def normalise_unit(text: str | None) -> str | None:
 
 def quantity_of_unit(unit: str) -> str | None:
     """The quantity a physical unit measures (``"N"`` -> ``"force"``), or None."""
-    for quantity in ("acceleration", "displacement", "force", "velocity"):
-        if unit in valid_units(quantity) and unit != "counts":
+    for quantity in QUANTITIES:
+        if unit in valid_units(quantity) and unit != COUNTS_UNIT:
             return quantity
     return None

@@ -15,8 +15,8 @@ import numpy as np
 from marshmallow import Schema, ValidationError, fields, post_load
 from marshmallow.validate import Length, OneOf, Range
 
-from features.conditioning import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ
-from schemas.requests import INCLUDE_PARTS, QUANTITIES
+from features.limits import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ, QUANTITIES
+from schemas.requests import INCLUDE_PARTS
 
 #: A column with this header (any case) holds time stamps and is not a channel.
 TIME_COLUMN = "time_s"

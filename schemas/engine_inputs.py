@@ -53,7 +53,7 @@ def engine_inputs(request: AnalysisRequest) -> EngineCall:
     if request.recording is not None:
         given = request.recording
         recording = Recording(
-            placement=given.placement or "seat",
+            placement=given.placement or Recording.placement,
             posture=given.posture,
             start_time=None if given.start_time is None else given.start_time.isoformat(),
             device_id=given.device_id,

@@ -16,6 +16,8 @@ from typing import Any
 import numpy as np
 from marshmallow import ValidationError, fields
 
+from features.limits import MAX_SAMPLE_MAGNITUDE as LIMIT_SAMPLE_MAGNITUDE
+
 #: Little-endian encodings accepted for ``samples_base64``, by ``dtype`` name.
 BASE64_DTYPES: dict[str, np.dtype[Any]] = {
     "float32": np.dtype("<f4"),
@@ -30,10 +32,8 @@ BASE64_PATTERN = r"^(?:[A-Za-z0-9+/]{4})*(?:[A-Za-z0-9+/]{2}==|[A-Za-z0-9+/]{3}=
 _NUMBER_TYPES = frozenset({int, float})
 
 
-#: Largest sample magnitude accepted, in the channel's own unit. Far above any
-#: sensor (an int32 count is below 2.2e9) and far below the float64 range, so
-#: that powers and sums inside the engine cannot overflow.
-MAX_SAMPLE_MAGNITUDE = 1e12
+#: Largest sample magnitude accepted, in the channel's own unit (the engine's limit).
+MAX_SAMPLE_MAGNITUDE = LIMIT_SAMPLE_MAGNITUDE
 
 
 def _first_too_large(values: np.ndarray) -> int | None:

@@ -8,6 +8,8 @@ from __future__ import annotations
 
 from marshmallow import Schema, fields
 
+from features.errors import UNUSABLE_REASONS
+
 
 class FieldErrorSchema(Schema):
     """One offending field of a request."""
@@ -48,7 +50,12 @@ class UnusableSignalProblemSchema(ProblemSchema):
     """422: the input is well formed but holds no signal the engine can use."""
 
     reason = fields.String(
-        required=True, metadata={"description": "Machine-readable reason, e.g. `no_occupant`."}
+        required=True,
+        metadata={
+            "description": "Machine-readable reason, one of "
+            + ", ".join(f"`{r}`" for r in UNUSABLE_REASONS) + ".",
+            "enum": list(UNUSABLE_REASONS),
+        },
     )
 
 

@@ -22,7 +22,22 @@ import numpy as np
 from marshmallow import Schema, ValidationError, fields, post_load, validates_schema
 from marshmallow.validate import Length, OneOf, Range
 
-from features.conditioning import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ, valid_units
+from features.limits import (
+    COUNTS_UNIT,
+    MAINS_HZ,
+    MAX_BODY_MASS_KG,
+    MAX_CHANNELS,
+    MAX_FS_HZ,
+    MAX_RATE_BPM,
+    MAX_WINDOW_S,
+    MIN_BODY_MASS_KG,
+    MIN_FS_HZ,
+    MIN_RATE_BPM,
+    MIN_WINDOW_S,
+    PLACEMENTS,
+    QUANTITIES,
+)
+from features.limits import units_of as valid_units
 from schemas.fields import (
     BASE64_DTYPES,
     BASE64_PATTERN,
@@ -33,14 +48,10 @@ from schemas.fields import (
     decode_base64_samples,
 )
 
-QUANTITIES = ("acceleration", "displacement", "force", "velocity")
-#: Unit of a channel recorded in ADC counts (it then needs a ``counts_scale``).
-COUNTS_UNIT = "counts"
-PLACEMENTS = ("bed", "other", "platform", "seat")
 POSTURES = ("lying", "reclining", "seated", "standing", "unknown")
 SEXES = ("female", "male", "other", "unknown")
 INCLUDE_PARTS = ("beats", "signals", "template", "windows")
-MAINS_CHOICES = ("auto", 50, 60)
+MAINS_CHOICES = ("auto", *MAINS_HZ)
 #: Default cap on the samples of one request, all channels together.
 DEFAULT_MAX_SAMPLES = 4_000_000
 #: Longest ``samples_base64`` worth sending: the default sample cap at the widest
@@ -48,9 +59,6 @@ DEFAULT_MAX_SAMPLES = 4_000_000
 BASE64_MAX_LENGTH = 4 * -(-DEFAULT_MAX_SAMPLES * 8 // 3)
 #: Largest sensor coordinate accepted, in metres (no support is 20 m across).
 MAX_POSITION_M = 10.0
-#: Body mass the engine accepts, in kg (features.engine refuses anything else).
-MIN_BODY_MASS_KG = 2.0
-MAX_BODY_MASS_KG = 400.0
 
 
 # --------------------------------------------------------------------------
@@ -354,7 +362,7 @@ class MainsField(fields.Field[Any]):
             ),
             "oneOf": [
                 {"type": "string", "enum": ["auto"]},
-                {"type": "integer", "enum": [50, 60]},
+                {"type": "integer", "enum": list(MAINS_HZ)},
                 {"type": "null"},
             ],
         }
@@ -362,7 +370,7 @@ class MainsField(fields.Field[Any]):
 
     def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> Any:
         if value == "auto" or (
-            not isinstance(value, bool) and isinstance(value, int | float) and value in (50, 60)
+            not isinstance(value, bool) and isinstance(value, int | float) and value in MAINS_HZ
         ):
             return value if value == "auto" else int(value)
         raise ValidationError(f"`mains_hz` must be one of 'auto', 50, 60 or null; got {value!r}.")
@@ -385,20 +393,27 @@ class OptionsSchema(Schema):
         metadata={"description": "Load of the empty support in kg, in [0, 200]; 0 when tared."},
     )
     rate_range_bpm = fields.List(
-        StrictFloat(validate=Range(min=20, max=250)),
+        StrictFloat(validate=Range(min=MIN_RATE_BPM, max=MAX_RATE_BPM)),
         validate=Length(equal=2),
-        metadata={"description": "Plausible heart-rate range [low, high] in bpm, within 20-250."},
+        metadata={"description": (
+            "Plausible heart-rate range [low, high] in bpm, within "
+            f"{MIN_RATE_BPM:g}-{MAX_RATE_BPM:g}."
+        )},
     )
     window_s = StrictFloat(
-        validate=Range(min=30, max=3600),
+        validate=Range(min=MIN_WINDOW_S, max=MAX_WINDOW_S),
         metadata={"description": (
-            "Length of consecutive analysis windows in s, 30-3600; with `include: [\"windows\"]`"
+            f"Length of consecutive analysis windows in s, {MIN_WINDOW_S:g}-{MAX_WINDOW_S:g}; "
+            "with `include: [\"windows\"]`"
             " each window gets its own feature vector, confidence and usable fraction."
         )},
     )
     window_overlap_s = StrictFloat(
-        validate=Range(min=0, max=3599),
-        metadata={"description": "Overlap of consecutive windows in s, 0 <= overlap < window_s."},
+        validate=Range(min=0, max=MAX_WINDOW_S, max_inclusive=False),
+        metadata={
+            "description": "Overlap of consecutive windows in s, 0 <= overlap < window_s.",
+            "exclusiveMaximum": MAX_WINDOW_S,
+        },
     )
     include = fields.List(
         fields.String(
@@ -420,7 +435,7 @@ class OptionsSchema(Schema):
         if "windows" in data.get("include", ()) and window is None:
             raise ValidationError(
                 "`options.window_s` is required when `include` has `windows`; got none. "
-                "Give the window length in seconds (30-3600).",
+                f"Give the window length in seconds ({MIN_WINDOW_S:g}-{MAX_WINDOW_S:g}).",
                 field_name="window_s",
             )
         if overlap is not None and (window is None or not overlap < window):

@@ -246,17 +246,3 @@ def test_long_clipping_run_is_masked() -> None:
                           raw_signals=[raw[0], held, raw[2], raw[3]])
     clip = _spans(mask, "clipping")
     assert len(clip) == 1 and clip[0].start_s == pytest.approx(100.0, abs=1 / FS)
-
-
-def test_runs_of_true_match_the_edges_of_the_mask() -> None:
-    from features.artifacts import _runs
-
-    rng = np.random.default_rng(12)
-    for mask in (rng.random(500) < 0.7, np.ones(10, bool), np.zeros(10, bool),
-                 np.zeros(0, bool)):
-        # reference: numpy.diff of the 0/1 mask padded with zeros gives +1 at each run's
-        # start and -1 one past its end (common practice)
-        edges = np.diff(mask.astype(np.int8), prepend=np.int8(0), append=np.int8(0))
-        starts, ends = _runs(mask)
-        np.testing.assert_array_equal(starts, np.flatnonzero(edges == 1))
-        np.testing.assert_array_equal(ends, np.flatnonzero(edges == -1))

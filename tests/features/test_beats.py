@@ -165,7 +165,8 @@ def test_non_finite_is_rejected():
 
 
 def test_mask_length_is_checked():
-    with pytest.raises(InvalidInputError, match=r"`usable` must have the trace's length 5000"):
+    with pytest.raises(InvalidInputError,
+                       match=r"`usable` must have the length of `trace` \(5000\)"):
         detect_beats(np.zeros(5000), 250.0, usable=np.ones(10, dtype=bool))
 
 

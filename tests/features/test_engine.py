@@ -137,3 +137,75 @@ def test_any_finite_input_gives_a_result_or_a_documented_error(x, quantity):
     assert 0.0 <= r.heart_rate.confidence <= 1.0
     assert r.heart_rate.mean_bpm is None or 30.0 <= r.heart_rate.mean_bpm <= 200.0
     assert 0.0 <= r.quality.usable_fraction <= 1.0
+
+
+def test_measured_load_is_reported_as_the_body_mass_when_none_is_stated(armchair):
+    # No stated mass on an occupied force plate: the per-kilogram amplitudes use the load, so
+    # the reported body mass must be that load, not the missing stated one.
+    r = analyze(_channels(armchair), armchair.fs_hz)
+    assert r.occupancy.occupied is True
+    assert r.body_mass_source == "load"
+    assert r.body_mass_kg is not None
+    # The simulated person weighs 75 kg; M = F / g at rest (Newton's second law), 2 % for the
+    # static-load estimate over the recording as in the test above.
+    assert r.body_mass_kg == pytest.approx(75.0, rel=0.02)
+    assert r.body_mass_kg == r.occupancy.supported_mass_kg
+
+
+# A trace that carries no waveform at all is an unusable signal, not an empty support:
+# a sensor whose output never changes (or changes by one quantisation step) or that sits at
+# its range limits most of the time measures nothing (common practice).
+
+
+def _force(x, label="a"):
+    return ChannelInput(samples=x, label=label, quantity="force", unit="N")
+
+
+def test_constant_channels_are_an_unusable_flat_signal():
+    chans = [_force(np.full(250 * 30, 700.0), "a"), _force(np.zeros(250 * 30), "b")]
+    with pytest.raises(UnusableSignalError, match="constant or toggles") as info:
+        analyze(chans, 250.0)
+    assert info.value.reason == "flat_signal"
+
+
+def test_an_all_zero_force_plate_is_an_empty_support_not_an_unusable_signal():
+    # A tared plate that reads nothing holds nobody: a valid answer (occupancy false).
+    r = analyze([_force(np.zeros(250 * 30))], 250.0)
+    assert r.occupancy.occupied is False
+    assert r.heart_rate.mean_bpm is None and r.heart_rate.reason == "empty_support"
+
+
+def test_a_channel_toggling_by_one_step_is_an_unusable_flat_signal():
+    rng = np.random.default_rng(4)
+    counts = 2048.0 + rng.integers(0, 2, 250 * 30)  # ADC noise of one count, nothing else
+    with pytest.raises(UnusableSignalError) as info:
+        analyze([_force(counts)], 250.0)
+    assert info.value.reason == "flat_signal"
+
+
+def test_channels_held_at_their_limits_are_an_unusable_clipped_signal(armchair):
+    # Clipping every channel between its 30th and 70th percentiles leaves 60 % of the
+    # samples at a limit: more than half, as from a saturated amplifier.
+    chans = []
+    for ch in _channels(armchair):
+        lo, hi = np.percentile(ch.samples, [30, 70])
+        chans.append(ChannelInput(samples=np.clip(ch.samples, lo, hi), label=ch.label,
+                                  quantity=ch.quantity, unit=ch.unit, position_m=ch.position_m))
+    with pytest.raises(UnusableSignalError, match="lowest or highest value") as info:
+        analyze(chans, armchair.fs_hz)
+    assert info.value.reason == "clipped_signal"
+
+
+def test_one_live_channel_is_enough(armchair):
+    chans = _channels(armchair)
+    dead = ChannelInput(samples=np.zeros_like(chans[0].samples), label=chans[0].label,
+                        quantity=chans[0].quantity, unit=chans[0].unit)
+    r = analyze([dead, *[ChannelInput(samples=c.samples, label=c.label, quantity=c.quantity,
+                                      unit=c.unit) for c in chans[1:]]], armchair.fs_hz)
+    assert r.heart_rate.mean_bpm == pytest.approx(armchair.truth.heart_rate_bpm, abs=1.0)
+
+
+def test_the_unusable_reasons_are_the_two_tested_above():
+    from features.errors import UNUSABLE_REASONS
+
+    assert UNUSABLE_REASONS == ("clipped_signal", "flat_signal")

@@ -315,7 +315,7 @@ def _ok():
         ({"beat_times_s": [3.0, 2.0]}, "beat_times_s", r"strictly increasing"),
         ({"beat_confidence": [1.0]}, "beat_confidence", r"length of `beat_times_s`"),
         ({"usable": np.ones(10, bool)}, "usable", r"`usable` must have the length"),
-        ({"body_mass_kg": 0.0}, "body_mass_kg", r"between 1 and 500 kg; got 0"),
+        ({"body_mass_kg": 0.0}, "body_mass_kg", r"between 2 and 400 kg; got 0"),
         ({"min_beat_confidence": 2.0}, "min_beat_confidence", r"between 0 and 1; got 2"),
         ({"amplitude_unit": ""}, "amplitude_unit", r"must be a non-empty string; got ''"),
     ],
@@ -340,3 +340,16 @@ def test_confidence_outside_unit_interval_and_nan_samples_are_rejected():
     usable = np.ones(x.size, dtype=bool)
     usable[10] = False
     assert beat_morphology(y, 100.0, beats, usable=usable).jk_amplitude is not None
+
+
+def test_signature_band_labels_name_the_nominal_detail_bands():
+    from features.morphology import SIGNATURE_BAND_LABELS, SIGNATURE_FS_HZ, SIGNATURE_LEVELS
+
+    # Level j of a dyadic (stationary) wavelet transform spans fs/2**(j+1) to fs/2**j
+    # (Mallat, A Wavelet Tour of Signal Processing, 3rd ed., 2009; from memory). The labels
+    # are rounded by hand to 2-4 significant digits (at most 0.2 % off); 1 % allows that.
+    assert len(SIGNATURE_BAND_LABELS) == SIGNATURE_LEVELS
+    for j, label in enumerate(SIGNATURE_BAND_LABELS, start=1):
+        low, high = (float(v) for v in label.split("-"))
+        assert low == pytest.approx(SIGNATURE_FS_HZ / 2 ** (j + 1), rel=0.01)
+        assert high == pytest.approx(SIGNATURE_FS_HZ / 2**j, rel=0.01)

@@ -46,6 +46,15 @@ def test_analyze_reports_bad_input_on_stderr_with_exit_2(tmp_path, capsys):
     assert {e["field"] for e in error["errors"]} == {"file", "sampling_rate_hz"}
 
 
+def test_analyze_of_a_stuck_sensor_is_exit_3(tmp_path, capsys):
+    # 30 s of a load cell reading 700 N without the least change: stuck or disconnected.
+    path = tmp_path / "stuck.csv"
+    path.write_text("seat\n" + "700\n" * (250 * 30), encoding="utf-8")
+    assert main(["analyze", str(path), "--rate", "250"]) == 3
+    error = json.loads(capsys.readouterr().err)
+    assert error["error"] == "unusable_signal" and error["reason"] == "flat_signal"
+
+
 def test_analyze_of_a_missing_file_is_exit_2(tmp_path, capsys):
     assert main(["analyze", str(tmp_path / "none.csv"), "--rate", "250"]) == 2
     assert json.loads(capsys.readouterr().err)["error"] == "unreadable_file"

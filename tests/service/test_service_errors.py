@@ -242,16 +242,11 @@ def test_engine_input_error_is_422_naming_the_field(app, monkeypatch):
     check_against_contract(response, "/v1/analyses", "post")
 
 
-def test_unusable_signal_is_422_with_its_own_type(app, monkeypatch):
-    import service.blueprints.analyses as analyses
-    from features.errors import UnusableSignalError
-
-    def unusable(request):
-        raise UnusableSignalError("all_masked", "Every sample is masked as movement.")
-
-    monkeypatch.setattr(analyses, "run_analysis", unusable)
+def test_unusable_signal_is_422_with_its_own_type(app):
+    # 700 N that never changes: a loaded sensor that is stuck or disconnected (a living
+    # occupant always moves it a little, if only by breathing; common practice).
     response = app.test_client().post("/v1/analyses", json=_body())
     problem = _assert_problem(response, 422, "urn:heartsway:problem:unusable-signal")
-    assert problem["reason"] == "all_masked"
-    assert problem["detail"] == "Every sample is masked as movement."
+    assert problem["reason"] == "flat_signal"
+    assert "constant or toggles between two values" in problem["detail"]
     check_against_contract(response, "/v1/analyses", "post")

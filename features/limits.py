@@ -1,0 +1,117 @@
+"""The engine's limits, choice lists and physical constants, defined once.
+
+Every stage of the engine, the request schemas (``schemas/``) and the file readers
+(``fileformats/``) import these names rather than writing the numbers again, so that a
+limit changes in one place. Choice lists are sorted tuples.
+"""
+
+from __future__ import annotations
+
+from types import MappingProxyType
+
+__all__ = [
+    "COUNTS_UNIT",
+    "DEFAULT_RATE_RANGE_BPM",
+    "MAINS_HZ",
+    "MAX_BODY_MASS_KG",
+    "MAX_CHANNELS",
+    "MAX_DURATION_S",
+    "MAX_FS_HZ",
+    "MAX_OCCUPANT_KG",
+    "MAX_RATE_BPM",
+    "MAX_SAMPLE_MAGNITUDE",
+    "MAX_WINDOW_S",
+    "MIN_BODY_MASS_KG",
+    "MIN_DURATION_S",
+    "MIN_FS_HZ",
+    "MIN_OCCUPANT_KG",
+    "MIN_RATE_BPM",
+    "MIN_WINDOW_S",
+    "MS_PER_MIN",
+    "PLACEMENTS",
+    "QUANTITIES",
+    "STANDARD_GRAVITY_M_S2",
+    "UNIT_FACTORS",
+    "units_of",
+]
+
+#: Milliseconds per minute: a rate in /min is MS_PER_MIN over an interval in ms.
+MS_PER_MIN = 60_000.0
+
+#: Standard acceleration of gravity, m/s^2 (3rd CGPM, 1901; NIST SP 811, 2008, B.8).
+STANDARD_GRAVITY_M_S2 = 9.80665
+
+#: Accepted sampling rates, Hz. Below 50 Hz the J wave (energy up to ~20 Hz) is not
+#: resolved; above 2000 Hz nothing in the cardiac band is gained.
+MIN_FS_HZ = 50.0
+MAX_FS_HZ = 2000.0
+#: Most channels in one recording (the load cells or sensors of one support).
+MAX_CHANNELS = 8
+
+#: Shortest record accepted, s: about 10 beats at 30 bpm and one slow breath
+#: (6 breaths/min is a 10 s cycle), so every later stage has something to work on.
+MIN_DURATION_S = 20.0
+#: Longest record accepted, s (24 h): one day of monitoring.
+MAX_DURATION_S = 86_400.0
+
+#: Largest sample magnitude accepted (in the channel's unit): far beyond any force or
+#: acceleration sensor, and far from float64 overflow in the squares and spectra the
+#: stages compute.
+MAX_SAMPLE_MAGNITUDE = 1e12
+
+#: Stated body mass accepted, kg (common practice). The engine and the request schema
+#: said 2-400 kg, the morphology stage 1-500 kg; 2-400 is kept because it is the range
+#: the published API contract already states, it covers a term newborn (the WHO growth
+#: standards put the 3rd percentile of birth weight near 2.5 kg, from memory) to the
+#: heaviest adults seen in clinical practice, and a value outside it is far more often a
+#: unit slip (grams, pounds) than a person.
+MIN_BODY_MASS_KG = 2.0
+MAX_BODY_MASS_KG = 400.0
+
+#: Plausible occupant mass bounds for the load, kg (common practice). Below 10 kg the
+#: load is an object, a pet or calibration drift rather than a person; above 350 kg it
+#: is beyond the heaviest adults seen in clinical practice and points to a calibration
+#: or tare problem.
+MIN_OCCUPANT_KG = 10.0
+MAX_OCCUPANT_KG = 350.0
+
+#: Widest heart-rate search range a caller may ask for, bpm. The beat detector and the
+#: feature catalogue used 20-300, the request schema 20-250; 20-300 is kept (common
+#: practice): 300 bpm is the ventricular rate of atrial flutter with 1:1 conduction and
+#: of infant supraventricular tachycardia, 20 bpm a deep bradycardia, and narrowing the
+#: range would have changed the catalogue's valid ranges.
+MIN_RATE_BPM = 20.0
+MAX_RATE_BPM = 300.0
+#: Default heart-rate search range, bpm: resting adults (common practice).
+DEFAULT_RATE_RANGE_BPM = (30.0, 200.0)
+
+#: Length of one analysis window, s: the shortest holds about 30 beats and a few breaths.
+MIN_WINDOW_S = 30.0
+MAX_WINDOW_S = 3600.0
+
+#: Where the sensors sit.
+PLACEMENTS = ("bed", "other", "platform", "seat")
+#: What a channel measures.
+QUANTITIES = ("acceleration", "displacement", "force", "velocity")
+#: Mains frequencies whose hum can be removed, Hz.
+MAINS_HZ = (50, 60)
+#: Unit of a channel recorded in ADC counts (it then needs a counts scale).
+COUNTS_UNIT = "counts"
+
+#: Multiplicative factor from each accepted unit to the SI unit of its quantity. Factors
+#: from NIST SP 811 (2008), Appendix B.8/B.9: 1 lbf = 4.448 221 615 260 5 N;
+#: 1 kgf = g_n x 1 kg; 1 g = g_n (so 1 mg = 9.806 65e-3 m/s^2, "mg" meaning milli-g
+#: here, not milligram).
+UNIT_FACTORS = MappingProxyType({
+    "force": MappingProxyType({"N": 1.0, "kN": 1.0e3, "lbf": 4.4482216152605,
+                               "kgf": STANDARD_GRAVITY_M_S2}),
+    "acceleration": MappingProxyType({"m/s2": 1.0, "m/s^2": 1.0, "g": STANDARD_GRAVITY_M_S2,
+                                      "mg": STANDARD_GRAVITY_M_S2 * 1.0e-3}),
+    "velocity": MappingProxyType({"m/s": 1.0, "mm/s": 1.0e-3}),
+    "displacement": MappingProxyType({"m": 1.0, "mm": 1.0e-3, "um": 1.0e-6}),
+})
+
+
+def units_of(quantity: str) -> list[str]:
+    """Sorted units accepted for ``quantity``, :data:`COUNTS_UNIT` included."""
+    return sorted([*UNIT_FACTORS[quantity], COUNTS_UNIT])

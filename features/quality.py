@@ -1,0 +1,192 @@
+"""Quality and occupancy: the usable share of a recording and whether anyone sat on it.
+
+``signal_quality`` summarises the artifact mask (usable fraction, masked segments) with a
+confidence; ``occupancy`` combines the two independent pieces of evidence that someone is
+on the support, the static load and a repeating heartbeat.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from features.artifacts import ArtifactMask, Segment
+from features.beats import BeatDetection
+from features.catalogue import REF_OURS, UNIT_INTERVAL, FeatureDefinition
+from features.errors import CLIPPED_SIGNAL, FLAT_SIGNAL, UnusableSignalError
+
+__all__ = [
+    "CATALOGUE",
+    "OccupancyResult",
+    "QualityResult",
+    "check_signal_present",
+    "occupancy",
+    "signal_quality",
+]
+
+NO_HEARTBEAT_FACTOR = 0.2
+"""Factor on the quality confidence when no repeating heartbeat was found: the unmasked
+part may still be noise."""
+#: Occupancy confidence when load and heartbeat agree, when only one of them is
+#: available, and when they disagree (heuristics from the evidence available, not
+#: calibrated probabilities).
+BOTH_AGREE_CONFIDENCE = 0.95
+ONE_SOURCE_CONFIDENCE = 0.7
+DISAGREE_CONFIDENCE = 0.4
+CLIPPED_SHARE = 0.5
+"""A channel with more than this share of its samples at its own lowest or highest value
+is clipped over most of its length."""
+_CHUNK = 1 << 20  # samples compared at a time (bounds the temporary boolean arrays)
+
+
+@dataclass(frozen=True)
+class QualityResult:
+    """Usable share of the recording and the masked segments."""
+
+    usable_fraction: float
+    segments: tuple[Segment, ...]
+    confidence: float
+    flags: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class OccupancyResult:
+    """Whether someone sat on the support, from the load and the heartbeat.
+
+    Attributes
+    ----------
+    occupied
+        True, False, or None when neither load nor heartbeat can tell.
+    supported_mass_kg
+        Static load over standard gravity, less the empty load; None without
+        force channels.
+    from_load, from_heartbeat
+        The two independent pieces of evidence (None when not available).
+    confidence
+        0.95 when both agree, 0.7 when only one is available, 0.4 when they
+        disagree, 0.0 when neither is.
+    """
+
+    occupied: bool | None
+    supported_mass_kg: float | None
+    from_load: bool | None
+    from_heartbeat: bool
+    confidence: float
+    flags: tuple[str, ...]
+
+
+def check_signal_present(raw_signals: Sequence[NDArray[np.generic]], *,
+                         unloaded: bool = False) -> None:
+    """Raise :class:`UnusableSignalError` when no channel can carry a waveform.
+
+    Parameters
+    ----------
+    raw_signals
+        The channels as received (``ConditionedInput.raw_signals``), equal length.
+    unloaded
+        True when the static load says nobody is on the support
+        (``ConditionedInput.occupancy_from_load`` is False): flat channels are then an
+        empty support, a valid answer, and not an error.
+
+    Raises
+    ------
+    UnusableSignalError
+        ``"flat_signal"`` when every channel takes at most two distinct values (constant,
+        or toggling by one quantisation step: a disconnected or stuck sensor) and the
+        support is not known to be unloaded;
+        ``"clipped_signal"`` when every channel is flat or has more than
+        :data:`CLIPPED_SHARE` of its samples at its own lowest or highest value (a
+        saturated sensor).
+
+    Notes
+    -----
+    Both tests read the samples alone, so they hold for any unit, gain or offset. A
+    heartbeat or breathing waveform takes many distinct values and reaches its extremes
+    only briefly; a channel at the rails for most of the record carries neither, and a
+    loaded support never holds perfectly still, since breathing alone moves the body. One
+    usable channel is enough: the artifact stage masks a channel's clipped spans, and an
+    empty support (a noisy, unloaded sensor) is a valid answer, not an unusable signal.
+    """
+    shares = [_share_at_extremes(x) for x in raw_signals]
+    if all(share is None for share in shares):
+        if unloaded:
+            return
+        raise UnusableSignalError(
+            FLAT_SIGNAL, "Every channel is constant or toggles between two values, as from a "
+            "disconnected or stuck sensor; no feature can be computed. Check the sensor's "
+            "connection and that its samples change with the load.")
+    if all(share is None or share > CLIPPED_SHARE for share in shares):
+        raise UnusableSignalError(
+            CLIPPED_SIGNAL, f"Every channel sits at its lowest or highest value for more than "
+            f"{CLIPPED_SHARE:.0%} of its samples, as from a saturated sensor; no feature can be "
+            "computed. Lower the gain or use a sensor with a wider range.")
+
+
+def _share_at_extremes(x: NDArray[np.generic]) -> float | None:
+    """Share of the samples equal to the minimum or the maximum; None when those two are all
+    the values (at most two distinct values, a flat channel)."""
+    if x.size == 0:
+        return None
+    low, high = x.min(), x.max()
+    count = 0
+    for start in range(0, x.size, _CHUNK):
+        part = x[start:start + _CHUNK]
+        count += int(np.count_nonzero((part == low) | (part == high)))
+    return None if count == x.size else count / x.size
+
+
+def signal_quality(mask: ArtifactMask, beats: BeatDetection) -> QualityResult:
+    """Usable fraction and segments of the artifact mask, with their confidence.
+
+    The confidence is the usable fraction, times :data:`NO_HEARTBEAT_FACTOR` when no
+    repeating heartbeat was found.
+    """
+    factor = 1.0 if beats.has_beats else NO_HEARTBEAT_FACTOR
+    return QualityResult(
+        usable_fraction=mask.usable_fraction,
+        segments=mask.segments,
+        confidence=float(mask.usable_fraction * factor),
+        flags=tuple(mask.flags),
+    )
+
+
+def occupancy(from_load: bool | None, mass_kg: float | None,
+              beats: BeatDetection) -> OccupancyResult:
+    """Whether the support is occupied, from the load decision and the beat detection.
+
+    Parameters
+    ----------
+    from_load
+        Occupied according to the static load, or None without force channels.
+    mass_kg
+        Supported mass, kg, reported as it is.
+    beats
+        The beat detection; a repeating heartbeat is evidence of an occupant.
+    """
+    from_beat = bool(beats.has_beats)
+    flags: list[str] = []
+    if from_load is None:
+        occupied: bool | None = from_beat
+        conf = ONE_SOURCE_CONFIDENCE
+        flags.append("no_load_information")
+    elif from_load == from_beat:
+        occupied, conf = from_load, BOTH_AGREE_CONFIDENCE
+    else:
+        # The load is the direct measurement; a heartbeat on an unloaded
+        # support or none under a load is reported, with low confidence.
+        occupied, conf = from_load, DISAGREE_CONFIDENCE
+        flags.append("load_and_heartbeat_disagree")
+    return OccupancyResult(occupied=occupied, supported_mass_kg=mass_kg, from_load=from_load,
+                           from_heartbeat=from_beat, confidence=conf, flags=tuple(flags))
+
+
+CATALOGUE: tuple[FeatureDefinition, ...] = (
+    FeatureDefinition("usable_fraction", "quality", None,
+                      "Fraction of the recording not masked as movement or another artifact.",
+                      UNIT_INTERVAL, REF_OURS, "quality.usable_fraction", "quality.confidence",
+                      (), ("quality.flags",)),
+)
+"""Catalogue entries of the quality family (see :mod:`features.catalogue`)."""

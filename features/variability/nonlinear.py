@@ -1,0 +1,308 @@
+"""Nonlinear heart-rate variability: Poincare SD1/SD2, sample entropy, DFA alpha1/alpha2.
+
+On an NN series as described in :mod:`features.variability`; templates and boxes only
+use mutually adjacent intervals.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+from scipy.spatial import cKDTree
+
+from features.catalogue import NONNEGATIVE, REF_BRENNAN, REF_PENG, REF_RICHMAN, FeatureDefinition
+from features.intervals import (
+    adjacent_to_previous,
+    run_ids_from_adjacency,
+    validate_interval_series,
+)
+from features.variability._shared import _adjacent_pairs, _entry, _fin
+
+__all__ = ["CATALOGUE", "NonlinearResult", "nonlinear"]
+
+# Sample entropy: m = 2, r = 0.2 SD (Richman & Moorman 2000); N > 200
+# (Yentes et al. 2013).
+_SAMPEN_M = 2
+_SAMPEN_R_SD = 0.2
+_SAMPEN_MIN_INTERVALS = 200
+# DFA scale ranges of Peng et al. (1995), beats.
+_DFA_ALPHA1_SCALES = tuple(range(4, 17))
+_DFA_ALPHA2_SCALES = tuple(range(16, 65))
+# Largest box at most a tenth of the data (Hardstone et al. 2012).
+_DFA_MIN_BOXES = 10
+
+
+@dataclass(frozen=True)
+class NonlinearResult:
+    """Poincare, sample-entropy and DFA measures of an NN series.
+
+    Attributes
+    ----------
+    sd1_ms, sd2_ms
+        Poincare plot SDs across and along the line of identity.
+    sd1_sd2_ratio
+        ``sd1 / sd2``.
+    sample_entropy
+        SampEn(m=2, r=0.2 SD), natural log, dimensionless.
+    dfa_alpha1, dfa_alpha2
+        DFA scaling exponents over 4-16 and 16-64 beats.
+    n_intervals
+        NN intervals given.
+    n_pairs
+        Adjacent pairs used for SD1/SD2.
+    confidence
+        ``min(1, n_pairs / 200) * (n_pairs / (n_intervals - 1))``.
+    flags
+        Reasons for None values and anything adapted.
+    """
+
+    sd1_ms: float | None
+    sd2_ms: float | None
+    sd1_sd2_ratio: float | None
+    sample_entropy: float | None
+    dfa_alpha1: float | None
+    dfa_alpha2: float | None
+    n_intervals: int
+    n_pairs: int
+    confidence: float
+    flags: tuple[str, ...]
+
+
+
+def _sample_entropy(
+    nn: NDArray[np.float64], runs: NDArray[np.int64], r: float, m: int
+) -> tuple[float | None, str | None]:
+    """SampEn from templates that lie inside one run of adjacent intervals.
+
+    Counts pairs of templates within Chebyshev distance ``r`` (inclusive)
+    with a k-d tree (memory O(n)); self-matches excluded.
+    """
+    n = nn.size
+    starts = np.arange(n - m)
+    if starts.size == 0:
+        return None, "sample_entropy_no_templates"
+    # template i uses intervals i..i+m, all in the same run
+    ok = runs[starts] == runs[starts + m]
+    starts = starts[ok]
+    if starts.size < 2:
+        return None, "sample_entropy_no_templates"
+    emb = nn[starts[:, None] + np.arange(m + 1)[None, :]]
+    b_tree = cKDTree(emb[:, :m])
+    a_tree = cKDTree(emb)
+    count_b = (int(b_tree.count_neighbors(b_tree, r, p=np.inf)) - starts.size) // 2
+    count_a = (int(a_tree.count_neighbors(a_tree, r, p=np.inf)) - starts.size) // 2
+    if count_a == 0 or count_b == 0:
+        return None, "sample_entropy_no_matches"
+    return float(-math.log(count_a / count_b)), None
+
+
+def _dfa_fluctuations(
+    profile: NDArray[np.float64], runs: NDArray[np.int64], scales: Sequence[int]
+) -> tuple[NDArray[np.float64], int]:
+    """RMS linear-detrended fluctuation per box size; boxes stay in one run.
+
+    Returns F(n) per scale and the number of boxes at the largest scale.
+    """
+    run_start = np.flatnonzero(np.r_[True, runs[1:] != runs[:-1]])
+    run_len = np.diff(np.r_[run_start, runs.size])
+    fluct = np.zeros(len(scales))
+    boxes_at_largest = 0
+    for j, size in enumerate(scales):
+        per_run = run_len // size
+        n_boxes = int(per_run.sum())
+        if j == len(scales) - 1:
+            boxes_at_largest = n_boxes
+        if n_boxes == 0:
+            fluct[j] = 0.0
+            continue
+        if run_start.size == 1:
+            # one run (no gaps): the boxes tile the profile from its start
+            y = profile[: n_boxes * size].reshape(n_boxes, size)
+        else:
+            # start index of every box, forward from each run's start
+            owner = np.repeat(np.arange(run_start.size), per_run)
+            first_box = np.cumsum(per_run) - per_run
+            within = np.arange(n_boxes) - np.repeat(first_box, per_run)
+            box_start = run_start[owner] + within * size
+            y = profile[box_start[:, None] + np.arange(size)[None, :]]
+        x = np.arange(size, dtype=float) - (size - 1) / 2.0
+        yc = y - y.mean(axis=1, keepdims=True)
+        slope = (yc @ x) / float(x @ x)
+        resid = yc - slope[:, None] * x[None, :]
+        fluct[j] = math.sqrt(float(np.mean(resid**2)))
+    return fluct, boxes_at_largest
+
+
+def _dfa_alpha(
+    profile: NDArray[np.float64], runs: NDArray[np.int64], scales: Sequence[int], name: str
+) -> tuple[float | None, str | None]:
+    fluct, boxes = _dfa_fluctuations(profile, runs, scales)
+    if boxes < _DFA_MIN_BOXES:
+        return None, f"{name}_needs_{_DFA_MIN_BOXES * scales[-1]}_adjacent_intervals"
+    if np.any(fluct <= 0):
+        return None, f"{name}_zero_fluctuation"
+    slope = np.polyfit(np.log(np.asarray(scales, dtype=float)), np.log(fluct), 1)[0]
+    return _fin(slope), None
+
+
+def nonlinear(times_s: ArrayLike, nn_ms: ArrayLike) -> NonlinearResult:
+    """Poincare SD1/SD2, sample entropy and DFA alpha1/alpha2.
+
+    Parameters
+    ----------
+    times_s, nn_ms
+        The NN series, as for :func:`features.variability.time_domain`.
+
+    Returns
+    -------
+    NonlinearResult
+        Minimum lengths (None plus flag when not met):
+
+        - SD1, SD2: two adjacent pairs (a sample SD needs two values;
+          ``"poincare_needs_2_adjacent_pairs"``). SD1 is SDSD / sqrt(2)
+          (Brennan et al. 2001), so it is as reliable as SDSD.
+        - Sample entropy: 200 intervals in runs of at least m + 1 = 3
+          adjacent intervals (Yentes et al. 2013 advise N > 200 for m = 2;
+          ``"sample_entropy_needs_200_intervals"``).
+        - DFA: at least 10 boxes of the largest size, i.e. 160 adjacent
+          intervals for alpha1 and 640 for alpha2 (largest window at most a
+          tenth of the data, Hardstone et al. 2012;
+          ``"dfa_alpha1_needs_160_adjacent_intervals"``).
+
+    Raises
+    ------
+    InvalidInputError
+        If the series breaks a rule of
+        :func:`features.intervals.validate_interval_series`.
+
+    Notes
+    -----
+    1. Poincare (Brennan et al. 2001, eqs. 7-8): for adjacent pairs
+       ``(x_i, x_{i+1})``, SD1 is the sample SD (ddof=1) of
+       ``(x_i - x_{i+1}) / sqrt(2)`` and SD2 that of
+       ``(x_i + x_{i+1}) / sqrt(2)``.
+    2. Sample entropy (Richman & Moorman 2000): m = 2, r = 0.2 times the
+       sample SD (ddof=1) of the NN series, Chebyshev distance, a match when
+       distance <= r, self-matches excluded, the same N - m template starts
+       for lengths m and m + 1. ``SampEn = -ln(A / B)``. Departure: templates
+       must lie inside one run of adjacent intervals. Pairs are counted with
+       a k-d tree (:meth:`scipy.spatial.cKDTree.count_neighbors`), O(n)
+       memory and roughly O(n log n) time for r = 0.2 SD; no matches gives
+       None (``"sample_entropy_no_matches"``) rather than infinity.
+    3. DFA (Peng et al. 1995): profile ``y(k) = cumsum(x - mean(x))``;
+       non-overlapping boxes of n beats placed forward from the start of each
+       run (the remainder of a run is dropped); least-squares line removed
+       in each box; ``F(n)`` the RMS of all residuals; alpha is the slope of
+       ``log F`` against ``log n`` over every integer n in 4-16 (alpha1) and
+       16-64 (alpha2). Departure: with gaps, boxes never straddle a gap (the
+       profile's jump across a gap is a constant within every box, which
+       the detrending removes).
+
+    References
+    ----------
+    .. [1] M. Brennan, M. Palaniswami, P. Kamen, "Do existing measures of
+       Poincare plot geometry reflect nonlinear features of heart rate
+       variability?", IEEE Transactions on Biomedical Engineering
+       48(11):1342-1347, 2001. doi:10.1109/10.959330
+    .. [2] J. S. Richman, J. R. Moorman, "Physiological time-series analysis
+       using approximate entropy and sample entropy", American Journal of
+       Physiology - Heart and Circulatory Physiology 278(6):H2039-H2049,
+       2000. doi:10.1152/ajpheart.2000.278.6.H2039
+    .. [3] C.-K. Peng, S. Havlin, H. E. Stanley, A. L. Goldberger,
+       "Quantification of scaling exponents and crossover phenomena in
+       nonstationary heartbeat time series", Chaos 5(1):82-87, 1995.
+       doi:10.1063/1.166141
+    .. [4] J. M. Yentes, N. Hunt, K. K. Schmid, J. P. Kaipust, D. McGrath,
+       N. Stergiou, "The appropriate use of approximate entropy and sample
+       entropy with short data sets", Annals of Biomedical Engineering
+       41(2):349-365, 2013. doi:10.1007/s10439-012-0668-3
+    .. [5] R. Hardstone, S.-S. Poil, G. Schiavone, R. Jansen, V. V. Nikulin,
+       H. D. Mansvelder, K. Linkenkaer-Hansen, "Detrended fluctuation
+       analysis: a scale-free view on neuronal oscillations", Frontiers in
+       Physiology 3:450, 2012. doi:10.3389/fphys.2012.00450
+    """
+    times, nn = validate_interval_series(times_s, nn_ms)
+    return _nonlinear(times, nn)
+
+
+def _nonlinear(times: NDArray[np.float64], nn: NDArray[np.float64]) -> NonlinearResult:
+    n = nn.size
+    flags: list[str] = []
+    adjacent = adjacent_to_previous(times, nn)
+    runs = run_ids_from_adjacency(adjacent)
+    earlier, later = _adjacent_pairs(times, nn)
+    n_pairs = earlier.size
+
+    sd1 = sd2 = ratio = None
+    if n_pairs >= 2:
+        sd1 = _fin(np.std((earlier - later) / math.sqrt(2.0), ddof=1))
+        sd2 = _fin(np.std((earlier + later) / math.sqrt(2.0), ddof=1))
+        if sd1 is not None and sd2 is not None and sd2 > 0:
+            ratio = sd1 / sd2
+        else:
+            flags.append("sd1_sd2_ratio_undefined_zero_sd2")
+    else:
+        flags.append("poincare_needs_2_adjacent_pairs")
+
+    sampen = None
+    run_len = np.bincount(runs) if n else np.zeros(0, dtype=np.int64)
+    in_long_runs = int(run_len[run_len >= _SAMPEN_M + 1].sum())
+    if in_long_runs < _SAMPEN_MIN_INTERVALS:
+        flags.append(f"sample_entropy_needs_{_SAMPEN_MIN_INTERVALS}_intervals")
+    else:
+        sd = float(nn.std(ddof=1))
+        if sd == 0.0:
+            flags.append("sample_entropy_zero_variance")
+        else:
+            sampen, reason = _sample_entropy(nn, runs, _SAMPEN_R_SD * sd, _SAMPEN_M)
+            if reason:
+                flags.append(reason)
+
+    alpha1 = alpha2 = None
+    if n:
+        profile = np.cumsum(nn - nn.mean())
+        alpha1, reason1 = _dfa_alpha(profile, runs, _DFA_ALPHA1_SCALES, "dfa_alpha1")
+        alpha2, reason2 = _dfa_alpha(profile, runs, _DFA_ALPHA2_SCALES, "dfa_alpha2")
+        flags.extend(r for r in (reason1, reason2) if r)
+    else:
+        flags.extend(("no_intervals",))
+    if n and int(np.count_nonzero(~adjacent)) > 1:
+        flags.append("series_has_gaps")
+    adjacency = n_pairs / (n - 1) if n > 1 else 0.0
+    return NonlinearResult(
+        sd1_ms=sd1,
+        sd2_ms=sd2,
+        sd1_sd2_ratio=ratio,
+        sample_entropy=sampen,
+        dfa_alpha1=alpha1,
+        dfa_alpha2=alpha2,
+        n_intervals=n,
+        n_pairs=n_pairs,
+        confidence=float(min(1.0, n_pairs / _SAMPEN_MIN_INTERVALS) * adjacency),
+        flags=tuple(flags),
+    )
+
+
+# --------------------------------------------------------------------------- catalogue
+
+_NL = "nonlinear"
+CATALOGUE: tuple[FeatureDefinition, ...] = (
+    _entry("sd1_ms", _NL, "sd1_ms", "ms",
+           "Poincare plot SD1: spread of adjacent NN pairs across the line of identity.",
+           NONNEGATIVE, REF_BRENNAN, ("poincare",)),
+    _entry("sd2_ms", _NL, "sd2_ms", "ms",
+           "Poincare plot SD2: spread of adjacent NN pairs along the line of identity.",
+           NONNEGATIVE, REF_BRENNAN, ("poincare",)),
+    _entry("sample_entropy", _NL, "sample_entropy", None,
+           f"Sample entropy SampEn(m={_SAMPEN_M}, r={_SAMPEN_R_SD:g} SD) of the NN series, "
+           f"natural log (needs {_SAMPEN_MIN_INTERVALS} intervals).", NONNEGATIVE, REF_RICHMAN),
+    _entry("dfa_alpha1", _NL, "dfa_alpha1", None,
+           f"Short-term ({_DFA_ALPHA1_SCALES[0]}-{_DFA_ALPHA1_SCALES[-1]} beats) scaling "
+           "exponent of detrended fluctuation analysis of the NN series.", (None, None),
+           REF_PENG),
+)
+"""Catalogue entries of the nonlinear family (see :mod:`features.catalogue`)."""

@@ -1,0 +1,55 @@
+"""The shared numeric kernels: robust spread, parabolic peak, runs of True."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import stats
+from scipy.special import ndtri
+
+from features._numeric import MAD_TO_SD, robust_sd, runs, vertex_offset
+
+
+def test_mad_to_sd_is_the_normal_consistency_constant() -> None:
+    # 1 / Phi^-1(3/4) (Rousseeuw & Croux 1993); the constant is written with four decimals,
+    # so it agrees to 5e-5 / 1.48 = 3.4e-5 relative.
+    assert MAD_TO_SD == pytest.approx(1.0 / ndtri(0.75), rel=3.4e-5)
+
+
+def test_robust_sd_matches_scipy_median_abs_deviation() -> None:
+    rng = np.random.default_rng(3)
+    x = rng.standard_normal((4, 301)) * np.array([[1.0], [2.0], [0.5], [10.0]])
+    # scipy.stats.median_abs_deviation with scale="normal" divides by Phi^-1(3/4) exactly;
+    # the four-decimal constant differs from it by at most 3.4e-5 relative (test above).
+    want = stats.median_abs_deviation(x, axis=1, scale="normal")
+    np.testing.assert_allclose(robust_sd(x, axis=1), want, rtol=3.4e-5)
+    assert robust_sd(x[0]) == pytest.approx(float(want[0]), rel=3.4e-5)
+
+
+def test_robust_sd_of_a_constant_is_zero() -> None:
+    assert robust_sd(np.full(50, 3.0)) == 0.0
+
+
+@pytest.mark.parametrize("vertex", [-0.45, -0.2, 0.0, 0.1, 0.37])
+def test_vertex_offset_finds_the_vertex_of_a_sampled_parabola(vertex: float) -> None:
+    # Three samples of y = 2 - 3 (x - vertex)^2 at x = -1, 0, 1: the three-point formula is
+    # exact for a parabola (it is the parabola through the points); 1e-12 allows rounding.
+    y = 2.0 - 3.0 * (np.array([-1.0, 0.0, 1.0]) - vertex) ** 2
+    assert float(vertex_offset(*y)) == pytest.approx(vertex, abs=1e-12)
+
+
+def test_vertex_offset_is_zero_without_a_maximum() -> None:
+    # A straight line and an upward parabola have no maximum at the middle sample.
+    np.testing.assert_array_equal(vertex_offset([0.0, 1.0], [1.0, 0.0], [2.0, 1.0]), [0.0, 0.0])
+
+
+def test_runs_of_true_match_the_edges_of_the_mask() -> None:
+    rng = np.random.default_rng(12)
+    for mask in (rng.random(500) < 0.7, np.ones(10, bool), np.zeros(10, bool),
+                 np.zeros(0, bool)):
+        # reference: numpy.diff of the 0/1 mask padded with zeros gives +1 at each run's
+        # start and -1 one past its end (common practice)
+        edges = np.diff(mask.astype(np.int8), prepend=np.int8(0), append=np.int8(0))
+        starts, ends = runs(mask)
+        np.testing.assert_array_equal(starts, np.flatnonzero(edges == 1))
+        np.testing.assert_array_equal(ends, np.flatnonzero(edges == -1))
