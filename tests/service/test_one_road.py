@@ -144,15 +144,13 @@ def test_the_report_draws_the_engines_fused_trace(monkeypatch, client, body):
 
 
 def test_analyze_plot_keeps_the_windows_and_the_picture_counts_them(tmp_path, body, capsys):
-    columns = np.column_stack([c["samples"] for c in body["channels"]])
-    path = tmp_path / "evening.csv"
-    lines = [",".join(c["label"] for c in body["channels"])]
-    lines += [",".join(f"{v:.3f}" for v in row) for row in columns]
-    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    path = tmp_path / "evening.npz"
+    np.savez(path, sampling_rate_hz=np.float64(body["sampling_rate_hz"]),
+             **{c["label"]: np.asarray(c["samples"]) for c in body["channels"]})
     image = tmp_path / "report.svg"
     # Text as <text> elements rather than glyph paths, so the legend can be read back.
     with matplotlib.rc_context({"svg.fonttype": "none"}):
-        assert main(["analyze", str(path), "--rate", "250", "--window-s", "50",
+        assert main(["analyze", str(path), "--window-s", "50",
                      "--overlap-s", "10", "--plot", str(image)]) == 0
     document = json.loads(capsys.readouterr().out)
     # The demo trace is 120 s (service.demo); 50-s windows every 40 s start at 0 and 40 s
