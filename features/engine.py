@@ -19,6 +19,7 @@ from features.artifacts import ArtifactMask, Segment, mask_artifacts
 from features.beats import BeatDetection, detect_beats
 from features.conditioning import ChannelInput, condition_channels
 from features.errors import InvalidInputError
+from features.filters import FloatArray
 from features.fusion import fuse_channels
 from features.heart_rate import HeartRateResult, heart_rate
 from features.intervals import (
@@ -183,7 +184,7 @@ class AnalysisResult:
     warnings: tuple[str, ...]
     feature_vector: FeatureVector
     windows: WindowedAnalysis | None
-    fused_trace: np.ndarray | None
+    fused_trace: FloatArray | None
     engine_version: str = __version__
     feature_set_version: str = FEATURE_SET_VERSION
 
@@ -288,8 +289,9 @@ def analyze(
         cop_cardiac_excursion_mm=fusion.cop_cardiac_excursion_mm,
         flags=tuple(cond.flags) + tuple(fusion.flags),
     )
-    # The feature vector reads the finished result, and each window is an analyze call of
-    # its own (without windows): both modules import this one, hence the imports here.
+    # The feature vector reads the finished result (so it is filled in last, over an empty
+    # one), and each window is an analyze call of its own (without windows): both modules
+    # import this one, hence the imports here.
     from features.feature_vector import FeatureVector, feature_vector
     from features.windows import analyze_windows
 
