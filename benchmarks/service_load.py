@@ -10,8 +10,9 @@ Nothing listens beyond loopback.
 
 :func:`request_shares` times, in-process and on the same body, the steps of one request:
 JSON parsing (``service.bodies.parse_json``, as the service parses), the request schema's
-load, the engine call (with ``schemas.engine_inputs``), the response schema's dump and
-JSON encoding; and the whole request through Flask's test client.
+load, the engine call (``service.analysis.analyze_request``), the response schema's dump
+(``service.analysis.dump_analysis``) and JSON encoding; and the whole request through
+Flask's test client.
 """
 
 from __future__ import annotations
@@ -75,11 +76,9 @@ def request_body(duration_s: float, fs_hz: float, *, seed: int = 1,
 
 def request_shares(body: bytes, repeats: int) -> dict[str, float]:
     """Median seconds of each step of one request, in-process (see the module docstring)."""
-    import features
-    from schemas.engine_inputs import engine_inputs
     from schemas.requests import DEFAULT_MAX_SAMPLES, AnalysisRequestSchema
-    from schemas.responses import AnalysisReport, AnalysisResponseSchema
     from service import create_app
+    from service.analysis import analyze_request, dump_analysis
     from service.bodies import parse_json
 
     clock = time.perf_counter
@@ -92,12 +91,9 @@ def request_shares(body: bytes, repeats: int) -> dict[str, float]:
         t1 = clock()
         req = AnalysisRequestSchema(max_samples=DEFAULT_MAX_SAMPLES).load(data)
         t2 = clock()
-        call = engine_inputs(req)
-        result = features.analyze(call.channels, call.fs_hz, subject=call.subject,
-                                  recording=call.recording, options=call.options)
+        result = analyze_request(req)
         t3 = clock()
-        doc = AnalysisResponseSchema().dump(AnalysisReport(result=result,
-                                                           include=req.options.include))
+        doc = dump_analysis(result, req)
         t4 = clock()
         json.dumps(doc, allow_nan=False)
         t5 = clock()

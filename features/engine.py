@@ -9,7 +9,8 @@ rate, variability, and (when available) morphology and respiration.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -18,6 +19,7 @@ from features.artifacts import ArtifactMask, mask_artifacts
 from features.beats import BeatDetection, detect_beats
 from features.conditioning import ChannelInput, condition_channels
 from features.errors import InvalidInputError
+from features.filters import FloatArray
 from features.fusion import fuse_channels
 from features.heart_rate import HeartRateResult, heart_rate
 from features.intervals import (
@@ -43,6 +45,10 @@ from features.quality import (
 )
 from features.respiration import RespirationResult, breathing
 from features.variability import VariabilityResult, heart_rate_variability
+
+if TYPE_CHECKING:
+    from features.feature_vector import FeatureVector
+    from features.windows import WindowedAnalysis
 
 FEATURE_SET_VERSION = "3"
 """Changes whenever the definition of any emitted feature changes."""
@@ -85,11 +91,22 @@ class Options:
         Load of the empty support (0 for a tared plate).
     rate_range_bpm
         Plausible heart-rate range.
+    window_s
+        Also analyse consecutive windows of this length (s), 30 to 3600, at most the
+        recording length (:func:`features.windows.analyze_windows`); None for none.
+    window_overlap_s
+        Overlap of consecutive windows (s), at least 0 and less than ``window_s``.
+    keep_fused_trace
+        Keep the fused trace the stages analysed in ``AnalysisResult.fused_trace`` (for
+        drawing it); off by default, since it is as long as the recording.
     """
 
     mains_hz: float | str | None = "auto"
     empty_load_kg: float = 0.0
     rate_range_bpm: tuple[float, float] = DEFAULT_RATE_RANGE_BPM
+    window_s: float | None = None
+    window_overlap_s: float = 0.0
+    keep_fused_trace: bool = False
 
 
 @dataclass(frozen=True)
@@ -110,7 +127,21 @@ class InputSummary:
 
 @dataclass(frozen=True)
 class AnalysisResult:
-    """Everything the engine computed for one recording."""
+    """Everything the engine computed for one recording.
+
+    Callers draw and dump from this alone; nothing recomputes a stage.
+
+    Attributes
+    ----------
+    feature_vector
+        Every catalogue feature read from this result
+        (:func:`features.feature_vector.feature_vector`), computed once by the engine.
+    windows
+        The analysis of consecutive windows when ``Options.window_s`` was given, else None.
+    fused_trace
+        The fused trace the stages analysed (unit ``input.amplitude_unit``, sampled at
+        ``input.sampling_rate_hz``) when ``Options.keep_fused_trace``, else None.
+    """
 
     input: InputSummary
     quality: QualityResult
@@ -126,6 +157,9 @@ class AnalysisResult:
     body_mass_kg: float | None
     body_mass_source: str | None
     warnings: tuple[str, ...]
+    feature_vector: FeatureVector
+    windows: WindowedAnalysis | None
+    fused_trace: FloatArray | None
     engine_version: str = __version__
     feature_set_version: str = FEATURE_SET_VERSION
 
@@ -152,11 +186,14 @@ def analyze(
     Returns
     -------
     AnalysisResult
+        With the feature vector, the windows when ``options.window_s`` is set and the
+        fused trace when ``options.keep_fused_trace``.
 
     Raises
     ------
     InvalidInputError
-        When any input breaks a documented rule (the field is named).
+        When any input breaks a documented rule (the field is named), the window
+        settings included.
     UnusableSignalError
         When the trace itself shows that no feature can be computed: every channel flat
         or clipped (``reason`` one of :data:`features.errors.UNUSABLE_REASONS`; see
@@ -228,7 +265,13 @@ def analyze(
         cop_cardiac_excursion_mm=fusion.cop_cardiac_excursion_mm,
         flags=tuple(cond.flags) + tuple(fusion.flags),
     )
-    return AnalysisResult(
+    # The feature vector reads the finished result (so it is filled in last, over an empty
+    # one), and each window is an analyze call of its own (without windows): both modules
+    # import this one, hence the imports here.
+    from features.feature_vector import FeatureVector, feature_vector
+    from features.windows import analyze_windows
+
+    stages = AnalysisResult(
         input=summary,
         quality=quality,
         occupancy=occupied,
@@ -243,7 +286,16 @@ def analyze(
         body_mass_kg=mass,
         body_mass_source=mass_source,
         warnings=tuple(warnings),
+        feature_vector=FeatureVector(FEATURE_SET_VERSION, ()),
+        windows=None,
+        fused_trace=fusion.fused if options.keep_fused_trace else None,
     )
+    windows = None
+    if options.window_s is not None:
+        windows = analyze_windows(channels, fs_hz, window_s=options.window_s,
+                                  overlap_s=options.window_overlap_s, subject=subject,
+                                  recording=recording, options=options)
+    return replace(stages, feature_vector=feature_vector(stages), windows=windows)
 
 
 def _check_metadata(subject: Subject, recording: Recording) -> None:

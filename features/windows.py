@@ -30,7 +30,7 @@ from features.engine import (
     analyze,
 )
 from features.errors import InvalidInputError, UnusableSignalError
-from features.feature_vector import FeatureVector, feature_vector
+from features.feature_vector import FeatureVector
 from features.limits import MAX_CHANNELS, MAX_WINDOW_S, MIN_WINDOW_S
 
 __all__ = [
@@ -175,7 +175,8 @@ def analyze_windows(
     overlap_s
         Overlap of consecutive windows (s), at least 0 and less than ``window_s``.
     subject, recording, options
-        Passed to :func:`features.engine.analyze` for every window.
+        Passed to :func:`features.engine.analyze` for every window, with the options'
+        ``window_s`` and ``keep_fused_trace`` turned off (a window has no windows).
 
     Returns
     -------
@@ -256,6 +257,8 @@ def iter_windows(
             "window_s", f"`window_s` must be at most the recording length ({n / fs:g} s); "
             f"got {window_s:g}. Use a shorter window or analyse the whole recording."
         )
+    if options is not None:
+        options = replace(options, window_s=None, keep_fused_trace=False)
     return _windows(channels, fs, n, n_win, n_step, subject, recording, options)
 
 
@@ -379,7 +382,7 @@ def _summary(k: int, a: int, b: int, fs: float, result: AnalysisResult) -> Windo
                 result.modulation.confidence)
     confidence = float(np.clip(np.mean(families), 0.0, 1.0))
     return WindowResult(
-        index=k, start_s=a / fs, end_s=b / fs, feature_vector=feature_vector(result),
+        index=k, start_s=a / fs, end_s=b / fs, feature_vector=result.feature_vector,
         confidence=confidence, usable_fraction=float(result.quality.usable_fraction),
         flags=tuple(result.warnings), occupancy=result.occupancy,
         segments=tuple(replace(s, start_s=a / fs + s.start_s, end_s=a / fs + s.end_s)

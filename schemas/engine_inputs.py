@@ -19,8 +19,6 @@ class EngineCall:
     subject: Subject | None
     recording: Recording | None
     options: Options
-    window_s: float | None = None
-    window_overlap_s: float = 0.0
 
 
 def engine_inputs(request: AnalysisRequest) -> EngineCall:
@@ -64,12 +62,13 @@ def engine_inputs(request: AnalysisRequest) -> EngineCall:
         option_values["empty_load_kg"] = opts.empty_load_kg
     if opts.rate_range_bpm is not None:
         option_values["rate_range_bpm"] = opts.rate_range_bpm
+    if "windows" in opts.include:
+        option_values["window_s"] = opts.window_s
+        option_values["window_overlap_s"] = opts.window_overlap_s
     return EngineCall(
         channels=channels,
         fs_hz=request.sampling_rate_hz,
         subject=subject,
         recording=recording,
         options=Options(**option_values),
-        window_s=opts.window_s if "windows" in opts.include else None,
-        window_overlap_s=opts.window_overlap_s,
     )

@@ -22,7 +22,6 @@ from typing import Any
 import numpy as np
 from marshmallow import Schema, fields, missing, post_dump
 
-from features.feature_vector import feature_vector as engine_feature_vector
 from schemas.catalogue import FeatureValueSchema
 
 #: The caution carried by every analysis.
@@ -43,7 +42,6 @@ class AnalysisReport:
 
     result: Any
     include: frozenset[str] = frozenset()
-    windows: Any = None
     analysis_id: str = field(default_factory=lambda: str(uuid.uuid4()))
 
 
@@ -502,9 +500,9 @@ class AnalysisResponseSchema(Schema):
         return SignalsSchema().dump(report.result)
 
     def _windows(self, report: AnalysisReport) -> Any:
-        if not self._asked(report, "windows") or report.windows is None:
+        if not self._asked(report, "windows") or report.result.windows is None:
             return missing
-        return WindowsSchema().dump(report.windows)
+        return WindowsSchema().dump(report.result.windows)
 
     def _morphology(self, report: AnalysisReport) -> Any:
         value = getattr(report.result, "morphology", None)
@@ -522,7 +520,7 @@ class AnalysisResponseSchema(Schema):
         return document
 
     def _feature_vector(self, report: AnalysisReport) -> dict[str, Any]:
-        vector = engine_feature_vector(report.result)
+        vector = report.result.feature_vector
         return {
             "feature_set_version": vector.feature_set_version,
             "features": FeatureValueSchema(many=True).dump(vector.features),

@@ -1,8 +1,9 @@
 """``heartsway batch``: many recordings into one feature table, locally or on a Dask cluster.
 
 Every input file goes the same road as an upload to the API (:mod:`service.uploads`,
-the request schema, :func:`service.analysis.run_analysis`), so a recording gets the
-same features in the table as from ``POST /v1/analyses`` or ``heartsway analyze``.
+the request schema, :func:`service.analysis.analyze_request`), so a recording gets the
+same features in the table as from ``POST /v1/analyses`` or ``heartsway analyze``; the
+rows are read from the result's feature vector (or its windows' vectors).
 
 The table has one row per recording (or per window with ``--window-s``): ``recording``
 (the path as found), ``window``, ``start_s``, ``end_s``, ``status`` (``ok`` or
@@ -21,7 +22,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import math
 import os
 import sys
 from collections.abc import Iterable, Iterator, Sequence
@@ -90,37 +90,25 @@ def analyze_file(path: str, form: dict[str, Any], window_s: float | None = None,
         The same fields as a multipart upload: ``sampling_rate_hz``, ``channels``,
         ``quantity``, ``unit``, ``format`` (None or absent: from the file).
     window_s, overlap_s
-        Analyse in windows of this length, s (``features.analyze_windows``); the
-        whole recording at once when None.
+        Analyse in windows of this length, s (the request's ``options.window_s`` and
+        ``options.window_overlap_s``); the whole recording at once when None.
 
     Returns
     -------
     list of dict
         One row (or one per window), with every feature column.
     """
-    import features
     from features.errors import InvalidInputError, UnusableSignalError
-    from schemas.engine_inputs import engine_inputs
     from schemas.errors import SchemaValidationError, flatten_errors
     from schemas.requests import AnalysisRequestSchema
-    from service.analysis import run_analysis
+    from service.analysis import analyze_request, ask_for_windows
     from service.uploads import path_request_body
 
-    names = feature_names()
     try:
-        request = AnalysisRequestSchema().load(path_request_body(path, form))
-        if window_s is None:
-            document = run_analysis(request)
-            vector = document["feature_vector"]
-            values = {f["name"]: f["value"] for f in vector["features"]}
-            row = {"recording": path, "window": None, "start_s": 0.0,
-                   "end_s": document["input"]["duration_s"], "status": "ok", "error": None,
-                   "feature_set_version": vector["feature_set_version"]}
-            return [{**row, **{name: values.get(name) for name in names}}]
-        call = engine_inputs(request)
-        windowed = features.analyze_windows(call.channels, call.fs_hz, window_s=window_s,
-                                            overlap_s=overlap_s, subject=call.subject,
-                                            recording=call.recording, options=call.options)
+        body = path_request_body(path, form)
+        if window_s is not None:
+            body = ask_for_windows(body, window_s, overlap_s)
+        result = analyze_request(AnalysisRequestSchema().load(body))
     except SchemaValidationError as error:
         first = flatten_errors(error.messages)[0]
         return _failure(path, first["field"], first["detail"])
@@ -130,25 +118,31 @@ def analyze_file(path: str, form: dict[str, Any], window_s: float | None = None,
         return _failure(path, error.reason, error.message)
     except Exception as error:  # noqa: BLE001 - one bad file must not stop the batch
         return _failure(path, "error", type(error).__name__)
+    if result.windows is None:
+        vector = result.feature_vector
+        row = {"recording": path, "window": None, "start_s": 0.0,
+               "end_s": result.input.duration_s, "status": "ok", "error": None,
+               "feature_set_version": vector.feature_set_version}
+        return [{**row, **_feature_columns(vector)}]
     rows = []
-    for window in windowed.windows:
-        row: dict[str, Any] = {"recording": path, "window": window.index,
-                               "start_s": window.start_s, "end_s": window.end_s,
-                               "feature_set_version": windowed.feature_set_version}
+    for window in result.windows.windows:
+        row = {"recording": path, "window": window.index, "start_s": window.start_s,
+               "end_s": window.end_s, "feature_set_version": result.windows.feature_set_version}
         if window.error is not None or window.feature_vector is None:
             detail = window.error.code + ": " + window.error.message if window.error else ""
             row.update(status="failed", error=detail[:500])
-            row.update({name: None for name in names})
+            row.update(dict.fromkeys(feature_names()))
         else:
             row.update(status="ok", error=None)
-            values = window.feature_vector.as_dict()
-            row.update({name: _finite(values.get(name)) for name in names})
+            row.update(_feature_columns(window.feature_vector))
         rows.append(row)
     return rows
 
 
-def _finite(value: float | None) -> float | None:
-    return None if value is None or not math.isfinite(value) else float(value)
+def _feature_columns(vector: Any) -> dict[str, float | None]:
+    """Name -> value of every feature column (None where the vector has no value)."""
+    values = vector.as_dict()
+    return {name: values.get(name) for name in feature_names()}
 
 
 class PartStore:

@@ -1,9 +1,11 @@
 """The ``heartsway`` command line: serve, analyze FILE, batch INPUTS, demo.
 
 ``serve`` runs gunicorn on the application factory with the settings of
-:mod:`service.gunicorn_conf`; ``analyze`` runs a CSV file through the same
-schemas and engine as the API and prints the same JSON; ``demo`` analyses the
-demo scenario's trace, or sends it to a running service with ``--url``.
+:mod:`service.gunicorn_conf`; ``analyze`` runs a trace file through the same
+schemas and engine call as the API (:func:`service.analysis.analyze_request`) and
+prints the same JSON, windows included with ``--window-s``, and with ``--plot`` draws
+the report image from that one result; ``demo`` analyses the demo scenario's trace, or
+sends it to a running service with ``--url``.
 
 Exit codes: 0 success, 2 bad input (the problem is printed on stderr as
 JSON), 3 no usable signal, 4 the service could not be reached.
@@ -47,7 +49,7 @@ def _analyze(args: argparse.Namespace) -> int:
     from features.errors import InvalidInputError, UnusableSignalError
     from schemas.errors import SchemaValidationError, flatten_errors
     from schemas.requests import AnalysisRequestSchema
-    from service.analysis import run_analysis
+    from service.analysis import ask_for_windows, run_analysis
     from service.uploads import path_request_body
 
     path = Path(args.file)
@@ -59,7 +61,10 @@ def _analyze(args: argparse.Namespace) -> int:
     form = {"sampling_rate_hz": args.rate, "quantity": args.quantity, "unit": args.unit,
             "channels": args.channels, "format": args.format, "include": args.include or None}
     try:
-        request = AnalysisRequestSchema().load(path_request_body(path, form))
+        body = path_request_body(path, form)
+        if args.window_s is not None:
+            body = ask_for_windows(body, args.window_s, args.overlap_s)
+        request = AnalysisRequestSchema().load(body)
         if args.plot:
             from service.report import analysis_with_report
 
@@ -194,7 +199,10 @@ def build_parser() -> argparse.ArgumentParser:
     analyze.add_argument("--channels", default=None, help="comma-separated labels to analyse")
     analyze.add_argument("--format", default=None, help="file format (default: detected)")
     analyze.add_argument("--plot", default=None, help="also write the report image (.png/.svg)")
-    analyze.add_argument("--include", default="", help="comma-separated: beats,windows,...")
+    analyze.add_argument("--include", default="", help="comma-separated: beats,signals,...")
+    analyze.add_argument("--window-s", type=float, default=None,
+                         help="also analyse consecutive windows of S s (30-3600)")
+    analyze.add_argument("--overlap-s", type=float, default=0.0, help="window overlap, s")
     analyze.set_defaults(run=_analyze)
 
     batch = commands.add_parser("batch", help="analyse many files into one feature table")

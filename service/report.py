@@ -1,27 +1,27 @@
 """The report image of one analysis (PNG or SVG), drawn with matplotlib's Agg backend.
 
-Four panels and a bar chart: the fused trace with the masked segments shaded and
-the beats marked; the beat ensemble with the located H, I, J, K, L waves; the
-beat-to-beat intervals with the breathing signal; and the confidence of each
-family. No pyplot: every figure is its own object, so threads do not share state.
+Four panels and a bar chart: the fused trace with the masked segments shaded, the
+beats marked and the analysis windows (when asked) outlined; the beat ensemble with
+the located H, I, J, K, L waves; the beat-to-beat intervals with the breathing signal;
+and the confidence of each family. Everything is drawn from the engine's result (the
+fused trace is the one the engine kept, ``AnalysisResult.fused_trace``); nothing here
+runs a stage of the engine. No pyplot: every figure is its own object, so threads do
+not share state.
 """
 
 from __future__ import annotations
 
 import io
 import math
-import time
 from typing import Any
 
 import numpy as np
 from scipy import signal
 
-import features
 from features.engine import AnalysisResult
-from schemas.engine_inputs import EngineCall, engine_inputs
 from schemas.requests import AnalysisRequest
-from schemas.responses import NOTICE, AnalysisReport, AnalysisResponseSchema
-from service.metrics import record_analysis
+from schemas.responses import NOTICE
+from service.analysis import analyze_request, dump_analysis
 
 #: Formats drawn, and their media types.
 MEDIA_TYPES = {"png": "image/png", "svg": "image/svg+xml"}
@@ -33,21 +33,6 @@ MAX_POINTS = 8000
 SIZE_IN = (11.0, 8.5)
 DPI = 100
 _FAMILIES = ("quality", "heart_rate", "variability", "morphology", "respiration", "modulation")
-
-
-def fused_trace(call: EngineCall) -> tuple[np.ndarray, str]:
-    """The trace the engine analysed: conditioned and fused exactly as in ``features.analyze``."""
-    cond = features.condition_channels(call.channels, call.fs_hz,
-                                       mains_hz=call.options.mains_hz,
-                                       empty_load_kg=call.options.empty_load_kg)
-    force_only = all(q == "force" for q in cond.quantities)
-    fusion = features.fuse_channels(
-        cond.signals, call.fs_hz, units=cond.units,
-        positions_m=cond.positions_m if force_only else None,
-        static_n=cond.baseline_si if force_only and cond.positions_m is not None else None,
-        static_fs_hz=cond.baseline_fs_hz,
-    )
-    return np.asarray(fusion.fused, dtype=np.float64), fusion.unit
 
 
 def _display(trace: np.ndarray, fs_hz: float) -> np.ndarray:
@@ -75,7 +60,7 @@ def _thin(t: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return tt, yy
 
 
-def _trace_panel(ax: Any, result: AnalysisResult, trace: np.ndarray, unit: str) -> None:
+def _trace_panel(ax: Any, result: AnalysisResult, trace: np.ndarray) -> None:
     fs = result.input.sampling_rate_hz
     y = _display(trace, fs) * (result.beats.polarity or 1)
     t = np.arange(y.size) / fs
@@ -89,11 +74,30 @@ def _trace_panel(ax: Any, result: AnalysisResult, trace: np.ndarray, unit: str) 
         idx = np.clip(np.round(beats * fs).astype(int), 0, y.size - 1)
         ax.plot(beats, y[idx], linestyle="none", marker="v", markersize=3.5, color="#ff7f0e",
                 label=f"beats ({beats.size})")
+    _window_marks(ax, result)
     ax.set_xlim(0, max(t[-1] if t.size else 1.0, 1e-3))
     ax.set_xlabel("time (s)")
+    unit = result.input.amplitude_unit
     ax.set_ylabel(f"{unit} ({DISPLAY_BAND_HZ[0]:g}-{DISPLAY_BAND_HZ[1]:g} Hz)")
     ax.set_title("Trace, masked segments and beats", loc="left", fontsize=10)
     ax.legend(loc="upper right", fontsize=7, ncols=3)
+
+
+def _window_marks(ax: Any, result: AnalysisResult) -> None:
+    """Outline the analysis windows, if any, and say in the legend how many there are."""
+    windowed = result.windows
+    if windowed is None:
+        return
+    label = f"{len(windowed.windows)} windows of {windowed.window_s:g} s"
+    if windowed.n_failed:
+        label += f", {windowed.n_failed} failed"
+    for k, window in enumerate(windowed.windows):
+        ax.axvspan(window.start_s, window.end_s, ymin=0.0, ymax=0.04,
+                   color="#7f7f7f" if window.error is None else "#d62728",
+                   alpha=0.5 if k % 2 == 0 else 0.25, linewidth=0,
+                   label=label if k == 0 else None)
+    if not windowed.windows:
+        ax.plot([], [], color="#7f7f7f", label=label)
 
 
 def _ensemble_panel(ax: Any, result: AnalysisResult) -> None:
@@ -176,16 +180,13 @@ def _headline(result: AnalysisResult) -> str:
     return "  |  ".join(parts)
 
 
-def draw_report(result: AnalysisResult, trace: np.ndarray, unit: str, *,
-                image_format: str = "png") -> bytes:
+def draw_report(result: AnalysisResult, *, image_format: str = "png") -> bytes:
     """Draw the report of one analysis.
 
     Parameters
     ----------
     result
-        The engine's result.
-    trace, unit
-        The fused trace it analysed and its unit (see :func:`fused_trace`).
+        The engine's result, with its fused trace (``Options.keep_fused_trace``).
     image_format
         ``"png"`` or ``"svg"``.
 
@@ -197,11 +198,15 @@ def draw_report(result: AnalysisResult, trace: np.ndarray, unit: str, *,
     Raises
     ------
     ValueError
-        For another ``image_format``.
+        For another ``image_format``, or a result without its fused trace.
     """
     if image_format not in MEDIA_TYPES:
         raise ValueError(f"`image_format` must be one of {', '.join(sorted(MEDIA_TYPES))}; "
                          f"got {image_format!r}.")
+    if result.fused_trace is None:
+        raise ValueError("`result.fused_trace` must be kept to draw the report; got None. "
+                         "Analyse with `Options(keep_fused_trace=True)`.")
+    trace = np.asarray(result.fused_trace, dtype=np.float64)
     # Imported on first use: matplotlib writes its font cache under $HOME when imported,
     # which the service's other paths (and a read-only container) need not do.
     from matplotlib.backends.backend_agg import FigureCanvasAgg
@@ -210,7 +215,7 @@ def draw_report(result: AnalysisResult, trace: np.ndarray, unit: str, *,
     figure = Figure(figsize=SIZE_IN, dpi=DPI, layout="constrained")
     FigureCanvasAgg(figure)
     grid = figure.add_gridspec(3, 3, height_ratios=(1.1, 1.0, 1.0))
-    _trace_panel(figure.add_subplot(grid[0, :]), result, trace, unit)
+    _trace_panel(figure.add_subplot(grid[0, :]), result, trace)
     _ensemble_panel(figure.add_subplot(grid[1, :2]), result)
     _confidence_panel(figure.add_subplot(grid[1:, 2]), result)
     _interval_panel(figure.add_subplot(grid[2, :2]), result)
@@ -231,12 +236,5 @@ def analysis_with_report(request: AnalysisRequest, *,
     features.errors.InvalidInputError, features.errors.UnusableSignalError
         From the engine.
     """
-    call = engine_inputs(request)
-    started = time.perf_counter()
-    result = features.analyze(call.channels, call.fs_hz, subject=call.subject,
-                              recording=call.recording, options=call.options)
-    record_analysis(time.perf_counter() - started, sum(c.samples.size for c in call.channels))
-    report = AnalysisReport(result=result, include=request.options.include)
-    document: dict[str, Any] = AnalysisResponseSchema().dump(report)
-    trace, unit = fused_trace(call)
-    return document, draw_report(result, trace, unit, image_format=image_format)
+    result = analyze_request(request, keep_fused_trace=True)
+    return dump_analysis(result, request), draw_report(result, image_format=image_format)

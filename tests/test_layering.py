@@ -35,10 +35,11 @@ ALLOWED: dict[str, frozenset[str]] = {
     "benchmarks": frozenset({"features", "fileformats", "schemas", "service", "simulation"}),
 }
 
-#: The modules of ``service`` that another package may import: the application factory and
-#: the body parser (benchmarks/service_load.py times parsing as the service does it). The
-#: blueprints, problem mapping, CLI and the rest are the service's own business.
-SERVICE_ENTRY_POINTS = frozenset({"service", "service.bodies"})
+#: The modules of ``service`` that another package may import: the application factory, the
+#: body parser and the one road through the engine (benchmarks/service_load.py times parsing,
+#: the analysis and the dump as the service does them). The blueprints, problem mapping, CLI
+#: and the rest are the service's own business.
+SERVICE_ENTRY_POINTS = frozenset({"service", "service.analysis", "service.bodies"})
 
 #: Outside libraries a pure package may import besides the standard library.
 EXTERNAL: dict[str, frozenset[str]] = {

@@ -7,9 +7,9 @@ Usage::
 Cases: the validation cohort (:func:`validation.cohort.build_cases`) plus two sweeps with
 default conditions otherwise, one of ``rsa_depth_ms`` and one of ``sv_modulation``. Every
 case is simulated (:func:`simulation.simulate`), analysed with
-:func:`features.engine.analyze` and reduced to the feature vector
-(:func:`features.feature_vector.feature_vector`), whose values and confidences are compared
-with the simulator's truth:
+:func:`features.engine.analyze` and read from its result's feature vector
+(``AnalysisResult.feature_vector``), whose values and confidences are compared with the
+simulator's truth:
 
 - breathing rate: ``breathing_rate_per_min`` minus ``truth.breathing_rate_per_min``
   (/min; acceptance |error| <= 1);
@@ -58,7 +58,7 @@ from scipy import stats
 from features.conditioning import ChannelInput
 from features.engine import Subject, analyze
 from features.errors import EngineError
-from features.feature_vector import FeatureVector, feature_vector
+from features.feature_vector import FeatureVector
 from simulation import SimulationSettings, SimulationTruth, simulate
 from validation.cohort import CaseSpec, build_cases
 
@@ -267,7 +267,7 @@ def score_case(spec: CaseSpec) -> FeatureCase:
         subject = Subject(body_mass_kg=truth.body_mass_kg)
     error = None
     try:
-        vector = feature_vector(analyze(channels, rec.fs_hz, subject=subject))
+        vector = analyze(channels, rec.fs_hz, subject=subject).feature_vector
     except EngineError as exc:
         code = getattr(exc, "field", None) or getattr(exc, "reason", None)
         error = f"{type(exc).__name__}({code})"
