@@ -28,10 +28,10 @@ ROOT = Path(__file__).resolve().parents[2]
 #: Engine functions that look a name up in a fixed table and compute nothing from a trace
 #: or a result: the request schema reads the unit choices, the catalogue its entries.
 LOOKUPS = frozenset({
-    "features.conditioning.valid_units",
     "features.feature_vector.catalogue_fingerprint",
     "features.feature_vector.catalogue_markdown",
     "features.feature_vector.feature_definition",
+    "features.limits.units_of",
 })
 #: The files that must only translate or draw.
 SCANNED = sorted((ROOT / "schemas").glob("*.py")) + [ROOT / "service" / "report.py"]
