@@ -72,9 +72,11 @@ def find_inputs(inputs: Sequence[str | Path], *, exclude: Iterable[Path] = ()) -
     return found
 
 
-def _failure(recording: str, kind: str, detail: str) -> list[dict[str, Any]]:
+def _failure(recording: str, error: Exception) -> list[dict[str, Any]]:
+    from service.problem_table import describe
+
     return [{"recording": recording, "window": None, "start_s": None, "end_s": None,
-             "status": "failed", "error": f"{kind}: {detail}"[:500],
+             "status": "failed", "error": describe(error).short()[:500],
              "feature_set_version": None}]
 
 
@@ -99,9 +101,7 @@ def analyze_file(path: str, form: dict[str, Any], window_s: float | None = None,
         One row (or one per window), with every feature column.
     """
     import features
-    from features.errors import InvalidInputError, UnusableSignalError
     from schemas.engine_inputs import engine_inputs
-    from schemas.errors import SchemaValidationError, flatten_errors
     from schemas.requests import AnalysisRequestSchema
     from service.analysis import run_analysis
     from service.uploads import path_request_body
@@ -121,15 +121,9 @@ def analyze_file(path: str, form: dict[str, Any], window_s: float | None = None,
         windowed = features.analyze_windows(call.channels, call.fs_hz, window_s=window_s,
                                             overlap_s=overlap_s, subject=call.subject,
                                             recording=call.recording, options=call.options)
-    except SchemaValidationError as error:
-        first = flatten_errors(error.messages)[0]
-        return _failure(path, first["field"], first["detail"])
-    except InvalidInputError as error:
-        return _failure(path, error.field, error.message)
-    except UnusableSignalError as error:
-        return _failure(path, error.reason, error.message)
     except Exception as error:  # noqa: BLE001 - one bad file must not stop the batch
-        return _failure(path, "error", type(error).__name__)
+        # The row's `error`: the kind from the problem table, the field or reason, the message.
+        return _failure(path, error)
     rows = []
     for window in windowed.windows:
         row: dict[str, Any] = {"recording": path, "window": window.index,

@@ -44,12 +44,8 @@ from service import openapi_extras
 from service.access import AUTH_SCHEME, REALM
 from service.config import DEFAULTS
 from service.logs import REQUEST_ID_HEADER
-from service.problems import (
-    COMPUTE_TIME_TYPE,
-    PROBLEM_MEDIA_TYPE,
-    UNUSABLE_SIGNAL_TYPE,
-    VALIDATION_TYPE,
-)
+from service.problem_table import COMPUTE_TIME_TYPE, UNUSABLE_SIGNAL_TYPE, VALIDATION_TYPE
+from service.problems import PROBLEM_MEDIA_TYPE
 
 DEFAULT_PATH = Path(__file__).resolve().parent.parent / "openapi.yaml"
 

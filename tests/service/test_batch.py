@@ -53,6 +53,23 @@ def _assert_same_table(a, b):
         assert not differing, (x["recording"], differing[:5])
 
 
+def test_an_unusable_signal_is_a_failed_row_of_its_kind(study, monkeypatch):
+    # The kind and reason of service/problem_table.py's UnusableSignalError row, the same
+    # problem the API answers 422 and `heartsway analyze` exits 3 with.
+    import service.analysis
+    from features.errors import UnusableSignalError
+    from service.batch import analyze_file
+
+    def unusable(*args, **kwargs):
+        raise UnusableSignalError("no_occupant", "No one was on the support.")
+
+    monkeypatch.setattr(service.analysis.features, "analyze", unusable)
+    path = next(iter(study[1]))
+    [row] = analyze_file(path, {})
+    assert row["status"] == "failed"
+    assert row["error"] == "unusable-signal: no_occupant: No one was on the support."
+
+
 def test_local_table_has_a_row_per_recording_and_records_failures(study, tmp_path):
     folder, rates, broken = study
     out = tmp_path / "table.parquet"
@@ -63,7 +80,8 @@ def test_local_table_has_a_row_per_recording_and_records_failures(study, tmp_pat
     assert table.column_names == [*FIXED_COLUMNS, *FEATURE_NAMES]
     rows = {r["recording"]: r for r in table.to_pylist()}
     assert rows[str(broken)]["status"] == "failed"
-    assert rows[str(broken)]["error"].startswith("file: ")
+    # The kind of service/problem_table.py's row for fileformats.UnreadableFileError.
+    assert rows[str(broken)]["error"].startswith("unreadable-file: file: ")
     for path, hr in rates.items():
         assert rows[path]["status"] == "ok"
         # Simulated at `hr` bpm (features.simulation settings): the table holds the engine's

@@ -22,7 +22,7 @@ from features.simulation import SimulationSettings, simulate
 from service import create_app
 from service.loadtest import serve
 
-VALIDATION = "urn:heartsway:problem:validation-error"
+VALIDATION = "tag:heartsway.dev,2026:problem/validation-error"
 
 
 def _channel(samples, **extra):

@@ -209,7 +209,7 @@ def test_engine_rule_reaches_the_client_as_422(client):
     assert response.status_code == 422
     assert response.mimetype == "application/problem+json"
     problem = response.get_json()
-    assert problem["type"] == "urn:heartsway:problem:validation-error"
+    assert problem["type"] == "tag:heartsway.dev,2026:problem/validation-error"
     assert problem["errors"][0]["field"].startswith("channels")
     check_against_contract(response, "/v1/analyses", "post")
 
