@@ -87,8 +87,19 @@ def read_json() -> Any:
     return parse_json(data)
 
 
-def read_analysis_request(schema: AnalysisRequestSchema) -> AnalysisRequest:
-    """Load the analysis request from a JSON body or a multipart CSV upload.
+def request_schema() -> AnalysisRequestSchema:
+    """The request schema with this app's caps on samples and channels (the one factory)."""
+    config = current_app.config
+    return AnalysisRequestSchema(
+        max_samples=config["HEARTSWAY_MAX_SAMPLES"],
+        max_channels=config["HEARTSWAY_MAX_CHANNELS"],
+    )
+
+
+def read_analysis_request() -> AnalysisRequest:
+    """Load the analysis request from a JSON body or a multipart upload of a trace file.
+
+    The schema comes from :func:`request_schema`, so every view applies the same caps.
 
     Raises
     ------
@@ -106,6 +117,7 @@ def read_analysis_request(schema: AnalysisRequestSchema) -> AnalysisRequest:
             f"{coding[:32]!r}."
         )
     mimetype = request.mimetype
+    schema = request_schema()
     loaded: AnalysisRequest
     if mimetype == JSON_MEDIA_TYPE:
         loaded = schema.load(read_json())
