@@ -10,7 +10,15 @@ import pytest
 from gunicorn_run import gunicorn
 from trace_files import digital_trace, write_edf, write_wfdb
 
-from client import Analysis, ApiError, HeartswayClient, ServiceUnavailable
+from client import (
+    COMPUTE_TIME_EXCEEDED,
+    UNUSABLE_SIGNAL,
+    VALIDATION_ERROR,
+    Analysis,
+    ApiError,
+    HeartswayClient,
+    ServiceUnavailable,
+)
 from features.feature_vector import FEATURE_NAMES
 from service.demo import demo_request_body
 
@@ -51,7 +59,16 @@ def test_problems_become_api_errors(service):
     with pytest.raises(ApiError) as caught:
         api.analyze({"sampling_rate_hz": 10})
     assert caught.value.status == 422
+    assert caught.value.problem["type"] == VALIDATION_ERROR
     assert {e["field"] for e in caught.value.problem["errors"]} >= {"sampling_rate_hz"}
+
+
+def test_the_clients_problem_types_are_the_services():
+    # The client is standard library only, so it spells the URIs out; they must not drift.
+    from service.problem_table import COMPUTE_TIME_TYPE, UNUSABLE_SIGNAL_TYPE, VALIDATION_TYPE
+
+    assert (VALIDATION_ERROR, UNUSABLE_SIGNAL, COMPUTE_TIME_EXCEEDED) == (
+        VALIDATION_TYPE, UNUSABLE_SIGNAL_TYPE, COMPUTE_TIME_TYPE)
 
 
 class _Flaky(BaseHTTPRequestHandler):
