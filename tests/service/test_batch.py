@@ -18,6 +18,7 @@ import pytest
 
 from features.feature_vector import FEATURE_NAMES
 from features.simulation import SimulationSettings, simulate
+from schemas.responses import NOTICE
 from service.batch import FIXED_COLUMNS, run_batch
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -77,13 +78,24 @@ def test_local_table_has_a_row_per_recording_and_records_failures(study, tmp_pat
     assert summary == {"recordings": N_RECORDINGS + 1, "analysed": N_RECORDINGS + 1,
                        "skipped": 0, "failed": 1, "rows": N_RECORDINGS + 1}
     table = pq.read_table(out)
-    assert table.column_names == [*FIXED_COLUMNS, *FEATURE_NAMES]
+    assert table.column_names == [*FIXED_COLUMNS,
+                                  *(c for n in FEATURE_NAMES for c in (n, f"{n}_confidence"))]
+    # The caution rides in the Parquet schema metadata, where pyarrow, pandas and Spark
+    # show it (Apache Parquet format: FileMetaData.key_value_metadata).
+    assert pq.read_schema(out).metadata[b"notice"].decode("utf-8") == NOTICE
     rows = {r["recording"]: r for r in table.to_pylist()}
     assert rows[str(broken)]["status"] == "failed"
     # The kind of service/problem_table.py's row for fileformats.UnreadableFileError.
     assert rows[str(broken)]["error"].startswith("unreadable-file: file: ")
     for path, hr in rates.items():
         assert rows[path]["status"] == "ok"
+        # Each value beside its confidence: in [0, 1], and 0 where the value is None
+        # (features/feature_vector.py, FeatureValue); a clean trace's heart rate has some.
+        for name in FEATURE_NAMES:
+            confidence = rows[path][f"{name}_confidence"]
+            assert 0.0 <= confidence <= 1.0
+            assert rows[path][name] is not None or confidence == 0.0
+        assert rows[path]["heart_rate_mean_bpm_confidence"] > 0
         # Simulated at `hr` bpm (features.simulation settings): the table holds the engine's
         # estimate of it, not a placeholder.
         assert abs(rows[path]["heart_rate_mean_bpm"] - hr) < 4.0, path
@@ -114,6 +126,15 @@ def test_windows_and_csv_output(study, tmp_path):
     assert [r["window"] for r in table] == [0, 1]
     assert [r["start_s"] for r in table] == [0.0, 30.0]
     assert all(r["status"] == "ok" for r in table)
+    assert all(0.0 < r["heart_rate_mean_bpm_confidence"] <= 1.0 for r in table)
+    # The caution in the CSVW sidecar a CSV on the Web processor finds beside the table
+    # (W3C "Model for Tabular Data and Metadata on the Web", 5.1.2: {url}-metadata.json),
+    # naming the table and every column in order (W3C "Metadata Vocabulary for Tabular Data").
+    sidecar = json.loads((tmp_path / "windows.csv-metadata.json").read_text(encoding="utf-8"))
+    assert sidecar["@context"] == "http://www.w3.org/ns/csvw"
+    assert sidecar["url"] == "windows.csv"
+    assert sidecar["dc:description"] == NOTICE
+    assert [c["name"] for c in sidecar["tableSchema"]["columns"]] == list(table[0])
 
 
 def test_a_killed_run_resumes_where_it_stopped(study, tmp_path):
