@@ -179,6 +179,13 @@ def _errors(*names: str) -> dict[str, Any]:
 
 
 def _paths(spec: APISpec) -> None:
+    """Add the core operations to ``spec``: health, readiness, the catalogue and analyses.
+
+    One ``spec.path`` call per path, each operation with its id, summary, security and
+    responses (shared ones by reference, see ``_RESPONSES``). Reports, the page, static
+    files and /metrics come from :func:`service.openapi_extras.extend`; the multipart
+    bodies are completed by ``_csv_upload`` and ``openapi_extras``.
+    """
     spec.path(
         path="/healthz",
         operations={

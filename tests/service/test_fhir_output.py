@@ -114,6 +114,8 @@ def test_values_confidence_caution_and_time_match_the_json_answer(client, bundle
         observation = observations[feature["name"]]
         confidence = observation["component"][0]
         assert confidence["code"]["coding"][0]["code"] == "confidence"
+        # The same float through two JSON encodings: approx's default (rel 1e-6) only
+        # absorbs formatting, it cannot hide a different value.
         assert confidence["valueQuantity"]["value"] == pytest.approx(feature["confidence"])
         if feature["value"] is None:
             assert "valueQuantity" not in observation
