@@ -17,7 +17,7 @@ from werkzeug.exceptions import HTTPException
 
 from service.deadline import ComputeTimeExceeded
 from service.logs import current_request_id, logger, sanitised_stack
-from service.problem_table import PROBLEM_TABLE, describe
+from service.problem_table import PROBLEM_TABLE, describe, row_of
 
 PROBLEM_MEDIA_TYPE = "application/problem+json"
 
@@ -106,9 +106,12 @@ def _unexpected(error: Exception) -> Response:
             }
         },
     )
+    row = row_of(error)  # the table's last row: 500, about:blank, no details
     return problem(
-        500,
+        row.status,
         "The server met an unexpected error; it has been logged under the request id.",
+        type_=row.type_uri,
+        title=row.title,
     )
 
 
