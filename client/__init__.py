@@ -10,6 +10,8 @@ Analysis, Feature
     The answer, typed: the headline numbers and the feature vector (plus the document).
 ApiError, ServiceUnavailable
     A problem-details answer; a 503 that outlasted the retries.
+VALIDATION_ERROR, UNUSABLE_SIGNAL, COMPUTE_TIME_EXCEEDED
+    The service's own problem types (``ApiError.problem["type"]``).
 
 Example::
 
@@ -20,6 +22,24 @@ Example::
     print(analysis.heart_rate_bpm, analysis.feature("sdnn_ms").value)
 """
 
-from client.api import Analysis, ApiError, Feature, HeartswayClient, ServiceUnavailable
+from client.api import (
+    COMPUTE_TIME_EXCEEDED,
+    UNUSABLE_SIGNAL,
+    VALIDATION_ERROR,
+    Analysis,
+    ApiError,
+    Feature,
+    HeartswayClient,
+    ServiceUnavailable,
+)
 
-__all__ = ["Analysis", "ApiError", "Feature", "HeartswayClient", "ServiceUnavailable"]
+__all__ = [
+    "COMPUTE_TIME_EXCEEDED",
+    "UNUSABLE_SIGNAL",
+    "VALIDATION_ERROR",
+    "Analysis",
+    "ApiError",
+    "Feature",
+    "HeartswayClient",
+    "ServiceUnavailable",
+]

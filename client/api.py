@@ -18,6 +18,11 @@ FHIR_JSON = "application/fhir+json"
 IMAGE_TYPES = {"png": "image/png", "svg": "image/svg+xml"}
 #: Longest wait honoured from a ``Retry-After`` header, s.
 MAX_RETRY_AFTER_S = 30.0
+#: The service's own problem types (``ApiError.problem["type"]``): ``tag:`` URIs
+#: (RFC 4151), identifiers only, never fetched (docs/identifiers.md).
+VALIDATION_ERROR = "tag:heartsway.dev,2026:problem/validation-error"
+UNUSABLE_SIGNAL = "tag:heartsway.dev,2026:problem/unusable-signal"
+COMPUTE_TIME_EXCEEDED = "tag:heartsway.dev,2026:problem/compute-time-exceeded"
 
 
 @dataclass(frozen=True)
@@ -103,7 +108,9 @@ class ApiError(Exception):
         HTTP status.
     problem
         The problem document (``type``, ``title``, ``detail``, ``errors`` ...), or
-        ``{"detail": text}`` when the body was not JSON.
+        ``{"detail": text}`` when the body was not JSON. ``type`` is ``about:blank``
+        for plain HTTP errors, else :data:`VALIDATION_ERROR`, :data:`UNUSABLE_SIGNAL`
+        (with a ``reason``) or :data:`COMPUTE_TIME_EXCEEDED`.
     """
 
     def __init__(self, status: int, problem: dict[str, Any]) -> None:

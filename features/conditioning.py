@@ -102,7 +102,8 @@ class ChannelInput:
     quantity
         ``"force"``, ``"acceleration"``, ``"velocity"`` or ``"displacement"``.
     unit
-        Unit of ``samples`` (see :func:`features.limits.units_of`) or ``"counts"`` with ``counts_scale``.
+        Unit of ``samples`` (see :func:`features.limits.units_of`) or ``"counts"`` with
+        ``counts_scale``.
     counts_scale
         Required when ``unit == "counts"``, otherwise None.
     position_m

@@ -87,6 +87,9 @@ class CsvUploadFormSchema(Schema):
 
     sampling_rate_hz = fields.Float(
         required=True,
+        # Content, not form: only a CSV file lacks its rate, so the message says so.
+        error_messages={"required": "`sampling_rate_hz` must be given for a CSV file, which "
+                                    "does not carry its rate; got none."},
         validate=Range(min=MIN_FS_HZ, max=MAX_FS_HZ),
         metadata={"description": f"Sampling rate of every column, {MIN_FS_HZ:g}-{MAX_FS_HZ:g} Hz."},
     )

@@ -8,7 +8,7 @@ Codes
 -----
 Each Observation's ``code`` carries our own concept (the feature's name in the
 code system :data:`FEATURE_SYSTEM`, documented in ``docs/fhir.md``) and, where a
-standard concept exists, the LOINC code first:
+standard concept means the same thing, the LOINC code first:
 
 ===========================  ========  ==================================================
 feature                      LOINC     source of the code
@@ -16,13 +16,15 @@ feature                      LOINC     source of the code
 ``heart_rate_mean_bpm``      8867-4    LOINC "Heart rate"; FHIR R4 vital-signs profile
                                        (hl7.org/fhir/R4/observation-vitalsigns.html)
 ``breathing_rate_per_min``   9279-1    LOINC "Respiratory rate"; the same R4 profile
-``sdnn_ms``                  80404-7   LOINC "R-R interval.standard deviation (Heart rate
-                                       variability)" (loinc.org/80404-7)
 ===========================  ========  ==================================================
 
-No LOINC code is claimed for the other measures (RMSSD, pNN50, spectral powers,
-Poincare SD1/SD2, the ballistocardiogram waves, the breathing measures): we found
-none that means the same thing, so they carry only our own concept.
+No LOINC code is claimed for the other measures. LOINC 80404-7 ("R-R
+interval.standard deviation (Heart rate variability)", loinc.org/80404-7) is the SDNN
+of electrocardiographic R-R intervals; our ``sdnn_ms`` is the SDNN of J-J intervals
+of the ballistocardiogram, so it carries only our own concept, and every
+Observation's ``method`` says that its intervals are J-J intervals. For RMSSD,
+pNN50, spectral powers, Poincare SD1/SD2, the ballistocardiogram waves and the
+breathing measures we found no code that means the same thing either.
 
 Units are UCUM (``http://unitsofmeasure.org``): ``/min``, ``ms``, ``ms2``, ``%``,
 ``/h``, ``1`` for dimensionless values, ``N``, ``m/s2``; the input-dependent
@@ -37,8 +39,10 @@ from collections.abc import Mapping
 from datetime import UTC, datetime
 from typing import Any
 
-#: Our code system: one concept per feature-vector feature, plus ``confidence``.
-FEATURE_SYSTEM = "https://heartsway.example/fhir/CodeSystem/features"
+from schemas.identifiers import FEATURE_CODE_SYSTEM
+
+#: Our code system (a tag: URI, RFC 4151): one concept per feature, plus ``confidence``.
+FEATURE_SYSTEM = FEATURE_CODE_SYSTEM
 #: LOINC (Regenstrief Institute), the system URI FHIR R4 names for it.
 LOINC_SYSTEM = "http://loinc.org"
 #: UCUM, the system URI FHIR R4 names for it.
@@ -57,9 +61,10 @@ LOINC_CODES: dict[str, tuple[str, str]] = {
     "heart_rate_mean_bpm": ("8867-4", "Heart rate"),
     # LOINC 9279-1 "Respiratory rate" (FHIR R4 vital signs profile, respiratory rate).
     "breathing_rate_per_min": ("9279-1", "Respiratory rate"),
-    # LOINC 80404-7 "R-R interval.standard deviation (Heart rate variability)".
-    "sdnn_ms": ("80404-7", "R-R interval.standard deviation (Heart rate variability)"),
 }
+#: What every Observation's ``method.text`` says of the intervals behind it.
+INTERVALS_METHOD = ("beat-to-beat intervals are J-J intervals of the ballistocardiogram, "
+                    "not R-R intervals of an electrocardiogram")
 #: Features that are vital signs (FHIR R4 observation-category ``vital-signs``).
 VITAL_SIGNS = frozenset({"heart_rate_mean_bpm", "breathing_rate_per_min"})
 
@@ -142,12 +147,14 @@ def fhir_bundle(document: Mapping[str, Any], *, effective: str | None = None,
         ``urn:uuid`` full URL and its Observation: ``code`` (LOINC where it exists,
         always our concept), ``valueQuantity`` in UCUM or a ``dataAbsentReason``
         with the reason as text, the confidence as a component (UCUM ``1``), the
-        caution as a note and the engine and feature-set versions as the method.
+        caution as a note, and as the method the engine and feature-set versions and
+        that the intervals are J-J (ballistocardiogram), not R-R (ECG).
     """
     analysis_id = str(document["analysis_id"])
     vector = document["feature_vector"]
     method = (f"heartsway engine {document['engine_version']}, feature set "
-              f"{vector['feature_set_version']}, from a body-recoil (ballistocardiogram) trace")
+              f"{vector['feature_set_version']}, from a body-recoil (ballistocardiogram) trace; "
+              f"{INTERVALS_METHOD}")
     entries = []
     for feature in vector["features"]:
         resource = _observation(feature, analysis_id=analysis_id, effective=effective,

@@ -1,9 +1,8 @@
-"""Custom marshmallow fields for numeric traces and finite floats.
+"""Custom marshmallow fields for numeric traces and strict numbers.
 
 A trace of 75,000 samples must not go through 75,000 marshmallow ``Float``
 fields: :class:`SamplesField` checks the element types in one pass and hands
-the list to numpy once. :class:`FiniteFloat` is the output side: a value that
-is not finite leaves as ``null``, because ``NaN`` and ``Infinity`` are not JSON.
+the list to numpy once.
 """
 
 from __future__ import annotations
@@ -179,26 +178,6 @@ def check_magnitude(values: np.ndarray, *, field: str) -> None:
             f"`{field}` must hold numbers of magnitude at most {MAX_SAMPLE_MAGNITUDE:g}; got "
             f"one larger at index {index}."
         )
-
-
-class FiniteFloat(fields.Float):
-    """A float that dumps ``NaN`` and infinities as ``null``.
-
-    The engine reports values it cannot compute as ``None`` with a reason
-    flag; this field is the last guard so that a stray non-finite float can
-    never produce invalid JSON. The top-level response schema also records
-    such a replacement in ``warnings``.
-    """
-
-    def __init__(self, **kwargs: Any) -> None:
-        kwargs.setdefault("allow_none", True)
-        super().__init__(**kwargs)
-
-    def _serialize(self, value: Any, attr: str | None, obj: Any, **kwargs: Any) -> Any:
-        if value is None:
-            return None
-        number = float(value)
-        return number if math.isfinite(number) else None
 
 
 class StrictFloat(fields.Float):

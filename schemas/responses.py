@@ -7,15 +7,13 @@ windows, template, signals) appear only when the request asked for them.
 
 ``NaN`` and infinities never reach JSON: the last step of the dump walks the
 document, replaces any non-finite number by ``null`` and names where it did so
-in ``warnings``. A family the engine does not compute is ``null`` and named in
-``warnings`` too, never left out silently.
+in ``warnings``.
 """
 
 from __future__ import annotations
 
 import math
 import uuid
-from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -31,10 +29,6 @@ NOTICE = (
     "with a confidence and may be wrong. Decisions about a person's health belong to qualified "
     "clinicians, under the regulation that applies where the person lives."
 )
-
-#: Families of the response that the engine may not compute yet.
-OPTIONAL_FAMILIES = ("morphology", "respiration")
-
 
 @dataclass(frozen=True)
 class AnalysisReport:
@@ -306,7 +300,10 @@ class ModulationSchema(Schema):
     amplitude_confidence = _confidence()
     timing_modulation_pct = Number(required=True)
     baseline_modulation_ratio = Number(required=True)
-    coherence = Number(required=True)
+    cardiorespiratory_coherence = Number(required=True, attribute="coherence", metadata={
+        "description": "Magnitude-squared coherence of the interval series and the breathing "
+                       "signal at the breathing frequency (catalogue: cardiorespiratory_coherence)."
+    })
     breaths_used = fields.Integer(required=True)
     confidence = _confidence()
     flags = _flags()
@@ -336,8 +333,8 @@ class RespirationSchema(Schema):
     modulation = fields.Nested(
         ModulationSchema,
         required=True,
-        allow_none=True,
-        metadata={"description": "Null (with a flag) when breathing or beats are too few."},
+        metadata={"description": "Each index is null (with a flag) when breathing or beats "
+                                 "are too few."},
     )
     confidence = _confidence()
     flags = _flags()
@@ -346,22 +343,9 @@ class RespirationSchema(Schema):
         return [[float(start), float(end)] for start, end in obj.pause_spans_s]
 
 
-def _nullable(schema: str, description: str) -> dict[str, Any]:
-    return {"anyOf": [{"$ref": f"#/components/schemas/{schema}"}, {"type": "null"}],
-            "description": description}
-
-
 # --------------------------------------------------------------------------
 # The analysis
 # --------------------------------------------------------------------------
-
-
-def _get(obj: Any, dotted: str) -> Any:
-    for part in dotted.split("."):
-        obj = obj.get(part) if isinstance(obj, Mapping) else getattr(obj, part, None)
-        if obj is None:
-            return None
-    return obj
 
 
 def _replace_non_finite(node: Any, path: str, found: list[str]) -> Any:
@@ -435,12 +419,12 @@ class AnalysisResponseSchema(Schema):
         "allOf": [{"$ref": "#/components/schemas/Beats"}],
     })
     variability = fields.Nested(VariabilitySchema, required=True, attribute="result.variability")
-    morphology = fields.Method("_morphology", required=True, metadata=_nullable(
-        "Morphology", "Waveform morphology; null (named in warnings) when not computed."
-    ))
-    respiration = fields.Method("_respiration", required=True, metadata=_nullable(
-        "Respiration", "Respiration; null (named in warnings) when not computed."
-    ))
+    morphology = fields.Nested(MorphologySchema, required=True, attribute="result.morphology",
+                               metadata={"description": "Waveform morphology."})
+    respiration = fields.Method("_respiration", required=True, metadata={
+        "description": "Respiration, with the respiratory modulation of the heartbeat.",
+        "allOf": [{"$ref": "#/components/schemas/Respiration"}],
+    })
     template = fields.Method("_template", metadata={
         "description": "Present when `include` has `template`.",
         "allOf": [{"$ref": "#/components/schemas/Template"}],
@@ -489,8 +473,8 @@ class AnalysisResponseSchema(Schema):
     def _template(self, report: AnalysisReport) -> Any:
         if not self._asked(report, "template"):
             return missing
-        morphology = getattr(report.result, "morphology", None)
-        if morphology is not None and morphology.template is not None:
+        morphology = report.result.morphology
+        if morphology.template is not None:
             return TemplateSchema().dump(morphology)
         return TemplateSchema().dump(report.result.beats)
 
@@ -504,19 +488,10 @@ class AnalysisResponseSchema(Schema):
             return missing
         return WindowsSchema().dump(report.result.windows)
 
-    def _morphology(self, report: AnalysisReport) -> Any:
-        value = getattr(report.result, "morphology", None)
-        return None if value is None else MorphologySchema().dump(value)
-
     def _respiration(self, report: AnalysisReport) -> Any:
-        value = getattr(report.result, "respiration", None)
-        if value is None:
-            return None
-        document: dict[str, Any] = RespirationSchema().dump(value)
-        modulation = getattr(report.result, "modulation", None)
-        if modulation is None:
-            modulation = getattr(value, "modulation", None)
-        document["modulation"] = None if modulation is None else ModulationSchema().dump(modulation)
+        # The engine keeps the modulation beside the respiration; the response nests it.
+        document: dict[str, Any] = RespirationSchema().dump(report.result.respiration)
+        document["modulation"] = ModulationSchema().dump(report.result.modulation)
         return document
 
     def _feature_vector(self, report: AnalysisReport) -> dict[str, Any]:
@@ -532,9 +507,6 @@ class AnalysisResponseSchema(Schema):
     @post_dump
     def _finish(self, data: dict[str, Any], **kwargs: Any) -> dict[str, Any]:
         warnings = list(data.get("warnings", []))
-        for family in OPTIONAL_FAMILIES:
-            if data.get(family) is None:
-                warnings.append(f"{family}: not computed by this engine version")
         found: list[str] = []
         data = _replace_non_finite(data, "", found)
         if found:
@@ -542,22 +514,3 @@ class AnalysisResponseSchema(Schema):
             warnings.append(f"non-finite values replaced by null at: {shown}")
         data["warnings"] = warnings
         return data
-
-
-def _plain_number(value: Any) -> float | None:
-    return float(value) if isinstance(value, int | float) and not isinstance(value, bool) else None
-
-
-def _plain(value: Any) -> Any:
-    """A dataclass or container of numbers and strings as plain JSON values."""
-    if hasattr(value, "__dataclass_fields__"):
-        return {name: _plain(getattr(value, name)) for name in value.__dataclass_fields__}
-    if isinstance(value, np.ndarray):
-        return value.tolist()
-    if isinstance(value, np.generic):
-        return value.item()
-    if isinstance(value, list | tuple):
-        return [_plain(v) for v in value]
-    if isinstance(value, Mapping):
-        return {str(k): _plain(v) for k, v in value.items()}
-    return value

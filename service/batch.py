@@ -8,9 +8,19 @@ rows are read from the result's feature vector (or its windows' vectors).
 The table has one row per recording (or per window with ``--window-s``): ``recording``
 (the path as found), ``window``, ``start_s``, ``end_s``, ``status`` (``ok`` or
 ``failed``), ``error`` (the field or reason and the message of a failure),
-``feature_set_version``, then one column per feature of the feature vector
-(``features.FEATURES``, in catalogue order; empty where the value is None). It is
+``feature_set_version``, then for each feature of the feature vector
+(``features.FEATURES``, in catalogue order) its value (empty where it is None) and
+its confidence in [0, 1] (``<feature>_confidence``; 0 where the value is None). It is
 written as Parquet (``.parquet``) or CSV (``.csv``).
+
+The caution (not a medical device, not a diagnosis) travels with the table where
+table tools read metadata: in the Parquet file's schema metadata under ``notice``;
+for CSV, in a sidecar ``<TABLE>-metadata.json`` in the W3C CSV on the Web metadata
+vocabulary (W3C Recommendation "Metadata Vocabulary for Tabular Data", 2015: the
+table's ``dc:description`` and each column's ``titles``), the file a CSVW processor
+looks for beside ``<TABLE>`` (W3C "Model for Tabular Data and Metadata on the Web",
+section 5.1.2). A comment line in the CSV itself would break readers that do not
+skip comments (pyarrow, DuckDB's defaults).
 
 Resuming: each finished recording's rows are written at once, atomically, to
 ``<TABLE>.parts/`` (one JSON file per recording). A run started again with the same
@@ -34,11 +44,32 @@ FIXED_COLUMNS = ("recording", "window", "start_s", "end_s", "status", "error",
                  "feature_set_version")
 
 
+#: Suffix of a feature's confidence column.
+CONFIDENCE_SUFFIX = "_confidence"
+#: Key of the caution in the Parquet schema metadata.
+NOTICE_KEY = "notice"
+
+
 def feature_names() -> tuple[str, ...]:
-    """The feature columns, in catalogue order."""
+    """The features, in catalogue order."""
     from features.feature_vector import FEATURE_NAMES
 
     return FEATURE_NAMES
+
+
+def feature_columns() -> tuple[str, ...]:
+    """The columns after the fixed ones: each feature, then its confidence."""
+    return tuple(c for name in feature_names() for c in (name, name + CONFIDENCE_SUFFIX))
+
+
+def _feature_cells(features: Iterable[Any]) -> dict[str, float | None]:
+    """Value and confidence columns of feature-vector entries (``FeatureValue``, whose
+    values are finite or None already)."""
+    cells: dict[str, float | None] = {}
+    for f in features:
+        cells[f.name] = f.value
+        cells[f.name + CONFIDENCE_SUFFIX] = f.confidence
+    return cells
 
 
 def find_inputs(inputs: Sequence[str | Path], *, exclude: Iterable[Path] = ()) -> list[Path]:
@@ -72,9 +103,11 @@ def find_inputs(inputs: Sequence[str | Path], *, exclude: Iterable[Path] = ()) -
     return found
 
 
-def _failure(recording: str, kind: str, detail: str) -> list[dict[str, Any]]:
+def _failure(recording: str, error: Exception) -> list[dict[str, Any]]:
+    from service.problem_table import describe
+
     return [{"recording": recording, "window": None, "start_s": None, "end_s": None,
-             "status": "failed", "error": f"{kind}: {detail}"[:500],
+             "status": "failed", "error": describe(error).short()[:500],
              "feature_set_version": None}]
 
 
@@ -98,32 +131,26 @@ def analyze_file(path: str, form: dict[str, Any], window_s: float | None = None,
     list of dict
         One row (or one per window), with every feature column.
     """
-    from features.errors import InvalidInputError, UnusableSignalError
-    from schemas.errors import SchemaValidationError, flatten_errors
     from schemas.requests import AnalysisRequestSchema
     from service.analysis import analyze_request, ask_for_windows
     from service.uploads import path_request_body
 
+    columns = feature_columns()
     try:
         body = path_request_body(path, form)
         if window_s is not None:
             body = ask_for_windows(body, window_s, overlap_s)
         result = analyze_request(AnalysisRequestSchema().load(body))
-    except SchemaValidationError as error:
-        first = flatten_errors(error.messages)[0]
-        return _failure(path, first["field"], first["detail"])
-    except InvalidInputError as error:
-        return _failure(path, error.field, error.message)
-    except UnusableSignalError as error:
-        return _failure(path, error.reason, error.message)
     except Exception as error:  # noqa: BLE001 - one bad file must not stop the batch
-        return _failure(path, "error", type(error).__name__)
+        # The row's `error`: the kind from the problem table, the field or reason, the message.
+        return _failure(path, error)
     if result.windows is None:
         vector = result.feature_vector
+        cells = _feature_cells(vector.features)
         row = {"recording": path, "window": None, "start_s": 0.0,
                "end_s": result.input.duration_s, "status": "ok", "error": None,
                "feature_set_version": vector.feature_set_version}
-        return [{**row, **_feature_columns(vector)}]
+        return [{**row, **{column: cells.get(column) for column in columns}}]
     rows = []
     for window in result.windows.windows:
         row = {"recording": path, "window": window.index, "start_s": window.start_s,
@@ -131,18 +158,13 @@ def analyze_file(path: str, form: dict[str, Any], window_s: float | None = None,
         if window.error is not None or window.feature_vector is None:
             detail = window.error.code + ": " + window.error.message if window.error else ""
             row.update(status="failed", error=detail[:500])
-            row.update(dict.fromkeys(feature_names()))
+            row.update({column: None for column in columns})
         else:
             row.update(status="ok", error=None)
-            row.update(_feature_columns(window.feature_vector))
+            cells = _feature_cells(window.feature_vector.features)
+            row.update({column: cells.get(column) for column in columns})
         rows.append(row)
     return rows
-
-
-def _feature_columns(vector: Any) -> dict[str, float | None]:
-    """Name -> value of every feature column (None where the vector has no value)."""
-    values = vector.as_dict()
-    return {name: values.get(name) for name in feature_names()}
 
 
 class PartStore:
@@ -173,11 +195,31 @@ class PartStore:
         return rows
 
 
+def csv_metadata(out: Path) -> dict[str, Any]:
+    """The CSVW metadata document of the CSV table ``out``: the caution and the columns."""
+    from schemas.responses import NOTICE
+
+    columns: list[dict[str, Any]] = [{"name": c, "titles": c} for c in FIXED_COLUMNS]
+    for name in feature_names():
+        columns.append({"name": name, "titles": name, "dc:description":
+                        f"Value of the feature {name} (catalogue: GET /v1/features)."})
+        confidence = name + CONFIDENCE_SUFFIX
+        columns.append({"name": confidence, "titles": confidence,
+                        "dc:description": f"Confidence in [0, 1] of {name}."})
+    return {"@context": "http://www.w3.org/ns/csvw", "url": out.name,
+            "dc:description": NOTICE, "tableSchema": {"columns": columns}}
+
+
 def write_table(rows: list[dict[str, Any]], out: Path) -> None:
-    """Write the rows as Parquet (``.parquet``/``.pq``) or CSV (anything else), columns fixed."""
+    """Write the rows as Parquet (``.parquet``/``.pq``) or CSV (anything else), columns fixed.
+
+    The caution goes into the Parquet schema metadata (``notice``), or for CSV into
+    the sidecar ``<out>-metadata.json`` (:func:`csv_metadata`); see the module docstring.
+    """
     import pyarrow as pa
 
-    names = feature_names()
+    from schemas.responses import NOTICE
+
     columns: dict[str, Any] = {
         "recording": pa.array([r["recording"] for r in rows], pa.string()),
         "window": pa.array([r["window"] for r in rows], pa.int64()),
@@ -187,9 +229,9 @@ def write_table(rows: list[dict[str, Any]], out: Path) -> None:
         "error": pa.array([r["error"] for r in rows], pa.string()),
         "feature_set_version": pa.array([r["feature_set_version"] for r in rows], pa.string()),
     }
-    for name in names:
-        columns[name] = pa.array([r.get(name) for r in rows], pa.float64())
-    table = pa.table(columns)
+    for column in feature_columns():
+        columns[column] = pa.array([r.get(column) for r in rows], pa.float64())
+    table = pa.table(columns).replace_schema_metadata({NOTICE_KEY: NOTICE})
     temporary = out.with_name(out.name + ".tmp")
     if out.suffix.lower() in (".parquet", ".pq"):
         import pyarrow.parquet as pq
@@ -198,6 +240,10 @@ def write_table(rows: list[dict[str, Any]], out: Path) -> None:
     else:
         import pyarrow.csv as pacsv
 
+        sidecar = out.with_name(out.name + "-metadata.json")
+        sidecar_temporary = sidecar.with_name(sidecar.name + ".tmp")
+        sidecar_temporary.write_text(json.dumps(csv_metadata(out), indent=2), encoding="utf-8")
+        os.replace(sidecar_temporary, sidecar)
         pacsv.write_csv(table, temporary)
     os.replace(temporary, out)
 

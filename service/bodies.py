@@ -9,8 +9,6 @@ import orjson
 from flask import current_app, request
 from werkzeug.exceptions import BadRequest, RequestEntityTooLarge, UnsupportedMediaType
 
-from schemas.csv_input import csv_request_body
-from schemas.errors import SchemaValidationError
 from schemas.requests import AnalysisRequest, AnalysisRequestSchema
 from service.uploads import upload_request_body
 
@@ -89,8 +87,19 @@ def read_json() -> Any:
     return parse_json(data)
 
 
-def read_analysis_request(schema: AnalysisRequestSchema) -> AnalysisRequest:
-    """Load the analysis request from a JSON body or a multipart CSV upload.
+def request_schema() -> AnalysisRequestSchema:
+    """The request schema with this app's caps on samples and channels (the one factory)."""
+    config = current_app.config
+    return AnalysisRequestSchema(
+        max_samples=config["HEARTSWAY_MAX_SAMPLES"],
+        max_channels=config["HEARTSWAY_MAX_CHANNELS"],
+    )
+
+
+def read_analysis_request() -> AnalysisRequest:
+    """Load the analysis request from a JSON body or a multipart upload of a trace file.
+
+    The schema comes from :func:`request_schema`, so every view applies the same caps.
 
     Raises
     ------
@@ -108,31 +117,15 @@ def read_analysis_request(schema: AnalysisRequestSchema) -> AnalysisRequest:
             f"{coding[:32]!r}."
         )
     mimetype = request.mimetype
+    schema = request_schema()
     loaded: AnalysisRequest
     if mimetype == JSON_MEDIA_TYPE:
         loaded = schema.load(read_json())
         return loaded
     if mimetype == MULTIPART_MEDIA_TYPE:
-        upload = request.files.get("file")
+        # Every trace file format, CSV included, is read in service/uploads.py.
         form = {key: request.form[key] for key in request.form}
-        # EDF, BDF, WFDB, NumPy and Parquet files (and CSV with `channels`): service/uploads.py.
-        other_format = upload_request_body(request.files.getlist("file"), form)
-        if other_format is not None:
-            loaded = schema.load(other_format)
-            return loaded
-        if upload is not None:
-            try:
-                text = upload.read().decode("utf-8")
-            except UnicodeDecodeError:
-                raise SchemaValidationError(
-                    {"file": ["`file` must be CSV text encoded as UTF-8; got bytes that are not."]}
-                ) from None
-        elif "file" in form:
-            # A part named `file` without a filename arrives as a form field.
-            text = form.pop("file")
-        else:
-            raise SchemaValidationError({"file": ["`file` must be a CSV file part; got none."]})
-        loaded = schema.load(csv_request_body(text, form))
+        loaded = schema.load(upload_request_body(request.files.getlist("file"), form))
         return loaded
     raise UnsupportedMediaType(
         f"The body must be {JSON_MEDIA_TYPE} or {MULTIPART_MEDIA_TYPE} (a CSV `file`); "

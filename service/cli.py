@@ -7,8 +7,10 @@ prints the same JSON, windows included with ``--window-s``, and with ``--plot`` 
 the report image from that one result; ``demo`` analyses the demo scenario's trace, or
 sends it to a running service with ``--url``.
 
-Exit codes: 0 success, 2 bad input (the problem is printed on stderr as
-JSON), 3 no usable signal, 4 the service could not be reached.
+Exit codes (from the one problem table, :mod:`service.problem_table`): 0 success,
+2 bad input or an unreadable file, 3 no usable signal, 4 the service could not be
+reached, 1 anything else. On 2 and 3 the problem is printed on stderr as the same
+RFC 9457 JSON the API answers (without ``request_id``).
 """
 
 from __future__ import annotations
@@ -46,21 +48,23 @@ def _serve(args: argparse.Namespace) -> int:
 
 
 def _analyze(args: argparse.Namespace) -> int:
-    from features.errors import InvalidInputError, UnusableSignalError
-    from schemas.errors import SchemaValidationError, flatten_errors
+    from features.errors import EngineError
+    from fileformats import UnreadableFileError
+    from schemas.errors import SchemaValidationError
     from schemas.requests import AnalysisRequestSchema
     from service.analysis import ask_for_windows, run_analysis
+    from service.problem_table import describe
     from service.uploads import path_request_body
 
     path = Path(args.file)
-    if not (path.is_file() or path.with_suffix(".hea").is_file()):
-        detail = f"{path.name}: no such file"
-        print(json.dumps({"error": "unreadable_file", "detail": detail}), file=sys.stderr)
-        return 2
     # Format from the content and name (CSV, EDF/BDF, WFDB, .npy/.npz, Parquet).
     form = {"sampling_rate_hz": args.rate, "quantity": args.quantity, "unit": args.unit,
             "channels": args.channels, "format": args.format, "include": args.include or None}
     try:
+        if not (path.is_file() or path.with_suffix(".hea").is_file()):
+            raise UnreadableFileError(
+                "file", f"`file` must be an existing file; got {path.name!r}."
+            )
         body = path_request_body(path, form)
         if args.window_s is not None:
             body = ask_for_windows(body, args.window_s, args.overlap_s)
@@ -72,18 +76,10 @@ def _analyze(args: argparse.Namespace) -> int:
             Path(args.plot).write_bytes(image)
         else:
             document = run_analysis(request)
-    except SchemaValidationError as error:
-        errors = flatten_errors(error.messages)
-        print(json.dumps({"error": "validation", "errors": errors}), file=sys.stderr)
-        return 2
-    except InvalidInputError as error:
-        detail = {"field": error.field, "detail": error.message}
-        print(json.dumps({"error": "validation", "errors": [detail]}), file=sys.stderr)
-        return 2
-    except UnusableSignalError as error:
-        detail = {"error": "unusable_signal", "reason": error.reason, "detail": error.message}
-        print(json.dumps(detail), file=sys.stderr)
-        return 3
+    except (SchemaValidationError, EngineError) as error:
+        problem = describe(error)
+        print(json.dumps(problem.body()), file=sys.stderr)
+        return problem.row.exit_code
     _print_json(document)
     return 0
 

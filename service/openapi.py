@@ -44,12 +44,8 @@ from service import openapi_extras
 from service.access import AUTH_SCHEME, REALM
 from service.config import DEFAULTS
 from service.logs import REQUEST_ID_HEADER
-from service.problems import (
-    COMPUTE_TIME_TYPE,
-    PROBLEM_MEDIA_TYPE,
-    UNUSABLE_SIGNAL_TYPE,
-    VALIDATION_TYPE,
-)
+from service.problem_table import COMPUTE_TIME_TYPE, UNUSABLE_SIGNAL_TYPE, VALIDATION_TYPE
+from service.problems import PROBLEM_MEDIA_TYPE
 
 DEFAULT_PATH = Path(__file__).resolve().parent.parent / "openapi.yaml"
 
@@ -183,6 +179,13 @@ def _errors(*names: str) -> dict[str, Any]:
 
 
 def _paths(spec: APISpec) -> None:
+    """Add the core operations to ``spec``: health, readiness, the catalogue and analyses.
+
+    One ``spec.path`` call per path, each operation with its id, summary, security and
+    responses (shared ones by reference, see ``_RESPONSES``). Reports, the page, static
+    files and /metrics come from :func:`service.openapi_extras.extend`; the multipart
+    bodies are completed by ``_csv_upload`` and ``openapi_extras``.
+    """
     spec.path(
         path="/healthz",
         operations={

@@ -19,10 +19,11 @@ FHIR_BUNDLE_SCHEMA: dict[str, Any] = {
     "type": "object",
     "description": (
         "An HL7 FHIR R4 Bundle of type `collection`: one Observation per feature of the feature "
-        "vector, coded in LOINC where a standard code exists (heart rate 8867-4, respiratory "
-        f"rate 9279-1, SDNN 80404-7) and always in `{FEATURE_SYSTEM}` (docs/fhir.md), with the "
-        "value in UCUM units or a dataAbsentReason, the confidence as a component and the "
-        "caution as a note."
+        "vector, coded in LOINC where a standard code means the same thing (heart rate 8867-4, "
+        f"respiratory rate 9279-1) and always in `{FEATURE_SYSTEM}` (docs/fhir.md), with the "
+        "value in UCUM units or a dataAbsentReason, the confidence as a component, the "
+        "caution as a note and, as the method, that intervals are J-J (ballistocardiogram), "
+        "not R-R (ECG)."
     ),
     "required": ["resourceType", "type", "entry"],
     "properties": {
@@ -69,8 +70,9 @@ def _file_upload(form: dict[str, Any]) -> dict[str, Any]:
         ),
         "oneOf": [
             {"type": "string", "contentMediaType": "application/octet-stream"},
-            {"type": "array", "items": {"type": "string",
-                                        "contentMediaType": "application/octet-stream"}},
+            # At least one part: a form without `file` is refused (422 naming `file`).
+            {"type": "array", "minItems": 1,
+             "items": {"type": "string", "contentMediaType": "application/octet-stream"}},
         ],
     }
     return {

@@ -2,8 +2,9 @@
 
 Plain HTTP errors (400, 401, 404, 405, 413, 415, 500, and 503 from /readyz) use the type
 ``about:blank`` with the status phrase as title, as RFC 9457 section 4.2.1
-describes. Problems of our own domain have their own type URIs under
-``urn:heartsway:problem:``. Responses never carry a stack trace.
+describes. Problems of our own domain (validation, unusable signal, compute time)
+come from the one table in :mod:`service.problem_table`, which the CLI and the batch
+read too; their types are ``tag:`` URIs (RFC 4151). Responses never carry a stack trace.
 """
 
 from __future__ import annotations
@@ -14,16 +15,11 @@ from typing import Any
 from flask import Flask, Response, current_app, json, request
 from werkzeug.exceptions import HTTPException
 
-from features.errors import InvalidInputError, UnusableSignalError
-from schemas.errors import SchemaValidationError, flatten_errors, pointer_of
 from service.deadline import ComputeTimeExceeded
 from service.logs import current_request_id, logger, sanitised_stack
+from service.problem_table import PROBLEM_TABLE, describe, row_of
 
 PROBLEM_MEDIA_TYPE = "application/problem+json"
-TYPE_PREFIX = "urn:heartsway:problem:"
-VALIDATION_TYPE = TYPE_PREFIX + "validation-error"
-UNUSABLE_SIGNAL_TYPE = TYPE_PREFIX + "unusable-signal"
-COMPUTE_TIME_TYPE = TYPE_PREFIX + "compute-time-exceeded"
 
 
 #: Titles from RFC 9110 section 15 where Python's phrases still use older names.
@@ -54,18 +50,6 @@ def problem(
     return response
 
 
-def validation_problem(errors: list[dict[str, str]]) -> Response:
-    """422 naming every offending field."""
-    fields = sorted({e["field"] for e in errors})
-    return problem(
-        422,
-        f"The request breaks {len(errors)} rule(s), in: {', '.join(fields)}.",
-        type_=VALIDATION_TYPE,
-        title="Request validation failed",
-        errors=errors,
-    )
-
-
 def _http_error(error: HTTPException) -> Response:
     status = error.code or 500
     headers = {}
@@ -88,46 +72,23 @@ def _http_error(error: HTTPException) -> Response:
     return problem(status, detail, headers=headers)
 
 
-def _schema_error(error: SchemaValidationError) -> Response:
-    return validation_problem(flatten_errors(error.messages))
-
-
-def _invalid_input(error: InvalidInputError) -> Response:
-    field = error.field or "body"
-    return validation_problem(
-        [{"field": field, "pointer": pointer_of(field), "detail": error.message}]
-    )
-
-
-def _unusable_signal(error: UnusableSignalError) -> Response:
-    return problem(
-        422,
-        error.message,
-        type_=UNUSABLE_SIGNAL_TYPE,
-        title="The trace holds no usable signal",
-        reason=error.reason,
-    )
-
-
-def _compute_time(error: ComputeTimeExceeded) -> Response:
-    logger.warning(
-        "compute_time_exceeded",
-        extra={
-            "fields": {
-                "request_id": current_request_id(),
-                "limit_s": error.limit_s,
-                "elapsed_s": round(error.elapsed_s, 3),
-            }
-        },
-    )
-    return problem(
-        503,
-        f"The analysis must finish within {error.limit_s:g} s on this service; it was "
-        f"stopped after {error.elapsed_s:.1f} s. Send a shorter trace or fewer channels.",
-        type_=COMPUTE_TIME_TYPE,
-        title="Compute time limit exceeded",
-        limit_s=error.limit_s,
-    )
+def _tabled(error: Exception) -> Response:
+    """The answer the problem table gives ``error`` (service/problem_table.py)."""
+    if isinstance(error, ComputeTimeExceeded):
+        logger.warning(
+            "compute_time_exceeded",
+            extra={
+                "fields": {
+                    "request_id": current_request_id(),
+                    "limit_s": error.limit_s,
+                    "elapsed_s": round(error.elapsed_s, 3),
+                }
+            },
+        )
+    described = describe(error)
+    row = described.row
+    return problem(row.status, described.detail, type_=row.type_uri, title=row.title,
+                   **described.members)
 
 
 def _unexpected(error: Exception) -> Response:
@@ -145,17 +106,20 @@ def _unexpected(error: Exception) -> Response:
             }
         },
     )
+    row = row_of(error)  # the table's last row: 500, about:blank, no details
     return problem(
-        500,
+        row.status,
         "The server met an unexpected error; it has been logged under the request id.",
+        type_=row.type_uri,
+        title=row.title,
     )
 
 
 def init_app(app: Flask) -> None:
     """Register the handlers on ``app``."""
     app.register_error_handler(HTTPException, _http_error)
-    app.register_error_handler(SchemaValidationError, _schema_error)
-    app.register_error_handler(InvalidInputError, _invalid_input)
-    app.register_error_handler(UnusableSignalError, _unusable_signal)
-    app.register_error_handler(ComputeTimeExceeded, _compute_time)
+    for row in PROBLEM_TABLE:
+        if row.exception is not Exception:
+            app.register_error_handler(row.exception, _tabled)
+    # Anything else: logged by type and frames only, answered 500 without details.
     app.register_error_handler(Exception, _unexpected)

@@ -33,6 +33,9 @@ MAX_POINTS = 8000
 SIZE_IN = (11.0, 8.5)
 DPI = 100
 _FAMILIES = ("quality", "heart_rate", "variability", "morphology", "respiration", "modulation")
+#: The caution's size, points (15 px at ``DPI``), and colour (contrast 17:1 on white).
+NOTICE_FONT_PT = 11.0
+NOTICE_COLOUR = "#1a1a1a"
 
 
 def _display(trace: np.ndarray, fs_hz: float) -> np.ndarray:
@@ -209,8 +212,13 @@ def draw_report(result: AnalysisResult, *, image_format: str = "png") -> bytes:
     trace = np.asarray(result.fused_trace, dtype=np.float64)
     # Imported on first use: matplotlib writes its font cache under $HOME when imported,
     # which the service's other paths (and a read-only container) need not do.
+    import matplotlib
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
+
+    # SVG text stays text (not glyph outlines): the caution can be read, searched and
+    # checked. The same value on every call, so concurrent threads never see another.
+    matplotlib.rcParams["svg.fonttype"] = "none"
 
     figure = Figure(figsize=SIZE_IN, dpi=DPI, layout="constrained")
     FigureCanvasAgg(figure)
@@ -220,7 +228,8 @@ def draw_report(result: AnalysisResult, *, image_format: str = "png") -> bytes:
     _confidence_panel(figure.add_subplot(grid[1:, 2]), result)
     _interval_panel(figure.add_subplot(grid[2, :2]), result)
     figure.suptitle(_headline(result), fontsize=10)
-    figure.supxlabel(NOTICE, fontsize=6, color="#555555", wrap=True)
+    # The caution on its own line(s) below the panels, dark and at reading size.
+    figure.supxlabel(NOTICE, fontsize=NOTICE_FONT_PT, color=NOTICE_COLOUR, wrap=True)
     buffer = io.BytesIO()
     metadata = {"Date": None} if image_format == "svg" else {"Software": None}
     figure.savefig(buffer, format=image_format, dpi=DPI, metadata=metadata)

@@ -1,9 +1,10 @@
-"""Trace files into analysis request bodies: the one road of the API, ``analyze`` and ``batch``.
+"""Trace files into analysis request bodies: the one reader of the API, ``analyze`` and ``batch``.
 
-CSV goes through :func:`schemas.csv_input.csv_request_body` (as it always has);
+CSV goes through :func:`schemas.csv_input.csv_request_body` (decoded here, once);
 every other format through :func:`schemas.file_input.file_request_body`. The
 multipart upload sends the file(s) as the form field ``file`` (a WFDB record as
-several ``file`` parts: the ``.hea`` and the signal files it names).
+several ``file`` parts: the ``.hea`` and the signal files it names). A file that
+cannot be read is an :class:`fileformats.UnreadableFileError` on every road.
 """
 
 from __future__ import annotations
@@ -19,11 +20,16 @@ from schemas.csv_input import csv_request_body
 from schemas.file_input import FILE_ONLY_FIELDS, file_request_body, select_channels, split_list
 
 
-def _format_of(name: str, data: bytes, form: Mapping[str, Any]) -> str:
+def _format_of(name: str, data: bytes, form: Mapping[str, Any], *, unknown_as_csv: bool) -> str:
     given = form.get("format")
     if given:
         return str(given)
-    return detect_format(name, data[:16])
+    try:
+        return detect_format(name, data[:16])
+    except UnreadableFileError:
+        if unknown_as_csv and not form.get("channels"):
+            return "csv"
+        raise
 
 
 def _csv_body(data: bytes, form: Mapping[str, Any]) -> dict[str, Any]:
@@ -38,8 +44,13 @@ def _csv_body(data: bytes, form: Mapping[str, Any]) -> dict[str, Any]:
     return select_channels(body, split_list(str(form.get("channels") or "")))
 
 
-def files_request_body(files: Mapping[str, bytes], form: Mapping[str, Any]) -> dict[str, Any]:
+def files_request_body(files: Mapping[str, bytes], form: Mapping[str, Any], *,
+                       unknown_as_csv: bool = False) -> dict[str, Any]:
     """The request body for uploaded files (name -> content) and their form fields.
+
+    With ``unknown_as_csv``, a single file whose content and name do not tell its
+    format (and no ``format`` or ``channels`` field) is read as CSV, as uploads were
+    before other formats were read.
 
     Raises
     ------
@@ -51,36 +62,32 @@ def files_request_body(files: Mapping[str, bytes], form: Mapping[str, Any]) -> d
     if len(files) > 1 or any(name.endswith(".hea") for name in files):
         return file_request_body(dict(files), {**form, "format": form.get("format") or "wfdb"})
     name, data = next(iter(files.items()))
-    fmt = _format_of(name, data, form)
+    fmt = _format_of(name, data, form, unknown_as_csv=unknown_as_csv)
     if fmt == "csv":
         return _csv_body(data, form)
     return file_request_body(data, {**form, "format": fmt}, name=name)
 
 
 def upload_request_body(uploads: Sequence[FileStorage],
-                        form: Mapping[str, Any]) -> dict[str, Any] | None:
-    """The request body of a multipart upload, or None for a plain CSV (the CSV road reads it).
+                        form: Mapping[str, Any]) -> dict[str, Any]:
+    """The request body of a multipart upload: its ``file`` parts and other form fields.
 
-    A single upload whose content and name do not tell its format is taken as CSV,
-    as before other formats were read.
+    A part named ``file`` sent without a filename arrives as a form field: it is
+    taken as the file's text. A single upload whose format neither its content nor
+    its name tells is read as CSV.
+
+    Raises
+    ------
+    marshmallow.ValidationError, fileformats.UnreadableFileError
+        For the form or the file (also when there is no ``file`` part).
     """
-    if not uploads:
-        return None
-    if len(uploads) == 1 and not any(form.get(k) for k in FILE_ONLY_FIELDS):
-        upload = uploads[0]
-        head = upload.stream.read(16)
-        upload.stream.seek(0)
-        try:
-            fmt = detect_format(upload.filename, head)
-        except UnreadableFileError:
-            fmt = "csv"
-        if fmt == "csv":
-            return None
-    files = {}
+    fields = dict(form)
+    files: dict[str, bytes] = {}
     for k, upload in enumerate(uploads):
-        name = Path(upload.filename or f"file_{k}").name
-        files[name] = upload.read()
-    return files_request_body(files, form)
+        files[Path(upload.filename or f"file_{k}").name] = upload.read()
+    if not files and isinstance(fields.get("file"), str):
+        files["file"] = fields.pop("file").encode("utf-8")
+    return files_request_body(files, fields, unknown_as_csv=True)
 
 
 def path_request_body(path: str | Path, form: Mapping[str, Any]) -> dict[str, Any]:

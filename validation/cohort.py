@@ -30,10 +30,10 @@ import sys
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 
+from features import ChannelInput, Subject, analyze
 from simulation import SimulatedRecording, SimulationSettings, simulate
 from validation.baseline import detect_beats_baseline
 from validation.matching import BeatMatch, match_beats
@@ -45,7 +45,6 @@ __all__ = [
     "DetectorOutcome",
     "baseline_detector",
     "build_cases",
-    "engine_available",
     "engine_detector",
     "format_report",
     "main",
@@ -166,28 +165,6 @@ def baseline_detector(recording: SimulatedRecording, with_subject: bool) -> Dete
     return DetectorOutcome(beat_times_s=result.beat_times_s, mean_bpm=result.mean_bpm)
 
 
-def _engine_api() -> tuple[Any, Any, Any] | None:
-    """(analyze, ChannelInput, Subject) from ``features`` or ``features.engine``, or None."""
-    import importlib
-
-    import features
-
-    api = tuple(getattr(features, name, None) for name in ("analyze", "ChannelInput", "Subject"))
-    if api[0] is not None and api[1] is not None:
-        return api
-    try:
-        engine = importlib.import_module("features.engine")
-    except ImportError:
-        return None
-    api = tuple(getattr(engine, name, None) for name in ("analyze", "ChannelInput", "Subject"))
-    return api if api[0] is not None and api[1] is not None else None
-
-
-def engine_available() -> bool:
-    """True when the engine entry point ``analyze`` and ``ChannelInput`` can be imported."""
-    return _engine_api() is not None
-
-
 def engine_detector(recording: SimulatedRecording, with_subject: bool) -> DetectorOutcome:
     """Adapter to the engine entry point ``features.analyze`` (the only place that knows it).
 
@@ -196,13 +173,9 @@ def engine_detector(recording: SimulatedRecording, with_subject: bool) -> Detect
     are recorded in ``error`` (class name and reason) instead of propagating, so one failing
     case does not hide the rest of the table.
     """
-    api = _engine_api()
-    if api is None:
-        raise RuntimeError("the engine entry point `features.analyze` is not available.")
-    analyze, channel_input, subject_cls = api
     positions = recording.positions_m
     channels = [
-        channel_input(
+        ChannelInput(
             samples=samples,
             label=label,
             quantity=recording.quantity,
@@ -214,8 +187,8 @@ def engine_detector(recording: SimulatedRecording, with_subject: bool) -> Detect
     ]
     subject = None
     mass = recording.truth.body_mass_kg
-    if with_subject and mass is not None and subject_cls is not None:
-        subject = subject_cls(body_mass_kg=mass)
+    if with_subject and mass is not None:
+        subject = Subject(body_mass_kg=mass)
     try:
         result = analyze(channels, recording.fs_hz, subject=subject)
     except Exception as exc:  # recorded in the table, see docstring
@@ -434,8 +407,8 @@ def run_cohort(
     seed : int
         Cohort seed (case ``i`` uses ``seed * 1000 + i``).
     engine : callable, None or "auto"
-        Detector standing in for the engine; "auto" uses :func:`engine_detector` when
-        ``features.analyze`` exists and otherwise no engine; None runs the baseline only.
+        Detector standing in for the engine; "auto" uses :func:`engine_detector` (the
+        engine, ``features.analyze``); None runs the baseline only.
     cases : sequence of CaseSpec, optional
         Run these instead of :func:`build_cases`.
 
@@ -445,7 +418,7 @@ def run_cohort(
         Per-case rows and pooled summaries.
     """
     if engine == "auto":
-        engine = engine_detector if engine_available() else None
+        engine = engine_detector
     detector: Detector | None = engine if callable(engine) else None
     engine_name = "none" if detector is None else getattr(detector, "__name__", "engine")
     specs = tuple(cases) if cases is not None else build_cases(quick=quick, seed=seed)

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from flask import Blueprint, Response, current_app, request
 
-from schemas.requests import AnalysisRequestSchema
 from service.bodies import read_analysis_request
 from service.deadline import run_with_deadline
 from service.problems import problem
@@ -26,18 +25,13 @@ def create_report() -> Response:
             406, "The report is served as " + " or ".join(sorted(_FORMAT_OF)) + "; got "
             f"Accept {request.headers.get('Accept', '')[:80]!r}."
         )
-    config = current_app.config
-    schema = AnalysisRequestSchema(
-        max_samples=config["HEARTSWAY_MAX_SAMPLES"],
-        max_channels=config["HEARTSWAY_MAX_CHANNELS"],
-    )
+    image_format = _FORMAT_OF[media_type]
 
     def work() -> bytes:
-        _, image = analysis_with_report(read_analysis_request(schema),
-                                        image_format=_FORMAT_OF[media_type])
+        _, image = analysis_with_report(read_analysis_request(), image_format=image_format)
         return image
 
-    image = run_with_deadline(config["HEARTSWAY_MAX_COMPUTE_S"], work)
+    image = run_with_deadline(current_app.config["HEARTSWAY_MAX_COMPUTE_S"], work)
     response = Response(image, mimetype=media_type)
     response.vary.add("Accept")
     return response

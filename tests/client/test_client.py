@@ -10,7 +10,15 @@ import pytest
 from gunicorn_run import gunicorn
 from trace_files import digital_trace, write_edf, write_wfdb
 
-from client import Analysis, ApiError, HeartswayClient, ServiceUnavailable
+from client import (
+    COMPUTE_TIME_EXCEEDED,
+    UNUSABLE_SIGNAL,
+    VALIDATION_ERROR,
+    Analysis,
+    ApiError,
+    HeartswayClient,
+    ServiceUnavailable,
+)
 from features.feature_vector import FEATURE_NAMES
 from service.demo import demo_request_body
 
@@ -40,6 +48,8 @@ def test_files_fhir_and_report(service, tmp_path):
     digital = digital_trace(seed=5)
     edf = api.analyze_file(write_edf(tmp_path / "a.edf", digital, 100.0))
     wfdb = api.analyze_file(write_wfdb(tmp_path, "a_w", digital, 100.0))
+    # The same digital samples and gain in both files: only float64 rounding of the
+    # physical values may differ, far below 1e-9 relative.
     assert edf.feature("sdnn_ms").value == pytest.approx(wfdb.feature("sdnn_ms").value, rel=1e-9)
     bundle = api.fhir_bundle(demo_request_body())
     assert bundle["resourceType"] == "Bundle" and bundle["type"] == "collection"
@@ -51,7 +61,16 @@ def test_problems_become_api_errors(service):
     with pytest.raises(ApiError) as caught:
         api.analyze({"sampling_rate_hz": 10})
     assert caught.value.status == 422
+    assert caught.value.problem["type"] == VALIDATION_ERROR
     assert {e["field"] for e in caught.value.problem["errors"]} >= {"sampling_rate_hz"}
+
+
+def test_the_clients_problem_types_are_the_services():
+    # The client is standard library only, so it spells the URIs out; they must not drift.
+    from service.problem_table import COMPUTE_TIME_TYPE, UNUSABLE_SIGNAL_TYPE, VALIDATION_TYPE
+
+    assert (VALIDATION_ERROR, UNUSABLE_SIGNAL, COMPUTE_TIME_EXCEEDED) == (
+        VALIDATION_TYPE, UNUSABLE_SIGNAL_TYPE, COMPUTE_TIME_TYPE)
 
 
 class _Flaky(BaseHTTPRequestHandler):

@@ -125,15 +125,20 @@ def test_series_rejects_overlapping_intervals():
 
 # Handcrafted series: a steady 800 ms sinus rhythm (75 beats/min) with one
 # event each. Expected labels follow the definitions in the docstring, which
-# in turn follow the beat classes of Lipponen & Tarvainen (2019): premature
-# short + compensatory long (ectopic), about twice the median (missed beat),
-# a split interval (extra beat).
+# in turn follow the beat classes of Lipponen JA, Tarvainen MP. A robust algorithm
+# for heart rate variability time series artefact correction using novel beat
+# classification. J Med Eng Technol 2019;43(3):173-181 (doi:10.1080/03091902.2019.1640306;
+# citation from memory): premature short + compensatory long (ectopic), about
+# twice the median (missed beat), a split interval (extra beat).
 
 
 def test_premature_beat_with_compensatory_pause_is_ectopic():
     rr = [800.0] * 30
-    # full compensatory pause: coupling 560 ms + pause 1040 ms = 2 x 800 ms
-    # (textbook ventricular premature beat, common practice)
+    # full compensatory pause: coupling 560 ms + pause 1040 ms = 2 x 800 ms. A ventricular
+    # premature beat leaves the sinus node undisturbed, so the beats either side of it are
+    # two sinus cycles apart (from memory: Goldberger AL et al. Goldberger's Clinical
+    # Electrocardiography, 9th ed., Elsevier 2018, ventricular arrhythmias chapter; a
+    # textbook fact, common practice). The 70 % coupling interval is our choice.
     rr[12], rr[13] = 560.0, 1040.0
     res = classify_intervals(*_series(rr))
     assert _non_normal(res) == {
@@ -150,7 +155,9 @@ def test_premature_beat_with_compensatory_pause_is_ectopic():
 
 def test_incomplete_compensation_still_ectopic_within_tolerance():
     rr = [800.0] * 30
-    # atrial premature beat resetting the sinus node: sum 1.85 medians (within 0.2 of 2)
+    # atrial premature beat resetting the sinus node, so the pause is less than
+    # compensatory (from memory: the same textbook, supraventricular arrhythmias; common
+    # practice): sum 1.85 medians, within the module's 0.2-median tolerance of 2
     rr[12], rr[13] = 600.0, 880.0
     res = classify_intervals(*_series(rr))
     assert res.labels[12] == res.labels[13] == "ectopic"
@@ -158,20 +165,24 @@ def test_incomplete_compensation_still_ectopic_within_tolerance():
 
 def test_missed_beat_is_artifact():
     rr = [800.0] * 30
-    rr[15] = 1600.0  # one undetected beat: twice the median
+    rr[15] = 1600.0  # one undetected beat: twice the median (Lipponen & Tarvainen 2019, above)
     res = classify_intervals(*_series(rr))
     assert _non_normal(res) == {15: ("artifact", "missed_beat")}
 
 
 def test_extra_beat_is_artifact():
     rr = [800.0] * 30
-    rr[15], rr[16] = 350.0, 450.0  # a false beat splitting one 800 ms interval
+    # a false beat splitting one 800 ms interval into two that sum to it (Lipponen &
+    # Tarvainen 2019, above: "extra beat")
+    rr[15], rr[16] = 350.0, 450.0
     res = classify_intervals(*_series(rr))
     assert _non_normal(res) == {15: ("artifact", "extra_beat"), 16: ("artifact", "extra_beat")}
 
 
 def test_out_of_range_is_artifact():
     rr = [800.0] * 30
+    # 30-200 beats/min is the module's plausible range for a resting adult (common
+    # practice, not from a standard)
     rr[5] = 250.0  # 240 beats/min: outside 30-200 beats/min
     rr[20] = 2100.0  # below 30 beats/min
     res = classify_intervals(*_series(rr))
@@ -180,7 +191,10 @@ def test_out_of_range_is_artifact():
 
 
 def test_moderate_sinus_variation_is_normal():
-    # respiratory sinus arrhythmia of +-10 % (well inside the 20 % rule of Malik et al. 1989)
+    # respiratory sinus arrhythmia of +-10 %, well inside the 20 % rule of Malik M,
+    # Farrell T, Cripps T, Camm AJ. Heart rate variability in relation to prognosis after
+    # myocardial infarction: selection of optimal processing techniques. Eur Heart J
+    # 1989;10(12):1060-1074 (citation from memory)
     t = np.arange(60)
     rr = 900.0 + 90.0 * np.sin(2 * np.pi * t / 5.0)
     res = classify_intervals(*_series(rr))

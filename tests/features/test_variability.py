@@ -56,6 +56,10 @@ def _pyhrv_sample(name: str) -> np.ndarray:
     # NN series from the MIT-BIH Normal Sinus Rhythm Database (PhysioNet), shipped
     # in the pyHRV wheel (pyhrv/files/, see pyhrv.utils.load_sample_nni). pyhrv
     # itself is not imported: its import fails on a missing dependency.
+    # The database: Moody GB, Mark RG. The impact of the MIT-BIH Arrhythmia Database.
+    # IEEE Eng Med Biol Mag 2001;20(3):45-50; and Goldberger AL, Amaral LAN, Glass L,
+    # et al. PhysioBank, PhysioToolkit, and PhysioNet: components of a new research
+    # resource for complex physiologic signals. Circulation 2000;101(23):e215-e220.
     spec = importlib.util.find_spec("pyhrv")
     assert spec is not None and spec.submodule_search_locations
     path = Path(spec.submodule_search_locations[0]) / "files" / f"{name}.npy"

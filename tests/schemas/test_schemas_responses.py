@@ -69,15 +69,6 @@ def test_full_result_dumps_to_a_document_the_contract_accepts(full_result):
     assert not any(w.startswith(("morphology:", "respiration:")) for w in document["warnings"])
 
 
-def test_missing_families_are_null_and_named(full_result):
-    absent = _with(full_result, morphology=None, respiration=None, modulation=None)
-    document = AnalysisResponseSchema().dump(AnalysisReport(absent))
-    _validate(document)
-    assert document["morphology"] is None and document["respiration"] is None
-    assert "morphology: not computed by this engine version" in document["warnings"]
-    assert "respiration: not computed by this engine version" in document["warnings"]
-
-
 def test_infinity_anywhere_becomes_null_and_is_reported(full_result):
     respiration = dataclasses.replace(full_result.respiration, rise_fall_ratio=float("inf"))
     document = AnalysisResponseSchema().dump(AnalysisReport(_with(full_result,

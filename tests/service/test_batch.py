@@ -17,6 +17,7 @@ import pyarrow.parquet as pq
 import pytest
 
 from features.feature_vector import FEATURE_NAMES
+from schemas.responses import NOTICE
 from service.batch import FIXED_COLUMNS, run_batch
 from simulation import SimulationSettings, simulate
 
@@ -53,6 +54,23 @@ def _assert_same_table(a, b):
         assert not differing, (x["recording"], differing[:5])
 
 
+def test_an_unusable_signal_is_a_failed_row_of_its_kind(study, monkeypatch):
+    # The kind and reason of service/problem_table.py's UnusableSignalError row, the same
+    # problem the API answers 422 and `heartsway analyze` exits 3 with.
+    import service.analysis
+    from features.errors import UnusableSignalError
+    from service.batch import analyze_file
+
+    def unusable(*args, **kwargs):
+        raise UnusableSignalError("no_occupant", "No one was on the support.")
+
+    monkeypatch.setattr(service.analysis.features, "analyze", unusable)
+    path = next(iter(study[1]))
+    [row] = analyze_file(path, {})
+    assert row["status"] == "failed"
+    assert row["error"] == "unusable-signal: no_occupant: No one was on the support."
+
+
 def test_local_table_has_a_row_per_recording_and_records_failures(study, tmp_path):
     folder, rates, broken = study
     out = tmp_path / "table.parquet"
@@ -60,14 +78,28 @@ def test_local_table_has_a_row_per_recording_and_records_failures(study, tmp_pat
     assert summary == {"recordings": N_RECORDINGS + 1, "analysed": N_RECORDINGS + 1,
                        "skipped": 0, "failed": 1, "rows": N_RECORDINGS + 1}
     table = pq.read_table(out)
-    assert table.column_names == [*FIXED_COLUMNS, *FEATURE_NAMES]
+    assert table.column_names == [*FIXED_COLUMNS,
+                                  *(c for n in FEATURE_NAMES for c in (n, f"{n}_confidence"))]
+    # The caution rides in the Parquet schema metadata, where pyarrow, pandas and Spark
+    # show it (Apache Parquet format: FileMetaData.key_value_metadata).
+    assert pq.read_schema(out).metadata[b"notice"].decode("utf-8") == NOTICE
     rows = {r["recording"]: r for r in table.to_pylist()}
     assert rows[str(broken)]["status"] == "failed"
-    assert rows[str(broken)]["error"].startswith("file: ")
+    # The kind of service/problem_table.py's row for fileformats.UnreadableFileError.
+    assert rows[str(broken)]["error"].startswith("unreadable-file: file: ")
     for path, hr in rates.items():
         assert rows[path]["status"] == "ok"
+        # Each value beside its confidence: in [0, 1], and 0 where the value is None
+        # (features/feature_vector.py, FeatureValue); a clean trace's heart rate has some.
+        for name in FEATURE_NAMES:
+            confidence = rows[path][f"{name}_confidence"]
+            assert 0.0 <= confidence <= 1.0
+            assert rows[path][name] is not None or confidence == 0.0
+        assert rows[path]["heart_rate_mean_bpm_confidence"] > 0
         # Simulated at `hr` bpm (simulation settings): the table holds the engine's
-        # estimate of it, not a placeholder.
+        # estimate of it, not a placeholder. 4 bpm: our bound for a 60-s clean simulated
+        # trace (common practice for BCG rate agreement; the engine's accuracy is tested
+        # in tests/features).
         assert abs(rows[path]["heart_rate_mean_bpm"] - hr) < 4.0, path
 
 
@@ -96,6 +128,15 @@ def test_windows_and_csv_output(study, tmp_path):
     assert [r["window"] for r in table] == [0, 1]
     assert [r["start_s"] for r in table] == [0.0, 30.0]
     assert all(r["status"] == "ok" for r in table)
+    assert all(0.0 < r["heart_rate_mean_bpm_confidence"] <= 1.0 for r in table)
+    # The caution in the CSVW sidecar a CSV on the Web processor finds beside the table
+    # (W3C "Model for Tabular Data and Metadata on the Web", 5.1.2: {url}-metadata.json),
+    # naming the table and every column in order (W3C "Metadata Vocabulary for Tabular Data").
+    sidecar = json.loads((tmp_path / "windows.csv-metadata.json").read_text(encoding="utf-8"))
+    assert sidecar["@context"] == "http://www.w3.org/ns/csvw"
+    assert sidecar["url"] == "windows.csv"
+    assert sidecar["dc:description"] == NOTICE
+    assert [c["name"] for c in sidecar["tableSchema"]["columns"]] == list(table[0])
 
 
 def test_a_killed_run_resumes_where_it_stopped(study, tmp_path):

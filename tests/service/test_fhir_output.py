@@ -4,6 +4,7 @@ validates with two FHIR model libraries, with LOINC and UCUM where they apply.""
 from __future__ import annotations
 
 import copy
+import json
 
 import pytest
 from fhir.resources.R4B.bundle import Bundle as BundleR4B
@@ -89,9 +90,14 @@ def test_standard_codes_and_units(bundle_response):
     rr = observations["breathing_rate_per_min"]
     assert rr["code"]["coding"][0]["code"] == "9279-1"
     assert rr["valueQuantity"]["code"] == "/min"
-    # LOINC 80404-7 R-R interval.standard deviation (Heart rate variability), in ms (UCUM).
+    # LOINC 80404-7 is "R-R interval.standard deviation (Heart rate variability)"
+    # (loinc.org/80404-7), the SDNN of ECG R-R intervals; ours is of J-J intervals, so
+    # only our own concept, and the method says J-J.
     sdnn = observations["sdnn_ms"]
-    assert sdnn["code"]["coding"][0]["code"] == "80404-7"
+    assert [c["system"] for c in sdnn["code"]["coding"]] == [FEATURE_SYSTEM]
+    assert "80404-7" not in json.dumps(sdnn)
+    assert "J-J intervals" in sdnn["method"]["text"]
+    assert "not R-R intervals" in sdnn["method"]["text"]
     assert sdnn["valueQuantity"]["code"] == "ms"
     # No LOINC code is claimed for RMSSD: only our own concept.
     assert [c["system"] for c in observations["rmssd_ms"]["code"]["coding"]] == [FEATURE_SYSTEM]
@@ -108,6 +114,8 @@ def test_values_confidence_caution_and_time_match_the_json_answer(client, bundle
         observation = observations[feature["name"]]
         confidence = observation["component"][0]
         assert confidence["code"]["coding"][0]["code"] == "confidence"
+        # The same float through two JSON encodings: approx's default (rel 1e-6) only
+        # absorbs formatting, it cannot hide a different value.
         assert confidence["valueQuantity"]["value"] == pytest.approx(feature["confidence"])
         if feature["value"] is None:
             assert "valueQuantity" not in observation

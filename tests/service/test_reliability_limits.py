@@ -16,7 +16,7 @@ from service.config import load_config
 from service.deadline import ComputeTimeExceeded, run_with_deadline
 from service.demo import demo_request_body
 
-COMPUTE_TYPE = "urn:heartsway:problem:compute-time-exceeded"
+COMPUTE_TYPE = "tag:heartsway.dev,2026:problem/compute-time-exceeded"
 
 
 def _spin(request):

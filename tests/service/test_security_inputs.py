@@ -22,7 +22,7 @@ from service import create_app
 from service.loadtest import serve
 from simulation import SimulationSettings, simulate
 
-VALIDATION = "urn:heartsway:problem:validation-error"
+VALIDATION = "tag:heartsway.dev,2026:problem/validation-error"
 
 
 def _channel(samples, **extra):

@@ -132,7 +132,7 @@ def test_schema_violations_are_422_naming_every_field(client):
         colour="blue",
     )
     response = client.post("/v1/analyses", json=body)
-    problem = _assert_problem(response, 422, "urn:heartsway:problem:validation-error")
+    problem = _assert_problem(response, 422, "tag:heartsway.dev,2026:problem/validation-error")
     fields = {error["field"] for error in problem["errors"]}
     assert fields == {
         "sampling_rate_hz",
@@ -155,7 +155,7 @@ def test_schema_violations_are_422_naming_every_field(client):
 def test_unequal_lengths_and_duplicate_labels_are_422(client):
     body = _body(channels=[_valid_channel(3000, "a"), _valid_channel(2999, "a")])
     response = client.post("/v1/analyses", json=body)
-    problem = _assert_problem(response, 422, "urn:heartsway:problem:validation-error")
+    problem = _assert_problem(response, 422, "tag:heartsway.dev,2026:problem/validation-error")
     by_field = {error["field"]: error["detail"] for error in problem["errors"]}
     assert set(by_field) == {"channels[1].samples", "channels[1].label"}
     assert "3000" in by_field["channels[1].samples"] and "2999" in by_field["channels[1].samples"]
@@ -165,14 +165,14 @@ def test_too_many_samples_is_422():
     app = create_app({"HEARTSWAY_MAX_SAMPLES": 5000})
     body = _body(channels=[_valid_channel(3000, "a"), _valid_channel(3000, "b")])
     response = app.test_client().post("/v1/analyses", json=body)
-    problem = _assert_problem(response, 422, "urn:heartsway:problem:validation-error")
+    problem = _assert_problem(response, 422, "tag:heartsway.dev,2026:problem/validation-error")
     assert problem["errors"][0]["field"] == "channels"
     assert "5000" in problem["errors"][0]["detail"] and "6000" in problem["errors"][0]["detail"]
 
 
 def test_body_that_is_not_an_object_is_422(client):
     response = client.post("/v1/analyses", json=[1, 2, 3])
-    problem = _assert_problem(response, 422, "urn:heartsway:problem:validation-error")
+    problem = _assert_problem(response, 422, "tag:heartsway.dev,2026:problem/validation-error")
     assert problem["errors"][0]["field"] == "body"
 
 
@@ -180,7 +180,7 @@ def test_base64_of_the_wrong_length_is_422(client):
     channel = {"label": "a", "quantity": "force", "unit": "N",
                "samples_base64": "AAAAAAA=", "dtype": "float32"}  # 5 bytes
     response = client.post("/v1/analyses", json=_body(channels=[channel]))
-    problem = _assert_problem(response, 422, "urn:heartsway:problem:validation-error")
+    problem = _assert_problem(response, 422, "tag:heartsway.dev,2026:problem/validation-error")
     assert problem["errors"] == [{
         "field": "channels[0].samples_base64",
         "pointer": "#/channels/0/samples_base64",
@@ -191,7 +191,7 @@ def test_base64_of_the_wrong_length_is_422(client):
 
 def test_multipart_without_file_is_422(client):
     response = client.post("/v1/analyses", **multipart({"sampling_rate_hz": "250"}))
-    problem = _assert_problem(response, 422, "urn:heartsway:problem:validation-error")
+    problem = _assert_problem(response, 422, "tag:heartsway.dev,2026:problem/validation-error")
     assert [e["field"] for e in problem["errors"]] == ["file"]
 
 
@@ -200,7 +200,7 @@ def test_multipart_csv_errors_name_file_and_form_fields(client):
         "/v1/analyses",
         **multipart({"sampling_rate_hz": "fast", "colour": "blue"}, b"a,b\n1,2\n3,x\n"),
     )
-    problem = _assert_problem(response, 422, "urn:heartsway:problem:validation-error")
+    problem = _assert_problem(response, 422, "tag:heartsway.dev,2026:problem/validation-error")
     by_field = {e["field"]: e["detail"] for e in problem["errors"]}
     assert set(by_field) == {"file", "sampling_rate_hz", "colour"}
     assert "line 3" in by_field["file"]
@@ -233,7 +233,7 @@ def test_engine_input_error_is_422_naming_the_field(app, monkeypatch):
 
     monkeypatch.setattr(analyses, "run_analysis", reject)
     response = app.test_client().post("/v1/analyses", json=_body())
-    problem = _assert_problem(response, 422, "urn:heartsway:problem:validation-error")
+    problem = _assert_problem(response, 422, "tag:heartsway.dev,2026:problem/validation-error")
     assert problem["errors"] == [{
         "field": "channels[0].samples",
         "pointer": "#/channels/0/samples",
@@ -244,9 +244,12 @@ def test_engine_input_error_is_422_naming_the_field(app, monkeypatch):
 
 def test_unusable_signal_is_422_with_its_own_type(app):
     # 700 N that never changes: a loaded sensor that is stuck or disconnected (a living
-    # occupant always moves it a little, if only by breathing; common practice).
+    # occupant always moves it a little, if only by breathing; common practice). The
+    # engine raises it, so the error takes the whole road: run_analysis, the deadline
+    # wrapper, the problem table's row.
     response = app.test_client().post("/v1/analyses", json=_body())
-    problem = _assert_problem(response, 422, "urn:heartsway:problem:unusable-signal")
+    problem = _assert_problem(response, 422, "tag:heartsway.dev,2026:problem/unusable-signal")
     assert problem["reason"] == "flat_signal"
     assert "constant or toggles between two values" in problem["detail"]
+    assert problem["title"] == "The trace holds no usable signal"
     check_against_contract(response, "/v1/analyses", "post")

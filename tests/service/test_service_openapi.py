@@ -45,3 +45,20 @@ def test_every_error_status_is_described():
     operation = contract()["paths"]["/v1/analyses"]["post"]
     assert {"400", "405", "413", "415", "422", "500"} <= set(operation["responses"])
     assert set(operation["requestBody"]["content"]) == {"application/json", "multipart/form-data"}
+
+
+def test_a_form_without_file_breaks_the_contract_as_the_service_refuses_it():
+    # tests/service/test_service_errors.py: the service answers such a form 422 naming
+    # `file`; the contract must not allow it (JSON Schema 2020-12, OpenAPI 3.1's dialect).
+    from jsonschema import Draft202012Validator
+
+    document = contract()
+    for path in ("/v1/analyses", "/v1/reports"):
+        multipart = document["paths"][path]["post"]["requestBody"]["content"]
+        schema = {**multipart["multipart/form-data"]["schema"],
+                  "components": document["components"]}
+        validator = Draft202012Validator(schema)
+        for form in ({"sampling_rate_hz": 250.0}, {"sampling_rate_hz": 250.0, "file": []}):
+            assert not validator.is_valid(form), (path, form)
+        assert validator.is_valid({"sampling_rate_hz": 250.0, "file": "t,x\n"})
+        assert validator.is_valid({"file": ["a.hea", "a.dat"]})

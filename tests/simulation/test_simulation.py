@@ -174,8 +174,13 @@ def test_beat_count_matches_rate_times_duration(bpm: float) -> None:
 
 def test_j_wave_timing_and_dominance() -> None:
     # BCG physiology: J is the largest headward wave, about 0.2-0.3 s after the electrical
-    # beat (Starr et al., Am. J. Physiol. 127:1-28, 1939; Inan et al., IEEE JBHI
-    # 19(4):1414-1427, 2015, doi:10.1109/JBHI.2014.2361732, Fig. 2); we accept 0.15-0.35 s.
+    # beat (Starr I, Rawson AJ, Schroeder HA, Joseph NR. Studies on the estimation of cardiac
+    # output in man ... the ballistocardiogram. Am J Physiol 1939;127(1):1-28; Inan OT et
+    # al. Ballistocardiography and seismocardiography: a review of recent advances. IEEE J
+    # Biomed Health Inform 2015;19(4):1414-1427, doi:10.1109/JBHI.2014.2361732, Fig. 2;
+    # both citations and the 0.2-0.3 s figure from memory). We accept 0.15-0.35 s: 0.05 s
+    # either side is our margin for the simulator's beat-to-beat spread, not a published
+    # range. The H-I-J-K-L order and signs are the waves' definitions in the same review.
     for support in ("rigid", "cushion", "ringing"):
         rec = simulate(_quiet(support=support))
         delay = rec.truth.j_times_s - rec.truth.electrical_times_s
@@ -188,6 +193,8 @@ def test_j_wave_timing_and_dominance() -> None:
         assert names == ["H", "I", "J", "K", "L"]
         assert np.all(np.diff(times) > 0)
         assert amps["I"] < 0 < amps["J"] and amps["K"] < 0
+        # 2 %: the stated J amplitude against the highest sample of the sampled template,
+        # which can fall beside the continuous peak (our tolerance, not a published one)
         assert amps["J"] == pytest.approx(np.max(tpl.samples), rel=0.02)
         assert amps["J"] > amps["H"] and amps["J"] > amps["L"]
 
@@ -290,7 +297,8 @@ def test_movement_and_posture_spans_in_truth() -> None:
 
 def test_ectopic_beats_premature_with_compensatory_pause() -> None:
     # Premature ventricular beat with a full compensatory pause: the two intervals around it
-    # sum to two normal intervals (common practice of ECG reading).
+    # sum to two normal intervals (common practice of ECG reading; from memory, e.g.
+    # Goldberger's Clinical Electrocardiography, 9th ed., 2018, ventricular arrhythmias).
     rec = simulate(_quiet(duration_s=120.0, fs_hz=250.0, ectopic_fraction=0.1, rsa_depth_ms=0.0,
                           lf_variability=0.0))
     r = rec.truth.electrical_times_s
