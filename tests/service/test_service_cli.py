@@ -46,13 +46,17 @@ def test_analyze_reports_bad_input_on_stderr_with_exit_2(tmp_path, capsys):
     assert {e["field"] for e in error["errors"]} == {"file", "sampling_rate_hz"}
 
 
-def test_analyze_of_a_stuck_sensor_is_exit_3(tmp_path, capsys):
+def test_analyze_of_a_stuck_sensor_is_exit_3_with_the_api_problem(tmp_path, capsys):
     # 30 s of a load cell reading 700 N without the least change: stuck or disconnected.
+    # The engine's UnusableSignalError takes the same row of service/problem_table.py on
+    # the CLI as on the API (tests/service/test_service_errors.py): type, title, reason.
     path = tmp_path / "stuck.csv"
     path.write_text("seat\n" + "700\n" * (250 * 30), encoding="utf-8")
     assert main(["analyze", str(path), "--rate", "250"]) == 3
-    error = json.loads(capsys.readouterr().err)
-    assert error["error"] == "unusable_signal" and error["reason"] == "flat_signal"
+    problem = json.loads(capsys.readouterr().err)
+    assert problem["type"] == "tag:heartsway.dev,2026:problem/unusable-signal"
+    assert problem["status"] == 422
+    assert problem["reason"] == "flat_signal"
 
 
 def test_analyze_of_a_missing_file_is_exit_2(tmp_path, capsys):
@@ -61,27 +65,6 @@ def test_analyze_of_a_missing_file_is_exit_2(tmp_path, capsys):
     assert problem["type"] == "tag:heartsway.dev,2026:problem/validation-error"
     assert [e["field"] for e in problem["errors"]] == ["file"]
     assert "none.csv" in problem["errors"][0]["detail"]
-
-
-def test_analyze_of_an_unusable_signal_is_exit_3_with_the_api_problem(tmp_path, capsys,
-                                                                     monkeypatch):
-    # The engine's UnusableSignalError takes the same row of service/problem_table.py on
-    # the CLI as on the API (tests/service/test_service_errors.py): type, title, reason.
-    import service.analysis
-    from features.errors import UnusableSignalError
-
-    def unusable(*args, **kwargs):
-        raise UnusableSignalError("no_occupant", "No one was on the support.")
-
-    monkeypatch.setattr(service.analysis.features, "analyze", unusable)
-    path = tmp_path / "trace.csv"
-    path.write_text("seat\n" + "\n".join(["0.0"] * 5100) + "\n", encoding="utf-8")
-    assert main(["analyze", str(path), "--rate", "250"]) == 3
-    problem = json.loads(capsys.readouterr().err)
-    assert problem["type"] == "tag:heartsway.dev,2026:problem/unusable-signal"
-    assert problem["status"] == 422
-    assert problem["reason"] == "no_occupant"
-    assert problem["detail"] == "No one was on the support."
 
 
 def test_demo_prints_an_analysis(capsys):
