@@ -116,7 +116,8 @@ def read_analysis_request(schema: AnalysisRequestSchema) -> AnalysisRequest:
         upload = request.files.get("file")
         form = {key: request.form[key] for key in request.form}
         # EDF, BDF, WFDB, NumPy and Parquet files (and CSV with `channels`): service/uploads.py.
-        other_format = upload_request_body(request.files.getlist("file"), form)
+        other_format = upload_request_body(request.files.getlist("file"), form,
+                                           max_samples=schema.max_samples)
         if other_format is not None:
             loaded = schema.load(other_format)
             return loaded
@@ -132,7 +133,7 @@ def read_analysis_request(schema: AnalysisRequestSchema) -> AnalysisRequest:
             text = form.pop("file")
         else:
             raise SchemaValidationError({"file": ["`file` must be a CSV file part; got none."]})
-        loaded = schema.load(csv_request_body(text, form))
+        loaded = schema.load(csv_request_body(text, form, max_samples=schema.max_samples))
         return loaded
     raise UnsupportedMediaType(
         f"The body must be {JSON_MEDIA_TYPE} or {MULTIPART_MEDIA_TYPE} (a CSV `file`); "

@@ -17,6 +17,7 @@ from werkzeug.datastructures import FileStorage
 from fileformats import UnreadableFileError, detect_format
 from schemas.csv_input import csv_request_body
 from schemas.file_input import FILE_ONLY_FIELDS, file_request_body, select_channels, split_list
+from schemas.requests import DEFAULT_MAX_SAMPLES
 
 
 def _format_of(name: str, data: bytes, form: Mapping[str, Any]) -> str:
@@ -26,7 +27,7 @@ def _format_of(name: str, data: bytes, form: Mapping[str, Any]) -> str:
     return detect_format(name, data[:16])
 
 
-def _csv_body(data: bytes, form: Mapping[str, Any]) -> dict[str, Any]:
+def _csv_body(data: bytes, form: Mapping[str, Any], max_samples: int) -> dict[str, Any]:
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError:
@@ -34,12 +35,15 @@ def _csv_body(data: bytes, form: Mapping[str, Any]) -> dict[str, Any]:
             "file", "`file` must be CSV text encoded as UTF-8; got bytes that are not."
         ) from None
     csv_form = {k: v for k, v in form.items() if k not in FILE_ONLY_FIELDS and v is not None}
-    body = csv_request_body(text, csv_form)
+    body = csv_request_body(text, csv_form, max_samples=max_samples)
     return select_channels(body, split_list(str(form.get("channels") or "")))
 
 
-def files_request_body(files: Mapping[str, bytes], form: Mapping[str, Any]) -> dict[str, Any]:
+def files_request_body(files: Mapping[str, bytes], form: Mapping[str, Any], *,
+                       max_samples: int = DEFAULT_MAX_SAMPLES) -> dict[str, Any]:
     """The request body for uploaded files (name -> content) and their form fields.
+
+    ``max_samples`` bounds every reader before it allocates (``HEARTSWAY_MAX_SAMPLES``).
 
     Raises
     ------
@@ -49,16 +53,17 @@ def files_request_body(files: Mapping[str, bytes], form: Mapping[str, Any]) -> d
     if not files:
         raise UnreadableFileError("file", "`file` must be a trace file part; got none.")
     if len(files) > 1 or any(name.endswith(".hea") for name in files):
-        return file_request_body(dict(files), {**form, "format": form.get("format") or "wfdb"})
+        return file_request_body(dict(files), {**form, "format": form.get("format") or "wfdb"},
+                                 max_samples=max_samples)
     name, data = next(iter(files.items()))
     fmt = _format_of(name, data, form)
     if fmt == "csv":
-        return _csv_body(data, form)
-    return file_request_body(data, {**form, "format": fmt}, name=name)
+        return _csv_body(data, form, max_samples)
+    return file_request_body(data, {**form, "format": fmt}, name=name, max_samples=max_samples)
 
 
-def upload_request_body(uploads: Sequence[FileStorage],
-                        form: Mapping[str, Any]) -> dict[str, Any] | None:
+def upload_request_body(uploads: Sequence[FileStorage], form: Mapping[str, Any], *,
+                        max_samples: int = DEFAULT_MAX_SAMPLES) -> dict[str, Any] | None:
     """The request body of a multipart upload, or None for a plain CSV (the CSV road reads it).
 
     A single upload whose content and name do not tell its format is taken as CSV,
@@ -80,10 +85,11 @@ def upload_request_body(uploads: Sequence[FileStorage],
     for k, upload in enumerate(uploads):
         name = Path(upload.filename or f"file_{k}").name
         files[name] = upload.read()
-    return files_request_body(files, form)
+    return files_request_body(files, form, max_samples=max_samples)
 
 
-def path_request_body(path: str | Path, form: Mapping[str, Any]) -> dict[str, Any]:
+def path_request_body(path: str | Path, form: Mapping[str, Any], *,
+                      max_samples: int = DEFAULT_MAX_SAMPLES) -> dict[str, Any]:
     """The request body for a file on disk (a WFDB record by its ``.hea``, ``.dat`` or name).
 
     Raises
@@ -97,11 +103,11 @@ def path_request_body(path: str | Path, form: Mapping[str, Any]) -> dict[str, An
         not p.exists() and p.with_suffix(".hea").exists()
     )
     if wfdb:
-        return file_request_body(p, {**form, "format": "wfdb"})
+        return file_request_body(p, {**form, "format": "wfdb"}, max_samples=max_samples)
     try:
         data = p.read_bytes()
     except OSError as error:
         raise UnreadableFileError(
             "file", f"`file` must be a readable file; got {p.name!r} ({type(error).__name__})."
         ) from None
-    return files_request_body({p.name: data}, form)
+    return files_request_body({p.name: data}, form, max_samples=max_samples)
