@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import io
 import struct
+import tokenize
+import warnings
 import zipfile
 import zlib
 from typing import IO
@@ -38,27 +40,32 @@ MAX_NPY_HEADER_BYTES = 10_000
 #: What a broken NPY header or zip archive raises inside numpy and zipfile.
 _BROKEN = (ValueError, SyntaxError, TypeError, OverflowError, EOFError, struct.error,
            zlib.error, zipfile.BadZipFile, zipfile.LargeZipFile, KeyError, IndexError,
-           NotImplementedError, RecursionError, MemoryError, UnicodeDecodeError, OSError)
+           NotImplementedError, RecursionError, MemoryError, UnicodeDecodeError, OSError,
+           tokenize.TokenError)
 
 
 def _npy_header(stream: IO[bytes], what: str) -> tuple[tuple[int, ...], bool, np.dtype]:
     """Shape, Fortran order and dtype from an NPY header, refusing objects and odd dtypes."""
     try:
-        version = npy_format.read_magic(stream)
-        if version == (1, 0):
-            shape, fortran, dtype = npy_format.read_array_header_1_0(
-                stream, max_header_size=MAX_NPY_HEADER_BYTES)
-        elif version == (2, 0):
-            shape, fortran, dtype = npy_format.read_array_header_2_0(
-                stream, max_header_size=MAX_NPY_HEADER_BYTES)
-        else:
-            raise UnreadableFileError(
-                "file", f"`file` must be NPY format version 1.0 or 2.0; {what} is "
-                f"{version[0]}.{version[1]}."
-            )
+        with warnings.catch_warnings():
+            # numpy warns about some odd headers (a DeprecationWarning for a dtype
+            # spelling): such a header is refused, its warning with it.
+            warnings.simplefilter("error")
+            version = npy_format.read_magic(stream)
+            if version == (1, 0):
+                shape, fortran, dtype = npy_format.read_array_header_1_0(
+                    stream, max_header_size=MAX_NPY_HEADER_BYTES)
+            elif version == (2, 0):
+                shape, fortran, dtype = npy_format.read_array_header_2_0(
+                    stream, max_header_size=MAX_NPY_HEADER_BYTES)
+            else:
+                raise UnreadableFileError(
+                    "file", f"`file` must be NPY format version 1.0 or 2.0; {what} is "
+                    f"{version[0]}.{version[1]}."
+                )
     except UnreadableFileError:
         raise
-    except _BROKEN as error:
+    except (*_BROKEN, Warning) as error:
         raise UnreadableFileError(
             "file", f"`file` must be a NumPy .npy array without Python objects; {what} has a "
             f"header that is not one ({type(error).__name__})."
@@ -129,9 +136,8 @@ def read_npy(data: bytes, *, max_samples: int | None = None) -> RawTrace:
 def _npz_members(archive: zipfile.ZipFile, limit: int) -> dict[str, np.ndarray]:
     infos = [info for info in archive.infolist() if not info.is_dir()]
     declared = sum(info.file_size for info in infos)
-    cap = byte_cap(limit)
-    if declared > cap:
-        raise refuse_bytes(declared, cap, "its zip directory")
+    if declared > byte_cap(limit):
+        raise refuse_bytes(declared, limit, "its zip directory")
     check_ratio(declared, sum(info.compress_size for info in infos), "its zip directory")
     headers = []
     for info in infos:
@@ -142,7 +148,10 @@ def _npz_members(archive: zipfile.ZipFile, limit: int) -> dict[str, np.ndarray]:
             )
         with archive.open(info) as stream:
             headers.append(_npy_header(stream, f"member {info.filename[:40]!r}"))
-    check_samples(sum(product(shape) for shape, _, _ in headers), limit, "its arrays' headers")
+    # The rate (a 0-d member under one of RATE_KEYS) is not a sample.
+    declared = sum(product(shape) for info, (shape, _, _) in zip(infos, headers, strict=True)
+                   if not (shape == () and info.filename[:-4] in RATE_KEYS))
+    check_samples(declared, limit, "its array headers")
     arrays: dict[str, np.ndarray] = {}
     produced = 0
     for info, (shape, fortran, dtype) in zip(infos, headers, strict=True):
@@ -153,7 +162,7 @@ def _npz_members(archive: zipfile.ZipFile, limit: int) -> dict[str, np.ndarray]:
             where = f"member {info.filename[:40]!r}"
             produced += stream.tell()
             buffer = read_capped(stream, size, compressed=info.compress_size, where=where,
-                                 produced_before=produced, cap=cap)
+                                 produced_before=produced, max_samples=limit)
             produced += size
             if stream.read(1):
                 raise UnreadableFileError(
@@ -268,9 +277,8 @@ def _parquet_plan(pf: object, pa: object, limit: int) -> tuple[list[str], list[i
             if column.path_in_schema in wanted:
                 uncompressed += column.total_uncompressed_size
                 compressed += column.total_compressed_size
-    cap = byte_cap(limit)
-    if uncompressed > cap:
-        raise refuse_bytes(uncompressed, cap, "its metadata")
+    if uncompressed > byte_cap(limit):
+        raise refuse_bytes(uncompressed, limit, "its metadata")
     check_ratio(uncompressed, compressed, "its metadata")
     return names, positions
 
@@ -278,15 +286,14 @@ def _parquet_plan(pf: object, pa: object, limit: int) -> tuple[list[str], list[i
 def _parquet_columns(pf: object, names: list[str], limit: int) -> list[np.ndarray]:
     """Read the channel columns one row group at a time, within the caps."""
     metadata = pf.metadata  # type: ignore[attr-defined]
-    cap = byte_cap(limit)
     parts: list[list[np.ndarray]] = [[] for _ in names]
     produced = rows = 0
     for i in range(metadata.num_row_groups):
         table = pf.read_row_group(i, columns=names, use_threads=False)  # type: ignore[attr-defined]
         produced += table.nbytes
         rows += table.num_rows
-        if produced > cap:
-            raise refuse_bytes(produced, cap, f"row group {i}")
+        if produced > byte_cap(limit):
+            raise refuse_bytes(produced, limit, f"row groups 0-{i}")
         if rows > metadata.num_rows:
             raise UnreadableFileError(
                 "file", f"`file` must hold the rows its metadata declares "

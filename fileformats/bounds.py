@@ -67,7 +67,7 @@ def check_samples(declared: int, max_samples: int, where: str) -> None:
     if declared > max_samples:
         raise UnreadableFileError(
             "file", f"`file` must hold at most {max_samples} samples over all channels (the "
-            f"sample limit, HEARTSWAY_MAX_SAMPLES); {where} declares {declared}."
+            f"sample limit, HEARTSWAY_MAX_SAMPLES); got {declared} declared in {where}."
         )
 
 
@@ -76,12 +76,12 @@ def byte_cap(max_samples: int) -> int:
     return max_samples * MAX_ITEMSIZE + OVERHEAD_BYTES
 
 
-def refuse_bytes(produced: int, cap: int, where: str) -> UnreadableFileError:
-    """The error for decompressed output past ``cap`` bytes."""
+def refuse_bytes(produced: int, max_samples: int, where: str) -> UnreadableFileError:
+    """The error for decompressed output past :func:`byte_cap` of ``max_samples``."""
     return UnreadableFileError(
-        "file", f"`file` must expand to at most {cap} bytes (the sample limit, "
-        f"HEARTSWAY_MAX_SAMPLES, at {MAX_ITEMSIZE} bytes per sample); {where} expands past "
-        f"{produced}."
+        "file", f"`file` must expand to at most {byte_cap(max_samples)} bytes ({max_samples} "
+        f"samples, the sample limit HEARTSWAY_MAX_SAMPLES, at {MAX_ITEMSIZE} bytes each, and "
+        f"{OVERHEAD_BYTES} bytes of headers); got {produced} bytes in {where}."
     )
 
 
@@ -95,7 +95,7 @@ def check_ratio(produced: int, compressed: int, where: str) -> None:
 
 
 def read_capped(stream: IO[bytes], size: int, *, compressed: int, where: str,
-                produced_before: int = 0, cap: int | None = None) -> bytes:
+                produced_before: int = 0, max_samples: int | None = None) -> bytes:
     """Read exactly ``size`` bytes from a decompressing stream, in chunks, within the caps.
 
     Parameters
@@ -110,16 +110,17 @@ def read_capped(stream: IO[bytes], size: int, *, compressed: int, where: str,
         Names the stream in messages.
     produced_before
         Bytes this stream gave before this call (a header).
-    cap
-        Absolute cap on ``produced_before + size``; None for no more than ``size``.
+    max_samples
+        The sample limit, whose :func:`byte_cap` bounds ``produced_before + size``;
+        None for no bound but ``size``.
 
     Raises
     ------
     UnreadableFileError
         When the stream ends early, or passes a cap.
     """
-    if cap is not None and produced_before + size > cap:
-        raise refuse_bytes(produced_before + size, cap, where)
+    if max_samples is not None and produced_before + size > byte_cap(max_samples):
+        raise refuse_bytes(produced_before + size, max_samples, where)
     parts, got = [], 0
     while got < size:
         chunk = stream.read(min(CHUNK_BYTES, size - got))

@@ -113,7 +113,8 @@ def read_edf(data: bytes, *, bdf: bool = False, max_samples: int | None = None) 
         # start date that differs from the EDF+ one, ...) becomes a flag.
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            edf = reader(io.BytesIO(data), lazy_load_data=False)
+            # read_bdf takes no lazy_load_data (edfio 0.4); a stream is read eagerly.
+            edf = reader(io.BytesIO(data))
             continuous = edf.is_continuous if hasattr(edf, "is_continuous") else True
             signals = list(edf.signals)
             samples = tuple(finite_float64(np.asarray(s.data), f"signal {k + 1}")

@@ -116,15 +116,16 @@ def _to_raw(record: object) -> RawTrace:
         raise UnreadableFileError("file", "`file` must be a WFDB record with at least one "
                                   "signal; got one without.")
     data = finite_float64(np.asarray(signal), "the record")
-    names = list(getattr(record, "sig_name", None) or [])
+    # A header may leave names and units out (wfdb gives None): "" numbers the channel.
+    names = [str(n or "") for n in getattr(record, "sig_name", None) or []]
     names += [""] * (data.shape[1] - len(names))
-    units = list(getattr(record, "units", None) or [])
-    units += [None] * (data.shape[1] - len(units))
+    units = [str(u or "") for u in getattr(record, "units", None) or []]
+    units += [""] * (data.shape[1] - len(units))
     fs = float(record.fs)  # type: ignore[attr-defined]
     return RawTrace(
         labels=unique_labels(names),
         samples=tuple(np.ascontiguousarray(data[:, k]) for k in range(data.shape[1])),
-        units=tuple((u or "").strip() or None for u in units),
+        units=tuple(u.strip() or None for u in units),
         rates_hz=(fs,) * data.shape[1],
     )
 
