@@ -29,6 +29,7 @@ from fileformats.bounds import (
     resolve_limit,
 )
 from fileformats.errors import UnreadableFileError, optional_module
+from fileformats.parquet_pages import column_chunks, page_sizes
 from fileformats.raw import MAX_ITEMSIZE, RawTrace, finite_float64, unique_labels
 
 #: Names of the scalar that carries the sampling rate in an ``.npz`` or in Parquet metadata.
@@ -141,6 +142,11 @@ def _npz_members(archive: zipfile.ZipFile, limit: int) -> dict[str, np.ndarray]:
     check_ratio(declared, sum(info.compress_size for info in infos), "its zip directory")
     headers = []
     for info in infos:
+        if info.flag_bits & 0x1:  # PKWARE APPNOTE.TXT 4.4.4: bit 0, encrypted
+            raise UnreadableFileError(
+                "file", "`file` must be a NumPy .npz archive without encryption; member "
+                f"{info.filename[:40]!r} is encrypted."
+            )
         if not info.filename.endswith(".npy"):
             raise UnreadableFileError(
                 "file", "`file` must be a NumPy .npz archive holding only .npy members; got "
@@ -240,8 +246,9 @@ def _text(value: bytes) -> str:
     return value.decode("utf-8", "replace")
 
 
-def _parquet_plan(pf: object, pa: object, limit: int) -> tuple[list[str], list[int]]:
-    """Channel columns and their field positions, after the metadata checks."""
+def _parquet_plan(pf: object, pa: object, data: bytes,
+                  limit: int) -> tuple[list[str], list[int]]:
+    """Channel columns and their field positions, after the metadata and page checks."""
     metadata = pf.metadata  # type: ignore[attr-defined]
     schema = pf.schema_arrow  # type: ignore[attr-defined]
     names, positions = [], []
@@ -269,17 +276,21 @@ def _parquet_plan(pf: object, pa: object, limit: int) -> tuple[list[str], list[i
             f"({metadata.num_rows}); they add up to {rows}."
         )
     wanted = set(names)
-    uncompressed = compressed = 0
-    for i in range(metadata.num_row_groups):
-        group = metadata.row_group(i)
-        for j in range(group.num_columns):
-            column = group.column(j)
-            if column.path_in_schema in wanted:
-                uncompressed += column.total_uncompressed_size
-                compressed += column.total_compressed_size
+    chunks = [c for c in column_chunks(data) if c.name in wanted]
+    uncompressed = sum(c.uncompressed_bytes for c in chunks)
+    compressed = sum(c.compressed_bytes for c in chunks)
     if uncompressed > byte_cap(limit):
         raise refuse_bytes(uncompressed, limit, "its metadata")
     check_ratio(uncompressed, compressed, "its metadata")
+    # The footer may understate what the pages hold: what pyarrow will inflate is what
+    # each page header declares, so those are added up too, before any page is read.
+    inflated = stored = 0
+    for chunk in chunks:
+        pages = page_sizes(data, chunk.first_page, chunk.compressed_bytes)
+        inflated, stored = inflated + pages[0], stored + pages[1]
+        if inflated > byte_cap(limit):
+            raise refuse_bytes(inflated, limit, "its page headers")
+    check_ratio(inflated, stored, "its page headers")
     return names, positions
 
 
@@ -334,7 +345,10 @@ def read_parquet(data: bytes, *, max_samples: int | None = None) -> RawTrace:
     1. The footer (FileMetaData) alone is read first: column types, the row count
        times the channel columns against ``max_samples``, the channel columns'
        uncompressed sizes against the byte cap and the ratio cap.
-    2. Row groups are then read one at a time (``time_s`` never), with a running
+    2. The page headers of the channel columns (:mod:`fileformats.parquet_pages`)
+       are walked and their declared sizes checked the same way: a footer that
+       understates its pages is caught before a page is inflated.
+    3. Row groups are then read one at a time (``time_s`` never), with a running
        cap on the bytes they produce.
     """
     limit = resolve_limit(max_samples)
@@ -342,7 +356,7 @@ def read_parquet(data: bytes, *, max_samples: int | None = None) -> RawTrace:
     pq = optional_module("pyarrow.parquet", "Parquet")
     try:
         pf = pq.ParquetFile(pa.BufferReader(data))
-        names, positions = _parquet_plan(pf, pa, limit)
+        names, positions = _parquet_plan(pf, pa, data, limit)
         samples = _parquet_columns(pf, names, limit)
         schema = pf.schema_arrow
     except UnreadableFileError:
@@ -410,7 +424,11 @@ def read_csv(data: bytes, *, max_samples: int | None = None) -> RawTrace:
     keep = [k for k, name in enumerate(names) if name.lower() != TIME_COLUMN]
     check_samples(csv_rows(rest) * len(keep), limit, "its lines")
     try:
-        table = np.loadtxt(io.StringIO(rest), delimiter=",", dtype=np.float64, ndmin=2)
+        with warnings.catch_warnings():
+            # Rows that are all comments or blank: numpy warns, and the size check
+            # below refuses the file with a reason.
+            warnings.filterwarnings("ignore", "loadtxt: input contained no data", UserWarning)
+            table = np.loadtxt(io.StringIO(rest), delimiter=",", dtype=np.float64, ndmin=2)
     except ValueError:
         raise UnreadableFileError(
             "file", "`file` must hold one number per column in every row below the header; "

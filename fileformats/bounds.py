@@ -16,8 +16,9 @@ from typing import IO
 from fileformats.errors import UnreadableFileError
 from fileformats.raw import MAX_ITEMSIZE
 
-#: Room for what is not samples (NPY headers, a time column's share is counted apart), bytes.
-OVERHEAD_BYTES = 1 << 20
+#: Room for what is not samples (NPY headers of at most a few dozen members, Parquet page
+#: headers), bytes.
+OVERHEAD_BYTES = 64 << 10
 #: Largest expansion of compressed data accepted once the output passes RATIO_FLOOR_BYTES.
 #: Deflate of sampled sensor data stays under 20:1 even for 16-bit values stored as float64;
 #: a constant channel reaches deflate's ceiling (about 1032:1) and carries no signal either.

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import io
 import re
+import warnings
 from typing import Any
 
 import numpy as np
@@ -69,7 +70,11 @@ def read_csv_channels(text: str, *, field: str = "file",
     except UnreadableFileError as error:
         raise ValidationError({field: [error.message.replace("`file`", f"`{field}`")]}) from None
     try:
-        data = np.loadtxt(io.StringIO(rest), delimiter=",", dtype=np.float64, ndmin=2)
+        with warnings.catch_warnings():
+            # Rows that are all comments or blank: numpy warns, and the size check
+            # below refuses the file with a reason.
+            warnings.filterwarnings("ignore", "loadtxt: input contained no data", UserWarning)
+            data = np.loadtxt(io.StringIO(rest), delimiter=",", dtype=np.float64, ndmin=2)
     except ValueError as error:
         where = _NUMPY_POSITION.search(str(error))
         position = (

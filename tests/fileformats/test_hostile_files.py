@@ -197,6 +197,35 @@ def test_parquet_rows_are_counted_over_every_row_group_at_the_limit(tmp_path):
     assert read_trace(path, fs_hz=100.0, max_samples=6000).channels[0].samples.size == 6000
 
 
+def _varint(value, width):
+    out = bytearray()
+    for k in range(width):
+        out.append((value >> (7 * k)) & 0x7F | (0x80 if k < width - 1 else 0))
+    return bytes(out)
+
+
+def test_a_page_header_larger_than_its_footer_is_refused_before_it_is_inflated(tmp_path):
+    # One uncompressed page of 20,000 float64 (160 kB); its header's uncompressed_page_size
+    # (Thrift compact protocol: field 1 type, field 2 size, zigzag varints) is raised to
+    # 1 MB while the footer still says 160 kB. With a limit of 20,000 samples (160 kB of
+    # data and 64 KiB of headers) the footer passes and the page header is caught.
+    path = tmp_path / "page.parquet"
+    pq.write_table(pa.table({"seat": np.arange(20_000, dtype=np.float64)}), path,
+                   compression="none", use_dictionary=False)
+    data = bytearray(path.read_bytes())
+    start = pq.ParquetFile(path).metadata.row_group(0).column(0).data_page_offset
+    assert data[start:start + 3] == b"\x15\x00\x15"  # type DATA_PAGE (0), then field 2
+    raw = data[start + 3:start + 6]
+    size = (raw[0] & 0x7F | (raw[1] & 0x7F) << 7 | raw[2] << 14) // 2  # zigzag(n) = 2n, n >= 0
+    # PLAIN float64 is 8 bytes a value (Parquet format, Encodings.md), and a nullable
+    # column's definition levels add a few bytes (a length and one RLE run).
+    assert raw[2] < 0x80 and 160_000 <= size < 160_100, (bytes(raw), size)
+    assert read_trace(bytes(data), fs_hz=100.0, max_samples=20_000).channels
+    data[start + 3:start + 6] = _varint(1_000_000 * 2, 3)
+    with pytest.raises(UnreadableFileError, match="in its page headers"):
+        read_trace(bytes(data), fs_hz=100.0, max_samples=20_000)
+
+
 def test_a_bomb_grows_a_fresh_worker_by_little_memory(bomb_files):
     # In a separate interpreter (VmHWM reset before the request, /proc/self/clear_refs):
     # the bound is 100 MB; CI allows 200 MB on a shared machine.
