@@ -14,6 +14,8 @@ The body limit is the service's (``HEARTSWAY_MAX_BODY_BYTES``, 32 MiB by default
 snappy cannot compress beyond about 21:1, so its 3-GB bomb is larger than the body
 limit and gets 413 before any reader runs; ``--body-mib 1024`` (the size the jobs
 upload will take) sends it to the reader too, and then the body itself is in memory.
+``--max-samples`` raises the sample limit (as a job's may), so that the declared sizes
+pass and the byte and ratio caps answer.
 """
 
 from __future__ import annotations
@@ -161,7 +163,7 @@ def _status_kb(key: str) -> int:
     raise KeyError(key)
 
 
-def _post(client: object, name: str, data: bytes, form: dict[str, str]) -> object:
+def _multipart(name: str, data: bytes, form: dict[str, str]) -> tuple[bytes, str]:
     from werkzeug.datastructures import FileStorage, MultiDict
     from werkzeug.test import encode_multipart
 
@@ -169,29 +171,32 @@ def _post(client: object, name: str, data: bytes, form: dict[str, str]) -> objec
     values.add("file", FileStorage(stream=io.BytesIO(data), filename=name,
                                    content_type="application/octet-stream"))
     boundary, body = encode_multipart(values)
-    return client.post("/v1/analyses", data=body,  # type: ignore[attr-defined]
-                       content_type=f"multipart/form-data; boundary={boundary}")
+    return body, f"multipart/form-data; boundary={boundary}"
 
 
-def _child(path: str, body_mib: int) -> dict[str, object]:
+def _child(path: str, body_mib: int, max_samples: int | None) -> dict[str, object]:
     from features.simulation import SimulationSettings, simulate
     from service import create_app
 
-    app = create_app({"MAX_CONTENT_LENGTH": body_mib << 20,
-                      "MAX_FORM_MEMORY_SIZE": body_mib << 20})
+    config: dict[str, object] = {"MAX_CONTENT_LENGTH": body_mib << 20,
+                                 "MAX_FORM_MEMORY_SIZE": body_mib << 20}
+    if max_samples is not None:
+        config["HEARTSWAY_MAX_SAMPLES"] = max_samples
+    app = create_app(config)
     client = app.test_client()
     warm = io.BytesIO()
     trace = simulate(SimulationSettings(duration_s=30.0, fs_hz=100.0, seed=1)).channels[0]
     np.savez_compressed(warm, seat=trace, sampling_rate_hz=np.float64(100.0))
-    assert _post(client, "warm.npz", warm.getvalue(), {}).status_code == 200  # type: ignore[attr-defined]
+    body, content_type = _multipart("warm.npz", warm.getvalue(), {})
+    assert client.post("/v1/analyses", data=body, content_type=content_type).status_code == 200
     import pyarrow.parquet  # noqa: F401 - loaded before the measurement, as in a warm worker
 
-    data = Path(path).read_bytes()
-    reset = Path("/proc/self/clear_refs")
-    reset.write_text("5")  # Linux: reset VmHWM to the current resident size
+    # The request as it arrives (the test client's copy of it is not the worker's doing).
+    body, content_type = _multipart(Path(path).name, Path(path).read_bytes(), {})
+    Path("/proc/self/clear_refs").write_text("5")  # Linux: reset VmHWM to the current RSS
     before = _status_kb("VmRSS")
     started = time.perf_counter()
-    response = _post(client, Path(path).name, data, {})
+    response = client.post("/v1/analyses", data=body, content_type=content_type)
     seconds = time.perf_counter() - started
     growth = _status_kb("VmHWM") - before
     document = response.get_json(silent=True) or {}  # type: ignore[attr-defined]
@@ -202,11 +207,12 @@ def _child(path: str, body_mib: int) -> dict[str, object]:
             "detail": str(errors[0].get("detail") or document.get("detail"))[:160]}
 
 
-def measure(path: Path, body_mib: int) -> dict[str, object]:
+def measure(path: Path, body_mib: int, max_samples: int | None) -> dict[str, object]:
     """Post one bomb in a fresh interpreter; its figures."""
+    limit = [] if max_samples is None else ["--max-samples", str(max_samples)]
     done = subprocess.run(
         [sys.executable, "-m", "benchmarks.file_bombs", "--child", str(path),
-         "--body-mib", str(body_mib)],
+         "--body-mib", str(body_mib), *limit],
         capture_output=True, text=True, check=True, cwd=Path(__file__).resolve().parents[1])
     return dict(json.loads(done.stdout.strip().splitlines()[-1]))
 
@@ -229,14 +235,16 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--gb", type=float, default=3.0, help="expanded size of each bomb, GB")
     parser.add_argument("--body-mib", type=int, default=32, help="the service's body limit")
+    parser.add_argument("--max-samples", type=int, default=None,
+                        help="the service's HEARTSWAY_MAX_SAMPLES (its default when absent)")
     parser.add_argument("--child", help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.child:
-        print(json.dumps(_child(args.child, args.body_mib)))
+        print(json.dumps(_child(args.child, args.body_mib, args.max_samples)))
         return 0
     with tempfile.TemporaryDirectory() as folder:
         for what, path in bombs(Path(folder), int(args.gb * 1e9)):
-            figures = measure(path, args.body_mib)
+            figures = measure(path, args.body_mib, args.max_samples)
             print(json.dumps({"bomb": what, "file_bytes": path.stat().st_size,
                               "expands_to_bytes": int(args.gb * 1e9), **figures}))
     return 0
