@@ -58,22 +58,13 @@ def crc32_combine(crc1: int, crc2: int, length2: int) -> int:
     """CRC-32 of A + B from CRC-32 of A, of B, and B's length (zlib's crc32_combine)."""
     if length2 <= 0:
         return crc1
-    odd = [0xEDB88320] + [1 << n for n in range(31)]
-    even = _gf2_square(odd)
-    odd = _gf2_square(even)
-    while True:
-        even = _gf2_square(odd)
+    # The operator that appends one zero bit to a CRC, squared twice: four zero bits.
+    operator = _gf2_square(_gf2_square([0xEDB88320] + [1 << n for n in range(31)]))
+    while length2:
+        operator = _gf2_square(operator)  # 2^k zero bytes at the k-th pass
         if length2 & 1:
-            crc1 = _gf2_times(even, crc1)
+            crc1 = _gf2_times(operator, crc1)
         length2 >>= 1
-        if not length2:
-            break
-        odd = _gf2_square(even)
-        if length2 & 1:
-            crc1 = _gf2_times(odd, crc1)
-        length2 >>= 1
-        if not length2:
-            break
     return crc1 ^ crc2
 
 
