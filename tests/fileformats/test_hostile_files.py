@@ -8,7 +8,6 @@ is ``python tests/fileformats/fuzz.py --count 500`` and its figures are in the R
 from __future__ import annotations
 
 import json
-import resource
 import subprocess
 import sys
 from collections import Counter
@@ -236,7 +235,6 @@ def test_a_bomb_grows_a_fresh_worker_by_little_memory(bomb_files):
     figures = json.loads(done.stdout.strip().splitlines()[-1])
     assert figures["status"] in (413, 422)
     assert figures["peak_growth_mb"] < 200, figures
-    assert resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss < 1 << 20  # KiB: < 1 GiB
 
 
 # -- the command line and batch ------------------------------------------------------------
