@@ -11,6 +11,7 @@ from types import MappingProxyType
 
 __all__ = [
     "COUNTS_UNIT",
+    "DEFAULT_MAX_SAMPLES",
     "DEFAULT_RATE_RANGE_BPM",
     "MAINS_HZ",
     "MAX_BODY_MASS_KG",
@@ -47,6 +48,10 @@ MIN_FS_HZ = 50.0
 MAX_FS_HZ = 2000.0
 #: Most channels in one recording (the load cells or sensors of one support).
 MAX_CHANNELS = 8
+#: Default cap on the samples of one request or file, all channels together (about 1.1 h
+#: of four channels at 250 Hz); the service's ``HEARTSWAY_MAX_SAMPLES`` sets its own, and
+#: the file readers check what a file declares against it before reading data.
+DEFAULT_MAX_SAMPLES = 4_000_000
 
 #: Shortest record accepted, s: about 10 beats at 30 bpm and one slow breath
 #: (6 breaths/min is a 10 s cycle), so every later stage has something to work on.

@@ -7,6 +7,11 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
+from fileformats.errors import UnreadableFileError
+
+#: Widest sample the readers accept, bytes (float64 and int64; no float128 or complex).
+MAX_ITEMSIZE = 8
+
 
 @dataclass(frozen=True)
 class RawTrace:
@@ -44,3 +49,30 @@ def unique_labels(labels: list[str]) -> tuple[str, ...]:
             name = f"{base}_{n}"
         out.append(name)
     return tuple(out)
+
+
+def finite_float64(array: np.ndarray, what: str) -> NDArray[np.float64]:
+    """``array`` as float64, refusing other dtypes than integers and floats of up to 64 bits,
+    and any value that is not finite (``what`` names the array in messages).
+
+    Raises
+    ------
+    UnreadableFileError
+        Naming the dtype, or the index of the first non-finite value.
+    """
+    if array.dtype.kind not in "iuf" or array.dtype.itemsize > MAX_ITEMSIZE:
+        raise UnreadableFileError(
+            "file", f"`file` must hold integer or floating-point samples of at most "
+            f"{MAX_ITEMSIZE * 8} bits; {what} has dtype {array.dtype}."
+        )
+    # A signalling NaN warns "invalid value encountered in cast" when widened; the check
+    # below refuses every non-finite value with its index, so the warning is not needed.
+    with np.errstate(invalid="ignore", over="ignore"):
+        out = np.asarray(array, dtype=np.float64)
+    bad = np.flatnonzero(~np.isfinite(out))
+    if bad.size:
+        raise UnreadableFileError(
+            "file", f"`file` must hold finite numbers; {what} has a non-finite value at "
+            f"index {int(bad[0])}."
+        )
+    return out

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import math
 import os
 from collections.abc import Mapping, Sequence
@@ -96,20 +97,21 @@ def detect_format(name: str | None, head: bytes) -> str:
     )
 
 
-def _raw(source: Source, fmt: str | None, name: str | None) -> tuple[str, RawTrace]:
+def _raw(source: Source, fmt: str | None, name: str | None,
+         max_samples: int | None) -> tuple[str, RawTrace]:
     if isinstance(source, Mapping):
         files = dict(source)
         if fmt is None:
             fmt = "wfdb" if any(n.endswith(".hea") for n in files) else None
         if fmt == "wfdb":
-            return fmt, wfdb_records.read_wfdb_files(files)
+            return fmt, wfdb_records.read_wfdb_files(files, max_samples=max_samples)
         if len(files) != 1:
             raise UnreadableFileError(
                 "file", f"`file` must be one file (several only for a WFDB record); got "
                 f"{len(files)}."
             )
         name, data = next(iter(files.items()))
-        return _raw(data, fmt, name)
+        return _raw(data, fmt, name, max_samples)
     if isinstance(source, bytes | bytearray | memoryview):
         data = bytes(source)
         fmt = fmt or detect_format(name, data[:16])
@@ -118,7 +120,7 @@ def _raw(source: Source, fmt: str | None, name: str | None) -> tuple[str, RawTra
                 "file", "`file` must include the WFDB header (.hea) and its signal files; "
                 "got a single file."
             )
-        return fmt, _from_bytes(fmt, data)
+        return fmt, _from_bytes(fmt, data, max_samples)
     path = Path(source)
     if fmt is None:
         if path.suffix.lower() in (".hea", ".dat") or (
@@ -126,7 +128,7 @@ def _raw(source: Source, fmt: str | None, name: str | None) -> tuple[str, RawTra
         ):
             fmt = "wfdb"
     if fmt == "wfdb":
-        return fmt, wfdb_records.read_wfdb_path(path)
+        return fmt, wfdb_records.read_wfdb_path(path, max_samples=max_samples)
     try:
         data = path.read_bytes()
     except OSError as error:
@@ -135,12 +137,12 @@ def _raw(source: Source, fmt: str | None, name: str | None) -> tuple[str, RawTra
             f"({type(error).__name__})."
         ) from None
     fmt = fmt or detect_format(path.name, data[:16])
-    return fmt, _from_bytes(fmt, data)
+    return fmt, _from_bytes(fmt, data, max_samples)
 
 
-def _from_bytes(fmt: str, data: bytes) -> RawTrace:
+def _from_bytes(fmt: str, data: bytes, max_samples: int | None) -> RawTrace:
     readers = {
-        "bdf": lambda d: edf.read_edf(d, bdf=True),
+        "bdf": functools.partial(edf.read_edf, bdf=True),
         "csv": arrays.read_csv,
         "edf": edf.read_edf,
         "npy": arrays.read_npy,
@@ -151,7 +153,7 @@ def _from_bytes(fmt: str, data: bytes) -> RawTrace:
         raise UnreadableFileError(
             "format", f"`format` must be one of {', '.join(FORMATS)}; got {fmt!r}."
         )
-    return readers[fmt](data)
+    return readers[fmt](data, max_samples=max_samples)  # type: ignore[operator]
 
 
 def _select(raw: RawTrace, channels: Sequence[str] | None) -> list[int]:
@@ -236,6 +238,7 @@ def read_trace(
     unit: str | None = None,
     default_quantity: str = "force",
     default_unit: str = "N",
+    max_samples: int | None = None,
 ) -> TraceFile:
     """Read one recording into engine channel inputs.
 
@@ -259,6 +262,10 @@ def read_trace(
         no units gets ``default_quantity`` and ``default_unit``.
     default_quantity, default_unit
         For formats without units (npy, npz, csv, Parquet without metadata).
+    max_samples
+        Most samples over all signals of the file; the service's default
+        (``HEARTSWAY_MAX_SAMPLES``) when None. A file that declares more (in its
+        header, zip directory or metadata) is refused before its data is read.
 
     Returns
     -------
@@ -274,13 +281,14 @@ def read_trace(
     -----
     1. The format comes from ``format``, else the first bytes (NumPy, Parquet,
        BDF and EDF magic), else the name's suffix.
-    2. The reader returns every signal with its header unit and rate.
+    2. The reader checks the sizes the file declares against ``max_samples``,
+       then returns every signal with its header unit and rate.
     3. The selection keeps the labels asked for; all of them must share one rate.
     4. Units: ``unit`` if given, else the header's (normalised, ``m/s2`` ->
        ``m/s^2``), else the default; the quantity follows from the unit unless
        ``quantity`` is given. The engine checks the pair once more.
     """
-    fmt, raw = _raw(source, format, name)
+    fmt, raw = _raw(source, format, name, max_samples)
     picked = _select(raw, channels)
     rate = _rate(raw, picked, fs_hz)
     lengths = {raw.samples[k].size for k in picked}

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import io
 import re
+import warnings
 from typing import Any
 
 import numpy as np
@@ -16,14 +17,18 @@ from marshmallow import Schema, ValidationError, fields, post_load
 from marshmallow.validate import Length, OneOf, Range
 
 from features.limits import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ, QUANTITIES
-from schemas.requests import INCLUDE_PARTS
+from fileformats.arrays import csv_rows
+from fileformats.bounds import check_samples
+from fileformats.errors import UnreadableFileError
+from schemas.requests import DEFAULT_MAX_SAMPLES, INCLUDE_PARTS
 
 #: A column with this header (any case) holds time stamps and is not a channel.
 TIME_COLUMN = "time_s"
 _NUMPY_POSITION = re.compile(r"at row (\d+), column (\d+)")
 
 
-def read_csv_channels(text: str, *, field: str = "file") -> tuple[list[str], np.ndarray]:
+def read_csv_channels(text: str, *, field: str = "file",
+                      max_samples: int = DEFAULT_MAX_SAMPLES) -> tuple[list[str], np.ndarray]:
     """Parse a CSV trace into channel labels and a (samples, channels) float64 array.
 
     Parameters
@@ -33,6 +38,9 @@ def read_csv_channels(text: str, *, field: str = "file") -> tuple[list[str], np.
         sample. A ``time_s`` column is dropped.
     field
         Name used in error messages.
+    max_samples
+        Most samples over all channel columns: the lines below the header times
+        the channel columns are checked before any number is parsed.
 
     Returns
     -------
@@ -43,7 +51,8 @@ def read_csv_channels(text: str, *, field: str = "file") -> tuple[list[str], np.
     ------
     marshmallow.ValidationError
         When the header is missing or empty, a row is not numeric, the rows
-        differ in length, or there are no data rows or too many channels.
+        differ in length, there are no data rows or too many channels, or the
+        lines could hold more than ``max_samples`` samples.
     """
     text = text.lstrip("\ufeff")
     header, _, rest = text.partition("\n")
@@ -55,8 +64,17 @@ def read_csv_channels(text: str, *, field: str = "file") -> tuple[list[str], np.
         )
     if not rest.strip():
         raise ValidationError({field: [f"`{field}` must hold at least one data row; got none."]})
+    keep = [i for i, label in enumerate(labels) if label.lower() != TIME_COLUMN]
     try:
-        data = np.loadtxt(io.StringIO(rest), delimiter=",", dtype=np.float64, ndmin=2)
+        check_samples(csv_rows(rest) * len(keep), max_samples, "its lines")
+    except UnreadableFileError as error:
+        raise ValidationError({field: [error.message.replace("`file`", f"`{field}`")]}) from None
+    try:
+        with warnings.catch_warnings():
+            # Rows that are all comments or blank: numpy warns, and the size check
+            # below refuses the file with a reason.
+            warnings.filterwarnings("ignore", "loadtxt: input contained no data", UserWarning)
+            data = np.loadtxt(io.StringIO(rest), delimiter=",", dtype=np.float64, ndmin=2)
     except ValueError as error:
         where = _NUMPY_POSITION.search(str(error))
         position = (
@@ -73,7 +91,6 @@ def read_csv_channels(text: str, *, field: str = "file") -> tuple[list[str], np.
             {field: [f"`{field}` must have as many columns in each row as in the header "
                      f"({len(labels)}); got {data.shape[1]}."]}
         )
-    keep = [i for i, label in enumerate(labels) if label.lower() != TIME_COLUMN]
     if not 1 <= len(keep) <= MAX_CHANNELS:
         raise ValidationError(
             {field: [f"`{field}` must have 1 to {MAX_CHANNELS} channel columns besides "
@@ -119,7 +136,8 @@ class CsvUploadFormSchema(Schema):
         return data
 
 
-def csv_request_body(text: str, form: dict[str, Any]) -> dict[str, Any]:
+def csv_request_body(text: str, form: dict[str, Any], *,
+                     max_samples: int = DEFAULT_MAX_SAMPLES) -> dict[str, Any]:
     """Build the body of an analysis request from a CSV text and its form fields.
 
     Parameters
@@ -128,6 +146,8 @@ def csv_request_body(text: str, form: dict[str, Any]) -> dict[str, Any]:
         The CSV file's text.
     form
         Form fields as strings (see :class:`CsvUploadFormSchema`).
+    max_samples
+        Most samples over all channels (:func:`read_csv_channels`).
 
     Returns
     -------
@@ -147,7 +167,7 @@ def csv_request_body(text: str, form: dict[str, Any]) -> dict[str, Any]:
         errors.update(error.messages_dict)
         settings = None
     try:
-        labels, data = read_csv_channels(text)
+        labels, data = read_csv_channels(text, max_samples=max_samples)
     except ValidationError as error:
         errors.update(error.messages_dict)
     if errors or settings is None:

@@ -16,7 +16,7 @@ from marshmallow.validate import Length, OneOf, Range
 
 from features.limits import MAX_FS_HZ, MIN_FS_HZ, QUANTITIES
 from fileformats import FORMATS, Source, read_trace
-from schemas.requests import INCLUDE_PARTS
+from schemas.requests import DEFAULT_MAX_SAMPLES, INCLUDE_PARTS
 
 #: Form fields that only the file road knows (the CSV form refuses them).
 FILE_ONLY_FIELDS = ("channels", "format")
@@ -68,8 +68,8 @@ class FileUploadFormSchema(Schema):
         return data
 
 
-def file_request_body(source: Source, form: Mapping[str, Any], *,
-                      name: str | None = None) -> dict[str, Any]:
+def file_request_body(source: Source, form: Mapping[str, Any], *, name: str | None = None,
+                      max_samples: int = DEFAULT_MAX_SAMPLES) -> dict[str, Any]:
     """Build the body of an analysis request from a trace file and its form fields.
 
     Parameters
@@ -81,6 +81,9 @@ def file_request_body(source: Source, form: Mapping[str, Any], *,
         Form fields as strings (see :class:`FileUploadFormSchema`).
     name
         The file's name when ``source`` is bytes.
+    max_samples
+        Most samples over all signals of the file (``HEARTSWAY_MAX_SAMPLES``, or a
+        job's own limit): a file declaring more is refused before its data is read.
 
     Returns
     -------
@@ -105,6 +108,7 @@ def file_request_body(source: Source, form: Mapping[str, Any], *,
         fs_hz=settings.get("sampling_rate_hz"),
         quantity=settings.get("quantity"),
         unit=settings.get("unit"),
+        max_samples=max_samples,
     )
     body: dict[str, Any] = {
         "sampling_rate_hz": trace.fs_hz,

@@ -24,6 +24,7 @@ from marshmallow.validate import Length, OneOf, Range
 
 from features.limits import (
     COUNTS_UNIT,
+    DEFAULT_MAX_SAMPLES,
     MAINS_HZ,
     MAX_BODY_MASS_KG,
     MAX_CHANNELS,
@@ -52,8 +53,6 @@ POSTURES = ("lying", "reclining", "seated", "standing", "unknown")
 SEXES = ("female", "male", "other", "unknown")
 INCLUDE_PARTS = ("beats", "signals", "template", "windows")
 MAINS_CHOICES = ("auto", *MAINS_HZ)
-#: Default cap on the samples of one request, all channels together.
-DEFAULT_MAX_SAMPLES = 4_000_000
 #: Longest ``samples_base64`` worth sending: the default sample cap at the widest
 #: dtype (float64, 8 bytes) in base64 (4 characters per 3 bytes, padded).
 BASE64_MAX_LENGTH = 4 * -(-DEFAULT_MAX_SAMPLES * 8 // 3)

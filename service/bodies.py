@@ -125,7 +125,8 @@ def read_analysis_request() -> AnalysisRequest:
     if mimetype == MULTIPART_MEDIA_TYPE:
         # Every trace file format, CSV included, is read in service/uploads.py.
         form = {key: request.form[key] for key in request.form}
-        loaded = schema.load(upload_request_body(request.files.getlist("file"), form))
+        loaded = schema.load(upload_request_body(request.files.getlist("file"), form,
+                                                 max_samples=schema.max_samples))
         return loaded
     raise UnsupportedMediaType(
         f"The body must be {JSON_MEDIA_TYPE} or {MULTIPART_MEDIA_TYPE} (a CSV `file`); "

@@ -18,6 +18,7 @@ from werkzeug.datastructures import FileStorage
 from fileformats import UnreadableFileError, detect_format
 from schemas.csv_input import csv_request_body
 from schemas.file_input import FILE_ONLY_FIELDS, file_request_body, select_channels, split_list
+from schemas.requests import DEFAULT_MAX_SAMPLES
 
 
 def _format_of(name: str, data: bytes, form: Mapping[str, Any], *, unknown_as_csv: bool) -> str:
@@ -32,7 +33,7 @@ def _format_of(name: str, data: bytes, form: Mapping[str, Any], *, unknown_as_cs
         raise
 
 
-def _csv_body(data: bytes, form: Mapping[str, Any]) -> dict[str, Any]:
+def _csv_body(data: bytes, form: Mapping[str, Any], max_samples: int) -> dict[str, Any]:
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError:
@@ -40,17 +41,19 @@ def _csv_body(data: bytes, form: Mapping[str, Any]) -> dict[str, Any]:
             "file", "`file` must be CSV text encoded as UTF-8; got bytes that are not."
         ) from None
     csv_form = {k: v for k, v in form.items() if k not in FILE_ONLY_FIELDS and v is not None}
-    body = csv_request_body(text, csv_form)
+    body = csv_request_body(text, csv_form, max_samples=max_samples)
     return select_channels(body, split_list(str(form.get("channels") or "")))
 
 
 def files_request_body(files: Mapping[str, bytes], form: Mapping[str, Any], *,
-                       unknown_as_csv: bool = False) -> dict[str, Any]:
+                       unknown_as_csv: bool = False,
+                       max_samples: int = DEFAULT_MAX_SAMPLES) -> dict[str, Any]:
     """The request body for uploaded files (name -> content) and their form fields.
 
     With ``unknown_as_csv``, a single file whose content and name do not tell its
     format (and no ``format`` or ``channels`` field) is read as CSV, as uploads were
-    before other formats were read.
+    before other formats were read. ``max_samples`` bounds every reader before it
+    allocates (``HEARTSWAY_MAX_SAMPLES``).
 
     Raises
     ------
@@ -60,16 +63,17 @@ def files_request_body(files: Mapping[str, bytes], form: Mapping[str, Any], *,
     if not files:
         raise UnreadableFileError("file", "`file` must be a trace file part; got none.")
     if len(files) > 1 or any(name.endswith(".hea") for name in files):
-        return file_request_body(dict(files), {**form, "format": form.get("format") or "wfdb"})
+        return file_request_body(dict(files), {**form, "format": form.get("format") or "wfdb"},
+                                 max_samples=max_samples)
     name, data = next(iter(files.items()))
     fmt = _format_of(name, data, form, unknown_as_csv=unknown_as_csv)
     if fmt == "csv":
-        return _csv_body(data, form)
-    return file_request_body(data, {**form, "format": fmt}, name=name)
+        return _csv_body(data, form, max_samples)
+    return file_request_body(data, {**form, "format": fmt}, name=name, max_samples=max_samples)
 
 
-def upload_request_body(uploads: Sequence[FileStorage],
-                        form: Mapping[str, Any]) -> dict[str, Any]:
+def upload_request_body(uploads: Sequence[FileStorage], form: Mapping[str, Any], *,
+                        max_samples: int = DEFAULT_MAX_SAMPLES) -> dict[str, Any]:
     """The request body of a multipart upload: its ``file`` parts and other form fields.
 
     A part named ``file`` sent without a filename arrives as a form field: it is
@@ -87,10 +91,11 @@ def upload_request_body(uploads: Sequence[FileStorage],
         files[Path(upload.filename or f"file_{k}").name] = upload.read()
     if not files and isinstance(fields.get("file"), str):
         files["file"] = fields.pop("file").encode("utf-8")
-    return files_request_body(files, fields, unknown_as_csv=True)
+    return files_request_body(files, fields, unknown_as_csv=True, max_samples=max_samples)
 
 
-def path_request_body(path: str | Path, form: Mapping[str, Any]) -> dict[str, Any]:
+def path_request_body(path: str | Path, form: Mapping[str, Any], *,
+                      max_samples: int = DEFAULT_MAX_SAMPLES) -> dict[str, Any]:
     """The request body for a file on disk (a WFDB record by its ``.hea``, ``.dat`` or name).
 
     Raises
@@ -104,11 +109,11 @@ def path_request_body(path: str | Path, form: Mapping[str, Any]) -> dict[str, An
         not p.exists() and p.with_suffix(".hea").exists()
     )
     if wfdb:
-        return file_request_body(p, {**form, "format": "wfdb"})
+        return file_request_body(p, {**form, "format": "wfdb"}, max_samples=max_samples)
     try:
         data = p.read_bytes()
     except OSError as error:
         raise UnreadableFileError(
             "file", f"`file` must be a readable file; got {p.name!r} ({type(error).__name__})."
         ) from None
-    return files_request_body({p.name: data}, form)
+    return files_request_body({p.name: data}, form, max_samples=max_samples)
