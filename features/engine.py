@@ -122,7 +122,9 @@ class OccupancyResult:
         The two independent pieces of evidence (None when not available).
     confidence
         0.95 when both agree, 0.7 when only one is available, 0.4 when they
-        disagree, 0.0 when neither is.
+        disagree (``occupied`` is then True: a heartbeat or a load is there, and the
+        flag ``load_and_heartbeat_disagree`` says which evidence is missing), 0.0
+        when neither is. Only ``dc`` channels give load evidence.
     """
 
     occupied: bool | None
@@ -190,14 +192,19 @@ def analyze(
 
     cond = condition_channels(channels, fs_hz, mains_hz=options.mains_hz,
                               empty_load_kg=options.empty_load_kg)
-    force_only = all(q == "force" for q in cond.quantities)
+    # The centre of pressure needs calibrated cells that carry the weight.
+    force_only = all(q == "force" for q in cond.quantities) and \
+        all(c == "dc" for c in cond.couplings)
     fusion = fuse_channels(
         cond.signals, fs_hz, units=cond.units,
         positions_m=cond.positions_m if force_only else None,
         static_n=cond.baseline_si if force_only and cond.positions_m is not None else None,
         static_fs_hz=cond.baseline_fs_hz,
     )
-    mask: ArtifactMask = mask_artifacts(fusion.fused, fs_hz, load_n=cond.load_trace_n,
+    # A load that says "empty" for the whole record does not mask it: the beats are
+    # looked for, and a heartbeat found against it is reported as a disagreement.
+    load_n = cond.load_trace_n if cond.occupancy_from_load is not False else None
+    mask: ArtifactMask = mask_artifacts(fusion.fused, fs_hz, load_n=load_n,
                                         load_fs_hz=cond.baseline_fs_hz,
                                         raw_signals=cond.raw_signals, pad_s=MOVEMENT_PAD_S)
     beats = detect_beats(fusion.fused, fs_hz, usable=mask.usable,
@@ -305,9 +312,10 @@ def _occupancy(from_load: bool | None, mass_kg: float | None,
     elif from_load == from_beat:
         occupied, conf = from_load, 0.95
     else:
-        # The load is the direct measurement; a heartbeat on an unloaded
-        # support or none under a load is reported, with low confidence.
-        occupied, conf = from_load, 0.4
+        # A heartbeat is direct evidence of an occupant; a load that says "empty"
+        # against it (an uncalibrated or partial load) is reported, not trusted. No
+        # heartbeat under a load keeps the load's answer. Both with low confidence.
+        occupied, conf = True, 0.4
         flags.append("load_and_heartbeat_disagree")
     return OccupancyResult(occupied=occupied, supported_mass_kg=mass_kg, from_load=from_load,
                            from_heartbeat=from_beat, confidence=conf, flags=tuple(flags))
