@@ -214,7 +214,9 @@ def analyze(
     occupancy = _occupancy(cond.occupancy_from_load, cond.supported_mass_kg, beats)
     hr = heart_rate(beats, series, labels, occupied=occupancy.occupied)
     hrv = heart_rate_variability(series.times_s, series.intervals_ms, labels.labels)
-    mass, mass_source = _body_mass(subject, cond.supported_mass_kg, occupancy.occupied)
+    # The load gives a mass only where it is itself the evidence of an occupant.
+    mass, mass_source = _body_mass(subject, cond.supported_mass_kg,
+                                   bool(occupancy.occupied and occupancy.from_load))
     morph = beat_morphology(
         fusion.fused * (beats.polarity or 1), fs_hz, beats.times_s,
         beat_confidence=beats.confidence, usable=mask.usable, body_mass_kg=mass,
@@ -245,7 +247,7 @@ def analyze(
         usable_fraction=mask.usable_fraction,
         segments=mask.segments,
         confidence=float(mask.usable_fraction * (1.0 if beats.has_beats else 0.2)),
-        flags=tuple(mask.flags),
+        flags=_quality_flags(mask.flags, cond.occupancy_from_load),
     )
     summary = InputSummary(
         duration_s=n_samples / fs_hz,
@@ -275,6 +277,14 @@ def analyze(
         body_mass_source=mass_source,
         warnings=tuple(warnings),
     )
+
+
+def _quality_flags(mask_flags: Sequence[str], from_load: bool | None) -> tuple[str, ...]:
+    """The mask's flags; a load that said "empty" throughout is named, not masked."""
+    if from_load is not False:
+        return tuple(mask_flags)
+    kept = [f for f in mask_flags if f != "empty_support_not_checked_no_load"]
+    return (*kept, "load_says_empty_whole_record_not_masked")
 
 
 def _check_metadata(subject: Subject, recording: Recording) -> None:

@@ -137,3 +137,30 @@ def test_any_finite_input_gives_a_result_or_a_documented_error(x, quantity):
     assert 0.0 <= r.heart_rate.confidence <= 1.0
     assert r.heart_rate.mean_bpm is None or 30.0 <= r.heart_rate.mean_bpm <= 200.0
     assert 0.0 <= r.quality.usable_fraction <= 1.0
+
+
+def test_a_load_that_says_empty_against_a_heartbeat_is_a_disagreement(armchair):
+    # A calibrated-looking scale that is wrong by 100x: the load reads 0.75 kg, under the
+    # occupant bound, while the heartbeat is plain. The beats must still be looked for.
+    chans = _channels(armchair, scale=0.01)
+    r = analyze(chans, armchair.fs_hz)
+    assert r.occupancy.from_load is False
+    assert r.occupancy.from_heartbeat is True
+    assert r.occupancy.occupied is True
+    assert "load_and_heartbeat_disagree" in r.occupancy.flags
+    assert r.occupancy.confidence < 0.5
+    assert r.quality.usable_fraction > 0.9  # not masked as an empty support
+    assert "load_says_empty_whole_record_not_masked" in r.quality.flags
+    # The simulator's truth rate; 1 /min as in the calibrated case above.
+    assert r.heart_rate.mean_bpm == pytest.approx(armchair.truth.heart_rate_bpm, abs=1.0)
+
+
+def test_ac_coupled_cells_take_occupancy_from_the_heartbeat(armchair):
+    chans = [ChannelInput(samples=c.samples, label=c.label, quantity=c.quantity, unit=c.unit,
+                          position_m=c.position_m, coupling="ac") for c in _channels(armchair)]
+    r = analyze(chans, armchair.fs_hz)
+    assert r.occupancy.from_load is None
+    assert r.occupancy.supported_mass_kg is None
+    assert r.occupancy.occupied is True
+    assert r.body_mass_kg is None  # no weight is claimed from an ac sensor
+    assert r.heart_rate.mean_bpm == pytest.approx(armchair.truth.heart_rate_bpm, abs=1.0)
