@@ -124,6 +124,11 @@ halves of one class (split again by alternation). With two picks per beat the cl
 hold different waves of the complex and correlate less. 0.15 is well above the spread
 of such split-half correlations of 10 or more epochs at 0 dB (their standard error is
 under 0.05; Fisher z of 0.9 with 10 epochs, common practice)."""
+LEAD_WAVE_S = 0.34
+"""How far before the matched wave a leading large wave is looked for, s: two waves of
+one complex lie up to a third of a second apart (the I-J-K complex lasts about 0.15 s and
+the later H-M waves reach about 0.5 s; Inan et al. 2015, Fig. 1; from memory); the
+template window starts 0.35 s before J."""
 TWO_WAVE_COMPARABLE = 0.4
 """The weaker class of picks must reach this share of the stronger's median size: two
 comparable waves, not a beat and the noise between beats."""
@@ -381,6 +386,15 @@ def detect_beats(
             continue
         break
     comp = signed
+    # A complex with two comparable waves: the template match may have locked on the
+    # later one. J leads the complex, so a large wave up to LEAD_WAVE_S earlier (and
+    # under half the period, so never the previous beat's) takes the fiducial.
+    if period is not None:
+        back = int(round(min(LEAD_WAVE_S, 0.4 * period) * fs_w))
+        lead = _recentre(template, half[0], reach_j, back=min(back, half[0] - 1))
+        if not np.array_equal(lead, template):
+            template = lead
+            flags.append("fiducial_moved_to_leading_wave")
 
     sums = _signed_sums(sums, polarity)
     corr, amp = _match(comp, template, half[0], sums=sums)
@@ -413,6 +427,11 @@ def detect_beats(
     if second is not None:
         beats, run_ids = beats[~second], run_ids[~second]
         flags.append("second_wave_of_each_complex_dropped")
+        same = run_ids[1:] == run_ids[:-1]
+        if period is not None and same.any() and \
+                period * fs_w < 0.75 * float(np.median(np.diff(beats)[same])):
+            period = 2.0 * period  # the envelope period was that of the waves
+            flags.append("envelope_period_doubled_two_waves_per_beat")
     offset = _parabolic_offset(corr, beats)
     offset, trend = _preceding_interval_trend(comp, beats, offset, run_ids, fs_w, max_period)
     if trend is not None:
@@ -680,14 +699,16 @@ def _pearson(a: NDArray[np.float64], b: NDArray[np.float64]) -> float:
 
 
 def _first_large(epoch: NDArray[np.float64], centre: int, reach: int,
-                 sign: float = 0.0) -> int:
+                 sign: float = 0.0, back: int | None = None) -> int:
     """Index of the earliest extreme reaching ``LARGE_WAVE_FRACTION`` of the largest.
 
     With ``sign`` 0 both signs count (peaks of the magnitude); with +1 only
     maxima. The J wave is the first large wave of the complex: whatever a
-    lightly damped support adds rings after it.
+    lightly damped support adds rings after it. The search spans ``back``
+    samples before the centre (``reach`` when None) and ``reach`` after it.
     """
-    lo, hi = max(1, centre - reach), min(epoch.size - 1, centre + reach + 1)
+    back = reach if back is None else back
+    lo, hi = max(1, centre - back), min(epoch.size - 1, centre + reach + 1)
     core = epoch[lo:hi]
     mag = np.abs(core) if sign == 0.0 else np.maximum(sign * core, 0.0)
     pk, _ = signal.find_peaks(np.concatenate(([0.0], mag, [0.0])))
@@ -703,8 +724,9 @@ def _polarity(mean_epoch: NDArray[np.float64], centre: int, reach: int) -> int:
     return 1 if mean_epoch[i] >= 0 else -1
 
 
-def _recentre(template: NDArray[np.float64], centre: int, reach: int) -> NDArray[np.float64]:
-    shift = _first_large(template, centre, reach, sign=1.0) - centre
+def _recentre(template: NDArray[np.float64], centre: int, reach: int,
+              back: int | None = None) -> NDArray[np.float64]:
+    shift = _first_large(template, centre, reach, sign=1.0, back=back) - centre
     out = np.roll(template, -shift)
     if shift > 0:
         out[-shift:] = 0.0

@@ -222,7 +222,11 @@ def analyze(
         beat_confidence=beats.confidence, usable=mask.usable, body_mass_kg=mass,
         amplitude_unit=fusion.unit,
     )
-    resp = breathing(fusion.fused, fs_hz, usable=mask.usable,
+    # No occupant (no heartbeat and no load, or an empty load without a heartbeat): no
+    # breathing either, as when the empty support was masked before the beats.
+    resp_usable = mask.usable if occupancy.occupied is not False else \
+        np.zeros_like(mask.usable)
+    resp = breathing(fusion.fused, fs_hz, usable=resp_usable,
                      cop_signal=fusion.cop_respiratory_m, cop_fs_hz=fusion.cop_fs_hz)
     modulation = respiratory_modulation(
         resp.breathing_signal, resp.breathing_fs_hz,

@@ -164,3 +164,16 @@ def test_ac_coupled_cells_take_occupancy_from_the_heartbeat(armchair):
     assert r.occupancy.occupied is True
     assert r.body_mass_kg is None  # no weight is claimed from an ac sensor
     assert r.heart_rate.mean_bpm == pytest.approx(armchair.truth.heart_rate_bpm, abs=1.0)
+
+
+def test_an_empty_support_reports_no_breathing_either():
+    # Four cells under an empty plate: the load says empty throughout, so nothing is
+    # masked before the beats are looked for; no heartbeat is found, and the centre of
+    # pressure's drift must not pass for an occupant's breathing.
+    rec = simulate(SimulationSettings(duration_s=120.0, n_channels=4, body_mass_kg=None,
+                                      seed=47))
+    r = analyze(_channels(rec), rec.fs_hz)
+    assert r.occupancy.occupied is False
+    assert r.heart_rate.mean_bpm is None
+    assert r.respiration.rate_per_min is None
+    assert r.respiration.confidence < 0.5

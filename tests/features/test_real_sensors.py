@@ -83,3 +83,6 @@ def test_no_value_is_confident_on_traces_without_a_heartbeat(kind):
     assert result.occupancy.occupied is not True
     assert result.variability.confidence < 0.5
     assert result.morphology.confidence < 0.5
+    # Breathing too: a slow swing without a heartbeat is not an occupant's breath.
+    assert result.respiration.confidence < 0.5
+    assert result.modulation.confidence < 0.5
