@@ -177,3 +177,15 @@ def test_an_empty_support_reports_no_breathing_either():
     assert r.heart_rate.mean_bpm is None
     assert r.respiration.rate_per_min is None
     assert r.respiration.confidence < 0.5
+
+
+def test_a_load_beyond_any_occupant_gives_no_mass_and_no_error(armchair):
+    # A scale 2000x too large: 150 t on the plate. The load is implausible (above
+    # MAX_OCCUPANT_KG), so it is not a body mass; the engine once passed it to the
+    # per-kilogram amplitudes and failed with a 422 about body_mass_kg.
+    r = analyze(_channels(armchair, scale=2000.0), armchair.fs_hz)
+    assert r.occupancy.from_load is None
+    assert "load_above_plausible_occupant_mass" in r.input.flags
+    assert r.body_mass_kg is None
+    assert r.occupancy.occupied is True  # from the heartbeat
+    assert r.heart_rate.mean_bpm == pytest.approx(armchair.truth.heart_rate_bpm, abs=1.0)
