@@ -113,6 +113,15 @@ Larger than sinus arrhythmia at rest (the deepest RSA in the cohort is 150 ms on
 17 %); the same 20 % band that classic interval screening uses (Malik M et al.,
 Pacing Clin Electrophysiol 12:1989, 20 % rule; from memory)."""
 RHYTHM_AGREEMENT = 0.1
+RHYTHM_MAX_SINUSOID = 0.8
+"""Largest share of the template's energy that one sinusoid at the beat rate may hold.
+
+A heartbeat is a short complex repeating once a period (the I-J-K complex lasts about
+0.15 s; Inan et al. 2015), so its energy spreads over many harmonics of the rate; a
+steady vibration (a motor, a rocking support) is close to one sinusoid and fits it
+almost wholly. Measured: 0.90-1.00 for pure sines of 0.8-2 Hz, under 0.01 for the
+simulator's complexes through every front end of ``simulation/front_ends.py`` and 0.0003
+on the SensSmartTech chest recording."""
 """Largest relative gap between the picked beats' median interval and the envelope period."""
 
 TWO_WAVE_SHAPE_GAP = 0.15
@@ -308,8 +317,10 @@ def detect_beats(
        ``EVIDENCE_THRESHOLD`` or, for waveforms the envelope cannot align
        (an oscillating seismocardiogram, a film's derivative response), when
        the rhythm shows it: an envelope period, a median template correlation
-       of at least ``RHYTHM_SIMILARITY`` and regular intervals agreeing with
-       the period (``_rhythm_evidence``). Otherwise no beat is reported.
+       of at least ``RHYTHM_SIMILARITY``, regular intervals agreeing with the
+       period (``_rhythm_evidence``), and a mean beat that is not one sinusoid
+       (``RHYTHM_MAX_SINUSOID``: a steady vibration repeats too). Otherwise no
+       beat is reported.
 
     Departures from the cited methods: [1] picks peaks on the MODWT
     component directly; here the component only feeds the envelope and the
@@ -345,7 +356,7 @@ def detect_beats(
     # peaks two a beat (a complex with two comparable waves) halve the envelope period.
     peak_runs = np.cumsum(~usable_w)[peaks].astype(np.int64)
     if period is not None and period * fs_w < 0.75 * _pair_span(peaks, peak_runs) and \
-            _second_waves(comp, peaks, peak_runs, env[peaks], half,
+            _second_waves(comp, peaks, peak_runs, env, half,
                           int(min_period * fs_w)) is not None:
         period = 2.0 * period
         refractory = max(0.9 * min_period, 0.4 * period)
@@ -439,7 +450,8 @@ def detect_beats(
     times = (beats + offset) / fs_w
     r = corr[beats]
     a = amp[beats] * scale
-    if not has_beats and _rhythm_evidence(times, run_ids, r, period):
+    if not has_beats and _rhythm_evidence(times, run_ids, r, period) and \
+            _sinusoid_share(comp, beats, fs_w, period) < RHYTHM_MAX_SINUSOID:
         has_beats = True
         flags.remove("no_repeating_beat_waveform")
         flags.append("beats_accepted_on_rhythm_evidence")
@@ -696,6 +708,31 @@ def _pearson(a: NDArray[np.float64], b: NDArray[np.float64]) -> float:
     b = b - b.mean()
     den = float(np.sqrt(np.sum(a * a) * np.sum(b * b)))
     return float(np.sum(a * b) / den) if den > 0 else 0.0
+
+
+def _sinusoid_share(comp: NDArray[np.float64], beats: NDArray[np.intp], fs: float,
+                    period: float | None) -> float:
+    """Share of the mean beat's energy (about its mean) in the best sinusoid at 1/period.
+
+    The mean of the component over one period centred on each beat, fitted by least
+    squares with cos and sin at the beat frequency.
+    """
+    if period is None or beats.size < 3:
+        return 1.0
+    half = int(round(period * fs / 2.0))
+    ok = beats[(beats >= half) & (beats + half <= comp.size)]
+    if ok.size < 3 or half < 2:
+        return 1.0
+    seg = _epochs(comp, ok, (half, half - 1)).mean(axis=0)
+    seg = seg - seg.mean()
+    energy = float(np.sum(seg * seg))
+    if energy <= 0.0:
+        return 1.0
+    w = 2.0 * np.pi * np.arange(-half, half) / (period * fs)
+    basis = np.stack((np.cos(w), np.sin(w)), axis=1)
+    coef, *_ = np.linalg.lstsq(basis, seg, rcond=None)
+    fit = basis @ coef
+    return float(np.sum(fit * fit) / energy)
 
 
 def _first_large(epoch: NDArray[np.float64], centre: int, reach: int,

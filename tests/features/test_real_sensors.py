@@ -70,10 +70,13 @@ def _no_heartbeat_traces() -> dict[str, tuple[np.ndarray, float]]:
         # 50 Hz hum alone (IEC 60038 nominal frequency)
         "mains": (np.sin(2 * np.pi * 50.0 * t) + floor, fs),
         "pink": (np.cumsum(rng.standard_normal(t.size)) * 0.01, fs),
+        # a steady 1.1 Hz vibration (a motor, a rocking support) in the beat band: it
+        # repeats and is regular, but a heartbeat is a short complex, not one sinusoid
+        "vibration": (np.sin(2 * np.pi * 1.1 * t) + floor, fs),
     }
 
 
-@pytest.mark.parametrize("kind", ["noise", "breathing", "mains", "pink"])
+@pytest.mark.parametrize("kind", ["noise", "breathing", "mains", "pink", "vibration"])
 def test_no_value_is_confident_on_traces_without_a_heartbeat(kind):
     trace, fs = _no_heartbeat_traces()[kind]
     result = _analyze_ac(trace, fs)
