@@ -352,6 +352,8 @@ def detect_beats(
     dist = max(1, int(round(refractory * fs_w)))
     peaks, props = signal.find_peaks(env, distance=dist)
     peaks = peaks[(peaks >= half[0]) & (peaks < comp.size - half[1])]
+    if peaks.size < 4:
+        return _empty(fs_w, levels, flags + ["too_few_candidates"], period=period)
     # Settle the period on the whole stretch before the beats are picked: envelope
     # peaks two a beat (a complex with two comparable waves) halve the envelope period.
     peak_runs = np.cumsum(~usable_w)[peaks].astype(np.int64)
