@@ -68,6 +68,13 @@ irregular rhythm (atrial-fibrillation-like intervals) decorrelates the envelope
 to about 0.2, and then the period would only mislead the refractory period and
 the heart-rate cross-check.
 """
+ENVELOPE_CLIP = 2.0
+"""The envelope is clipped at this multiple of its 95th percentile for the period search.
+
+Beat peaks of the energy envelope sit at or below the 95th percentile times about 1.5
+(beat-to-beat amplitude changes of a few tens of percent), so they are kept whole; a
+large swing of a few seconds (under 5 % of a record) is cut to the height of a beat.
+Winsorising before an autocorrelation is common practice for robust periodicity."""
 TREND_MIN_BEATS = 30
 """Fewest beats with a preceding interval from which the J-timing trend is fitted."""
 TREND_Z = 2.0
@@ -84,6 +91,61 @@ J is the largest wave of a normal complex, with I about half of it (Inan et
 al. 2015, Fig. 1; from memory); a lightly damped support can make K deeper
 than J, but J still leads. The first wave within 75 % of the largest is J.
 """
+
+RHYTHM_SIMILARITY = 0.7
+"""Median correlation of the picked beats with their template that a regular rhythm needs.
+
+Second road to "a heartbeat is present" (see ``_rhythm_evidence``), for sensors whose
+complex the envelope cannot align (an oscillating seismocardiogram, a film sensor's
+derivative response). On sign-symmetric, pink, breathing-only and mains-only traces the
+picked "beats" correlate 0.41-0.58 with their self-made template (measured on 60-s traces,
+seeds 0-2, and the project's empty-support cases); a correlation r is a beat-band
+signal-to-noise ratio r^2 / (1 - r^2), so 0.7 is about 0 dB (common practice: r^2 is the
+explained share of the epoch's variance).
+"""
+RHYTHM_CONSISTENCY = 0.7
+"""Share of successive interval differences under ``RHYTHM_STEP`` needed for regularity.
+
+Noise and the empty-support cases give 0.29-0.42 (the picks fall at random distances
+beyond the refractory period); a sinus rhythm with respiratory arrhythmia stays near 1.
+"""
+RHYTHM_STEP = 0.2
+"""Successive intervals that differ by under 20 % of the median interval count as regular.
+
+Larger than sinus arrhythmia at rest (the deepest RSA in the cohort is 150 ms on 880 ms,
+17 %); the same 20 % band that classic interval screening uses (Malik M et al.,
+Pacing Clin Electrophysiol 12:1989, 20 % rule; from memory)."""
+RHYTHM_AGREEMENT = 0.1
+RHYTHM_MAX_SINUSOID = 0.8
+"""Largest share of the template's energy that one sinusoid at the beat rate may hold.
+
+A heartbeat is a short complex repeating once a period (the I-J-K complex lasts about
+0.15 s; Inan et al. 2015), so its energy spreads over many harmonics of the rate; a
+steady vibration (a motor, a rocking support) is close to one sinusoid and fits it
+almost wholly. Measured: 0.90-1.00 for pure sines of 0.8-2 Hz, under 0.01 for the
+simulator's complexes through every front end of ``simulation/front_ends.py`` and 0.0003
+on the SensSmartTech chest recording."""
+"""Largest relative gap between the picked beats' median interval and the envelope period."""
+
+TWO_WAVE_SHAPE_GAP = 0.15
+"""Drop in correlation between the mean waves of alternate picks that shows two waves a beat.
+
+With one pick per beat, the mean epoch of the even picks and that of the odd picks are
+two estimates of the same complex: their correlation equals, up to noise, that of two
+halves of one class (split again by alternation). With two picks per beat the classes
+hold different waves of the complex and correlate less. 0.15 is well above the spread
+of such split-half correlations of 10 or more epochs at 0 dB (their standard error is
+under 0.05; Fisher z of 0.9 with 10 epochs, common practice)."""
+LEAD_WAVE_S = 0.34
+"""How far before the matched wave a leading large wave is looked for, s: two waves of
+one complex lie up to a third of a second apart (the I-J-K complex lasts about 0.15 s and
+the later H-M waves reach about 0.5 s; Inan et al. 2015, Fig. 1; from memory); the
+template window starts 0.35 s before J."""
+TWO_WAVE_COMPARABLE = 0.4
+"""The weaker class of picks must reach this share of the stronger's median size: two
+comparable waves, not a beat and the noise between beats."""
+TWO_WAVE_MIN_PICKS = 24
+"""Fewest picks, over runs of at least 6, on which the two-wave test is made."""
 
 EVIDENCE_THRESHOLD = 10.0
 """Coherence statistic above which a repeating, consistently signed beat is present.
@@ -124,7 +186,9 @@ class BeatDetection:
         Coherence statistic of the consistently signed beat waveform (about 1
         for noise); see ``EVIDENCE_THRESHOLD``.
     has_beats
-        True when the evidence shows a repeating beat waveform.
+        True when the evidence shows a repeating beat waveform (coherence) or a
+        regular rhythm of similar beats (see ``_rhythm_evidence``); when False no
+        beat is reported (``times_s`` is empty).
     n_candidates, n_rejected, n_recovered
         Template-match candidates, those rejected, beats added by the
         targeted search in long gaps.
@@ -202,9 +266,15 @@ def detect_beats(
        period (first strong peak in the plausible lag range, claimed only
        when the autocorrelation there reaches ``PERIODIC_STRENGTH``), an
        estimate independent of beat picking in the spirit of [2]_; the
-       refractory period is 0.4 of it (never shorter than 0.9 of the fastest
-       plausible beat, which is the refractory period when no period is
-       claimed).
+       envelope is first clipped at ``ENVELOPE_CLIP`` times its 95th
+       percentile so that one large swing cannot own it. The refractory
+       period is 0.4 of it (never shorter than 0.9 of the fastest plausible
+       beat, which is the refractory period when no period is claimed).
+       The period is then settled on the whole stretch before the beats are
+       picked: when the envelope peaks come two a beat (``_second_waves``: the
+       mean waves of alternate peaks differ in shape while each class agrees
+       with itself, and both are of comparable size), the period and the
+       refractory period are doubled (flag).
     4. Envelope peaks are candidates. Epochs of the signed component around
        the stronger half are averaged: the ratio of the mean epoch's energy
        to the mean epoch energy, times the number of epochs, is near 1 for
@@ -244,6 +314,16 @@ def detect_beats(
        0.2 of the median amplitude): a beat is expected there.
     8. Beats whose complex (-0.25 to +0.35 s around J) touches a masked
        sample are dropped; runs of beats are numbered between masked spans.
+       The two-wave test of step 3 is made once more on the picks; when it
+       holds, the class with the smaller waves (not J) is dropped (flag).
+    9. A heartbeat is present when the coherence of step 4 reaches
+       ``EVIDENCE_THRESHOLD`` or, for waveforms the envelope cannot align
+       (an oscillating seismocardiogram, a film's derivative response), when
+       the rhythm shows it: an envelope period, a median template correlation
+       of at least ``RHYTHM_SIMILARITY``, regular intervals agreeing with the
+       period (``_rhythm_evidence``), and a mean beat that is not one sinusoid
+       (``RHYTHM_MAX_SINUSOID``: a steady vibration repeats too). Otherwise no
+       beat is reported.
 
     Departures from the cited methods: [1] picks peaks on the MODWT
     component directly; here the component only feeds the envelope and the
@@ -277,6 +357,16 @@ def detect_beats(
     peaks = peaks[(peaks >= half[0]) & (peaks < comp.size - half[1])]
     if peaks.size < 4:
         return _empty(fs_w, levels, flags + ["too_few_candidates"], period=period)
+    # Settle the period on the whole stretch before the beats are picked: envelope
+    # peaks two a beat (a complex with two comparable waves) halve the envelope period.
+    peak_runs = np.cumsum(~usable_w)[peaks].astype(np.int64)
+    if period is not None and period * fs_w < 0.75 * _pair_span(peaks, peak_runs) and \
+            _second_waves(comp, peaks, peak_runs, env, half,
+                          int(min_period * fs_w)) is not None:
+        period = 2.0 * period
+        refractory = max(0.9 * min_period, 0.4 * period)
+        dist = max(1, int(round(refractory * fs_w)))
+        flags.append("envelope_period_doubled_two_waves_per_beat")
     strong = peaks[env[peaks] >= np.median(env[peaks])]
     epochs = _epochs(comp, strong, half)
     evidence = _coherence(epochs)
@@ -312,6 +402,15 @@ def detect_beats(
             continue
         break
     comp = signed
+    # A complex with two comparable waves: the template match may have locked on the
+    # later one. J leads the complex, so a large wave up to LEAD_WAVE_S earlier (and
+    # under half the period, so never the previous beat's) takes the fiducial.
+    if period is not None:
+        back = int(round(min(LEAD_WAVE_S, 0.4 * period) * fs_w))
+        lead = _recentre(template, half[0], reach_j, back=min(back, half[0] - 1))
+        if not np.array_equal(lead, template):
+            template = lead
+            flags.append("fiducial_moved_to_leading_wave")
 
     sums = _signed_sums(sums, polarity)
     corr, amp = _match(comp, template, half[0], sums=sums)
@@ -340,6 +439,15 @@ def detect_beats(
 
     seg = np.cumsum(~usable_w)
     run_ids = seg[beats].astype(np.int64)
+    second = _second_waves(comp, beats, run_ids, amp, half, int(min_period * fs_w))
+    if second is not None:
+        beats, run_ids = beats[~second], run_ids[~second]
+        flags.append("second_wave_of_each_complex_dropped")
+        same = run_ids[1:] == run_ids[:-1]
+        if period is not None and same.any() and \
+                period * fs_w < 0.75 * float(np.median(np.diff(beats)[same])):
+            period = 2.0 * period  # the envelope period was that of the waves
+            flags.append("envelope_period_doubled_two_waves_per_beat")
     offset = _parabolic_offset(corr, beats)
     offset, trend = _preceding_interval_trend(comp, beats, offset, run_ids, fs_w, max_period)
     if trend is not None:
@@ -347,16 +455,22 @@ def detect_beats(
     times = (beats + offset) / fs_w
     r = corr[beats]
     a = amp[beats] * scale
+    if not has_beats and _rhythm_evidence(times, run_ids, r, period) and \
+            _sinusoid_share(comp, beats, fs_w, period) < RHYTHM_MAX_SINUSOID:
+        has_beats = True
+        flags.remove("no_repeating_beat_waveform")
+        flags.append("beats_accepted_on_rhythm_evidence")
     conf = np.clip((r - 0.2) / 0.7, 0.0, 1.0) * np.clip(a / (0.5 * amp_ref * scale), 0.0, 1.0)
     if not has_beats:
-        conf = conf * 0.0
+        # No heartbeat: the picks are noise, and no beat is reported from them.
+        return _empty(fs_w, levels, flags, period=period, evidence=evidence)
     return BeatDetection(
         times_s=times.astype(np.float64),
         confidence=conf.astype(np.float64),
         correlation=r.astype(np.float64),
         amplitude=a.astype(np.float64),
         run_ids=run_ids,
-        polarity=int(polarity) if has_beats else 0,
+        polarity=int(polarity),
         template=template * scale,
         template_fs_hz=fs_w,
         period_s=period,
@@ -423,6 +537,9 @@ def _zero_masked(comp: NDArray[np.float64], usable: NDArray[np.bool_], widen: in
 def _envelope_period(
     env: NDArray[np.float64], fs: float, min_period: float, max_period: float
 ) -> float | None:
+    # Winsorise: a swing that escaped the mask (a posture change tens of times the
+    # cardiac wave) would otherwise own the autocorrelation; beat peaks stay whole.
+    env = np.minimum(env, ENVELOPE_CLIP * float(np.quantile(env, 0.95)))
     ac = _autocorrelation(env - env.mean(), int(max_period * fs) + 2)
     if ac[0] <= 0:
         return None
@@ -497,15 +614,118 @@ def _coherence(epochs: NDArray[np.float64]) -> float:
     return float(ok.sum() * np.sum(mean * mean))
 
 
+def _rhythm_evidence(times: NDArray[np.float64], run_ids: NDArray[np.int64],
+                     corr: NDArray[np.float64], period: float | None) -> bool:
+    """True when the picked beats form a regular rhythm of similar beats (any waveform).
+
+    Three pieces of evidence that hold for any sensor, all required: periodicity (the
+    envelope autocorrelation claimed a period, ``PERIODIC_STRENGTH``), beat-to-beat
+    similarity and signal-to-noise (median template correlation at least
+    ``RHYTHM_SIMILARITY``), and a regular rhythm that agrees with that period (successive
+    intervals within ``RHYTHM_STEP`` of each other for ``RHYTHM_CONSISTENCY`` of them, and a
+    median interval within ``RHYTHM_AGREEMENT`` of the period). The envelope period is found
+    without picking beats (Brueser et al. 2011, [2]_), so a self-made template cannot
+    supply it. An irregular rhythm fails here and needs the coherence statistic.
+    """
+    if period is None or times.size < 10 or float(np.median(corr)) < RHYTHM_SIMILARITY:
+        return False
+    same = run_ids[1:] == run_ids[:-1]
+    iv = np.diff(times)[same]
+    if iv.size < 8:
+        return False
+    med = float(np.median(iv))
+    steady = float(np.mean(np.abs(np.diff(iv)) < RHYTHM_STEP * med)) if iv.size > 1 else 0.0
+    return steady >= RHYTHM_CONSISTENCY and abs(med / period - 1.0) <= RHYTHM_AGREEMENT
+
+
+def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
+                  run_ids: NDArray[np.int64], amp: NDArray[np.float64], half: tuple[int, int],
+                  min_period: int) -> NDArray[np.bool_] | None:
+    """Mask of picks that are the second wave of a complex, or None (one pick a beat).
+
+    Within each run (at least 6 picks) the picks are split by parity. The mean epochs of
+    the two classes are compared with each other and, as a reference for the noise, each
+    with itself split by alternation again. When the classes correlate
+    ``TWO_WAVE_SHAPE_GAP`` less than the split halves, every other pick is another wave
+    of the same complex: the class with the larger median amplitude holds J (the largest
+    wave, Inan et al. 2015 [4]_) and the other is dropped, provided the weaker class is
+    comparable (``TWO_WAVE_COMPARABLE``) and a pair of picks spans a plausible beat (at
+    least ``min_period`` samples).
+    """
+    cls = np.full(picks.size, -1)
+    for run in np.unique(run_ids):
+        idx = np.flatnonzero(run_ids == run)
+        if idx.size >= 6:
+            cls[idx] = np.arange(idx.size) % 2
+    inside = (picks >= half[0]) & (picks < comp.size - half[1])
+    ok = (cls >= 0) & inside
+    if int(ok.sum()) < TWO_WAVE_MIN_PICKS:
+        return None
+    ep = _epochs(comp, picks[ok], half)
+    c = cls[ok]
+    means = [ep[c == k].mean(axis=0) for k in (0, 1)]
+    between = _pearson(means[0], means[1])
+    within = min(_pearson(ep[c == k][0::2].mean(axis=0), ep[c == k][1::2].mean(axis=0))
+                 for k in (0, 1))
+    if between > within - TWO_WAVE_SHAPE_GAP:
+        return None
+    size = [float(np.median(amp[picks[ok & (cls == k)]])) for k in (0, 1)]
+    keep = int(size[1] > size[0])
+    if size[1 - keep] < TWO_WAVE_COMPARABLE * size[keep] or \
+            _pair_span(picks, run_ids) < min_period:
+        return None
+    return (cls >= 0) & (cls != keep)
+
+
+def _pair_span(picks: NDArray[np.intp], run_ids: NDArray[np.int64]) -> float:
+    """Median span of two consecutive intervals within a run, samples (0 when none)."""
+    same = run_ids[2:] == run_ids[:-2]
+    return float(np.median((picks[2:] - picks[:-2])[same])) if same.any() else 0.0
+
+
+def _pearson(a: NDArray[np.float64], b: NDArray[np.float64]) -> float:
+    a = a - a.mean()
+    b = b - b.mean()
+    den = float(np.sqrt(np.sum(a * a) * np.sum(b * b)))
+    return float(np.sum(a * b) / den) if den > 0 else 0.0
+
+
+def _sinusoid_share(comp: NDArray[np.float64], beats: NDArray[np.intp], fs: float,
+                    period: float | None) -> float:
+    """Share of the mean beat's energy (about its mean) in the best sinusoid at 1/period.
+
+    The mean of the component over one period centred on each beat, fitted by least
+    squares with cos and sin at the beat frequency.
+    """
+    if period is None or beats.size < 3:
+        return 1.0
+    half = int(round(period * fs / 2.0))
+    ok = beats[(beats >= half) & (beats + half <= comp.size)]
+    if ok.size < 3 or half < 2:
+        return 1.0
+    seg = _epochs(comp, ok, (half, half - 1)).mean(axis=0)
+    seg = seg - seg.mean()
+    energy = float(np.sum(seg * seg))
+    if energy <= 0.0:
+        return 1.0
+    w = 2.0 * np.pi * np.arange(-half, half) / (period * fs)
+    basis = np.stack((np.cos(w), np.sin(w)), axis=1)
+    coef, *_ = np.linalg.lstsq(basis, seg, rcond=None)
+    fit = basis @ coef
+    return float(np.sum(fit * fit) / energy)
+
+
 def _first_large(epoch: NDArray[np.float64], centre: int, reach: int,
-                 sign: float = 0.0) -> int:
+                 sign: float = 0.0, back: int | None = None) -> int:
     """Index of the earliest extreme reaching ``LARGE_WAVE_FRACTION`` of the largest.
 
     With ``sign`` 0 both signs count (peaks of the magnitude); with +1 only
     maxima. The J wave is the first large wave of the complex: whatever a
-    lightly damped support adds rings after it.
+    lightly damped support adds rings after it. The search spans ``back``
+    samples before the centre (``reach`` when None) and ``reach`` after it.
     """
-    lo, hi = max(1, centre - reach), min(epoch.size - 1, centre + reach + 1)
+    back = reach if back is None else back
+    lo, hi = max(1, centre - back), min(epoch.size - 1, centre + reach + 1)
     core = epoch[lo:hi]
     mag = np.abs(core) if sign == 0.0 else np.maximum(sign * core, 0.0)
     pk, _ = signal.find_peaks(np.concatenate(([0.0], mag, [0.0])))
@@ -521,8 +741,9 @@ def _polarity(mean_epoch: NDArray[np.float64], centre: int, reach: int) -> int:
     return 1 if mean_epoch[i] >= 0 else -1
 
 
-def _recentre(template: NDArray[np.float64], centre: int, reach: int) -> NDArray[np.float64]:
-    shift = _first_large(template, centre, reach, sign=1.0) - centre
+def _recentre(template: NDArray[np.float64], centre: int, reach: int,
+              back: int | None = None) -> NDArray[np.float64]:
+    shift = _first_large(template, centre, reach, sign=1.0, back=back) - centre
     out = np.roll(template, -shift)
     if shift > 0:
         out[-shift:] = 0.0

@@ -32,6 +32,7 @@ from features.filters import (
 )
 from features.limits import (
     COUNTS_UNIT,
+    COUPLINGS,
     MAINS_HZ,
     MAX_CHANNELS,
     MAX_DURATION_S,
@@ -108,6 +109,10 @@ class ChannelInput:
         Required when ``unit == "counts"``, otherwise None.
     position_m
         (x, y) position of the sensor on the support, m; given for every channel or none.
+    coupling
+        ``"dc"``, ``"ac"`` or None for the default (see ``COUPLINGS``). ``"dc"`` needs a
+        force channel in a force unit or in counts with ``counts_scale``; an ``"ac"``
+        channel may be in counts without a scale (its amplitudes are then in counts).
     """
 
     samples: ArrayLike
@@ -116,6 +121,7 @@ class ChannelInput:
     unit: str
     counts_scale: CountsScale | None = None
     position_m: tuple[float, float] | None = None
+    coupling: str | None = None
 
 
 @dataclass(frozen=True)
@@ -131,8 +137,11 @@ class ConditionedInput:
         Sampling rate, Hz.
     labels, quantities
         Per channel, as given.
+    couplings
+        Per channel, ``"dc"`` or ``"ac"`` (the default resolved; see ``COUPLINGS``).
     units
-        Per channel, ``"N"`` or ``"m/s^2"`` (unit of ``signals`` and ``baseline_si``).
+        Per channel, ``"N"``, ``"m/s^2"``, or ``"counts"`` for counts without a scale
+        (unit of ``signals`` and ``baseline_si``).
     positions_m
         (n_channels, 2) sensor positions in m, or None.
     raw_signals
@@ -145,14 +154,15 @@ class ConditionedInput:
     baseline_fs_hz
         Rate of ``baseline_si`` and ``load_trace_n``, Hz.
     static_load_n
-        Per channel, median force in N for force channels, None otherwise.
+        Per channel, median force in N for ``dc`` channels, None otherwise.
     supported_mass_kg
-        Total static force / g minus ``empty_load_kg``; None without a force channel.
+        Total static force of the ``dc`` channels / g minus ``empty_load_kg``; None
+        without a ``dc`` channel.
     load_trace_n
-        Total force low-passed below ``LOAD_CUTOFF_HZ`` minus the empty-support load,
-        N, at ``baseline_fs_hz``; None without a force channel.
+        Total ``dc`` force low-passed below ``LOAD_CUTOFF_HZ`` minus the empty-support
+        load, N, at ``baseline_fs_hz``; None without a ``dc`` channel.
     occupancy_from_load
-        True/False from the occupant mass bounds; None without a force channel or when
+        True/False from the occupant mass bounds; None without a ``dc`` channel or when
         the load is implausible (see flags).
     mains_hz_removed
         50 or 60 when the hum was notched, else None.
@@ -166,6 +176,7 @@ class ConditionedInput:
     fs_hz: float
     labels: tuple[str, ...]
     quantities: tuple[str, ...]
+    couplings: tuple[str, ...]
     units: tuple[str, ...]
     positions_m: FloatArray | None
     raw_signals: tuple[NDArray[np.generic], ...]
@@ -199,6 +210,14 @@ def occupancy_from_mass(mass_kg: float | None) -> tuple[bool | None, tuple[str, 
     if mass_kg < -MIN_OCCUPANT_KG:
         return None, ("load_below_empty_support_load",)
     return bool(mass_kg >= MIN_OCCUPANT_KG), ()
+
+
+def resolve_coupling(quantity: str, unit: str, has_scale: bool, coupling: str | None) -> str:
+    """The channel's coupling: as given, else ``dc`` only for calibrated force (see COUPLINGS)."""
+    if coupling is not None:
+        return coupling
+    calibrated = unit != "counts" or has_scale
+    return "dc" if quantity == "force" and calibrated else "ac"
 
 
 def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
@@ -256,10 +275,13 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
        at 0.01 Hz). Chosen over plain median removal so that thermal drift and
        posture steps do not sit in the traces; the removed part is kept in
        ``baseline_si`` so the total force per cell can be rebuilt.
-    5. Force channels: total block-mean force, low-passed at ``LOAD_CUTOFF_HZ``,
-       minus ``empty_load_kg * g``, is the load trace; the supported mass is the
-       sum of static forces / g minus ``empty_load_kg``; occupancy follows from
-       ``MIN_OCCUPANT_KG`` and ``MAX_OCCUPANT_KG``.
+    5. ``dc`` channels (calibrated force that carries the weight; see ``COUPLINGS``):
+       total block-mean force, low-passed at ``LOAD_CUTOFF_HZ``, minus
+       ``empty_load_kg * g``, is the load trace; the supported mass is the sum of
+       static forces / g minus ``empty_load_kg``; occupancy follows from
+       ``MIN_OCCUPANT_KG`` and ``MAX_OCCUPANT_KG``. ``ac`` channels give no load: the
+       level of a film, a pad, an accelerometer or an uncalibrated front end says
+       nothing about the occupant's weight.
 
     Mains detection (``"auto"``): Hann periodograms (0.25 Hz resolution) of up to
     16 segments of 4 s spread over the record, averaged; hum is present when the
@@ -278,6 +300,8 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
     """
     fs = check_sampling_rate(fs_hz)
     chans = _check_channels(channels)
+    couplings = tuple(resolve_coupling(ch.quantity, ch.unit, ch.counts_scale is not None,
+                                       ch.coupling) for ch in chans)
     arrays = [_check_samples(ch.samples, i) for i, ch in enumerate(chans)]
     n = _check_lengths(arrays, fs)
     positions = _check_positions(chans)
@@ -309,7 +333,7 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
             response = _response(fs, notch_hz, derivs, flags)
             apply_frequency_response(row, fs, response)
         block_rows[i] = block_means(row, factor)
-        if ch.quantity == "force":
+        if couplings[i] == "dc":
             force_blocks.append(blocks)
     # One call for all channels (row by row the same numbers).
     slow_rows = lowpass(block_rows, slow_fs, BASELINE_CUTOFF_HZ)
@@ -317,7 +341,7 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
         row, slow, level = signals[i], slow_rows[i], levels[i]
         derivs = _DERIVATIVES[ch.quantity]
         subtract_block_series(row, slow, factor)
-        if ch.quantity == "force":
+        if couplings[i] == "dc":
             static.append(level)
             baselines[i] = slow + level
         else:
@@ -331,8 +355,9 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
     return ConditionedInput(
         signals=signals, fs_hz=fs,
         labels=tuple(ch.label for ch in chans),
-        quantities=tuple(ch.quantity for ch in chans),
-        units=tuple(_KINETIC_UNIT[ch.quantity] for ch in chans),
+        quantities=tuple(ch.quantity for ch in chans), couplings=couplings,
+        units=tuple(_KINETIC_UNIT[ch.quantity] if ch.unit != "counts" or ch.counts_scale
+                    else "counts" for ch in chans),
         positions_m=positions, raw_signals=tuple(_read_only(x) for x in arrays),
         baseline_si=baselines, baseline_fs_hz=slow_fs, static_load_n=tuple(static),
         supported_mass_kg=mass, load_trace_n=load, occupancy_from_load=occupied,
@@ -381,12 +406,15 @@ def _check_unit(ch: ChannelInput, i: int) -> None:
             f"channels[{i}].unit", f"`channels[{i}].unit` must be one of {choices} for "
             f"quantity {ch.quantity!r}; got {ch.unit!r}.")
     scale = ch.counts_scale
+    _check_coupling(ch, i)
     if ch.unit != COUNTS_UNIT:
         if scale is not None:
             raise InvalidInputError(
                 f"channels[{i}].counts_scale", f"`channels[{i}].counts_scale` must be None "
                 f"unless unit is 'counts'; got a scale with unit {ch.unit!r}.")
         return
+    if scale is None and resolve_coupling(ch.quantity, ch.unit, False, ch.coupling) == "ac":
+        return  # counts of unknown scale: only their changes are used
     if not isinstance(scale, CountsScale):
         raise InvalidInputError(
             f"channels[{i}].counts_scale", f"`channels[{i}].counts_scale` must be a CountsScale "
@@ -405,6 +433,23 @@ def _check_unit(ch: ChannelInput, i: int) -> None:
         raise InvalidInputError(
             f"channels[{i}].counts_scale.offset_counts", f"`channels[{i}].counts_scale."
             f"offset_counts` must be a finite number; got {scale.offset_counts!r}.")
+
+
+def _check_coupling(ch: ChannelInput, i: int) -> None:
+    field = f"channels[{i}].coupling"
+    if ch.coupling is not None and ch.coupling not in COUPLINGS:
+        raise InvalidInputError(field, f"`{field}` must be one of {list(COUPLINGS)} or None; "
+                                f"got {ch.coupling!r}.")
+    if ch.coupling != "dc":
+        return
+    if ch.quantity != "force":
+        raise InvalidInputError(
+            field, f"`{field}` may be 'dc' only for a force channel (a load cell that carries "
+            f"the occupant's weight); got quantity {ch.quantity!r}. Use 'ac'.")
+    if ch.unit == "counts" and ch.counts_scale is None:
+        raise InvalidInputError(
+            field, f"`{field}` may be 'dc' only with a calibrated scale; got unit 'counts' "
+            "without counts_scale. Give counts_scale, or use 'ac'.")
 
 
 def _as_float(value: object) -> float | None:
@@ -505,7 +550,9 @@ def _check_empty_load(empty_load_kg: object) -> float:
 
 
 def _to_si(x: NDArray[np.generic], ch: ChannelInput, out: FloatArray) -> None:
-    if ch.unit == COUNTS_UNIT:
+    if ch.unit == COUNTS_UNIT and ch.counts_scale is None:
+        np.subtract(x, 0.0, out=out)  # counts of unknown scale stay counts
+    elif ch.unit == COUNTS_UNIT:
         assert ch.counts_scale is not None
         scale = ch.counts_scale
         np.subtract(x, float(scale.offset_counts), out=out)

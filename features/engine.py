@@ -50,7 +50,7 @@ if TYPE_CHECKING:
     from features.feature_vector import FeatureVector
     from features.windows import WindowedAnalysis
 
-FEATURE_SET_VERSION = "3"
+FEATURE_SET_VERSION = "4"
 """Changes whenever the definition of any emitted feature changes."""
 
 MOVEMENT_PAD_S = 0.5
@@ -208,14 +208,19 @@ def analyze(
     cond = condition_channels(channels, fs_hz, mains_hz=options.mains_hz,
                               empty_load_kg=options.empty_load_kg)
     check_signal_present(cond.raw_signals, unloaded=cond.occupancy_from_load is False)
-    force_only = all(q == "force" for q in cond.quantities)
+    # The centre of pressure needs calibrated cells that carry the weight.
+    force_only = all(q == "force" for q in cond.quantities) and \
+        all(c == "dc" for c in cond.couplings)
     fusion = fuse_channels(
         cond.signals, fs_hz, units=cond.units,
         positions_m=cond.positions_m if force_only else None,
         static_n=cond.baseline_si if force_only and cond.positions_m is not None else None,
         static_fs_hz=cond.baseline_fs_hz,
     )
-    mask: ArtifactMask = mask_artifacts(fusion.fused, fs_hz, load_n=cond.load_trace_n,
+    # A load that says "empty" for the whole record does not mask it: the beats are
+    # looked for, and a heartbeat found against it is reported as a disagreement.
+    load_n = cond.load_trace_n if cond.occupancy_from_load is not False else None
+    mask: ArtifactMask = mask_artifacts(fusion.fused, fs_hz, load_n=load_n,
                                         load_fs_hz=cond.baseline_fs_hz,
                                         raw_signals=cond.raw_signals, pad_s=MOVEMENT_PAD_S)
     beats = detect_beats(fusion.fused, fs_hz, usable=mask.usable,
@@ -225,13 +230,19 @@ def analyze(
     occupied = occupancy(cond.occupancy_from_load, cond.supported_mass_kg, beats)
     hr = heart_rate(beats, series, labels, occupied=occupied.occupied)
     hrv = heart_rate_variability(series.times_s, series.intervals_ms, labels.labels)
-    mass, mass_source = _body_mass(subject, cond.supported_mass_kg, occupied.occupied)
+    # The load gives a mass only where it is itself the evidence of an occupant.
+    mass, mass_source = _body_mass(subject, cond.supported_mass_kg,
+                                   bool(occupied.occupied and occupied.from_load))
     morph = beat_morphology(
         fusion.fused * (beats.polarity or 1), fs_hz, beats.times_s,
         beat_confidence=beats.confidence, usable=mask.usable, body_mass_kg=mass,
         amplitude_unit=fusion.unit,
     )
-    resp = breathing(fusion.fused, fs_hz, usable=mask.usable,
+    # No occupant (no heartbeat and no load, or an empty load without a heartbeat): no
+    # breathing either, as when the empty support was masked before the beats.
+    resp_usable = mask.usable if occupied.occupied is not False else \
+        np.zeros_like(mask.usable)
+    resp = breathing(fusion.fused, fs_hz, usable=resp_usable,
                      cop_signal=fusion.cop_respiratory_m, cop_fs_hz=fusion.cop_fs_hz)
     modulation = respiratory_modulation(
         resp.breathing_signal, resp.breathing_fs_hz,
@@ -252,7 +263,7 @@ def analyze(
         warnings.append("the load on the support differs from the stated body mass by over 25%")
 
     n_samples = int(cond.signals.shape[1])
-    quality = signal_quality(mask, beats)
+    quality = signal_quality(mask, beats, from_load=cond.occupancy_from_load)
     summary = InputSummary(
         duration_s=n_samples / fs_hz,
         sampling_rate_hz=float(fs_hz),

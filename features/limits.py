@@ -11,6 +11,7 @@ from types import MappingProxyType
 
 __all__ = [
     "COUNTS_UNIT",
+    "COUPLINGS",
     "DEFAULT_MAX_SAMPLES",
     "DEFAULT_RATE_RANGE_BPM",
     "MAINS_HZ",
@@ -102,6 +103,13 @@ QUANTITIES = ("acceleration", "displacement", "force", "velocity")
 MAINS_HZ = (50, 60)
 #: Unit of a channel recorded in ADC counts (it then needs a counts scale).
 COUNTS_UNIT = "counts"
+#: How a channel is coupled to the occupant's static weight, sorted. ``dc``: a calibrated
+#: load cell that carries the whole weight (or its share with the other ``dc`` cells): its
+#: static level measures the supported mass. ``ac``: anything else (film or piezoelectric
+#: sensors, pneumatic or hydraulic pads, a strain strip under one leg, accelerometers,
+#: AC-coupled front ends, counts of unknown scale): only its changes are used, never its
+#: level. Default: ``dc`` for force in a force unit or in counts with a scale, else ``ac``.
+COUPLINGS = ("ac", "dc")
 
 #: Multiplicative factor from each accepted unit to the SI unit of its quantity. Factors
 #: from NIST SP 811 (2008), Appendix B.8/B.9: 1 lbf = 4.448 221 615 260 5 N;

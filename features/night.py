@@ -227,10 +227,12 @@ def summarize_night(windowed: WindowedAnalysis) -> NightSummary:
     1. Each window owns its time from its start to the next window's start (its whole span
        when windows do not overlap; the last window to its end), so overlapping windows
        never count time twice. A failed window's time, and the unanalysed tail, is unknown.
-    2. Occupied time of a window with load information (``occupancy.from_load`` not None):
-       its own time less its ``empty_support`` segments, so occupancy changes are placed to
-       the engine's mask resolution, not to the window. Without load information the whole
-       window counts by ``occupancy.occupied`` (unknown when None).
+    2. Occupied time of a window with load information (``occupancy.from_load`` not None)
+       that is not unoccupied as a whole: its own time less its ``empty_support``
+       segments, so occupancy changes are placed to the engine's mask resolution, not to
+       the window. A window whose load says empty throughout is masked nowhere (the beats
+       are still looked for), so its own ``occupancy.occupied`` decides it. Without load
+       information the whole window counts by ``occupancy.occupied`` (unknown when None).
     3. Occupied stretches apart by less than :data:`MIN_BED_EXIT_S` are joined; the gaps
        left, when they hold no unknown time, are the bed exits.
     4. Per-window values come from the windows' feature vectors (values and confidences as
@@ -411,9 +413,14 @@ def _occupancy_timeline(
             unknown.append((a, b))
             continue
         confidences.append((a, b, float(occ.confidence)))
-        if occ.from_load is not None:
+        if occ.from_load is not None and occ.occupied is not False:
+            # A load that says empty for part of the window masks that part as
+            # empty_support; one that says empty throughout masks nothing (the beats are
+            # still looked for), and then the window's own decision stands.
             empty = [(s.start_s, s.end_s) for s in w.segments if s.kind == "empty_support"]
             occupied += _subtract([(a, b)], _clip(_merge(empty), a, b))
+        elif occ.from_load is not None:
+            continue
         elif occ.occupied is None:
             unknown.append((a, b))
         elif occ.occupied:

@@ -67,7 +67,9 @@ class OccupancyResult:
         The two independent pieces of evidence (None when not available).
     confidence
         0.95 when both agree, 0.7 when only one is available, 0.4 when they
-        disagree, 0.0 when neither is.
+        disagree (``occupied`` is then True: a heartbeat or a load is there, and the
+        flag ``load_and_heartbeat_disagree`` says which evidence is missing), 0.0
+        when neither is. Only ``dc`` channels give load evidence.
     """
 
     occupied: bool | None
@@ -138,19 +140,29 @@ def _share_at_extremes(x: NDArray[np.generic]) -> float | None:
     return None if count == x.size else count / x.size
 
 
-def signal_quality(mask: ArtifactMask, beats: BeatDetection) -> QualityResult:
+def signal_quality(mask: ArtifactMask, beats: BeatDetection, *,
+                   from_load: bool | None) -> QualityResult:
     """Usable fraction and segments of the artifact mask, with their confidence.
 
     The confidence is the usable fraction, times :data:`NO_HEARTBEAT_FACTOR` when no
-    repeating heartbeat was found.
+    repeating heartbeat was found. A load that said "empty" throughout (``from_load``
+    False) is named in the flags, not masked: the beats are still looked for.
     """
     factor = 1.0 if beats.has_beats else NO_HEARTBEAT_FACTOR
     return QualityResult(
         usable_fraction=mask.usable_fraction,
         segments=mask.segments,
         confidence=float(mask.usable_fraction * factor),
-        flags=tuple(mask.flags),
+        flags=_quality_flags(mask.flags, from_load),
     )
+
+
+def _quality_flags(mask_flags: Sequence[str], from_load: bool | None) -> tuple[str, ...]:
+    """The mask's flags; a load that said "empty" throughout is named, not masked."""
+    if from_load is not False:
+        return tuple(mask_flags)
+    kept = [f for f in mask_flags if f != "empty_support_not_checked_no_load"]
+    return (*kept, "load_says_empty_whole_record_not_masked")
 
 
 def occupancy(from_load: bool | None, mass_kg: float | None,
@@ -175,9 +187,10 @@ def occupancy(from_load: bool | None, mass_kg: float | None,
     elif from_load == from_beat:
         occupied, conf = from_load, BOTH_AGREE_CONFIDENCE
     else:
-        # The load is the direct measurement; a heartbeat on an unloaded
-        # support or none under a load is reported, with low confidence.
-        occupied, conf = from_load, DISAGREE_CONFIDENCE
+        # A heartbeat is direct evidence of an occupant; a load that says "empty"
+        # against it (an uncalibrated or partial load) is reported, not trusted. No
+        # heartbeat under a load keeps the load's answer. Both with low confidence.
+        occupied, conf = True, DISAGREE_CONFIDENCE
         flags.append("load_and_heartbeat_disagree")
     return OccupancyResult(occupied=occupied, supported_mass_kg=mass_kg, from_load=from_load,
                            from_heartbeat=from_beat, confidence=conf, flags=tuple(flags))

@@ -37,6 +37,7 @@ def engine_inputs(request: AnalysisRequest) -> EngineCall:
                 offset_counts=channel.counts_scale.offset_counts,
             ),
             position_m=channel.position_m,
+            coupling=channel.coupling,
         )
         for channel in request.channels
     )

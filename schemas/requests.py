@@ -22,8 +22,10 @@ import numpy as np
 from marshmallow import Schema, ValidationError, fields, post_load, validates_schema
 from marshmallow.validate import Length, OneOf, Range
 
+from features.conditioning import resolve_coupling
 from features.limits import (
     COUNTS_UNIT,
+    COUPLINGS,
     DEFAULT_MAX_SAMPLES,
     MAINS_HZ,
     MAX_BODY_MASS_KG,
@@ -84,6 +86,7 @@ class ChannelRequest:
     samples: np.ndarray
     counts_scale: CountsScaleRequest | None = None
     position_m: tuple[float, float] | None = None
+    coupling: str | None = None
 
 
 @dataclass(frozen=True)
@@ -188,7 +191,8 @@ class ChannelSchema(Schema):
         metadata={
             "description": (
                 "Unit of the samples: force N, kN, kgf, lbf; acceleration m/s^2, m/s2, g, mg; "
-                "velocity m/s, mm/s; displacement m, mm, um; or `counts` with counts_scale."
+                "velocity m/s, mm/s; displacement m, mm, um; or `counts` (with counts_scale "
+                "for a calibrated scale; without it only for an `ac` channel)."
             )
         },
     )
@@ -221,6 +225,20 @@ class ChannelSchema(Schema):
         metadata={"description": "Binary type of samples_base64 (little-endian)."},
     )
     counts_scale = fields.Nested(CountsScaleSchema)
+    coupling = fields.String(
+        validate=OneOf(COUPLINGS, error=f"Must be one of: {_sorted_choices(COUPLINGS)}."),
+        metadata={
+            "description": (
+                "Whether the channel measures the occupant's static weight. `dc`: a "
+                "calibrated load cell that carries the whole weight (or its share with the "
+                "other dc cells); its level gives the supported mass and the load evidence of "
+                "occupancy. `ac`: anything else (film or piezo, pneumatic or hydraulic pads, "
+                "a strain strip under one leg, accelerometers, AC-coupled front ends, counts "
+                "of unknown scale); occupancy then comes from the heartbeat. Default: `dc` "
+                "for force in N, kN, kgf, lbf or counts with counts_scale; `ac` otherwise."
+            )
+        },
+    )
     position_m = fields.List(
         StrictFloat(validate=Range(min=-MAX_POSITION_M, max=MAX_POSITION_M)),
         validate=Length(equal=2),
@@ -263,9 +281,19 @@ class ChannelSchema(Schema):
                 f"got {unit!r}.",
                 field_name="unit",
             )
-        if unit == COUNTS_UNIT and scale is None:
+        coupling = data.get("coupling")
+        if coupling == "dc" and quantity != "force":
             raise ValidationError(
-                f"`counts_scale` must be given when unit is {COUNTS_UNIT!r}.",
+                "`coupling` may be 'dc' only for a force channel (a load cell that carries "
+                f"the occupant's weight); got quantity {quantity!r}. Use 'ac'.",
+                field_name="coupling",
+            )
+        if unit == COUNTS_UNIT and scale is None and \
+                resolve_coupling(quantity, unit, False, coupling) == "dc":
+            raise ValidationError(
+                f"`counts_scale` must be given when unit is {COUNTS_UNIT!r} and coupling is "
+                "'dc'; without a calibrated scale the channel cannot measure weight: give "
+                "counts_scale, or set coupling to 'ac'.",
                 field_name="counts_scale",
             )
         if unit != COUNTS_UNIT and scale is not None:
@@ -306,6 +334,7 @@ class ChannelSchema(Schema):
             samples=samples,
             counts_scale=data.get("counts_scale"),
             position_m=None if position is None else (position[0], position[1]),
+            coupling=data.get("coupling"),
         )
 
 

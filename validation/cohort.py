@@ -35,6 +35,7 @@ import numpy as np
 
 from features import ChannelInput, Subject, analyze
 from simulation import SimulatedRecording, SimulationSettings, simulate
+from simulation.front_ends import sensor_trace
 from validation.baseline import detect_beats_baseline
 from validation.matching import BeatMatch, match_beats
 
@@ -62,13 +63,17 @@ EMPTY_CONFIDENCE_MAX = 0.3
 class CaseSpec:
     """One cohort case: a name, a short description and the simulation settings.
 
-    ``with_subject`` False means the engine is given no body-mass metadata.
+    ``with_subject`` False means the engine is given no body-mass metadata. ``sensor``
+    names a kind of real sensor (``simulation.front_ends.SENSOR_KINDS``) that the
+    simulated channels pass through before both detectors see them; None keeps the
+    simulator's calibrated load cells.
     """
 
     name: str
     conditions: str
     settings: SimulationSettings
     with_subject: bool = True
+    sensor: str | None = None
 
 
 @dataclass(frozen=True)
@@ -217,15 +222,16 @@ def engine_detector(recording: SimulatedRecording, with_subject: bool) -> Detect
 
 
 def build_cases(*, quick: bool = False, seed: int = 0) -> tuple[CaseSpec, ...]:
-    """The cohort: about 50 deterministic cases of 2-5 min (quick: 12 cases of 2 min).
+    """The cohort: about 60 deterministic cases of 2-5 min (quick: 12 cases of 2 min).
 
     Case ``i`` uses simulation seed ``seed * 1000 + i``; durations cycle through 120, 180,
     240 and 300 s.
     """
-    rows: list[tuple[str, str, dict[str, object], bool]] = []
+    rows: list[tuple[str, str, dict[str, object], bool, str | None]] = []
 
-    def add(name: str, conditions: str, with_subject: bool = True, **kw: object) -> None:
-        rows.append((name, conditions, kw, with_subject))
+    def add(name: str, conditions: str, with_subject: bool = True,
+            sensor: str | None = None, **kw: object) -> None:
+        rows.append((name, conditions, kw, with_subject, sensor))
 
     for bpm in (40, 55, 68, 85, 100, 120):
         add(f"rate_{bpm}", f"{bpm} bpm", heart_rate_bpm=float(bpm))
@@ -279,6 +285,25 @@ def build_cases(*, quick: bool = False, seed: int = 0) -> tuple[CaseSpec, ...]:
         n_channels=4, floor_vibration=True)
     add("empty_single_mains", "empty, single, 50 Hz hum", body_mass_kg=None, mains_hz=50.0)
     add("empty_single_noisy", "empty, single, noisy", body_mass_kg=None, snr_db=0.0)
+    # Real kinds of sensor (issue 12): counts of unknown scale, no body mass given.
+    add("sensor_uncalibrated", "uncalibrated counts", with_subject=False,
+        sensor="uncalibrated")
+    add("sensor_ac_coupled", "AC-coupled counts, 0.3 Hz", with_subject=False,
+        sensor="ac_coupled", heart_rate_bpm=58.0)
+    add("sensor_film", "film (dF/dt), counts", with_subject=False, sensor="film",
+        heart_rate_bpm=82.0)
+    add("sensor_one_corner", "one corner cell of four, counts", with_subject=False,
+        sensor="one_corner", n_channels=4)
+    add("sensor_two_waves", "two comparable waves, 95 bpm", with_subject=False,
+        sensor="two_waves", heart_rate_bpm=95.0)
+    add("sensor_two_waves_slow", "two comparable waves, ringing, 62 bpm",
+        with_subject=False, sensor="two_waves", heart_rate_bpm=62.0, support="ringing")
+    add("sensor_swings", "breathing and posture swings 30x", with_subject=False,
+        sensor="swings", breathing_rate_per_min=8.0)
+    add("empty_uncalibrated", "empty, uncalibrated counts", with_subject=False,
+        sensor="uncalibrated", body_mass_kg=None)
+    add("empty_film", "empty, film (dF/dt)", with_subject=False, sensor="film",
+        body_mass_kg=None, snr_db=0.0)
 
     if quick:
         keep = ("rate_68", "fs_100", "snr_3", "inverted", "ringing", "movement_posture",
@@ -287,11 +312,12 @@ def build_cases(*, quick: bool = False, seed: int = 0) -> tuple[CaseSpec, ...]:
         rows = [row for row in rows if row[0] in keep]
     durations = (120.0, 180.0, 240.0, 300.0)
     cases = []
-    for i, (name, conditions, kw, with_subject) in enumerate(rows):
+    for i, (name, conditions, kw, with_subject, sensor) in enumerate(rows):
         duration = 120.0 if quick else durations[i % len(durations)]
         settings = SimulationSettings(duration_s=duration, seed=seed * 1000 + i,
                                       **kw)  # type: ignore[arg-type]
-        cases.append(CaseSpec(name, f"{conditions}; {duration:.0f} s", settings, with_subject))
+        cases.append(CaseSpec(name, f"{conditions}; {duration:.0f} s", settings, with_subject,
+                              sensor))
     return tuple(cases)
 
 
@@ -338,6 +364,8 @@ def _beats_baseline(m_eng: BeatMatch, m_base: BeatMatch, hr_eng: float | None,
 def _score_case(spec: CaseSpec, engine: Detector | None) -> CaseResult:
     started = time.perf_counter()
     rec = simulate(spec.settings)
+    if spec.sensor is not None:
+        rec = _as_sensor(rec, spec.sensor)
     truth = rec.truth
     spans = [(a.start_s, a.end_s) for a in truth.artifact_spans]
     empty = truth.body_mass_kg is None
@@ -380,6 +408,13 @@ def _score_case(spec: CaseSpec, engine: Detector | None) -> CaseResult:
         baseline_fp=m_base.false_positives,
         seconds=time.perf_counter() - started,
     )
+
+
+def _as_sensor(rec: SimulatedRecording, kind: str) -> SimulatedRecording:
+    """The recording as one channel of the named kind of sensor (counts, no positions)."""
+    trace = sensor_trace(rec, kind)
+    return dataclasses.replace(rec, channels=(trace.samples,), labels=(f"sensor_{kind}",),
+                               quantity=trace.quantity, unit=trace.unit, positions_m=None)
 
 
 def _ratio(num: int, den: int) -> float | None:

@@ -314,7 +314,7 @@ def test_error_unit_not_valid_for_quantity_lists_sorted_choices() -> None:
 def test_error_counts_rules() -> None:
     with pytest.raises(InvalidInputError, match=r"`channels\[0\].counts_scale` must be a "
                                                 r"CountsScale when unit is 'counts'"):
-        condition_channels([ChannelInput(_ok(), "a", "force", "counts")], FS)
+        condition_channels([ChannelInput(_ok(), "a", "force", "counts", 2.5)], FS)  # type: ignore[arg-type]
     with pytest.raises(InvalidInputError, match=r"`channels\[0\].counts_scale` must be None "
                                                 r"unless unit is 'counts'"):
         condition_channels([_force(_ok(), counts_scale=CountsScale("N", 1.0))], FS)
@@ -378,3 +378,49 @@ def test_absurd_sample_magnitude_is_rejected() -> None:
         condition_channels([ChannelInput(samples=x, label="a", quantity="force", unit="N")],
                            250.0)
     assert MAX_SAMPLE_MAGNITUDE == 1e12
+
+
+# ----------------------------------------------------------------------------- coupling
+
+
+def test_coupling_defaults_to_dc_only_for_calibrated_force() -> None:
+    x = 700.0 + 0.1 * np.sin(2 * np.pi * 1.2 * _t())
+    chans = [_force(x, "n"),
+             ChannelInput(x, "c", "force", "counts", CountsScale("N", 1.0)),
+             ChannelInput(x, "u", "force", "counts"),
+             ChannelInput(x, "a", "acceleration", "m/s2")]
+    out = condition_channels(chans, FS)
+    assert out.couplings == ("dc", "dc", "ac", "ac")
+    # Counts of unknown scale keep their unit; only the two calibrated cells carry load.
+    assert out.units == ("N", "N", "counts", "m/s^2")
+    assert out.static_load_n[2] is None and out.static_load_n[3] is None
+    # M = F / g (Newton's second law at rest): two cells of 700 N, standard gravity
+    # 9.80665 m/s^2 (NIST SP 811, B.8). The static level is a median of 0.1 s block
+    # means, which a 0.1 N sine can move by at most 0.1 N per cell: 0.2 N / g = 0.02 kg.
+    assert out.supported_mass_kg == pytest.approx(1400.0 / 9.80665, abs=0.02)
+
+
+def test_ac_force_channel_gives_no_load_evidence() -> None:
+    x = 700.0 + 0.1 * np.sin(2 * np.pi * 1.2 * _t())
+    out = condition_channels([_force(x, coupling="ac")], FS)
+    assert out.couplings == ("ac",)
+    assert out.supported_mass_kg is None
+    assert out.load_trace_n is None
+    assert out.occupancy_from_load is None
+    assert out.static_load_n == (None,)
+
+
+@pytest.mark.parametrize(("chan", "message"), [
+    (ChannelInput(_t(), "a", "force", "N", coupling="DC"),
+     r"`channels\[0\].coupling` must be one of \['ac', 'dc'\] or None; got 'DC'"),
+    (ChannelInput(_t(), "a", "acceleration", "g", coupling="dc"),
+     r"`channels\[0\].coupling` may be 'dc' only for a force channel .*got quantity "
+     r"'acceleration'. Use 'ac'"),
+    (ChannelInput(_t(), "a", "force", "counts", coupling="dc"),
+     r"`channels\[0\].coupling` may be 'dc' only with a calibrated scale; got unit 'counts' "
+     r"without counts_scale"),
+])
+def test_error_coupling_rules(chan: ChannelInput, message: str) -> None:
+    with pytest.raises(InvalidInputError, match=message) as info:
+        condition_channels([chan], FS)
+    assert info.value.field == "channels[0].coupling"

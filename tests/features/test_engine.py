@@ -209,3 +209,55 @@ def test_the_unusable_reasons_are_the_two_tested_above():
     from features.errors import UNUSABLE_REASONS
 
     assert UNUSABLE_REASONS == ("clipped_signal", "flat_signal")
+
+
+def test_a_load_that_says_empty_against_a_heartbeat_is_a_disagreement(armchair):
+    # A calibrated-looking scale that is wrong by 100x: the load reads 0.75 kg, under the
+    # occupant bound, while the heartbeat is plain. The beats must still be looked for.
+    chans = _channels(armchair, scale=0.01)
+    r = analyze(chans, armchair.fs_hz)
+    assert r.occupancy.from_load is False
+    assert r.occupancy.from_heartbeat is True
+    assert r.occupancy.occupied is True
+    assert "load_and_heartbeat_disagree" in r.occupancy.flags
+    assert r.occupancy.confidence < 0.5
+    assert r.quality.usable_fraction > 0.9  # not masked as an empty support
+    assert "load_says_empty_whole_record_not_masked" in r.quality.flags
+    # The simulator's truth rate; 1 /min as in the calibrated case above.
+    assert r.heart_rate.mean_bpm == pytest.approx(armchair.truth.heart_rate_bpm, abs=1.0)
+
+
+def test_ac_coupled_cells_take_occupancy_from_the_heartbeat(armchair):
+    chans = [ChannelInput(samples=c.samples, label=c.label, quantity=c.quantity, unit=c.unit,
+                          position_m=c.position_m, coupling="ac") for c in _channels(armchair)]
+    r = analyze(chans, armchair.fs_hz)
+    assert r.occupancy.from_load is None
+    assert r.occupancy.supported_mass_kg is None
+    assert r.occupancy.occupied is True
+    assert r.body_mass_kg is None  # no weight is claimed from an ac sensor
+    assert r.heart_rate.mean_bpm == pytest.approx(armchair.truth.heart_rate_bpm, abs=1.0)
+
+
+def test_an_empty_support_reports_no_breathing_either():
+    # Four cells under an empty plate: the load says empty throughout, so nothing is
+    # masked before the beats are looked for; no heartbeat is found, and the centre of
+    # pressure's drift must not pass for an occupant's breathing.
+    rec = simulate(SimulationSettings(duration_s=120.0, n_channels=4, body_mass_kg=None,
+                                      seed=47))
+    r = analyze(_channels(rec), rec.fs_hz)
+    assert r.occupancy.occupied is False
+    assert r.heart_rate.mean_bpm is None
+    assert r.respiration.rate_per_min is None
+    assert r.respiration.confidence < 0.5
+
+
+def test_a_load_beyond_any_occupant_gives_no_mass_and_no_error(armchair):
+    # A scale 2000x too large: 150 t on the plate. The load is implausible (above
+    # MAX_OCCUPANT_KG), so it is not a body mass; the engine once passed it to the
+    # per-kilogram amplitudes and failed with a 422 about body_mass_kg.
+    r = analyze(_channels(armchair, scale=2000.0), armchair.fs_hz)
+    assert r.occupancy.from_load is None
+    assert "load_above_plausible_occupant_mass" in r.input.flags
+    assert r.body_mass_kg is None
+    assert r.occupancy.occupied is True  # from the heartbeat
+    assert r.heart_rate.mean_bpm == pytest.approx(armchair.truth.heart_rate_bpm, abs=1.0)

@@ -105,7 +105,8 @@ def test_units_follow_the_engine_and_counts_need_a_scale():
             "sampling_rate_hz": 250.0,
             "channels": [
                 {"label": "a", "quantity": "force", "unit": "m/s^2", "samples": [1.0]},
-                {"label": "b", "quantity": "force", "unit": "counts", "samples": [1.0]},
+                {"label": "b", "quantity": "force", "unit": "counts", "samples": [1.0],
+                 "coupling": "dc"},
                 {"label": "c", "quantity": "acceleration", "unit": "counts", "samples": [1.0],
                  "counts_scale": {"unit": "N", "per_count": 0.1}},
             ],
@@ -113,6 +114,29 @@ def test_units_follow_the_engine_and_counts_need_a_scale():
     assert _fields(error.value) == {
         "channels[0].unit", "channels[1].counts_scale", "channels[2].counts_scale.unit"
     }
+
+
+def test_counts_of_unknown_scale_load_as_an_ac_channel():
+    request = AnalysisRequestSchema().load(_body({"unit": "counts", "samples": [1.0, 2.0]}))
+    assert request.channels[0].counts_scale is None
+    assert request.channels[0].coupling is None  # the engine resolves it to "ac"
+    given = AnalysisRequestSchema().load(_body({"coupling": "ac", "samples": [1.0]}))
+    assert given.channels[0].coupling == "ac"
+
+
+@pytest.mark.parametrize(("channel", "field", "fragment"), [
+    ({"coupling": "AC"}, "channels[0].coupling", "Must be one of: ac, dc."),
+    ({"quantity": "acceleration", "unit": "g", "coupling": "dc"}, "channels[0].coupling",
+     "`coupling` may be 'dc' only for a force channel"),
+    ({"unit": "counts", "coupling": "dc"}, "channels[0].counts_scale",
+     "without a calibrated scale the channel cannot measure weight"),
+])
+def test_coupling_rules_name_the_field(channel, field, fragment):
+    with pytest.raises(ValidationError) as error:
+        AnalysisRequestSchema().load(_body({"samples": [1.0], **channel}))
+    by_field = {e["field"]: e["detail"] for e in flatten_errors(error.value.messages)}
+    assert set(by_field) == {field}
+    assert fragment in by_field[field]
 
 
 def test_a_valid_request_loads_into_typed_objects():

@@ -152,6 +152,17 @@ def test_schema_violations_are_422_naming_every_field(client):
     check_against_contract(response, "/v1/analyses", "post")
 
 
+def test_dc_coupling_on_an_accelerometer_is_422(client):
+    channel = {**_valid_channel(), "quantity": "acceleration", "unit": "g", "coupling": "dc"}
+    response = client.post("/v1/analyses", json=_body(channels=[channel]))
+    problem = _assert_problem(response, 422, "urn:heartsway:problem:validation-error")
+    by_field = {error["field"]: error["detail"] for error in problem["errors"]}
+    assert set(by_field) == {"channels[0].coupling"}
+    assert by_field["channels[0].coupling"].startswith(
+        "`coupling` may be 'dc' only for a force channel")
+    check_against_contract(response, "/v1/analyses", "post")
+
+
 def test_unequal_lengths_and_duplicate_labels_are_422(client):
     body = _body(channels=[_valid_channel(3000, "a"), _valid_channel(2999, "a")])
     response = client.post("/v1/analyses", json=body)

@@ -21,7 +21,7 @@ from validation.cohort import (
 
 def test_full_cohort_composition() -> None:
     cases = build_cases()
-    assert 40 <= len(cases) <= 60
+    assert 40 <= len(cases) <= 70
     assert len({c.name for c in cases}) == len(cases)
     settings = [c.settings for c in cases]
     assert {s.fs_hz for s in settings} >= {100.0, 250.0, 500.0, 1000.0}
