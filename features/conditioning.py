@@ -42,6 +42,7 @@ from features.limits import (
     MIN_OCCUPANT_KG,
     STANDARD_GRAVITY_M_S2,
     UNIT_FACTORS,
+    resolve_coupling,
     units_of,
 )
 from features.spectral import welch_spectra
@@ -210,14 +211,6 @@ def occupancy_from_mass(mass_kg: float | None) -> tuple[bool | None, tuple[str, 
     if mass_kg < -MIN_OCCUPANT_KG:
         return None, ("load_below_empty_support_load",)
     return bool(mass_kg >= MIN_OCCUPANT_KG), ()
-
-
-def resolve_coupling(quantity: str, unit: str, has_scale: bool, coupling: str | None) -> str:
-    """The channel's coupling: as given, else ``dc`` only for calibrated force (see COUPLINGS)."""
-    if coupling is not None:
-        return coupling
-    calibrated = unit != "counts" or has_scale
-    return "dc" if quantity == "force" and calibrated else "ac"
 
 
 def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,

@@ -34,6 +34,7 @@ __all__ = [
     "QUANTITIES",
     "STANDARD_GRAVITY_M_S2",
     "UNIT_FACTORS",
+    "resolve_coupling",
     "units_of",
 ]
 
@@ -128,3 +129,11 @@ UNIT_FACTORS = MappingProxyType({
 def units_of(quantity: str) -> list[str]:
     """Sorted units accepted for ``quantity``, :data:`COUNTS_UNIT` included."""
     return sorted([*UNIT_FACTORS[quantity], COUNTS_UNIT])
+
+
+def resolve_coupling(quantity: str, unit: str, has_scale: bool, coupling: str | None) -> str:
+    """The channel's coupling: as given, else ``dc`` only for calibrated force (see COUPLINGS)."""
+    if coupling is not None:
+        return coupling
+    calibrated = unit != COUNTS_UNIT or has_scale
+    return "dc" if quantity == "force" and calibrated else "ac"

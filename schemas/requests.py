@@ -22,7 +22,6 @@ import numpy as np
 from marshmallow import Schema, ValidationError, fields, post_load, validates_schema
 from marshmallow.validate import Length, OneOf, Range
 
-from features.conditioning import resolve_coupling
 from features.limits import (
     COUNTS_UNIT,
     COUPLINGS,
@@ -39,6 +38,7 @@ from features.limits import (
     MIN_WINDOW_S,
     PLACEMENTS,
     QUANTITIES,
+    resolve_coupling,
 )
 from features.limits import units_of as valid_units
 from schemas.fields import (
