@@ -160,7 +160,8 @@ def time_grid(time_s: ArrayLike, *, fs_hz: float | None = None, field: str = "ti
     if back.size:
         k = int(back[0])
         raise InvalidInputError(field, f"`{field}` must increase from row to row; got "
-                                f"{t[k]:g} s then {t[k + 1]:g} s at rows {k}-{k + 1}.")
+                                f"{t[k]:g} s then {t[k + 1]:g} s at rows {k}-{k + 1} "
+                                "(counting from 0).")
     step = 1.0 / float(fs_hz) if fs_hz is not None else float(np.median(steps))
     ratio = steps / step
     whole = np.rint(ratio)
