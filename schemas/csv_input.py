@@ -109,7 +109,6 @@ class CsvUploadFormSchema(Schema):
     """Form fields sent beside the CSV ``file`` in a multipart upload."""
 
     sampling_rate_hz = fields.Float(
-        load_default=None,
         validate=Range(min=MIN_FS_HZ, max=MAX_FS_HZ),
         metadata={"description": (
             f"Sampling rate of every column, {MIN_FS_HZ:g}-{MAX_FS_HZ:g} Hz; may be left out "
@@ -177,7 +176,7 @@ def csv_request_body(text: str, form: dict[str, Any], *,
         errors.update(error.messages_dict)
     if errors or settings is None:
         raise ValidationError(errors)
-    rate = settings["sampling_rate_hz"]
+    rate = settings.get("sampling_rate_hz")
     columns = tuple(np.ascontiguousarray(data[:, i]) for i in range(len(labels)))
     if times is not None:
         try:
