@@ -8,6 +8,8 @@ entry point
     analyze(channels, fs_hz, *, subject, recording, options) -> AnalysisResult
 conditioning
     condition_channels(channels, fs_hz, *, mains_hz, empty_load_kg) -> ConditionedInput
+lost samples (gaps)
+    fill_gaps(samples) -> (filled, gap); time_grid(time_s, *, fs_hz, max_length) -> TimeGrid
 fusion
     fuse_channels(signals, fs_hz, *, units, positions_m, static_n, ...) -> FusionResult
 artifacts
@@ -51,6 +53,7 @@ from features.engine import (
 from features.errors import EngineError, InvalidInputError, UnusableSignalError
 from features.feature_vector import FEATURES, FeatureVector, feature_vector
 from features.fusion import FusionResult, fuse_channels
+from features.gaps import TimeGrid, fill_gaps, time_grid
 from features.heart_rate import HeartRateResult, heart_rate
 from features.intervals import (
     IntervalLabels,
@@ -81,5 +84,5 @@ __all__ = [
     "UnusableSignalError", "VariabilityResult", "analyze", "classify_intervals",
     "condition_channels", "detect_beats", "frequency_domain", "fuse_channels", "heart_rate",
     "heart_rate_variability", "intervals_from_beats", "mask_artifacts", "nonlinear",
-    "time_domain",
+    "time_domain", "TimeGrid", "fill_gaps", "time_grid",
 ]

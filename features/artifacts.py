@@ -1,10 +1,11 @@
 """Motion and artifact masking: which parts of a fused trace can be trusted.
 
 ``mask_artifacts`` finds body movement, posture changes, clipping, flat lines and
-an empty support, and returns them as sorted, merged :class:`Segment` objects plus
-a per-sample ``usable`` mask. Every threshold is relative to the recording's own
-robust level (median and MAD), so multiplying the input by any constant gives the
-same mask; the only physical threshold is the occupant mass bound for the load.
+an empty support, masks the samples the device lost (gaps), and returns them as
+sorted, merged :class:`Segment` objects plus a per-sample ``usable`` mask. Every
+threshold is relative to the recording's own robust level (median and MAD), so
+multiplying the input by any constant gives the same mask; the only physical
+threshold is the occupant mass bound for the load.
 """
 
 from __future__ import annotations
@@ -21,9 +22,10 @@ from features._checks import check_sampling_rate
 from features._numeric import MAD_TO_SD, robust_sd, runs
 from features.errors import InvalidInputError
 from features.filters import FloatArray, block_factor, block_means, highpass
+from features.gaps import GAP_PAD_S
 from features.limits import MIN_DURATION_S, MIN_OCCUPANT_KG, STANDARD_GRAVITY_M_S2
 
-KINDS = ("movement", "posture_change", "clipping", "flat_line", "empty_support")
+KINDS = ("movement", "posture_change", "clipping", "flat_line", "empty_support", "gap")
 
 #: Envelope: 0.25 s blocks, averaged over 1 s (about one beat), above 0.5 Hz.
 _ENV_BLOCK_S = 0.25
@@ -93,8 +95,9 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
                    load_fs_hz: float | None = None,
                    raw_signals: Sequence[ArrayLike] | None = None,
                    min_occupant_kg: float = MIN_OCCUPANT_KG, movement_k: float = 5.0,
-                   pad_s: float = 1.0, min_flat_s: float = 0.25) -> ArtifactMask:
-    """Mask movement, posture changes, clipping, flat lines and an empty support.
+                   pad_s: float = 1.0, min_flat_s: float = 0.25,
+                   gap: ArrayLike | None = None, gap_pad_s: float = GAP_PAD_S) -> ArtifactMask:
+    """Mask movement, posture changes, clipping, flat lines, an empty support and gaps.
 
     Parameters
     ----------
@@ -121,6 +124,11 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
         Padding added to each side of movement and empty-support segments, s (>= 0).
     min_flat_s
         Shortest flat line, s (0.01 to 10).
+    gap
+        (n,) bool, True where samples were missing and filled
+        (``ConditionedInput.gap``), or None when none were.
+    gap_pad_s
+        Padding added to each side of a gap, s (>= 0; :data:`features.gaps.GAP_PAD_S`).
 
     Returns
     -------
@@ -167,6 +175,10 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
        window on either side: about 3 s around a sharp step. The data on either side
        stay usable at their own level (the step itself is what would bias a beat or a
        breath), and the movement detector masks the motion that usually comes with it.
+    6. Gaps: runs of ``gap``, padded by ``gap_pad_s`` (the filters' settling next to the
+       filled line). They are excluded from the movement statistics like flat and empty
+       spans, and a segment of another kind lying wholly inside a padded gap (the held
+       ends of a fill look flat) is dropped: the gap is the reason there.
 
     All steps are vectorised (reshaped blocks, sliding windows); the cost is linear
     in the record length.
@@ -189,9 +201,10 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
         raise InvalidInputError("min_flat_s", "`min_flat_s` must be between 0.01 and 10 s; got "
                                 f"{min_flat:g}.")
     occupant_kg = _positive("min_occupant_kg", min_occupant_kg)
+    gaps = _gap_spans(gap, n, int(round(_positive("gap_pad_s", gap_pad_s, allow_zero=True) * fs)))
 
-    flags: list[str] = []
-    spans: list[tuple[str, int, int]] = []
+    flags: list[str] = ["gaps_masked"] if gaps else []
+    spans: list[tuple[str, int, int]] = list(gaps)
     sources: list[NDArray[np.generic]] = list(raws) if raws is not None else [x]
     if raws is None:
         flags.append("clipping_and_flat_checked_on_fused")
@@ -214,7 +227,7 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
     for src, src_factor in posture_sources:
         spans += _posture(src, fs / src_factor, src_factor, k, n)
 
-    segments, usable = _assemble(spans, n, fs)
+    segments, usable = _assemble(_outside_gaps(spans, gaps, n), n, fs)
     return ArtifactMask(usable=usable, usable_fraction=float(usable.mean()),
                         segments=segments, movement_threshold_ratio=ratio,
                         confidence=conf, flags=tuple(flags))
@@ -281,6 +294,33 @@ def _check_load(load_n: ArrayLike | None, load_fs_hz: float | None, fs: float, n
                                 f"{rate:g} Hz, about {n // factor} samples); got "
                                 f"{load.shape[0]} samples.")
     return load, factor
+
+
+def _gap_spans(gap: ArrayLike | None, n: int, pad: int) -> list[tuple[str, int, int]]:
+    if gap is None:
+        return []
+    g = np.asarray(gap)
+    if g.shape != (n,) or g.dtype != np.bool_:
+        raise InvalidInputError("gap", f"`gap` must be a boolean array of {n} samples (the "
+                                f"length of fused) or None; got shape {g.shape} and dtype "
+                                f"{g.dtype}.")
+    starts, ends = runs(g)
+    return [("gap", max(0, int(a) - pad), min(n, int(b) + pad))
+            for a, b in zip(starts, ends, strict=True)]
+
+
+def _outside_gaps(spans: list[tuple[str, int, int]], gaps: list[tuple[str, int, int]],
+                  n: int) -> list[tuple[str, int, int]]:
+    """``spans`` without the segments of other kinds that lie wholly inside a gap."""
+    if not gaps:
+        return spans
+    inside = np.zeros(n + 1, dtype=np.int64)
+    for _, a, b in gaps:
+        inside[a] += 1
+        inside[b] -= 1
+    covered = np.concatenate(([0], np.cumsum(np.cumsum(inside)[:n] > 0)))
+    return [(k, a, b) for k, a, b in spans
+            if k == "gap" or covered[b] - covered[a] < b - a]
 
 
 def _positive(field: str, value: object, *, allow_zero: bool = False) -> float:

@@ -30,6 +30,7 @@ from features.filters import (
     raised_cosine_notches,
     subtract_block_series,
 )
+from features.gaps import check_enough_samples, fill_gaps
 from features.limits import (
     COUNTS_UNIT,
     COUPLINGS,
@@ -98,7 +99,8 @@ class ChannelInput:
     Parameters
     ----------
     samples
-        1-D array-like of finite numbers, one per sample.
+        1-D array-like of numbers, one per sample; NaN marks a sample the device lost
+        (a dropout, masked as a gap); infinity is refused.
     label
         Unique channel name, for example ``"cell_front_left"``.
     quantity
@@ -171,6 +173,9 @@ class ConditionedInput:
         Fraction of channels that carry a signal (not constant after conditioning).
     flags
         Everything adapted or noticed, as plain strings.
+    gap
+        (n,) True where any channel's sample was missing (NaN) and was filled
+        (:func:`features.gaps.fill_gaps`) before filtering; None when none was.
     """
 
     signals: FloatArray
@@ -190,6 +195,7 @@ class ConditionedInput:
     mains_hz_removed: int | None
     confidence: float
     flags: tuple[str, ...]
+    gap: NDArray[np.bool_] | None = None
 
 
 def valid_units(quantity: str) -> list[str]:
@@ -240,11 +246,16 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
     ------
     InvalidInputError
         When any rule above is broken, naming the field (for example
-        ``"channels[2].unit"``), or when samples are not finite, or when the
-        record is shorter than ``MIN_DURATION_S`` or longer than ``MAX_DURATION_S``.
+        ``"channels[2].unit"``), or when samples are infinite, or when the
+        record is shorter than ``MIN_DURATION_S`` or longer than ``MAX_DURATION_S``, or
+        when its samples besides the gaps span less than ``MIN_DURATION_S``.
 
     Notes
     -----
+    0. Missing samples (NaN) are filled by a straight line across each gap
+       (:func:`features.gaps.fill_gaps`), so that no filter below sees NaN; where any
+       channel missed a sample is kept in ``gap`` for the artifact stage to mask.
+
     Per channel, one at a time (peak memory: the output plus about two float64
     copies of one channel):
 
@@ -297,11 +308,12 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
                                        ch.coupling) for ch in chans)
     arrays = [_check_samples(ch.samples, i) for i, ch in enumerate(chans)]
     n = _check_lengths(arrays, fs)
+    arrays, gap = _fill_gaps(arrays, fs)
     positions = _check_positions(chans)
     mains = _check_mains(mains_hz)
     empty_kg = _check_empty_load(empty_load_kg)
 
-    flags: list[str] = []
+    flags: list[str] = [] if gap is None else ["missing_samples_filled"]
     notch_hz = _choose_mains(arrays, chans, fs, mains, flags)
     factor = block_factor(fs, SLOW_FS_HZ)
     slow_fs = fs / factor
@@ -355,6 +367,7 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
         baseline_si=baselines, baseline_fs_hz=slow_fs, static_load_n=tuple(static),
         supported_mass_kg=mass, load_trace_n=load, occupancy_from_load=occupied,
         mains_hz_removed=notch_hz, confidence=live / len(chans), flags=tuple(flags),
+        gap=gap,
     )
 
 
@@ -464,13 +477,13 @@ def _check_samples(samples: ArrayLike, i: int) -> NDArray[np.generic]:
     if x.dtype.kind not in "iuf":
         raise InvalidInputError(field, f"`{field}` must hold real numbers; got dtype {x.dtype}.")
     if x.dtype.kind == "f":
-        bad = ~np.isfinite(x)
+        bad = np.isinf(x)
         count = int(np.count_nonzero(bad))
         if count:
             first = int(np.argmax(bad))
             raise InvalidInputError(
-                field, f"`{field}` must be finite (no NaN or inf); got {count} non-finite "
-                f"sample(s), the first at index {first}. Fill or cut the gaps before sending.")
+                field, f"`{field}` must not hold infinity (a missing sample is NaN); got "
+                f"{count} infinite sample(s), the first at index {first}.")
         big = np.abs(x) > MAX_SAMPLE_MAGNITUDE
         if big.any():
             first = int(np.argmax(big))
@@ -499,6 +512,24 @@ def _check_lengths(arrays: list[NDArray[np.generic]], fs: float) -> int:
             "channels[0].samples", f"`channels[0].samples` must span at most "
             f"{MAX_DURATION_S:g} s (24 h); got {duration:g} s. Split the record.")
     return int(n)
+
+
+def _fill_gaps(arrays: list[NDArray[np.generic]], fs: float
+               ) -> tuple[list[NDArray[np.generic]], NDArray[np.bool_] | None]:
+    """Each channel with its missing samples filled, and where any channel missed one."""
+    out: list[NDArray[np.generic]] = []
+    union: NDArray[np.bool_] | None = None
+    for i, x in enumerate(arrays):
+        if x.dtype.kind != "f" or not np.isnan(x).any():
+            out.append(x)
+            continue
+        check_enough_samples(np.isnan(x), fs, f"channels[{i}].samples")
+        filled, gap = fill_gaps(x)
+        out.append(filled)
+        union = gap if union is None else union | gap
+    if union is not None:
+        check_enough_samples(union, fs, "channels[0].samples")
+    return out, union
 
 
 def _check_positions(chans: list[ChannelInput]) -> FloatArray | None:

@@ -60,6 +60,10 @@ decay time constant 1/(zeta*omega) under 0.2 s; textbook mass-spring-damper); th
 stage bridges masked spans, so the wavelet filters add no further leakage."""
 
 
+GAPS_WARNING = "samples are missing (dropouts); those spans are masked as gaps"
+"""The warning (and window flag) of a recording with missing samples."""
+
+
 @dataclass(frozen=True)
 class Subject:
     """Who sat on the support. Every field is optional."""
@@ -222,7 +226,8 @@ def analyze(
     load_n = cond.load_trace_n if cond.occupancy_from_load is not False else None
     mask: ArtifactMask = mask_artifacts(fusion.fused, fs_hz, load_n=load_n,
                                         load_fs_hz=cond.baseline_fs_hz,
-                                        raw_signals=cond.raw_signals, pad_s=MOVEMENT_PAD_S)
+                                        raw_signals=cond.raw_signals, pad_s=MOVEMENT_PAD_S,
+                                        gap=cond.gap)
     beats = detect_beats(fusion.fused, fs_hz, usable=mask.usable,
                          rate_range_bpm=options.rate_range_bpm)
     series = intervals_from_beats(beats.times_s, run_ids=beats.run_ids)
@@ -255,6 +260,8 @@ def analyze(
     warnings: list[str] = []
     if mask.usable_fraction < 0.5:
         warnings.append("less than half of the recording is usable")
+    if cond.gap is not None:
+        warnings.append(GAPS_WARNING)
     if not beats.has_beats:
         warnings.append("no repeating heartbeat waveform was found")
     stated = subject.body_mass_kg

@@ -198,7 +198,9 @@ def occupancy(from_load: bool | None, mass_kg: float | None,
 
 CATALOGUE: tuple[FeatureDefinition, ...] = (
     FeatureDefinition("usable_fraction", "quality", None,
-                      "Fraction of the recording not masked as movement or another artifact.",
+                      "Fraction of the recording not masked as movement, another artifact or "
+                      "a gap (samples the device lost, with the filters' settling either "
+                      "side).",
                       UNIT_INTERVAL, REF_OURS, "quality.usable_fraction", "quality.confidence",
                       (), ("quality.flags",)),
 )

@@ -88,7 +88,8 @@ class WindowResult:
     usable_fraction
         Share of the window not masked as artifact; None when ``error``.
     flags
-        The engine's warnings for the window.
+        The engine's warnings for the window; :data:`features.engine.GAPS_WARNING` when it
+        holds samples the device lost (their ``segments`` of kind ``"gap"``).
     error
         Set when the engine raised for this window, else None.
     occupancy

@@ -9,6 +9,7 @@ past the limit is refused before anything is decompressed or allocated.
 from __future__ import annotations
 
 import io
+import re
 import struct
 import tokenize
 import warnings
@@ -30,12 +31,20 @@ from fileformats.bounds import (
 )
 from fileformats.errors import UnreadableFileError, optional_module
 from fileformats.parquet_pages import column_chunks, page_sizes
-from fileformats.raw import MAX_ITEMSIZE, RawTrace, finite_float64, unique_labels
+from fileformats.raw import (
+    MAX_ITEMSIZE,
+    TIME_COLUMN,
+    RawTrace,
+    samples_float64,
+    unique_labels,
+)
 
 #: Names of the scalar that carries the sampling rate in an ``.npz`` or in Parquet metadata.
 RATE_KEYS = ("sampling_rate_hz", "fs_hz")
-#: A column (any case) of time stamps, not a channel (as in CSV).
-TIME_COLUMN = "time_s"
+#: An empty CSV cell (blank or spaces, next to a comma): a lost sample, read as NaN.
+_EMPTY_CELL = re.compile(r"(?<=,)[ \t]*(?=,|\r?$)|^[ \t]*(?=,)", re.MULTILINE)
+#: A blank line: in a one-column file, the empty cell of a lost sample.
+_BLANK_LINE = re.compile(r"^[ \t]*(?=\r?$)", re.MULTILINE)
 #: Longest NPY header read, bytes (numpy's own default for ``np.load``).
 MAX_NPY_HEADER_BYTES = 10_000
 #: What a broken NPY header or zip archive raises inside numpy and zipfile.
@@ -124,7 +133,7 @@ def read_npy(data: bytes, *, max_samples: int | None = None) -> RawTrace:
     array = _array(data, shape, fortran, dtype, offset)
     if array.ndim == 1:
         array = array[:, None]
-    array = finite_float64(array, "the array")
+    array = samples_float64(array, "the array")
     n = array.shape[1]
     return RawTrace(
         labels=tuple(f"channel_{k}" for k in range(1, n + 1)),
@@ -180,7 +189,8 @@ def _npz_members(archive: zipfile.ZipFile, limit: int) -> dict[str, np.ndarray]:
 
 
 def read_npz(data: bytes, *, max_samples: int | None = None) -> RawTrace:
-    """One 1-D array per channel, named by its label; an optional 0-d ``sampling_rate_hz``.
+    """One 1-D array per channel, named by its label; an optional 0-d ``sampling_rate_hz``
+    and an optional 1-D ``time_s`` (one time per sample, s).
 
     Parameters
     ----------
@@ -224,7 +234,11 @@ def read_npz(data: bytes, *, max_samples: int | None = None) -> RawTrace:
                     "file", f"`{key}` in the .npz must be a single number (0-d array); got "
                     f"shape {value.shape}."
                 )
-            rate = float(finite_float64(value.reshape(1), f"`{key}`")[0])
+            rate = float(samples_float64(value.reshape(1), f"`{key}`")[0])
+            if not np.isfinite(rate):
+                raise UnreadableFileError("file", f"`{key}` in the .npz must be a number; "
+                                          "got NaN.")
+    times = _time_member(arrays)
     bad = sorted(name for name, a in arrays.items() if a.ndim != 1)
     if bad:
         raise UnreadableFileError(
@@ -236,10 +250,23 @@ def read_npz(data: bytes, *, max_samples: int | None = None) -> RawTrace:
     labels = list(arrays)
     return RawTrace(
         labels=unique_labels(labels),
-        samples=tuple(finite_float64(arrays[name], f"array {name[:40]!r}") for name in labels),
+        samples=tuple(samples_float64(arrays[name], f"array {name[:40]!r}") for name in labels),
         units=(None,) * len(labels),
         rates_hz=(rate,) * len(labels),
+        times_s=times,
     )
+
+
+def _time_member(arrays: dict[str, np.ndarray]) -> np.ndarray | None:
+    """The ``time_s`` member of an archive (any case), taken out of the channels."""
+    for name in list(arrays):
+        if name.lower() == TIME_COLUMN:
+            value = arrays.pop(name)
+            if value.ndim != 1:
+                raise UnreadableFileError("file", f"`{name}` in the .npz must be a 1-D array "
+                                          f"of times; got shape {value.shape}.")
+            return samples_float64(value, f"`{name}`")
+    return None
 
 
 def _text(value: bytes) -> str:
@@ -247,21 +274,24 @@ def _text(value: bytes) -> str:
 
 
 def _parquet_plan(pf: object, pa: object, data: bytes,
-                  limit: int) -> tuple[list[str], list[int]]:
-    """Channel columns and their field positions, after the metadata and page checks."""
+                  limit: int) -> tuple[list[str], list[int], str | None]:
+    """Channel columns, their field positions and the time column (or None), after the
+    metadata and page checks."""
     metadata = pf.metadata  # type: ignore[attr-defined]
     schema = pf.schema_arrow  # type: ignore[attr-defined]
     names, positions = [], []
+    time_name = None
     for k, field in enumerate(schema):
         if field.name.lower() == TIME_COLUMN:
-            continue
+            time_name = field.name
         if not (pa.types.is_integer(field.type) or pa.types.is_floating(field.type)):  # type: ignore[attr-defined]
             raise UnreadableFileError(
                 "file", f"`file` must hold numeric columns; column {field.name[:40]!r} is "
                 f"{field.type}."
             )
-        names.append(field.name)
-        positions.append(k)
+        if field.name != time_name:
+            names.append(field.name)
+            positions.append(k)
     if not names:
         raise UnreadableFileError("file", "`file` must hold at least one channel column; "
                                   "got none.")
@@ -275,7 +305,7 @@ def _parquet_plan(pf: object, pa: object, data: bytes,
             "file", f"`file` must have row groups that add up to its row count "
             f"({metadata.num_rows}); they add up to {rows}."
         )
-    wanted = set(names)
+    wanted = set(names) | ({time_name} if time_name else set())
     chunks = [c for c in column_chunks(data) if c.name in wanted]
     uncompressed = sum(c.uncompressed_bytes for c in chunks)
     compressed = sum(c.compressed_bytes for c in chunks)
@@ -291,7 +321,7 @@ def _parquet_plan(pf: object, pa: object, data: bytes,
         if inflated > byte_cap(limit):
             raise refuse_bytes(inflated, limit, "its page headers")
     check_ratio(inflated, stored, "its page headers")
-    return names, positions
+    return names, positions, time_name
 
 
 def _parquet_columns(pf: object, names: list[str], limit: int) -> list[np.ndarray]:
@@ -312,20 +342,19 @@ def _parquet_columns(pf: object, names: list[str], limit: int) -> list[np.ndarra
             )
         for k, name in enumerate(names):
             column = table.column(name)
-            if column.null_count:
-                raise UnreadableFileError(
-                    "file", f"`file` must have no missing values; column {name[:40]!r} has "
-                    f"{column.null_count}."
-                )
-            parts[k].append(finite_float64(column.to_numpy(), f"column {name[:40]!r}"))
+            # A null is a lost sample: NaN (pyarrow widens an integer column that has one).
+            values = column.to_numpy(zero_copy_only=False) if column.null_count else \
+                column.to_numpy()
+            parts[k].append(samples_float64(values, f"column {name[:40]!r}"))
     return [np.concatenate(p) if p else np.zeros(0) for p in parts]
 
 
 def read_parquet(data: bytes, *, max_samples: int | None = None) -> RawTrace:
-    """A table with one numeric column per channel (``time_s`` dropped).
+    """A table with one numeric column per channel and an optional ``time_s`` column.
 
     A column's field metadata ``unit`` gives its unit; the file's key-value
-    metadata ``sampling_rate_hz`` (or ``fs_hz``) gives the rate.
+    metadata ``sampling_rate_hz`` (or ``fs_hz``) gives the rate, or else the ``time_s``
+    column does (:func:`fileformats.read_trace`). A null is a lost sample (NaN).
 
     Parameters
     ----------
@@ -337,8 +366,8 @@ def read_parquet(data: bytes, *, max_samples: int | None = None) -> RawTrace:
     Raises
     ------
     UnreadableFileError
-        For a file pyarrow cannot read, a column that is not numeric or has nulls,
-        or metadata that declares more than the limit allows.
+        For a file pyarrow cannot read, a column that is not numeric, or metadata that
+        declares more than the limit allows.
 
     Notes
     -----
@@ -348,16 +377,17 @@ def read_parquet(data: bytes, *, max_samples: int | None = None) -> RawTrace:
     2. The page headers of the channel columns (:mod:`fileformats.parquet_pages`)
        are walked and their declared sizes checked the same way: a footer that
        understates its pages is caught before a page is inflated.
-    3. Row groups are then read one at a time (``time_s`` never), with a running
-       cap on the bytes they produce.
+    3. Row groups are then read one at a time, with a running cap on the bytes they
+       produce.
     """
     limit = resolve_limit(max_samples)
     pa = optional_module("pyarrow", "Parquet")
     pq = optional_module("pyarrow.parquet", "Parquet")
     try:
         pf = pq.ParquetFile(pa.BufferReader(data))
-        names, positions = _parquet_plan(pf, pa, data, limit)
-        samples = _parquet_columns(pf, names, limit)
+        names, positions, time_name = _parquet_plan(pf, pa, data, limit)
+        columns = _parquet_columns(pf, names + ([time_name] if time_name else []), limit)
+        samples = columns[:len(names)]
         schema = pf.schema_arrow
     except UnreadableFileError:
         raise
@@ -386,6 +416,7 @@ def read_parquet(data: bytes, *, max_samples: int | None = None) -> RawTrace:
         samples=tuple(samples),
         units=tuple(units),
         rates_hz=(rate,) * len(names),
+        times_s=columns[-1] if time_name else None,
     )
 
 
@@ -394,8 +425,38 @@ def csv_rows(text: str) -> int:
     return text.count("\n") + (0 if text.endswith("\n") else 1)
 
 
+def csv_table(rest: str, columns: int) -> np.ndarray:
+    """The rows below a CSV header of ``columns`` names as a 2-D float64 array
+    (``numpy.loadtxt``); an empty cell is a lost sample (NaN). In a one-column file an
+    empty cell is a blank line (the blank lines at the end are not rows); with more
+    columns a blank line is skipped, as numpy does, and an empty cell sits by a comma.
+
+    Raises
+    ------
+    ValueError
+        numpy's, naming the row and column, for a cell that is not a number.
+    """
+    with warnings.catch_warnings():
+        # Rows that are all comments or blank: numpy warns, and the callers refuse an
+        # empty table with a reason.
+        warnings.filterwarnings("ignore", "loadtxt: input contained no data", UserWarning)
+        if columns == 1 and rest.strip():
+            trimmed = rest.rstrip()
+            filled = _BLANK_LINE.sub("nan", trimmed)
+            if filled != trimmed:
+                rest = filled + "\n"
+        try:
+            return np.loadtxt(io.StringIO(rest), delimiter=",", dtype=np.float64, ndmin=2)
+        except ValueError:
+            filled = _EMPTY_CELL.sub("nan", rest)
+            if filled == rest:
+                raise
+        return np.loadtxt(io.StringIO(filled), delimiter=",", dtype=np.float64, ndmin=2)
+
+
 def read_csv(data: bytes, *, max_samples: int | None = None) -> RawTrace:
-    """Comma-separated text: a header row of labels, one column per channel (``time_s`` dropped).
+    """Comma-separated text: a header row of labels, one column per channel, and an optional
+    ``time_s`` column; an empty cell is a lost sample (NaN).
 
     The same rules as the service's CSV upload (``schemas.csv_input``), in the
     library: numbers parsed by ``numpy.loadtxt``, after the lines times the channel
@@ -424,11 +485,7 @@ def read_csv(data: bytes, *, max_samples: int | None = None) -> RawTrace:
     keep = [k for k, name in enumerate(names) if name.lower() != TIME_COLUMN]
     check_samples(csv_rows(rest) * len(keep), limit, "its lines")
     try:
-        with warnings.catch_warnings():
-            # Rows that are all comments or blank: numpy warns, and the size check
-            # below refuses the file with a reason.
-            warnings.filterwarnings("ignore", "loadtxt: input contained no data", UserWarning)
-            table = np.loadtxt(io.StringIO(rest), delimiter=",", dtype=np.float64, ndmin=2)
+        table = csv_table(rest, len(names))
     except ValueError:
         raise UnreadableFileError(
             "file", "`file` must hold one number per column in every row below the header; "
@@ -439,10 +496,12 @@ def read_csv(data: bytes, *, max_samples: int | None = None) -> RawTrace:
             "file", f"`file` must have data rows of {len(names)} numbers (one per header "
             "column); got none or rows of another length."
         )
+    times = [k for k in range(len(names)) if k not in keep]
     return RawTrace(
         labels=unique_labels([names[k] for k in keep]),
-        samples=tuple(finite_float64(np.ascontiguousarray(table[:, k]), f"column "
+        samples=tuple(samples_float64(np.ascontiguousarray(table[:, k]), f"column "
                                       f"{names[k][:40]!r}") for k in keep),
         units=(None,) * len(keep),
         rates_hz=(None,) * len(keep),
+        times_s=np.ascontiguousarray(table[:, times[0]]) if times else None,
     )

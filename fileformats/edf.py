@@ -9,7 +9,7 @@ import numpy as np
 
 from fileformats.bounds import check_samples, resolve_limit
 from fileformats.errors import UnreadableFileError, optional_module
-from fileformats.raw import RawTrace, finite_float64, unique_labels
+from fileformats.raw import RawTrace, samples_float64, unique_labels
 
 #: Bytes of each signal's header fields before "samples per data record" (label,
 #: transducer, physical dimension, physical min and max, digital min and max, prefiltering):
@@ -117,7 +117,7 @@ def read_edf(data: bytes, *, bdf: bool = False, max_samples: int | None = None) 
             edf = reader(io.BytesIO(data))
             continuous = edf.is_continuous if hasattr(edf, "is_continuous") else True
             signals = list(edf.signals)
-            samples = tuple(finite_float64(np.asarray(s.data), f"signal {k + 1}")
+            samples = tuple(samples_float64(np.asarray(s.data), f"signal {k + 1}")
                             for k, s in enumerate(signals))
             annotated = bool(edf.annotations)
     except UnreadableFileError:

@@ -12,8 +12,9 @@ from pathlib import Path
 from features.conditioning import ChannelInput, valid_units
 from features.limits import COUNTS_UNIT, QUANTITIES
 from fileformats import arrays, edf, wfdb_records
+from fileformats.bounds import resolve_limit
 from fileformats.errors import UnreadableFileError
-from fileformats.raw import RawTrace
+from fileformats.raw import RawTrace, on_time_grid
 from fileformats.units import normalise_unit, quantity_of_unit
 
 #: The formats read, sorted.
@@ -176,15 +177,16 @@ def _select(raw: RawTrace, channels: Sequence[str] | None) -> list[int]:
     return [raw.labels.index(c) for c in wanted]
 
 
-def _rate(raw: RawTrace, picked: list[int], fs_hz: float | None) -> float:
+def _rate(raw: RawTrace, picked: list[int], fs_hz: float | None) -> float | None:
+    """The rate sent or carried in the header; None when only a time column can give it."""
     rates = {raw.rates_hz[k] for k in picked}
     if None in rates:
-        if fs_hz is None:
+        if fs_hz is None and raw.times_s is None:
             raise UnreadableFileError(
-                "sampling_rate_hz", "`sampling_rate_hz` must be given: this file does not "
-                "carry its sampling rate; got none."
+                "sampling_rate_hz", "`sampling_rate_hz` must be given: this file carries "
+                "neither its sampling rate nor a `time_s` column; got none."
             )
-        return float(fs_hz)
+        return None if fs_hz is None else float(fs_hz)
     if len(rates) > 1:
         listed = ", ".join(f"{raw.labels[k]} {raw.rates_hz[k]:g} Hz" for k in picked)
         raise UnreadableFileError(
@@ -255,7 +257,8 @@ def read_trace(
         Labels to analyse, in this order; every signal when None or empty.
     fs_hz
         Sampling rate in Hz, required for formats that do not carry one (npy, csv,
-        an npz or Parquet file without it); when the file has one, it must agree.
+        an npz or Parquet file without it) unless the file has a ``time_s`` column; when
+        the file has one, it must agree.
     quantity, unit
         Override the header for every selected channel. Without them a channel's
         unit comes from the header and its quantity from the unit; a format with
@@ -287,6 +290,10 @@ def read_trace(
     4. Units: ``unit`` if given, else the header's (normalised, ``m/s2`` ->
        ``m/s^2``), else the default; the quantity follows from the unit unless
        ``quantity`` is given. The engine checks the pair once more.
+    5. A ``time_s`` column (CSV, NPZ, Parquet) places the rows on a uniform grid
+       (:func:`features.gaps.time_grid`: steps within 1 % of one sample step, or whole
+       numbers of steps where samples are missing, which become NaN, gaps for the engine)
+       and gives the rate when neither the file nor ``fs_hz`` does.
     """
     fmt, raw = _raw(source, format, name, max_samples)
     picked = _select(raw, channels)
@@ -297,11 +304,19 @@ def read_trace(
             "channels", "`channels` must have equal lengths; got "
             + ", ".join(f"{raw.labels[k]} {raw.samples[k].size}" for k in picked) + "."
         )
+    samples = tuple(raw.samples[k] for k in picked)
+    if raw.times_s is not None:
+        if raw.times_s.size != next(iter(lengths)):
+            raise UnreadableFileError(
+                "time_s", f"`time_s` must hold one time per sample ({next(iter(lengths))}); "
+                f"got {raw.times_s.size}.")
+        rate, samples = on_time_grid(raw.times_s, samples, rate,
+                                     resolve_limit(max_samples))
+    assert rate is not None  # _rate returns None only beside a time column
     built, sources = [], []
-    for k in picked:
+    for k, x in zip(picked, samples, strict=True):
         q, u, src = _unit(raw, k, quantity, unit, default_quantity, default_unit)
-        built.append(ChannelInput(samples=raw.samples[k], label=raw.labels[k], quantity=q,
-                                  unit=u))
+        built.append(ChannelInput(samples=x, label=raw.labels[k], quantity=q, unit=u))
         sources.append(src)
     return TraceFile(
         format=fmt,

@@ -14,7 +14,7 @@ import numpy as np
 
 from fileformats.bounds import check_samples, resolve_limit
 from fileformats.errors import UnreadableFileError, optional_module
-from fileformats.raw import RawTrace, finite_float64, unique_labels
+from fileformats.raw import RawTrace, samples_float64, unique_labels
 
 #: Longest header read, bytes (a header names at most a few hundred signals).
 MAX_HEADER_BYTES = 1 << 20
@@ -115,7 +115,7 @@ def _to_raw(record: object) -> RawTrace:
     if signal is None or np.asarray(signal).ndim != 2 or np.asarray(signal).shape[1] == 0:
         raise UnreadableFileError("file", "`file` must be a WFDB record with at least one "
                                   "signal; got one without.")
-    data = finite_float64(np.asarray(signal), "the record")
+    data = samples_float64(np.asarray(signal), "the record")
     # A header may leave names and units out (wfdb gives None): "" numbers the channel.
     names = [str(n or "") for n in getattr(record, "sig_name", None) or []]
     names += [""] * (data.shape[1] - len(names))

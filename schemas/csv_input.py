@@ -7,9 +7,7 @@ so a CSV gives the same engine inputs, and the same numbers, by either road.
 
 from __future__ import annotations
 
-import io
 import re
-import warnings
 from typing import Any
 
 import numpy as np
@@ -17,13 +15,12 @@ from marshmallow import Schema, ValidationError, fields, post_load
 from marshmallow.validate import Length, OneOf, Range
 
 from features.limits import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ, QUANTITIES
-from fileformats.arrays import csv_rows
+from fileformats.arrays import csv_rows, csv_table
 from fileformats.bounds import check_samples
 from fileformats.errors import UnreadableFileError
+from fileformats.raw import TIME_COLUMN, on_time_grid
 from schemas.requests import DEFAULT_MAX_SAMPLES, INCLUDE_PARTS
 
-#: A column with this header (any case) holds time stamps and is not a channel.
-TIME_COLUMN = "time_s"
 _NUMPY_POSITION = re.compile(r"at row (\d+), column (\d+)")
 
 
@@ -31,11 +28,23 @@ def read_csv_channels(text: str, *, field: str = "file",
                       max_samples: int = DEFAULT_MAX_SAMPLES) -> tuple[list[str], np.ndarray]:
     """Parse a CSV trace into channel labels and a (samples, channels) float64 array.
 
+    :func:`read_csv_table` without the ``time_s`` column.
+    """
+    labels, data, _ = read_csv_table(text, field=field, max_samples=max_samples)
+    return labels, data
+
+
+def read_csv_table(text: str, *, field: str = "file", max_samples: int = DEFAULT_MAX_SAMPLES
+                   ) -> tuple[list[str], np.ndarray, np.ndarray | None]:
+    """Parse a CSV trace into channel labels, a (samples, channels) float64 array and the
+    ``time_s`` column (None without one).
+
     Parameters
     ----------
     text
         Comma-separated values: a header row of labels, then one row per
-        sample. A ``time_s`` column is dropped.
+        sample. An empty cell is a sample the device lost (NaN, a gap for the engine).
+        A ``time_s`` column holds times, not a channel.
     field
         Name used in error messages.
     max_samples
@@ -44,8 +53,8 @@ def read_csv_channels(text: str, *, field: str = "file",
 
     Returns
     -------
-    labels, samples
-        The channel labels and a 2-D array with one column per label.
+    labels, samples, times
+        The channel labels, a 2-D array with one column per label, and the times.
 
     Raises
     ------
@@ -70,11 +79,7 @@ def read_csv_channels(text: str, *, field: str = "file",
     except UnreadableFileError as error:
         raise ValidationError({field: [error.message.replace("`file`", f"`{field}`")]}) from None
     try:
-        with warnings.catch_warnings():
-            # Rows that are all comments or blank: numpy warns, and the size check
-            # below refuses the file with a reason.
-            warnings.filterwarnings("ignore", "loadtxt: input contained no data", UserWarning)
-            data = np.loadtxt(io.StringIO(rest), delimiter=",", dtype=np.float64, ndmin=2)
+        data = csv_table(rest, len(labels))
     except ValueError as error:
         where = _NUMPY_POSITION.search(str(error))
         position = (
@@ -96,19 +101,18 @@ def read_csv_channels(text: str, *, field: str = "file",
             {field: [f"`{field}` must have 1 to {MAX_CHANNELS} channel columns besides "
                      f"`{TIME_COLUMN}`; got {len(keep)}."]}
         )
-    return [labels[i] for i in keep], data[:, keep]
+    times = [i for i in range(len(labels)) if i not in keep]
+    return [labels[i] for i in keep], data[:, keep], data[:, times[0]] if times else None
 
 
 class CsvUploadFormSchema(Schema):
     """Form fields sent beside the CSV ``file`` in a multipart upload."""
 
     sampling_rate_hz = fields.Float(
-        required=True,
-        # Content, not form: only a CSV file lacks its rate, so the message says so.
-        error_messages={"required": "`sampling_rate_hz` must be given for a CSV file, which "
-                                    "does not carry its rate; got none."},
         validate=Range(min=MIN_FS_HZ, max=MAX_FS_HZ),
-        metadata={"description": f"Sampling rate of every column, {MIN_FS_HZ:g}-{MAX_FS_HZ:g} Hz."},
+        metadata={"description": (
+            f"Sampling rate of every column, {MIN_FS_HZ:g}-{MAX_FS_HZ:g} Hz; may be left out "
+            f"when the file has a `{TIME_COLUMN}` column, which then gives it.")},
     )
     quantity = fields.String(
         load_default="force",
@@ -167,21 +171,33 @@ def csv_request_body(text: str, form: dict[str, Any], *,
         errors.update(error.messages_dict)
         settings = None
     try:
-        labels, data = read_csv_channels(text, max_samples=max_samples)
+        labels, data, times = read_csv_table(text, max_samples=max_samples)
     except ValidationError as error:
         errors.update(error.messages_dict)
     if errors or settings is None:
         raise ValidationError(errors)
+    rate = settings.get("sampling_rate_hz")
+    columns = tuple(np.ascontiguousarray(data[:, i]) for i in range(len(labels)))
+    if times is not None:
+        try:
+            rate, columns = on_time_grid(times, columns, rate, max_samples)
+        except UnreadableFileError as error:
+            raise ValidationError({"file": [error.message]}) from None
+    elif rate is None:
+        # Content, not form: only a CSV file lacks its rate, so the message says so.
+        raise ValidationError({"sampling_rate_hz": [
+            f"`sampling_rate_hz` must be given for a CSV file without a `{TIME_COLUMN}` "
+            "column, which does not carry its rate; got none."]})
     body: dict[str, Any] = {
-        "sampling_rate_hz": settings["sampling_rate_hz"],
+        "sampling_rate_hz": rate,
         "channels": [
             {
                 "label": label,
                 "quantity": settings["quantity"],
                 "unit": settings["unit"],
-                "samples": np.ascontiguousarray(data[:, i]),
+                "samples": column,
             }
-            for i, label in enumerate(labels)
+            for label, column in zip(labels, columns, strict=True)
         ],
     }
     if settings["include"]:

@@ -29,6 +29,8 @@ BASE64_DTYPES: dict[str, np.dtype[Any]] = {
 BASE64_PATTERN = r"^(?:[A-Za-z0-9+/]{4})*(?:[A-Za-z0-9+/]{2}==|[A-Za-z0-9+/]{3}=)?$"
 
 _NUMBER_TYPES = frozenset({int, float})
+#: JSON ``null`` in a trace: a sample the device lost (a dropout), loaded as NaN.
+_SAMPLE_TYPES = _NUMBER_TYPES | {type(None)}
 
 
 #: Largest sample magnitude accepted, in the channel's own unit (the engine's limit).
@@ -43,9 +45,9 @@ def _first_too_large(values: np.ndarray) -> int | None:
     return int(np.flatnonzero(big)[0])
 
 
-def _first_non_finite(values: np.ndarray) -> int | None:
-    """Index of the first NaN or infinite element, or None when all are finite."""
-    bad = ~np.isfinite(values)
+def _first_infinite(values: np.ndarray) -> int | None:
+    """Index of the first infinite element, or None. NaN is a missing sample, not refused."""
+    bad = np.isinf(values)
     if not bad.any():
         return None
     return int(np.flatnonzero(bad)[0])
@@ -54,27 +56,29 @@ def _first_non_finite(values: np.ndarray) -> int | None:
 class SamplesField(fields.Field[Any]):
     """A JSON array of numbers, loaded as a 1-D float64 numpy array.
 
-    Loading rejects anything but a flat list of finite JSON numbers: strings
-    that look like numbers, booleans, ``null`` and nested lists are errors,
-    as are values that overflow float64. An already-decoded 1-D numeric numpy
-    array (from the CSV reader) is accepted as is.
+    Loading rejects anything but a flat list of JSON numbers and ``null``: strings
+    that look like numbers, booleans and nested lists are errors, as are values that
+    overflow float64. ``null`` is a sample the device lost (a dropout): it is loaded as
+    NaN, which the engine masks as a gap. An already-decoded 1-D numeric numpy array
+    (from the CSV reader, NaN for an empty cell) is accepted as is; infinity is refused.
     """
 
     default_error_messages = {
         "type": "`{field}` must be a list of numbers; got {got}.",
         "element": (
-            "`{field}` must hold only numbers; got {got} (JSON numbers are "
-            "written without quotes)."
+            "`{field}` must hold only numbers, or null for a lost sample; got {got} (JSON "
+            "numbers are written without quotes)."
         ),
         "empty": "`{field}` must hold at least one sample; got an empty list.",
-        "finite": "`{field}` must hold finite numbers; got a non-finite value at index {index}.",
+        "finite": "`{field}` must not hold infinity (a lost sample is null); got an infinite "
+                  "value at index {index}.",
     }
 
     def __init__(self, **kwargs: Any) -> None:
         metadata = {
             "type": "array",
             "items": {
-                "type": "number",
+                "type": ["number", "null"],
                 "minimum": -MAX_SAMPLE_MAGNITUDE,
                 "maximum": MAX_SAMPLE_MAGNITUDE,
             },
@@ -92,8 +96,8 @@ class SamplesField(fields.Field[Any]):
             if not isinstance(value, list):
                 raise self.make_error("type", field=name, got=type(value).__name__)
             kinds = set(map(type, value))
-            if not kinds <= _NUMBER_TYPES:
-                odd = sorted(k.__name__ for k in kinds - _NUMBER_TYPES)
+            if not kinds <= _SAMPLE_TYPES:
+                odd = sorted(k.__name__ for k in kinds - _SAMPLE_TYPES)
                 raise self.make_error("element", field=name, got=", ".join(odd))
             try:
                 array = np.asarray(value, dtype=np.float64)
@@ -103,7 +107,7 @@ class SamplesField(fields.Field[Any]):
                 ) from None
         if array.size == 0:
             raise self.make_error("empty", field=name)
-        index = _first_non_finite(array)
+        index = _first_infinite(array)
         if index is not None:
             raise self.make_error("finite", field=name, index=index)
         return array
@@ -135,7 +139,8 @@ def decode_base64_samples(text: str, dtype_name: str, *, field: str) -> np.ndarr
     ------
     marshmallow.ValidationError
         When the text is not base64, its length is not a multiple of the item
-        size, it decodes to nothing, or a float value is not finite.
+        size, it decodes to nothing, or a float value is infinite (NaN is a lost
+        sample, a gap, and is kept).
     """
     dtype = BASE64_DTYPES[dtype_name]
     try:
@@ -152,14 +157,15 @@ def decode_base64_samples(text: str, dtype_name: str, *, field: str) -> np.ndarr
             f"`{field}` must decode to a multiple of {dtype.itemsize} bytes for dtype "
             f"{dtype_name}; got {len(raw)} bytes."
         )
-    # A signalling NaN raises numpy's "invalid value in cast" warning when widened; the
-    # check below refuses it with the field named, so the warning is not needed.
+    # A signalling NaN raises numpy's "invalid value in cast" warning when widened; it
+    # becomes a quiet NaN, a lost sample like any other, so the warning is not needed.
     with np.errstate(invalid="ignore", over="ignore"):
         array = np.frombuffer(raw, dtype=dtype).astype(np.float64)
-    index = _first_non_finite(array)
+    index = _first_infinite(array)
     if index is not None:
         raise ValidationError(
-            f"`{field}` must hold finite numbers; got a non-finite value at index {index}."
+            f"`{field}` must not hold infinity (a lost sample is NaN); got an infinite value "
+            f"at index {index}."
         )
     return array
 

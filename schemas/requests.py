@@ -2,9 +2,10 @@
 
 ``AnalysisRequestSchema().load(body)`` returns an :class:`AnalysisRequest`,
 frozen and fully typed, with every trace already a float64 numpy array. The
-schemas are strict: unknown members, numbers sent as strings, non-finite
+schemas are strict: unknown members, numbers sent as strings, infinite
 samples and channels of unequal length are all refused, and every offending
-field is reported at once.
+field is reported at once. A ``null`` sample (NaN in ``samples_base64``) is a sample
+the device lost: it loads as NaN and the engine masks it as a gap.
 
 marshmallow 4 notes: hooks receive keyword arguments (``partial``, ``many``,
 ``unknown``, ``data_key``), which every hook here accepts as ``**kwargs``;
@@ -199,7 +200,8 @@ class ChannelSchema(Schema):
     samples = SamplesField(
         metadata={
             "description": (
-                "The trace, one number per sample (give this or samples_base64); at most "
+                "The trace, one number per sample (give this or samples_base64); null for a "
+                "sample the device lost (a dropout), masked as a gap; at most "
                 f"{DEFAULT_MAX_SAMPLES} samples over all channels (the default cap)."
             ),
             "minItems": 1,
@@ -211,7 +213,8 @@ class ChannelSchema(Schema):
             "description": (
                 "The trace as little-endian binary values in standard base64 "
                 "(give this and dtype, or samples); its length is a multiple of 4 and "
-                "decodes to a whole number of values of the dtype."
+                "decodes to a whole number of values of the dtype. A NaN in a float dtype "
+                "is a lost sample (a gap); infinity is refused."
             ),
             "minLength": 4,
             "maxLength": BASE64_MAX_LENGTH,

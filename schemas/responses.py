@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 from marshmallow import Schema, fields, missing, post_dump
 
+from features.artifacts import KINDS
 from schemas.catalogue import FeatureValueSchema
 
 #: The caution carried by every analysis.
@@ -112,7 +113,9 @@ class InputSummarySchema(Schema):
 class SegmentSchema(Schema):
     start_s = Number(required=True)
     end_s = Number(required=True)
-    kind = fields.String(required=True, metadata={"description": "Why it is masked."})
+    kind = fields.String(required=True, metadata={
+        "description": "Why it is masked: " + ", ".join(sorted(KINDS)) + " (gap: samples the "
+                       "device lost, with the filters' settling either side)."})
 
 
 class QualitySchema(Schema):

@@ -266,7 +266,10 @@ def _paths(spec: APISpec) -> None:
                     "Send the trace as JSON (numbers in `samples`, or little-endian binary "
                     "in `samples_base64` with its `dtype`), or upload a CSV file (one column "
                     "per channel, a header row, an optional `time_s` column) as multipart "
-                    "form data with the rate in `sampling_rate_hz`."
+                    "form data with the rate in `sampling_rate_hz` (or given by `time_s`). "
+                    "A lost sample (`null` in `samples`, NaN in a float `samples_base64` or "
+                    "a binary file, an empty CSV cell, whole missing steps of `time_s`) is "
+                    "masked as a segment of kind `gap` and the rest is analysed."
                 ),
                 "tags": ["analyses"],
                 "security": _KEY_OPTIONAL,
@@ -367,7 +370,9 @@ def _csv_upload(form: dict[str, Any]) -> dict[str, Any]:
         "contentMediaType": "text/csv",
         "description": (
             "The CSV trace: a header row of channel labels, one column per channel, an "
-            "optional `time_s` column."
+            "optional `time_s` column (steps of one sample within 1 %, or whole numbers of "
+            "samples where samples were lost; it gives the rate when none is sent). An "
+            "empty cell is a lost sample."
         ),
     }
     return {

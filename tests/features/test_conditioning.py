@@ -327,12 +327,12 @@ def test_error_counts_rules() -> None:
                                          CountsScale("N", 0.0))], FS)
 
 
-def test_error_non_finite_samples_report_first_index_and_count() -> None:
+def test_error_infinite_samples_report_first_index_and_count() -> None:
     x = _ok()
-    x[[100, 205, 300]] = [np.nan, np.inf, np.nan]
-    with pytest.raises(InvalidInputError, match=r"`channels\[0\].samples` must be finite \(no "
-                                                r"NaN or inf\); got 3 non-finite sample\(s\), "
-                                                r"the first at index 100"):
+    x[[100, 205, 300, 400]] = [np.inf, np.nan, -np.inf, np.inf]  # NaN is a gap, not refused
+    with pytest.raises(InvalidInputError, match=r"`channels\[0\].samples` must not hold "
+                                                r"infinity \(a missing sample is NaN\); got 3 "
+                                                r"infinite sample\(s\), the first at index 100"):
         condition_channels([_force(x)], FS)
 
 

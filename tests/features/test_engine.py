@@ -89,10 +89,10 @@ def test_unequal_channels_are_rejected():
     assert info.value.field.startswith("channels")
 
 
-def test_nan_samples_are_rejected_with_the_field_named():
+def test_infinite_samples_are_rejected_with_the_field_named():
     x = np.ones(250 * 30)
-    x[100] = np.nan
-    with pytest.raises(InvalidInputError, match="finite") as info:
+    x[100] = -np.inf  # NaN is a missing sample (a gap); infinity is no measurement at all
+    with pytest.raises(InvalidInputError, match="infinity") as info:
         analyze([ChannelInput(samples=x, label="a", quantity="force", unit="N")], 250.0)
     assert info.value.field == "channels[0].samples"
 

@@ -29,9 +29,10 @@ KNOWN_CATALOGUES = {
     "2": "2c971e440e0bae534f73c73a10dd31895faae38508e790c39606b9cf6c35e37d",
     # 3: breathing_rate_per_min is the fused (Smart Fusion) rate; the counted rate is its own.
     "3": "b5b32088ca5803e31b792db5f7218bb1570b65646e45c8d11f9c331f63e139fa",
-    # 4: the same catalogue; a heartbeat overrules a load that says "empty" (per-channel
-    # coupling, ac sensors), and no breathing is reported without an occupant.
-    "4": "b5b32088ca5803e31b792db5f7218bb1570b65646e45c8d11f9c331f63e139fa",
+    # 4: usable_fraction also leaves out gaps (samples the device lost, with 1 s either side);
+    # a heartbeat overrules a load that says "empty" (per-channel coupling, ac sensors), and
+    # no breathing is reported without an occupant.
+    "4": "93317820dc3c94b9566c62069a804c27ac8960e506d7ab1364244944f3f4aad8",
 }
 
 # UCUM symbols for the unit suffixes (Unified Code for Units of Measure, ucum.org; from

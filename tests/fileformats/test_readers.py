@@ -100,14 +100,23 @@ def test_numpy_and_parquet(tmp_path):
     with pytest.raises(UnreadableFileError, match="without Python objects"):
         read_trace(objects.getvalue())
     field = pa.field("seat", pa.float64(), metadata={"unit": "kN"})
-    table = pa.table({"time_s": x, "seat": x},
-                     schema=pa.schema([pa.field("time_s", pa.float64()), field],
-                                      metadata={"sampling_rate_hz": "500"}))
-    buffer = io.BytesIO()
-    pq.write_table(table, buffer)
-    trace = read_trace(buffer.getvalue())
+
+    def parquet(times: np.ndarray) -> bytes:
+        table = pa.table({"time_s": times, "seat": x},
+                         schema=pa.schema([pa.field("time_s", pa.float64()), field],
+                                          metadata={"sampling_rate_hz": "500"}))
+        buffer = io.BytesIO()
+        pq.write_table(table, buffer)
+        return buffer.getvalue()
+
+    trace = read_trace(parquet(np.arange(x.size) / 500.0))
     assert trace.format == "parquet" and trace.fs_hz == 500.0
     assert [(c.label, c.unit) for c in trace.channels] == [("seat", "kN")]
+    # A time column that disagrees with the stated rate (0.4 ms steps at 500 Hz) is refused.
+    with pytest.raises(UnreadableFileError, match=r"`time_s` must advance by one sample step "
+                                                  r"\(1 / sampling_rate_hz, 2 ms\)") as info:
+        read_trace(parquet(x))
+    assert info.value.field == "time_s"
 
 
 def test_csv_reader_matches_the_service_csv_parser():

@@ -39,17 +39,32 @@ def test_samples_load_exactly_as_float64(values):
     [
         ([1.0, "2.0"], "str"),
         ([1.0, True], "bool"),
-        ([1.0, None], "NoneType"),
         ([[1.0], [2.0]], "list"),
         ("1,2,3", "list of numbers"),
         ([], "at least one sample"),
-        ([1.0, 1e400], "non-finite value at index 1"),  # json.loads("1e400") is inf
+        ([1.0, 1e400], "infinite value at index 1"),  # json.loads("1e400") is inf
         ([10**400], "too large"),
     ],
 )
-def test_samples_refuse_anything_but_finite_numbers(values, fragment):
+def test_samples_refuse_anything_but_finite_numbers_and_null(values, fragment):
     with pytest.raises(ValidationError, match=fragment):
         SamplesField().deserialize(values)
+
+
+def test_null_samples_load_as_nan_a_gap():
+    loaded = SamplesField().deserialize([1.0, None, 3, None])
+    # NaN is numpy's missing value (IEEE 754 quiet NaN); the engine masks it as a gap.
+    assert np.isnan(loaded).tolist() == [False, True, False, True]
+    assert loaded[[0, 2]].tolist() == [1.0, 3.0]
+
+
+def test_base64_nan_is_a_lost_sample_and_infinity_is_refused():
+    text = base64.b64encode(np.array([1.0, np.nan, 2.0], "<f4").tobytes()).decode()
+    assert np.isnan(decode_base64_samples(text, "float32", field="x")).tolist() == [
+        False, True, False]
+    text = base64.b64encode(np.array([1.0, -np.inf], "<f8").tobytes()).decode()
+    with pytest.raises(ValidationError, match=r"`x` must not hold infinity .* at index 1"):
+        decode_base64_samples(text, "float64", field="x")
 
 
 @pytest.mark.parametrize("dtype", sorted(BASE64_DTYPES))
@@ -74,10 +89,8 @@ def test_base64_is_little_endian():
         (base64.b64encode(b"\x00" * 6).decode(), "float32", "multiple of 4 bytes"),
         (base64.b64encode(b"\x00" * 3).decode(), "int16", "multiple of 2 bytes"),
         ("", "float64", "at least one sample"),
-        (base64.b64encode(np.array([np.nan], "<f8").tobytes()).decode(), "float64", "finite"),
-        # IEEE 754 binary32 signalling NaN 0x7F800001 (exponent all ones, quiet bit clear):
-        # widening it to float64 makes numpy warn; it must still be a plain "finite" error.
-        (base64.b64encode(bytes([0x01, 0x00, 0x80, 0x7F])).decode(), "float32", "finite"),
+        (base64.b64encode(np.array([np.inf], "<f8").tobytes()).decode(), "float64",
+         "infinity"),
     ],
 )
 def test_base64_errors(text, dtype, fragment):
@@ -199,3 +212,10 @@ def test_csv_reader_accepts_a_byte_order_mark():
 def test_csv_reader_errors(text, fragment):
     with pytest.raises(ValidationError, match=fragment):
         read_csv_channels(text)
+
+
+def test_signalling_nan_widens_quietly_to_a_lost_sample():
+    # IEEE 754 binary32 signalling NaN 0x7F800001 (exponent all ones, quiet bit clear):
+    # widening it to float64 makes numpy warn; it must load as NaN (a gap) without one.
+    text = base64.b64encode(bytes([0x01, 0x00, 0x80, 0x7F])).decode()
+    assert np.isnan(decode_base64_samples(text, "float32", field="x")).all()

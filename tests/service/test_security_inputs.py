@@ -91,12 +91,13 @@ def test_rates_out_of_range_are_422(client, fs):
     assert set(_fields(response)) == {"sampling_rate_hz"}
 
 
-def test_nan_in_a_csv_upload_is_422(client):
-    text = "seat\n" + "700\n" * 100 + "nan\n" + "700\n" * 100
+def test_infinity_in_a_csv_upload_is_422(client):
+    # NaN (or an empty cell) is a lost sample, a gap; infinity is no measurement at all.
+    text = "seat\n" + "700\n" * 100 + "inf\n" + "700\n" * 100
     response = client.post("/v1/analyses",
                            **multipart({"sampling_rate_hz": "250"}, text.encode()))
     assert response.status_code == 422
-    assert "index 100" in _fields(response)["channels[0].samples"]
+    assert "infinite value at index 100" in _fields(response)["channels[0].samples"]
 
 
 def test_csv_sent_as_a_plain_form_field_is_read_too(client):

@@ -232,3 +232,71 @@ def test_uploads_stay_in_memory(monkeypatch, client, demo_body):
         **multipart({"sampling_rate_hz": str(demo_body["sampling_rate_hz"])}, payload),
     )
     assert response.status_code == 200, response.get_data(as_text=True)
+
+
+# --------------------------------------------------------------------------- lost samples
+
+
+def _gaps(body):
+    return [s for s in body["quality"]["segments"] if s["kind"] == "gap"]
+
+
+def test_one_null_sample_is_a_gap_not_a_422(client, demo_body):
+    body = json.loads(json.dumps(demo_body))
+    fs = body["sampling_rate_hz"]
+    for channel in body["channels"]:
+        channel["samples"][int(30 * fs)] = None  # JSON null: a sample the device lost
+    response = _post(client, body)
+    assert response.status_code == 200, response.get_data(as_text=True)
+    check_against_contract(response, "/v1/analyses", "post")
+    result = response.get_json()
+    (gap,) = _gaps(result)
+    # The lost sample at 30 s, masked 1 s either side (features.gaps.GAP_PAD_S), on the
+    # sample grid.
+    assert gap["start_s"] == pytest.approx(29.0, abs=1 / fs)
+    assert gap["end_s"] == pytest.approx(31.0, abs=2 / fs)
+    # The simulator's mean rate (service.demo) within 3 bpm, as for the complete trace.
+    assert abs(result["heart_rate"]["mean_bpm"] - DEMO_HEART_RATE_BPM) < 3.0
+
+
+def test_csv_empty_cell_is_a_gap_and_time_s_gives_the_rate(client, demo_body):
+    lines = _csv(demo_body).decode("utf-8").split("\n")
+    cells = lines[1001].split(",")
+    cells[1] = ""  # row 1000 of the first channel lost
+    lines[1001] = ",".join(cells)
+    response = client.post("/v1/analyses", **multipart({}, "\n".join(lines).encode()))
+    assert response.status_code == 200, response.get_data(as_text=True)
+    check_against_contract(response, "/v1/analyses", "post")
+    result = response.get_json()
+    fs = demo_body["sampling_rate_hz"]
+    # No rate sent: the time_s column's span gives it (printed to 0.1 ms over the trace).
+    assert result["input"]["sampling_rate_hz"] == pytest.approx(fs, rel=1e-6)
+    (gap,) = _gaps(result)
+    assert gap["start_s"] <= 1000 / fs <= gap["end_s"]
+
+
+def test_csv_irregular_time_column_is_a_422_naming_the_column(client, demo_body):
+    lines = _csv(demo_body).decode("utf-8").split("\n")
+    fs = demo_body["sampling_rate_hz"]
+    cells = lines[501].split(",")
+    cells[0] = f"{(499.5) / fs:.4f}"  # half a step early: neither one step nor whole steps
+    lines[501] = ",".join(cells)
+    response = client.post("/v1/analyses", **multipart({}, "\n".join(lines).encode()))
+    assert response.status_code == 422
+    check_against_contract(response, "/v1/analyses", "post")
+    (error,) = response.get_json()["errors"]
+    assert error["field"] == "file"
+    assert "`time_s` must advance by one sample step" in error["detail"]
+
+
+def test_a_trace_of_nulls_is_a_422_naming_the_channel(client):
+    samples = [None] * 3000 + [700.0] * 500  # 5 s of samples at 100 Hz, the rest lost
+    body = {"sampling_rate_hz": 100.0,
+            "channels": [{"label": "seat", "quantity": "force", "unit": "N",
+                          "samples": samples}]}
+    response = _post(client, body)
+    assert response.status_code == 422
+    check_against_contract(response, "/v1/analyses", "post")
+    (error,) = response.get_json()["errors"]
+    assert error["field"] == "channels[0].samples"
+    assert "at least 20 s of samples besides its gaps" in error["detail"]
