@@ -1,18 +1,19 @@
-"""The report image of one analysis (PNG or SVG), drawn with matplotlib's Agg backend.
+"""The report image of one analysis (PNG or SVG), drawn with matplotlib's Agg canvas.
 
 Four panels and a bar chart: the fused trace with the masked segments shaded, the
 beats marked and the analysis windows (when asked) outlined; the beat ensemble with
 the located H, I, J, K, L waves; the beat-to-beat intervals with the breathing signal;
 and the confidence of each family. Everything is drawn from the engine's result (the
 fused trace is the one the engine kept, ``AnalysisResult.fused_trace``); nothing here
-runs a stage of the engine. No pyplot: every figure is its own object, so threads do
-not share state.
+runs a stage of the engine. The page, the caution and saving are shared with the night
+picture (:mod:`service.picture`); the axes sit at fixed places and long lines are drawn
+from their min/max envelope per pixel column, so the cost of a report hardly grows with
+the length of the recording.
 """
 
 from __future__ import annotations
 
-import io
-import math
+import functools
 from typing import Any
 
 import numpy as np
@@ -20,54 +21,55 @@ from scipy import signal
 
 from features.engine import AnalysisResult
 from schemas.requests import AnalysisRequest
-from schemas.responses import NOTICE
 from service.analysis import analyze_request, dump_analysis
+from service.picture import (
+    DPI,
+    MEDIA_TYPES,
+    NOTICE_COLOUR,
+    NOTICE_FONT_PT,
+    SIZE_IN,
+    check_format,
+    columns_of,
+    draw_caution,
+    envelope,
+    new_figure,
+    save,
+)
 
-#: Formats drawn, and their media types.
-MEDIA_TYPES = {"png": "image/png", "svg": "image/svg+xml"}
+__all__ = ["DPI", "MEDIA_TYPES", "NOTICE_COLOUR", "NOTICE_FONT_PT", "SIZE_IN",
+           "analysis_with_report", "draw_report"]
+
 #: Display band of the trace panel, Hz (the cardiac band; breathing is in its own panel).
 DISPLAY_BAND_HZ = (0.7, 20.0)
-#: Points drawn per line at most (the trace is thinned by min/max pairs beyond).
-MAX_POINTS = 8000
-#: Width and height of the image, inches, and its resolution (PNG), dots per inch.
-SIZE_IN = (11.0, 8.5)
-DPI = 100
 _FAMILIES = ("quality", "heart_rate", "variability", "morphology", "respiration", "modulation")
-#: The caution's size, points (15 px at ``DPI``), and colour (contrast 17:1 on white).
-NOTICE_FONT_PT = 11.0
-NOTICE_COLOUR = "#1a1a1a"
+#: Where the panels sit (left, bottom, width, height in figure fraction): the places
+#: constrained layout found for them, fixed, with room for the caution's lines below.
+TRACE_RECT = (0.056, 0.712, 0.930, 0.222)
+ENSEMBLE_RECT = (0.056, 0.430, 0.575, 0.205)
+INTERVAL_RECT = (0.083, 0.145, 0.548, 0.210)
+CONFIDENCE_RECT = (0.768, 0.145, 0.218, 0.490)
+
+
+@functools.lru_cache(maxsize=8)
+def _display_filter(fs_hz: float) -> np.ndarray:
+    """Second-order sections of the display band-pass, designed once per rate."""
+    high = min(DISPLAY_BAND_HZ[1], 0.45 * fs_hz)
+    return np.asarray(signal.butter(2, (DISPLAY_BAND_HZ[0], high), btype="bandpass",
+                                    fs=fs_hz, output="sos"))
 
 
 def _display(trace: np.ndarray, fs_hz: float) -> np.ndarray:
-    high = min(DISPLAY_BAND_HZ[1], 0.45 * fs_hz)
-    sos = signal.butter(2, (DISPLAY_BAND_HZ[0], high), btype="bandpass", fs=fs_hz, output="sos")
+    sos = _display_filter(float(fs_hz))
     if trace.size <= 3 * 2 * sos.shape[0]:
         return trace - np.mean(trace)
     return np.asarray(signal.sosfiltfilt(sos, trace))
-
-
-def _thin(t: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """At most MAX_POINTS points: the min and max of each block, in time order."""
-    if y.size <= MAX_POINTS:
-        return t, y
-    block = math.ceil(y.size / (MAX_POINTS // 2))
-    n = (y.size // block) * block
-    yb = y[:n].reshape(-1, block)
-    tb = t[:n].reshape(-1, block)
-    lo, hi = yb.argmin(axis=1), yb.argmax(axis=1)
-    rows = np.arange(yb.shape[0])
-    first = np.minimum(lo, hi)
-    second = np.maximum(lo, hi)
-    tt = np.column_stack([tb[rows, first], tb[rows, second]]).ravel()
-    yy = np.column_stack([yb[rows, first], yb[rows, second]]).ravel()
-    return tt, yy
 
 
 def _trace_panel(ax: Any, result: AnalysisResult, trace: np.ndarray) -> None:
     fs = result.input.sampling_rate_hz
     y = _display(trace, fs) * (result.beats.polarity or 1)
     t = np.arange(y.size) / fs
-    tt, yy = _thin(t, y)
+    tt, yy = envelope(t, y, columns_of(TRACE_RECT))
     ax.plot(tt, yy, color="#1f4e79", linewidth=0.6, label="fused trace")
     for k, segment in enumerate(result.quality.segments):
         ax.axvspan(segment.start_s, segment.end_s, color="#d62728", alpha=0.18, linewidth=0,
@@ -82,7 +84,7 @@ def _trace_panel(ax: Any, result: AnalysisResult, trace: np.ndarray) -> None:
     ax.set_xlabel("time (s)")
     unit = result.input.amplitude_unit
     ax.set_ylabel(f"{unit} ({DISPLAY_BAND_HZ[0]:g}-{DISPLAY_BAND_HZ[1]:g} Hz)")
-    ax.set_title("Trace, masked segments and beats", loc="left", fontsize=10)
+    ax.set_title("Trace, masked segments and beats", loc="left", fontsize=10, y=1.0)
     ax.legend(loc="upper right", fontsize=7, ncols=3)
 
 
@@ -105,7 +107,7 @@ def _window_marks(ax: Any, result: AnalysisResult) -> None:
 
 def _ensemble_panel(ax: Any, result: AnalysisResult) -> None:
     morph = result.morphology
-    ax.set_title("Beat ensemble and located waves", loc="left", fontsize=10)
+    ax.set_title("Beat ensemble and located waves", loc="left", fontsize=10, y=1.0)
     if morph.template is None or morph.template_start_s is None:
         ax.text(0.5, 0.5, "no ensemble (" + (", ".join(morph.flags[:2]) or "not built") + ")",
                 ha="center", va="center", transform=ax.transAxes, fontsize=8)
@@ -128,7 +130,7 @@ def _ensemble_panel(ax: Any, result: AnalysisResult) -> None:
 
 
 def _interval_panel(ax: Any, result: AnalysisResult) -> None:
-    ax.set_title("Beat-to-beat intervals and breathing", loc="left", fontsize=10)
+    ax.set_title("Beat-to-beat intervals and breathing", loc="left", fontsize=10, y=1.0)
     times = np.asarray(result.intervals.times_s, dtype=np.float64)
     values = np.asarray(result.intervals.intervals_ms, dtype=np.float64)
     labels = np.asarray(result.interval_labels.labels)
@@ -150,7 +152,7 @@ def _interval_panel(ax: Any, result: AnalysisResult) -> None:
     if breath.size and np.isfinite(breath).any() and resp.breathing_fs_hz:
         twin = ax.twinx()
         tb = np.arange(breath.size) / resp.breathing_fs_hz
-        tb, breath = _thin(tb, breath)
+        tb, breath = envelope(tb, breath, columns_of(INTERVAL_RECT))
         twin.plot(tb, breath, color="#9467bd", linewidth=0.7, alpha=0.8)
         twin.set_ylabel("breathing (a.u.)", color="#9467bd")
         twin.tick_params(axis="y", labelsize=7, colors="#9467bd")
@@ -166,7 +168,7 @@ def _confidence_panel(ax: Any, result: AnalysisResult) -> None:
     for k, value in enumerate(values):
         ax.text(min(value + 0.02, 0.9), k, f"{value:.2f}", va="center", fontsize=7)
     ax.set_xlabel("confidence")
-    ax.set_title("Confidence of each family", loc="left", fontsize=10)
+    ax.set_title("Confidence of each family", loc="left", fontsize=10, y=1.0)
 
 
 def _headline(result: AnalysisResult) -> str:
@@ -203,37 +205,20 @@ def draw_report(result: AnalysisResult, *, image_format: str = "png") -> bytes:
     ValueError
         For another ``image_format``, or a result without its fused trace.
     """
-    if image_format not in MEDIA_TYPES:
-        raise ValueError(f"`image_format` must be one of {', '.join(sorted(MEDIA_TYPES))}; "
-                         f"got {image_format!r}.")
+    check_format(image_format)
     if result.fused_trace is None:
         raise ValueError("`result.fused_trace` must be kept to draw the report; got None. "
                          "Analyse with `Options(keep_fused_trace=True)`.")
     trace = np.asarray(result.fused_trace, dtype=np.float64)
-    # Imported on first use: matplotlib writes its font cache under $HOME when imported,
-    # which the service's other paths (and a read-only container) need not do.
-    import matplotlib
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    # SVG text stays text (not glyph outlines): the caution can be read, searched and
-    # checked. The same value on every call, so concurrent threads never see another.
-    matplotlib.rcParams["svg.fonttype"] = "none"
-
-    figure = Figure(figsize=SIZE_IN, dpi=DPI, layout="constrained")
-    FigureCanvasAgg(figure)
-    grid = figure.add_gridspec(3, 3, height_ratios=(1.1, 1.0, 1.0))
-    _trace_panel(figure.add_subplot(grid[0, :]), result, trace)
-    _ensemble_panel(figure.add_subplot(grid[1, :2]), result)
-    _confidence_panel(figure.add_subplot(grid[1:, 2]), result)
-    _interval_panel(figure.add_subplot(grid[2, :2]), result)
-    figure.suptitle(_headline(result), fontsize=10)
-    # The caution on its own line(s) below the panels, dark and at reading size.
-    figure.supxlabel(NOTICE, fontsize=NOTICE_FONT_PT, color=NOTICE_COLOUR, wrap=True)
-    buffer = io.BytesIO()
-    metadata = {"Date": None} if image_format == "svg" else {"Software": None}
-    figure.savefig(buffer, format=image_format, dpi=DPI, metadata=metadata)
-    return buffer.getvalue()
+    figure = new_figure()
+    _trace_panel(figure.add_axes(TRACE_RECT), result, trace)
+    _ensemble_panel(figure.add_axes(ENSEMBLE_RECT), result)
+    _confidence_panel(figure.add_axes(CONFIDENCE_RECT), result)
+    _interval_panel(figure.add_axes(INTERVAL_RECT), result)
+    figure.text(0.5, 0.992, _headline(result), ha="center", va="top", fontsize=10)
+    # The caution on its own lines below the panels, dark and at reading size.
+    draw_caution(figure)
+    return save(figure, image_format)
 
 
 def analysis_with_report(request: AnalysisRequest, *,
