@@ -12,6 +12,8 @@ from __future__ import annotations
 import functools
 import io
 import math
+import struct
+import zlib
 from typing import Any
 
 import numpy as np
@@ -29,8 +31,8 @@ NOTICE_COLOUR = "#1a1a1a"
 #: Widest caution line, pixels (the page is 1100 wide), and the gap below it.
 NOTICE_WIDTH_PX = 1060.0
 NOTICE_BOTTOM = 0.008
-#: zlib level of the PNG: 1 writes about 40 % more bytes than the default 6 in about a
-#: third of the time, and the image is the same pixels (PNG is lossless).
+#: zlib level of the PNG: 1 writes about 15 % more bytes than 6 in about a third of the
+#: time, and the image is the same pixels (PNG is lossless).
 PNG_COMPRESS_LEVEL = 1
 
 
@@ -100,6 +102,40 @@ def save(figure: Any, image_format: str) -> bytes:
         figure.savefig(buffer, format="png", dpi=DPI, metadata={"Software": None},
                        pil_kwargs={"compress_level": PNG_COMPRESS_LEVEL})
     return buffer.getvalue()
+
+
+def png_bytes(canvas: Any) -> bytes:
+    """The pixels an opaque Agg canvas holds now, as an 8-bit RGB PNG.
+
+    Written here rather than through Pillow: the page is opaque (alpha dropped), every
+    row is stored with filter type 0 and compressed at zlib level ``PNG_COMPRESS_LEVEL``,
+    which on a mostly white page takes about half of Pillow's time (its adaptive
+    filtering) for a file about 3 % larger.
+
+    Notes
+    -----
+    Chunks as in the PNG specification (ISO/IEC 15948:2004): the signature (5.2), IHDR
+    with colour type 2, bit depth 8 (11.2.2), pHYs with ``DPI`` in pixels per metre
+    (11.3.5.3), one IDAT of the zlib stream of the filtered rows (11.2.4, filter type 0
+    of 9.2) and IEND (11.2.5); each chunk ends with the CRC-32 of its type and data (5.3).
+    """
+    width, height = canvas.get_width_height()
+    rgba = np.asarray(canvas.buffer_rgba()).reshape(height, width, 4)
+    rows = np.zeros((height, 1 + 3 * width), dtype=np.uint8)  # a 0 byte: no filter
+    rows[:, 1:] = rgba[..., :3].reshape(height, 3 * width)
+    per_metre = round(DPI / 0.0254)
+
+    def chunk(kind: bytes, data: bytes) -> bytes:
+        return (struct.pack(">I", len(data)) + kind + data
+                + struct.pack(">I", zlib.crc32(kind + data) & 0xFFFFFFFF))
+
+    return b"".join((
+        b"\x89PNG\r\n\x1a\n",
+        chunk(b"IHDR", struct.pack(">IIBBBBB", width, height, 8, 2, 0, 0, 0)),
+        chunk(b"pHYs", struct.pack(">IIB", per_metre, per_metre, 1)),
+        chunk(b"IDAT", zlib.compress(rows.tobytes(), PNG_COMPRESS_LEVEL)),
+        chunk(b"IEND", b""),
+    ))
 
 
 def envelope(t: np.ndarray, y: np.ndarray, columns: int) -> tuple[np.ndarray, np.ndarray]:

@@ -86,3 +86,28 @@ def test_png_report_has_dark_caution_lines_at_the_bottom(client, body):
     # Rows with near-black ink (grey #555555 text, luminance 0.33, has none below 0.2):
     # two or more lines of 15-px text ink well over 15 rows.
     assert ((band < 0.2).sum(axis=1) > 0).sum() > 15
+
+
+def test_a_reused_page_draws_what_a_fresh_one_draws():
+    # The report's figure is built once and reused: drawing another recording (other rate,
+    # length, heart rate, with windows) in between must leave nothing behind. Bit-equality
+    # is the property: the same Agg raster of the same artists in one process.
+    import features
+    import service.report as report
+    from features import ChannelInput, Options
+    from simulation import SimulationSettings, simulate
+
+    def result(**settings):
+        rec = simulate(SimulationSettings(n_channels=1, **settings))
+        channels = [ChannelInput(samples=rec.channels[0], label=rec.labels[0],
+                                 quantity=rec.quantity, unit=rec.unit)]
+        return features.analyze(channels, rec.fs_hz, options=Options(
+            keep_fused_trace=True, window_s=40.0, window_overlap_s=10.0))
+
+    first = result(duration_s=120.0, fs_hz=250.0, seed=1)
+    other = result(duration_s=90.0, fs_hz=100.0, seed=5, heart_rate_bpm=85.0)
+    report._PAGES.clear()
+    fresh = report.draw_report(first)
+    assert report.draw_report(other) != fresh
+    report.draw_report(other, image_format="svg")
+    assert report.draw_report(first) == fresh
