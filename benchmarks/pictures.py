@@ -153,7 +153,7 @@ def lines(res: dict[str, Any]) -> list[str]:
         f"  drawing: engine {m['engine']:.3f}, draw_report PNG {m['draw_png']:.3f} "
         f"({q['draw_png']:.2f}x), SVG {m['draw_svg']:.3f} ({q['draw_svg']:.2f}x); first report "
         f"of the process (imports, figure built) {r['first_report_s']:.2f}",
-        f"night picture of a {n['hours']:g}-h night at {n['fs_hz']:g} Hz (draw_night, median "
+        f"night picture, {n['hours']:g}-hour night at {n['fs_hz']:g} Hz (draw_night, median "
         "seconds; the windowed analysis and summary are not in it)",
     ]
     for c in n["cases"]:
@@ -175,8 +175,8 @@ def acceptance(res: dict[str, Any]) -> list[tuple[bool | None, str]]:
     n = res["night"]
     slowest = max(max(c["png"], c["svg"]) for c in n["cases"])
     out.append((slowest < 1.0 if n["hours"] >= 8 else None,
-                f"night picture of a {n['hours']:g}-h night under 1 s: slowest median "
-                f"{slowest:.3f} s (PNG and SVG, "
+                f"night picture of an 8-hour night under 1 s ({n['hours']:g} h here): slowest "
+                f"median {slowest:.3f} s (PNG and SVG, "
                 + " and ".join(str(c["windows"]) for c in n["cases"]) + " windows)"))
     return out
 
