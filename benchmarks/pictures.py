@@ -43,8 +43,8 @@ def _median_ratio(top: list[float], bottom: list[float]) -> float:
 
 def measure_report(rounds: int) -> dict[str, Any]:
     """Request and drawing times of the demo evening's report beside its analysis."""
+    from service import create_app
     from service.analysis import analyze_request
-    from service.app import create_app
     from service.bodies import request_schema
     from service.demo import demo_request_body
     from service.report import draw_report
