@@ -129,3 +129,27 @@ def test_errors_name_the_argument(night):
     fewer = dataclasses.replace(windowed, windows=windowed.windows[:-1])
     with pytest.raises(ValueError, match="`summary` must be the summary of `windowed`"):
         draw_night(summary, fewer)
+
+
+def test_failed_windows_are_drawn_as_unknown_time(night, svg):
+    import xml.etree.ElementTree as ElementTree
+
+    from features.windows import WindowError
+
+    _, windowed, _ = night
+    failed = WindowError(kind="UnusableSignalError", code="flat_signal", message="flat")
+    windows = list(windowed.windows)
+    windows[2] = dataclasses.replace(windows[2], feature_vector=None, occupancy=None,
+                                     segments=(), error=failed)
+    broken = dataclasses.replace(windowed, windows=tuple(windows), n_failed=1)
+    summary = summarize_night(broken)
+    assert summary.n_failed_windows == 1
+    drawn = draw_night(summary, broken, image_format="svg")
+
+    def patterns(data: bytes) -> int:  # the hatch of unknown time is an SVG <pattern>
+        return sum(1 for _ in ElementTree.fromstring(data).iter(
+            "{http://www.w3.org/2000/svg}pattern"))
+
+    assert patterns(svg) == 0 and patterns(drawn) >= 1
+    texts = " ".join(text for text, _, _ in svg_texts(drawn))
+    assert "1 failed" in texts
