@@ -27,6 +27,9 @@ Run from the repository root: ``python -m benchmarks.suite [--quick] [--json PAT
    windows) with :mod:`benchmarks.windows`, reading one window at a time from a file.
 6. The service: :mod:`benchmarks.service_load` (gunicorn and wrk on loopback, and the
    in-process split of one request).
+7. The pictures: :mod:`benchmarks.pictures` in a fresh child process (the report of the
+   demo evening beside its analysis, rounds side by side; the night picture of an
+   8-hour night, 96 and 960 windows).
 """
 
 from __future__ import annotations
@@ -47,7 +50,7 @@ from typing import Any
 
 import numpy as np
 
-from benchmarks import floor, peer, service_load
+from benchmarks import floor, peer, pictures, service_load
 
 REPO = Path(__file__).resolve().parents[1]
 BLOCK_S = 1800.0
@@ -371,6 +374,18 @@ def run_windowed(quick: bool, log: Any) -> dict[str, Any]:
     return dict(json.loads(line[len("RESULT "):]))
 
 
+def run_pictures(quick: bool, log: Any) -> dict[str, Any]:
+    """benchmarks.pictures in a fresh child process (its first report is a cold one)."""
+    env = dict(os.environ,
+               PYTHONPATH=str(REPO) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    done = subprocess.run([sys.executable, "-m", "benchmarks.pictures", "--child",
+                           *(["--quick"] if quick else [])], capture_output=True, text=True,
+                          cwd=REPO, env=env, check=True)
+    line = next(x for x in done.stdout.splitlines() if x.startswith("RESULT "))
+    log("pictures measured")
+    return dict(json.loads(line[len("RESULT "):]))
+
+
 def run_service(quick: bool, log: Any) -> dict[str, Any]:
     """Request split in-process, then gunicorn + wrk for 1, 2 and 4 workers."""
     dur = 60.0 if quick else 300.0
@@ -509,6 +524,8 @@ def report(res: dict[str, Any]) -> str:
             lines.append(f"{r['workers']:7d} {r['connections']:5d} {r['requests']:8d} "
                          f"{r['errors']:6d} {r['rps']:7.1f} {r['p50_ms']:7.0f} "
                          f"{r['p95_ms']:7.0f} {r['p99_ms']:7.0f} {r['max_ms']:7.0f}")
+    if "pictures" in res:
+        lines += [""] + pictures.lines(res["pictures"])
     lines += ["", "acceptance (as measured in this run):"]
     lines += [f"  [{'holds' if ok else 'FAILS' if ok is False else 'n/a  '}] {text}"
               for ok, text in res["acceptance"]]
@@ -560,6 +577,8 @@ def acceptance(res: dict[str, Any]) -> list[tuple[bool | None, str]]:
                     f">= 20 requests/s with no errors: best {best['rps']:.1f}/s "
                     f"({best['workers']} workers, {best['connections']} connections, "
                     f"{best['errors']} errors)"))
+    if "pictures" in res:
+        out += pictures.acceptance(res["pictures"])
     out.append((None, "no accuracy traded for speed: not judged here (the cohort in "
                 "validation/ is); bpm columns are a sanity check only"))
     return out
@@ -606,6 +625,7 @@ def main(argv: list[str] | None = None) -> int:
     }
     res["windowed"] = run_windowed(args.quick, log)
     res["service"] = run_service(args.quick, log)
+    res["pictures"] = run_pictures(args.quick, log)
     res["acceptance"] = acceptance(res)
     res["wall_s"] = time.perf_counter() - started
     print(report(res))

@@ -34,6 +34,7 @@ __all__ = [
     "MIN_BED_EXIT_S",
     "MIN_SEGMENTS",
     "MIN_SEGMENT_USABLE_FRACTION",
+    "MOVEMENT_KINDS",
     "NIGHT_MEASURES",
     "SEGMENT_S",
     "BedExit",
@@ -62,7 +63,8 @@ frame for some seconds without anyone leaving; a minute is longer than such shif
 far shorter than any trip out of the room (heartsway definition)."""
 
 _GAP_TOLERANCE_S = 1e-6  # stretches closer than this are one (sums of window starts)
-_MOVEMENT_KINDS = ("movement", "posture_change")
+MOVEMENT_KINDS = ("movement", "posture_change")
+"""Masked segment kinds (``features.artifacts``) counted as movement stretches."""
 _TASK_FORCE = (
     "Task Force of the European Society of Cardiology and the North American Society of "
     "Pacing and Electrophysiology. Heart rate variability: standards of measurement, "
@@ -634,7 +636,7 @@ def _per_hour_and_usable(windows: Sequence[WindowResult], owned: Sequence[tuple[
         if w.error is not None:
             continue
         masked += _clip([(s.start_s, s.end_s) for s in w.segments], a, b)
-        moving += _clip([(s.start_s, s.end_s) for s in w.segments if s.kind in _MOVEMENT_KINDS],
+        moving += _clip([(s.start_s, s.end_s) for s in w.segments if s.kind in MOVEMENT_KINDS],
                         a, b)
         if w.feature_vector is not None and _total(_clip(occupied, a, b)) > 0:
             quality.append(w.feature_vector.get("usable_fraction").confidence)

@@ -1,18 +1,20 @@
-"""The report image of one analysis (PNG or SVG), drawn with matplotlib's Agg backend.
+"""The report image of one analysis (PNG or SVG), drawn with matplotlib's Agg canvas.
 
 Four panels and a bar chart: the fused trace with the masked segments shaded, the
 beats marked and the analysis windows (when asked) outlined; the beat ensemble with
 the located H, I, J, K, L waves; the beat-to-beat intervals with the breathing signal;
 and the confidence of each family. Everything is drawn from the engine's result (the
 fused trace is the one the engine kept, ``AnalysisResult.fused_trace``); nothing here
-runs a stage of the engine. No pyplot: every figure is its own object, so threads do
-not share state.
+runs a stage of the engine. The page, the caution and saving are shared with the night
+picture (:mod:`service.picture`); the axes sit at fixed places and long lines are drawn
+from their min/max envelope per pixel column, so the cost of a report hardly grows with
+the length of the recording.
 """
 
 from __future__ import annotations
 
-import io
-import math
+import functools
+import threading
 from typing import Any
 
 import numpy as np
@@ -20,54 +22,57 @@ from scipy import signal
 
 from features.engine import AnalysisResult
 from schemas.requests import AnalysisRequest
-from schemas.responses import NOTICE
 from service.analysis import analyze_request, dump_analysis
+from service.picture import (
+    DPI,
+    MEDIA_TYPES,
+    NOTICE_COLOUR,
+    NOTICE_FONT_PT,
+    SIZE_IN,
+    check_format,
+    columns_of,
+    draw_caution,
+    envelope,
+    new_figure,
+    png_bytes,
+    save,
+)
 
-#: Formats drawn, and their media types.
-MEDIA_TYPES = {"png": "image/png", "svg": "image/svg+xml"}
+__all__ = ["DPI", "MEDIA_TYPES", "NOTICE_COLOUR", "NOTICE_FONT_PT", "SIZE_IN",
+           "analysis_with_report", "draw_report", "report_of"]
+
 #: Display band of the trace panel, Hz (the cardiac band; breathing is in its own panel).
 DISPLAY_BAND_HZ = (0.7, 20.0)
-#: Points drawn per line at most (the trace is thinned by min/max pairs beyond).
-MAX_POINTS = 8000
-#: Width and height of the image, inches, and its resolution (PNG), dots per inch.
-SIZE_IN = (11.0, 8.5)
-DPI = 100
 _FAMILIES = ("quality", "heart_rate", "variability", "morphology", "respiration", "modulation")
-#: The caution's size, points (15 px at ``DPI``), and colour (contrast 17:1 on white).
-NOTICE_FONT_PT = 11.0
-NOTICE_COLOUR = "#1a1a1a"
+#: Where the panels sit (left, bottom, width, height in figure fraction): about the places
+#: constrained layout found for them, fixed, with room on the left for tick labels such as
+#: "-2.5" or "1000" beside the axis label, and for the caution's lines below.
+TRACE_RECT = (0.076, 0.712, 0.910, 0.222)
+ENSEMBLE_RECT = (0.076, 0.430, 0.555, 0.205)
+INTERVAL_RECT = (0.083, 0.145, 0.548, 0.210)
+CONFIDENCE_RECT = (0.768, 0.145, 0.218, 0.490)
+
+
+@functools.lru_cache(maxsize=8)
+def _display_filter(fs_hz: float) -> np.ndarray:
+    """Second-order sections of the display band-pass, designed once per rate."""
+    high = min(DISPLAY_BAND_HZ[1], 0.45 * fs_hz)
+    return np.asarray(signal.butter(2, (DISPLAY_BAND_HZ[0], high), btype="bandpass",
+                                    fs=fs_hz, output="sos"))
 
 
 def _display(trace: np.ndarray, fs_hz: float) -> np.ndarray:
-    high = min(DISPLAY_BAND_HZ[1], 0.45 * fs_hz)
-    sos = signal.butter(2, (DISPLAY_BAND_HZ[0], high), btype="bandpass", fs=fs_hz, output="sos")
+    sos = _display_filter(float(fs_hz))
     if trace.size <= 3 * 2 * sos.shape[0]:
         return trace - np.mean(trace)
     return np.asarray(signal.sosfiltfilt(sos, trace))
-
-
-def _thin(t: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """At most MAX_POINTS points: the min and max of each block, in time order."""
-    if y.size <= MAX_POINTS:
-        return t, y
-    block = math.ceil(y.size / (MAX_POINTS // 2))
-    n = (y.size // block) * block
-    yb = y[:n].reshape(-1, block)
-    tb = t[:n].reshape(-1, block)
-    lo, hi = yb.argmin(axis=1), yb.argmax(axis=1)
-    rows = np.arange(yb.shape[0])
-    first = np.minimum(lo, hi)
-    second = np.maximum(lo, hi)
-    tt = np.column_stack([tb[rows, first], tb[rows, second]]).ravel()
-    yy = np.column_stack([yb[rows, first], yb[rows, second]]).ravel()
-    return tt, yy
 
 
 def _trace_panel(ax: Any, result: AnalysisResult, trace: np.ndarray) -> None:
     fs = result.input.sampling_rate_hz
     y = _display(trace, fs) * (result.beats.polarity or 1)
     t = np.arange(y.size) / fs
-    tt, yy = _thin(t, y)
+    tt, yy = envelope(t, y, columns_of(TRACE_RECT))
     ax.plot(tt, yy, color="#1f4e79", linewidth=0.6, label="fused trace")
     for k, segment in enumerate(result.quality.segments):
         ax.axvspan(segment.start_s, segment.end_s, color="#d62728", alpha=0.18, linewidth=0,
@@ -79,10 +84,8 @@ def _trace_panel(ax: Any, result: AnalysisResult, trace: np.ndarray) -> None:
                 label=f"beats ({beats.size})")
     _window_marks(ax, result)
     ax.set_xlim(0, max(t[-1] if t.size else 1.0, 1e-3))
-    ax.set_xlabel("time (s)")
     unit = result.input.amplitude_unit
     ax.set_ylabel(f"{unit} ({DISPLAY_BAND_HZ[0]:g}-{DISPLAY_BAND_HZ[1]:g} Hz)")
-    ax.set_title("Trace, masked segments and beats", loc="left", fontsize=10)
     ax.legend(loc="upper right", fontsize=7, ncols=3)
 
 
@@ -105,10 +108,12 @@ def _window_marks(ax: Any, result: AnalysisResult) -> None:
 
 def _ensemble_panel(ax: Any, result: AnalysisResult) -> None:
     morph = result.morphology
-    ax.set_title("Beat ensemble and located waves", loc="left", fontsize=10)
+    ax.set_ylabel(morph.amplitude_unit)
     if morph.template is None or morph.template_start_s is None:
         ax.text(0.5, 0.5, "no ensemble (" + (", ".join(morph.flags[:2]) or "not built") + ")",
                 ha="center", va="center", transform=ax.transAxes, fontsize=8)
+        ax.set_xlim(0.0, 1.0)
+        ax.set_ylim(0.0, 1.0)
         return
     template = np.asarray(morph.template, dtype=np.float64)
     # template_start_s is the time of the first sample relative to J (negative).
@@ -121,14 +126,11 @@ def _ensemble_panel(ax: Any, result: AnalysisResult) -> None:
         ax.annotate(f"{wave.name} ({wave.confidence:.2f})", (wave.time_ms, wave.amplitude),
                     textcoords="offset points", xytext=(3, 5), fontsize=7)
     ax.axvline(0.0, color="#999999", linewidth=0.6, linestyle=":")
-    ax.set_xlabel("time from J (ms)")
-    ax.set_ylabel(morph.amplitude_unit)
     ax.text(0.99, 0.02, f"{morph.beats_used} beats", ha="right", va="bottom",
             transform=ax.transAxes, fontsize=7)
 
 
-def _interval_panel(ax: Any, result: AnalysisResult) -> None:
-    ax.set_title("Beat-to-beat intervals and breathing", loc="left", fontsize=10)
+def _interval_panel(ax: Any, twin: Any, result: AnalysisResult) -> None:
     times = np.asarray(result.intervals.times_s, dtype=np.float64)
     values = np.asarray(result.intervals.intervals_ms, dtype=np.float64)
     labels = np.asarray(result.interval_labels.labels)
@@ -143,30 +145,25 @@ def _interval_panel(ax: Any, result: AnalysisResult) -> None:
     else:
         ax.text(0.5, 0.5, "no intervals", ha="center", va="center", transform=ax.transAxes,
                 fontsize=8)
-    ax.set_xlabel("time (s)")
-    ax.set_ylabel("interval (ms)")
+        ax.set_ylim(0.0, 1.0)
     resp = result.respiration
     breath = np.asarray(resp.breathing_signal, dtype=np.float64)
-    if breath.size and np.isfinite(breath).any() and resp.breathing_fs_hz:
-        twin = ax.twinx()
+    shown = bool(breath.size and np.isfinite(breath).any() and resp.breathing_fs_hz)
+    twin.set_visible(shown)
+    if shown:
         tb = np.arange(breath.size) / resp.breathing_fs_hz
-        tb, breath = _thin(tb, breath)
+        tb, breath = envelope(tb, breath, columns_of(INTERVAL_RECT))
         twin.plot(tb, breath, color="#9467bd", linewidth=0.7, alpha=0.8)
-        twin.set_ylabel("breathing (a.u.)", color="#9467bd")
-        twin.tick_params(axis="y", labelsize=7, colors="#9467bd")
+    if not times.size and not shown:
+        ax.set_xlim(0.0, 1.0)
 
 
 def _confidence_panel(ax: Any, result: AnalysisResult) -> None:
     values = [float(getattr(result, name).confidence) for name in _FAMILIES]
     positions = np.arange(len(values))
     ax.barh(positions, values, color=["#7f7f7f" if v < 0.5 else "#2ca02c" for v in values])
-    ax.set_yticks(positions, [name.replace("_", " ") for name in _FAMILIES], fontsize=8)
-    ax.set_xlim(0, 1)
-    ax.invert_yaxis()
     for k, value in enumerate(values):
         ax.text(min(value + 0.02, 0.9), k, f"{value:.2f}", va="center", fontsize=7)
-    ax.set_xlabel("confidence")
-    ax.set_title("Confidence of each family", loc="left", fontsize=10)
 
 
 def _headline(result: AnalysisResult) -> str:
@@ -181,6 +178,105 @@ def _headline(result: AnalysisResult) -> str:
         f"{result.input.duration_s:.0f} s at {result.input.sampling_rate_hz:g} Hz",
     ]
     return "  |  ".join(parts)
+
+
+class _Page:
+    """One report figure whose set-up is done once and reused.
+
+    Built once: the axes at their places, the twin axis of the breathing signal, the
+    panel titles, the fixed labels, the confidence panel's axes and the caution; and for
+    PNG the pixels of all of these (``background``), so that a report restores them and
+    draws over them only what changes: the data, the ticks and labels that follow the
+    data, the legends and the headline. SVG is written whole from the same figure.
+    """
+
+    def __init__(self) -> None:
+        figure = new_figure()
+        self.figure = figure
+        self.trace = figure.add_axes(TRACE_RECT)
+        self.ensemble = figure.add_axes(ENSEMBLE_RECT)
+        self.confidence = figure.add_axes(CONFIDENCE_RECT)
+        self.interval = figure.add_axes(INTERVAL_RECT)
+        self.twin = self.interval.twinx()
+        self.headline = figure.text(0.5, 0.992, "", ha="center", va="top", fontsize=10)
+        for ax, title in ((self.trace, "Trace, masked segments and beats"),
+                          (self.ensemble, "Beat ensemble and located waves"),
+                          (self.interval, "Beat-to-beat intervals and breathing"),
+                          (self.confidence, "Confidence of each family")):
+            # A fixed title height: matplotlib otherwise measures the axis on every draw.
+            ax.set_title(title, loc="left", fontsize=10, y=1.0)
+        self.trace.set_xlabel("time (s)")
+        self.ensemble.set_xlabel("time from J (ms)")
+        self.interval.set_xlabel("time (s)")
+        self.interval.set_ylabel("interval (ms)")
+        self.twin.set_ylabel("breathing (a.u.)", color="#9467bd")
+        self.twin.tick_params(axis="y", labelsize=7, colors="#9467bd")
+        positions = np.arange(len(_FAMILIES))
+        conf = self.confidence
+        conf.set_yticks(positions, [name.replace("_", " ") for name in _FAMILIES], fontsize=8)
+        conf.set_xlim(0, 1)
+        conf.set_ylim(len(_FAMILIES) - 0.5, -0.5)  # the first family on top
+        conf.set_autoscale_on(False)
+        conf.set_xlabel("confidence")
+        draw_caution(figure)
+        self.moving = (self.trace, self.ensemble, self.interval, self.twin)
+        self.fixed: set[Any] = {conf.xaxis, conf.yaxis}
+        for ax in (*self.moving, conf):
+            self.fixed |= {ax.patch, ax.title, ax._left_title, ax._right_title}
+        # The background: everything but the axes whose ticks follow the data.
+        hidden = [axis for ax in self.moving for axis in (ax.xaxis, ax.yaxis)
+                  if axis.get_visible()]
+        for axis in hidden:
+            axis.set_visible(False)
+        figure.canvas.draw()
+        self.background = figure.canvas.copy_from_bbox(figure.bbox)
+        for axis in hidden:
+            axis.set_visible(True)
+
+    def clear(self) -> None:
+        """Remove the last report's data, legends and data limits."""
+        for ax in (*self.moving, self.confidence):
+            for artist in [*ax.lines, *ax.collections, *ax.patches, *ax.texts]:
+                artist.remove()
+            if ax.legend_ is not None:
+                ax.legend_.remove()
+            ax.relim()
+        for ax in self.moving:
+            ax.set_autoscale_on(True)
+
+    def png(self) -> bytes:
+        """The report as PNG: the background restored, the changing artists drawn over it."""
+        canvas = self.figure.canvas
+        canvas.restore_region(self.background)
+        for ax in (self.trace, self.ensemble, self.confidence, self.interval, self.twin):
+            if not ax.get_visible():
+                continue
+            # As Axes.draw does: every child by z-order (spines and legend included).
+            children = [a for a in ax.get_children()
+                        if a not in self.fixed and a.get_visible()]
+            for artist in sorted(children, key=lambda a: a.get_zorder()):
+                ax.draw_artist(artist)
+        self.figure.draw_artist(self.headline)
+        return png_bytes(canvas)
+
+
+_PAGES: list[_Page] = []
+_PAGES_LOCK = threading.Lock()
+#: Pages kept for reuse per process (one per thread drawing at once, up to this many).
+MAX_PAGES = 2
+
+
+def _take_page() -> _Page:
+    with _PAGES_LOCK:
+        if _PAGES:
+            return _PAGES.pop()
+    return _Page()
+
+
+def _give_back(page: _Page) -> None:
+    with _PAGES_LOCK:
+        if len(_PAGES) < MAX_PAGES:
+            _PAGES.append(page)
 
 
 def draw_report(result: AnalysisResult, *, image_format: str = "png") -> bytes:
@@ -203,37 +299,23 @@ def draw_report(result: AnalysisResult, *, image_format: str = "png") -> bytes:
     ValueError
         For another ``image_format``, or a result without its fused trace.
     """
-    if image_format not in MEDIA_TYPES:
-        raise ValueError(f"`image_format` must be one of {', '.join(sorted(MEDIA_TYPES))}; "
-                         f"got {image_format!r}.")
+    check_format(image_format)
     if result.fused_trace is None:
         raise ValueError("`result.fused_trace` must be kept to draw the report; got None. "
                          "Analyse with `Options(keep_fused_trace=True)`.")
     trace = np.asarray(result.fused_trace, dtype=np.float64)
-    # Imported on first use: matplotlib writes its font cache under $HOME when imported,
-    # which the service's other paths (and a read-only container) need not do.
-    import matplotlib
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    # SVG text stays text (not glyph outlines): the caution can be read, searched and
-    # checked. The same value on every call, so concurrent threads never see another.
-    matplotlib.rcParams["svg.fonttype"] = "none"
-
-    figure = Figure(figsize=SIZE_IN, dpi=DPI, layout="constrained")
-    FigureCanvasAgg(figure)
-    grid = figure.add_gridspec(3, 3, height_ratios=(1.1, 1.0, 1.0))
-    _trace_panel(figure.add_subplot(grid[0, :]), result, trace)
-    _ensemble_panel(figure.add_subplot(grid[1, :2]), result)
-    _confidence_panel(figure.add_subplot(grid[1:, 2]), result)
-    _interval_panel(figure.add_subplot(grid[2, :2]), result)
-    figure.suptitle(_headline(result), fontsize=10)
-    # The caution on its own line(s) below the panels, dark and at reading size.
-    figure.supxlabel(NOTICE, fontsize=NOTICE_FONT_PT, color=NOTICE_COLOUR, wrap=True)
-    buffer = io.BytesIO()
-    metadata = {"Date": None} if image_format == "svg" else {"Software": None}
-    figure.savefig(buffer, format=image_format, dpi=DPI, metadata=metadata)
-    return buffer.getvalue()
+    page = _take_page()
+    # A page is put back only after a whole report was drawn on it: an error (or the
+    # service's deadline interrupting the drawing) leaves it half-changed, so it is dropped.
+    page.clear()
+    _trace_panel(page.trace, result, trace)
+    _ensemble_panel(page.ensemble, result)
+    _confidence_panel(page.confidence, result)
+    _interval_panel(page.interval, page.twin, result)
+    page.headline.set_text(_headline(result))
+    image = page.png() if image_format == "png" else save(page.figure, image_format)
+    _give_back(page)
+    return image
 
 
 def analysis_with_report(request: AnalysisRequest, *,
@@ -247,3 +329,16 @@ def analysis_with_report(request: AnalysisRequest, *,
     """
     result = analyze_request(request, keep_fused_trace=True)
     return dump_analysis(result, request), draw_report(result, image_format=image_format)
+
+
+def report_of(request: AnalysisRequest, *, image_format: str = "png") -> bytes:
+    """Run the engine once on ``request`` and draw its report (``POST /v1/reports``, which
+    answers the image alone and so need not dump the JSON document).
+
+    Raises
+    ------
+    features.errors.InvalidInputError, features.errors.UnusableSignalError
+        From the engine.
+    """
+    return draw_report(analyze_request(request, keep_fused_trace=True),
+                       image_format=image_format)

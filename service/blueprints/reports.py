@@ -7,7 +7,7 @@ from flask import Blueprint, Response, current_app, request
 from service.bodies import read_analysis_request
 from service.deadline import run_with_deadline
 from service.problems import problem
-from service.report import MEDIA_TYPES, analysis_with_report
+from service.report import MEDIA_TYPES, report_of
 
 blueprint = Blueprint("reports", __name__)
 
@@ -28,8 +28,7 @@ def create_report() -> Response:
     image_format = _FORMAT_OF[media_type]
 
     def work() -> bytes:
-        _, image = analysis_with_report(read_analysis_request(), image_format=image_format)
-        return image
+        return report_of(read_analysis_request(), image_format=image_format)
 
     image = run_with_deadline(current_app.config["HEARTSWAY_MAX_COMPUTE_S"], work)
     response = Response(image, mimetype=media_type)

@@ -39,6 +39,12 @@ def test_quick_suite_runs_and_reports_every_case(tmp_path: Path) -> None:
         assert "seconds" in case["peer"] or "skipped" in case["peer"]
     # The simulator's default heart rate is 68 bpm (simulation/settings.py, SimulationSettings).
     assert res["cases"][0]["engine"]["mean_bpm"] == pytest.approx(68.0, abs=3.0)
+    # The pictures, measured in a child: the report beside its analysis, and the night
+    # picture of the quick 1-hour night in 300-s and 30-s windows (3600 / 300 and 3600 / 30).
+    assert "night picture, 1-hour night" in done.stdout
+    pictures = res["pictures"]
+    assert all(v > 0 for v in pictures["report"]["ratio"].values())
+    assert [c["windows"] for c in pictures["night"]["cases"]] == [12, 120]
 
 
 def test_fit_exponent_recovers_a_power_law() -> None:

@@ -36,7 +36,8 @@ LOOKUPS = frozenset({
     "features.limits.units_of",
 })
 #: The files that must only translate or draw.
-SCANNED = sorted((ROOT / "schemas").glob("*.py")) + [ROOT / "service" / "report.py"]
+SCANNED = sorted((ROOT / "schemas").glob("*.py")) + [
+    ROOT / "service" / name for name in ("report.py", "night_report.py", "picture.py")]
 
 
 def _engine_modules() -> dict[str, object]:

@@ -3,25 +3,14 @@
 from __future__ import annotations
 
 import io
-import struct
 import xml.etree.ElementTree as ElementTree
 
 import numpy as np
 import pytest
+from picture_checks import assert_caution_dark_readable_and_last, png_size
 
-from schemas.responses import NOTICE
 from service.cli import main
 from service.demo import demo_request_body
-
-# PNG signature and IHDR layout: PNG specification (ISO/IEC 15948), sections 5.2 and 11.2.2.
-PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
-
-
-def _png_size(data: bytes) -> tuple[int, int]:
-    assert data[:8] == PNG_SIGNATURE
-    assert data[12:16] == b"IHDR"
-    width, height = struct.unpack(">II", data[16:24])
-    return width, height
 
 
 @pytest.fixture(scope="module")
@@ -34,7 +23,7 @@ def test_png_report(client, body):
     assert response.status_code == 200
     assert response.mimetype == "image/png"
     data = response.get_data()
-    assert _png_size(data) == (1100, 850)
+    assert png_size(data) == (1100, 850)
     import matplotlib.image
 
     pixels = matplotlib.image.imread(io.BytesIO(data), format="png")
@@ -78,49 +67,14 @@ def test_analyze_plot_writes_the_image(tmp_path, body, capsys):
         assert capsys.readouterr().out.startswith("{")
         data = image.read_bytes()
         if suffix == "png":
-            assert _png_size(data) == (1100, 850)
+            assert png_size(data) == (1100, 850)
         else:
             assert ElementTree.fromstring(data).tag.endswith("svg")
 
 
-def _relative_luminance(hex_colour: str) -> float:
-    # WCAG 2.1, definition of "relative luminance" (sRGB channels linearised).
-    channels = [int(hex_colour[i:i + 2], 16) / 255 for i in (1, 3, 5)]
-    linear = [c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4 for c in channels]
-    return 0.2126 * linear[0] + 0.7152 * linear[1] + 0.0722 * linear[2]
-
-
-def _caution_texts(svg: bytes) -> tuple[list[tuple[dict[str, str], str, float]], float]:
-    """(style, text, y) of the SVG text elements that carry the caution; the lowest other y."""
-    root = ElementTree.fromstring(svg)
-    found, other_ys = [], []
-    for element in root.iter("{http://www.w3.org/2000/svg}text"):
-        text = "".join(element.itertext()).strip()
-        if "y" in element.attrib:
-            y = float(element.attrib["y"])
-        else:  # transform="translate(x y) ..."
-            y = float(element.attrib["transform"].split("translate(")[1].split(")")[0].split()[1])
-        if len(text.split()) > 3 and text in NOTICE:  # not an axis label such as "confidence"
-            style = dict(part.split(":", 1) for part in element.attrib["style"].split(";"))
-            found.append(({k.strip(): v.strip() for k, v in style.items()}, text, y))
-        elif text:
-            other_ys.append(y)
-    return found, max(other_ys)
-
-
 def test_svg_report_carries_the_whole_caution_dark_and_readable(client, body):
     response = client.post("/v1/reports", json=body, headers={"Accept": "image/svg+xml"})
-    parts, lowest_other = _caution_texts(response.get_data())
-    assert " ".join(" ".join(text.split()) for _, text, _ in parts) == " ".join(NOTICE.split())
-    for style, _, y in parts:
-        # Points (the SVG is 792 x 612 user units for 11 x 8.5 in): 10 pt is the smallest
-        # size commonly set for body text in print (common practice); the old caution was 6.
-        assert float(style["font-size"].removesuffix("px")) >= 10
-        # WCAG 2.1 SC 1.4.6 (contrast, enhanced): at least 7:1 against the white page.
-        contrast = 1.05 / (_relative_luminance(style["fill"]) + 0.05)
-        assert contrast >= 7
-        # Its own line(s), below every other text of the image (SVG y grows downwards).
-        assert y > lowest_other
+    assert_caution_dark_readable_and_last(response.get_data())
 
 
 def test_png_report_has_dark_caution_lines_at_the_bottom(client, body):
@@ -132,3 +86,28 @@ def test_png_report_has_dark_caution_lines_at_the_bottom(client, body):
     # Rows with near-black ink (grey #555555 text, luminance 0.33, has none below 0.2):
     # two or more lines of 15-px text ink well over 15 rows.
     assert ((band < 0.2).sum(axis=1) > 0).sum() > 15
+
+
+def test_a_reused_page_draws_what_a_fresh_one_draws():
+    # The report's figure is built once and reused: drawing another recording (other rate,
+    # length, heart rate, with windows) in between must leave nothing behind. Bit-equality
+    # is the property: the same Agg raster of the same artists in one process.
+    import features
+    import service.report as report
+    from features import ChannelInput, Options
+    from simulation import SimulationSettings, simulate
+
+    def result(**settings):
+        rec = simulate(SimulationSettings(n_channels=1, **settings))
+        channels = [ChannelInput(samples=rec.channels[0], label=rec.labels[0],
+                                 quantity=rec.quantity, unit=rec.unit)]
+        return features.analyze(channels, rec.fs_hz, options=Options(
+            keep_fused_trace=True, window_s=40.0, window_overlap_s=10.0))
+
+    first = result(duration_s=120.0, fs_hz=250.0, seed=1)
+    other = result(duration_s=90.0, fs_hz=100.0, seed=5, heart_rate_bpm=85.0)
+    report._PAGES.clear()
+    fresh = report.draw_report(first)
+    assert report.draw_report(other) != fresh
+    report.draw_report(other, image_format="svg")
+    assert report.draw_report(first) == fresh

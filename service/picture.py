@@ -1,0 +1,171 @@
+"""What the report and the night picture share: the page, the caution, thinning and saving.
+
+Both pictures are drawn with matplotlib's Agg canvas (no pyplot: every figure is its own
+object, so threads do not share state), on a page of ``SIZE_IN`` inches at ``DPI``, with
+axes at fixed places (no layout engine: constrained layout measured every text of the
+figure on each call and drew it twice, about half of the report's time). The caution is
+wrapped once per process, dark and at reading size, on its own lines below the panels.
+"""
+
+from __future__ import annotations
+
+import functools
+import io
+import math
+import struct
+import zlib
+from typing import Any
+
+import numpy as np
+
+from schemas.responses import NOTICE
+
+#: Formats drawn, and their media types.
+MEDIA_TYPES = {"png": "image/png", "svg": "image/svg+xml"}
+#: Width and height of the image, inches, and its resolution (PNG), dots per inch.
+SIZE_IN = (11.0, 8.5)
+DPI = 100
+#: The caution's size, points (15 px at ``DPI``), and colour (contrast 17:1 on white).
+NOTICE_FONT_PT = 11.0
+NOTICE_COLOUR = "#1a1a1a"
+#: Widest caution line, pixels (the page is 1100 wide), and the gap below it.
+NOTICE_WIDTH_PX = 1060.0
+NOTICE_BOTTOM = 0.008
+#: zlib level of the PNG: 1 writes about 13 % more bytes than 6 in less than half the
+#: time, and the image is the same pixels (PNG is lossless).
+PNG_COMPRESS_LEVEL = 1
+
+
+def check_format(image_format: str) -> None:
+    """Raise ``ValueError`` unless ``image_format`` is one of :data:`MEDIA_TYPES`."""
+    if image_format not in MEDIA_TYPES:
+        raise ValueError(f"`image_format` must be one of {', '.join(sorted(MEDIA_TYPES))}; "
+                         f"got {image_format!r}.")
+
+
+def new_figure() -> Any:
+    """An empty ``SIZE_IN`` figure on its own Agg canvas, no layout engine."""
+    # Imported on first use: matplotlib writes its font cache under $HOME when imported,
+    # which the service's other paths (and a read-only container) need not do.
+    import matplotlib
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    # SVG text stays text (not glyph outlines): the caution can be read, searched and
+    # checked. The same value on every call, so concurrent threads never see another.
+    matplotlib.rcParams["svg.fonttype"] = "none"
+    figure = Figure(figsize=SIZE_IN, dpi=DPI)
+    FigureCanvasAgg(figure)
+    return figure
+
+
+@functools.lru_cache(maxsize=1)
+def caution_lines() -> tuple[str, ...]:
+    """The caution split between words into lines of at most ``NOTICE_WIDTH_PX`` pixels.
+
+    Measured once per process with the Agg renderer's text metrics (the font of the
+    picture), so a line never runs off the page and no layout pass re-measures it.
+    """
+    from matplotlib.backends.backend_agg import RendererAgg
+    from matplotlib.font_manager import FontProperties
+
+    renderer = RendererAgg(8, 8, DPI)
+    font = FontProperties(size=NOTICE_FONT_PT)
+
+    def width(text: str) -> float:
+        return float(renderer.get_text_width_height_descent(text, font, ismath=False)[0])
+
+    lines: list[str] = []
+    for word in NOTICE.split():
+        if lines and width(lines[-1] + " " + word) <= NOTICE_WIDTH_PX:
+            lines[-1] += " " + word
+        else:
+            lines.append(word)
+    return tuple(lines)
+
+
+def draw_caution(figure: Any) -> float:
+    """Write the caution centred at the foot of ``figure``; its top in figure fraction."""
+    lines = caution_lines()
+    figure.text(0.5, NOTICE_BOTTOM, "\n".join(lines), ha="center", va="bottom",
+                fontsize=NOTICE_FONT_PT, color=NOTICE_COLOUR, linespacing=1.25)
+    line = NOTICE_FONT_PT / 72.0 * 1.25 / SIZE_IN[1]  # one line's height, figure fraction
+    return NOTICE_BOTTOM + len(lines) * line
+
+
+def save(figure: Any, image_format: str) -> bytes:
+    """The figure as PNG or SVG bytes, without a date or software stamp."""
+    buffer = io.BytesIO()
+    if image_format == "svg":
+        figure.savefig(buffer, format="svg", dpi=DPI, metadata={"Date": None})
+    else:
+        figure.savefig(buffer, format="png", dpi=DPI, metadata={"Software": None},
+                       pil_kwargs={"compress_level": PNG_COMPRESS_LEVEL})
+    return buffer.getvalue()
+
+
+def png_bytes(canvas: Any) -> bytes:
+    """The pixels an opaque Agg canvas holds now, as an 8-bit RGB PNG.
+
+    Written here rather than through Pillow: the page is opaque (alpha dropped), every
+    row is stored with filter type 0 and compressed at zlib level ``PNG_COMPRESS_LEVEL``,
+    which on a mostly white page takes about half of Pillow's time (its adaptive
+    filtering) for a file about 3 % larger.
+
+    Notes
+    -----
+    Chunks as in the PNG specification (ISO/IEC 15948:2004): the signature (5.2), IHDR
+    with colour type 2, bit depth 8 (11.2.2), pHYs with ``DPI`` in pixels per metre
+    (11.3.5.3), one IDAT of the zlib stream of the filtered rows (11.2.4, filter type 0
+    of 9.2) and IEND (11.2.5); each chunk ends with the CRC-32 of its type and data (5.3).
+    """
+    width, height = canvas.get_width_height()
+    rgba = np.asarray(canvas.buffer_rgba()).reshape(height, width, 4)
+    rows = np.zeros((height, 1 + 3 * width), dtype=np.uint8)  # a 0 byte: no filter
+    rows[:, 1:] = rgba[..., :3].reshape(height, 3 * width)
+    per_metre = round(DPI / 0.0254)
+
+    def chunk(kind: bytes, data: bytes) -> bytes:
+        return (struct.pack(">I", len(data)) + kind + data
+                + struct.pack(">I", zlib.crc32(kind + data) & 0xFFFFFFFF))
+
+    return b"".join((
+        b"\x89PNG\r\n\x1a\n",
+        chunk(b"IHDR", struct.pack(">IIBBBBB", width, height, 8, 2, 0, 0, 0)),
+        chunk(b"pHYs", struct.pack(">IIB", per_metre, per_metre, 1)),
+        chunk(b"IDAT", zlib.compress(rows.tobytes(), PNG_COMPRESS_LEVEL)),
+        chunk(b"IEND", b""),
+    ))
+
+
+def envelope(t: np.ndarray, y: np.ndarray, columns: int) -> tuple[np.ndarray, np.ndarray]:
+    """The min/max envelope of ``y`` per pixel column, as a line through both in turn.
+
+    Parameters
+    ----------
+    t, y
+        Times (increasing) and values, equal length.
+    columns
+        Pixel columns the line spans on the image (at least 1).
+
+    Returns
+    -------
+    (t, y)
+        Unchanged when ``y`` has at most two points per column; otherwise two points per
+        column (its lowest and highest value, at the column's first time), so the line
+        drawn covers, in each column, exactly the range the full trace covers there.
+    """
+    columns = max(1, int(columns))
+    if y.size <= 2 * columns:
+        return t, y
+    edges = np.linspace(0, y.size, columns + 1).astype(np.intp)[:-1]
+    lo = np.minimum.reduceat(y, edges)
+    hi = np.maximum.reduceat(y, edges)
+    tt = np.repeat(t[edges], 2)
+    yy = np.column_stack([lo, hi]).ravel()
+    return tt, yy
+
+
+def columns_of(ax_rect: tuple[float, float, float, float]) -> int:
+    """Pixel columns of an axes placed at ``ax_rect`` (figure fraction) on the page."""
+    return math.ceil(ax_rect[2] * SIZE_IN[0] * DPI)
