@@ -40,6 +40,7 @@ from features.quality import (
     OccupancyResult,
     QualityResult,
     check_signal_present,
+    load_never_occupied,
     occupancy,
     signal_quality,
 )
@@ -221,9 +222,12 @@ def analyze(
         static_n=cond.baseline_si if force_only and cond.positions_m is not None else None,
         static_fs_hz=cond.baseline_fs_hz,
     )
-    # A load that says "empty" for the whole record does not mask it: the beats are
-    # looked for, and a heartbeat found against it is reported as a disagreement.
-    load_n = cond.load_trace_n if cond.occupancy_from_load is not False else None
+    # A load that never reaches an occupant's level does not mask the record: the beats
+    # are looked for, and a heartbeat found against it is reported as a disagreement. A
+    # load that shows an occupant for part of the record (a calibrated load, someone
+    # getting in or out) masks the rest as an empty support.
+    empty_throughout = load_never_occupied(cond.load_trace_n)
+    load_n = None if empty_throughout else cond.load_trace_n
     mask: ArtifactMask = mask_artifacts(fusion.fused, fs_hz, load_n=load_n,
                                         load_fs_hz=cond.baseline_fs_hz,
                                         raw_signals=cond.raw_signals, pad_s=MOVEMENT_PAD_S,
@@ -270,7 +274,7 @@ def analyze(
         warnings.append("the load on the support differs from the stated body mass by over 25%")
 
     n_samples = int(cond.signals.shape[1])
-    quality = signal_quality(mask, beats, from_load=cond.occupancy_from_load)
+    quality = signal_quality(mask, beats, load_empty_throughout=empty_throughout)
     summary = InputSummary(
         duration_s=n_samples / fs_hz,
         sampling_rate_hz=float(fs_hz),

@@ -17,6 +17,7 @@ from features.artifacts import ArtifactMask, Segment
 from features.beats import BeatDetection
 from features.catalogue import REF_OURS, UNIT_INTERVAL, FeatureDefinition
 from features.errors import CLIPPED_SIGNAL, FLAT_SIGNAL, UnusableSignalError
+from features.limits import MIN_OCCUPANT_KG, STANDARD_GRAVITY_M_S2
 
 __all__ = [
     "CATALOGUE",
@@ -141,28 +142,37 @@ def _share_at_extremes(x: NDArray[np.generic]) -> float | None:
 
 
 def signal_quality(mask: ArtifactMask, beats: BeatDetection, *,
-                   from_load: bool | None) -> QualityResult:
+                   load_empty_throughout: bool) -> QualityResult:
     """Usable fraction and segments of the artifact mask, with their confidence.
 
     The confidence is the usable fraction, times :data:`NO_HEARTBEAT_FACTOR` when no
-    repeating heartbeat was found. A load that said "empty" throughout (``from_load``
-    False) is named in the flags, not masked: the beats are still looked for.
+    repeating heartbeat was found. A load that never reached an occupant's level
+    (``load_empty_throughout``, see :func:`load_never_occupied`) is named in the flags,
+    not masked: the beats are still looked for.
     """
     factor = 1.0 if beats.has_beats else NO_HEARTBEAT_FACTOR
+    flags = tuple(mask.flags)
+    if load_empty_throughout:
+        kept = [f for f in flags if f != "empty_support_not_checked_no_load"]
+        flags = (*kept, "load_says_empty_whole_record_not_masked")
     return QualityResult(
         usable_fraction=mask.usable_fraction,
         segments=mask.segments,
         confidence=float(mask.usable_fraction * factor),
-        flags=_quality_flags(mask.flags, from_load),
+        flags=flags,
     )
 
 
-def _quality_flags(mask_flags: Sequence[str], from_load: bool | None) -> tuple[str, ...]:
-    """The mask's flags; a load that said "empty" throughout is named, not masked."""
-    if from_load is not False:
-        return tuple(mask_flags)
-    kept = [f for f in mask_flags if f != "empty_support_not_checked_no_load"]
-    return (*kept, "load_says_empty_whole_record_not_masked")
+def load_never_occupied(load_n: NDArray[np.floating] | None) -> bool:
+    """True when an occupant load trace exists and never reaches an occupant's weight.
+
+    ``load_n`` is ``ConditionedInput.load_trace_n`` (N, less the empty load; None without
+    calibrated ``dc`` force channels). The level is the one the artifact stage masks
+    below: :data:`features.limits.MIN_OCCUPANT_KG` times standard gravity.
+    """
+    if load_n is None or load_n.size == 0:
+        return False
+    return bool(np.nanmax(load_n) < MIN_OCCUPANT_KG * STANDARD_GRAVITY_M_S2)
 
 
 def occupancy(from_load: bool | None, mass_kg: float | None,

@@ -48,8 +48,14 @@ from service.loadtest import serve  # noqa: E402
 #: schemathesis's default expected statuses for contract-valid requests, plus 422 for the
 #: content rules JSON Schema cannot state (narrowed by refused_only_for_content).
 ACCEPTED_STATUSES = ["2xx", "3xx", "401", "403", "404", "409", "422", "429", "5xx"]
+#: schemathesis's default refusals of contract-breaking requests, plus 413: a generated
+#: body can pass the documented body limit (HEARTSWAY_MAX_BODY_BYTES, 32 MiB), and
+#: "Content Too Large" is the refusal RFC 9110 (15.5.14) gives it.
+REFUSED_STATUSES = ["400", "401", "403", "404", "405", "406", "409", "413", "415", "422",
+                    "428", "429", "5xx"]
 CONFIG = SchemathesisConfig.from_dict(
-    {"checks": {"positive_data_acceptance": {"expected-statuses": ACCEPTED_STATUSES}}}
+    {"checks": {"positive_data_acceptance": {"expected-statuses": ACCEPTED_STATUSES},
+                "negative_data_rejection": {"expected-statuses": REFUSED_STATUSES}}}
 )
 SCHEMA = schemathesis.openapi.from_path(ROOT / "openapi.yaml", config=CONFIG)
 APP = create_app({"TESTING": True})
