@@ -674,7 +674,8 @@ def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
     if size[1 - keep] < TWO_WAVE_COMPARABLE * size[keep] or \
             _pair_span(picks, run_ids) < min_period:
         return None
-    return (cls >= 0) & (cls != keep)
+    first_wave: NDArray[np.bool_] = (cls >= 0) & (cls != keep)
+    return first_wave
 
 
 def _pair_span(picks: NDArray[np.intp], run_ids: NDArray[np.int64]) -> float:

@@ -543,8 +543,8 @@ def _heart_rate(sitting: Sequence[WindowResult], windowed: WindowedAnalysis,
     else:
         low = min(segments, key=lambda r: r[1][0])
         high = max(segments, key=lambda r: r[1][0])
-        for tag, (w, (v, c)) in (("lowest", low), ("highest", high)):
-            out[f"heart_rate_{tag}_5min_bpm"] = _value(f"heart_rate_{tag}_5min_bpm", v, c)
+        for tag, (w, (rate, c)) in (("lowest", low), ("highest", high)):
+            out[f"heart_rate_{tag}_5min_bpm"] = _value(f"heart_rate_{tag}_5min_bpm", rate, c)
             out[f"heart_rate_{tag}_5min_start_s"] = _value(f"heart_rate_{tag}_5min_start_s",
                                                            w.start_s, c)
         return out
@@ -598,8 +598,8 @@ def _medians(sitting: Sequence[WindowResult], reason: str | None) -> dict[str, F
         if reason or not rows:
             out[name] = _none(name, reason or "no_occupied_window_with_value")
         else:
-            v, c = pick(rows, key=lambda r: r[0])
-            out[name] = _value(name, v, c)
+            rate, c = pick(rows, key=lambda r: r[0])
+            out[name] = _value(name, rate, c)
     return out
 
 

@@ -645,7 +645,7 @@ def _window_nanmedian(v: NDArray[np.float64], half: int) -> NDArray[np.float64]:
     rows = np.arange(v.size)
     lo = windows[rows, np.maximum(count - 1, 0) // 2]
     hi = windows[rows, count // 2]
-    out = np.where(count % 2 == 1, lo, (lo + hi) / 2.0)
+    out: NDArray[np.float64] = np.where(count % 2 == 1, lo, (lo + hi) / 2.0)
     out[count == 0] = np.nan
     return out
 

@@ -23,7 +23,6 @@ from features.conditioning import ChannelInput
 from features.engine import (
     FEATURE_SET_VERSION,
     AnalysisResult,
-    OccupancyResult,
     Options,
     Recording,
     Subject,
@@ -32,6 +31,7 @@ from features.engine import (
 from features.errors import InvalidInputError, UnusableSignalError
 from features.feature_vector import FeatureVector
 from features.limits import MAX_CHANNELS, MAX_WINDOW_S, MIN_WINDOW_S
+from features.quality import OccupancyResult
 
 __all__ = [
     "MAX_WINDOW_S",

@@ -16,11 +16,11 @@ import numpy as np
 from marshmallow import Schema, ValidationError, fields, post_load
 from marshmallow.validate import Length, OneOf, Range
 
-from features.limits import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ, QUANTITIES
+from features.limits import DEFAULT_MAX_SAMPLES, MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ, QUANTITIES
 from fileformats.arrays import csv_rows
 from fileformats.bounds import check_samples
 from fileformats.errors import UnreadableFileError
-from schemas.requests import DEFAULT_MAX_SAMPLES, INCLUDE_PARTS
+from schemas.requests import INCLUDE_PARTS
 
 #: A column with this header (any case) holds time stamps and is not a channel.
 TIME_COLUMN = "time_s"
