@@ -17,10 +17,10 @@ import numpy as np
 from features import __version__
 from features.artifacts import ArtifactMask, mask_artifacts
 from features.beats import BeatDetection, detect_beats
-from features.conditioning import ChannelInput, condition_channels
+from features.conditioning import ChannelInput, ConditionedInput, condition_channels
 from features.errors import InvalidInputError
 from features.filters import FloatArray
-from features.fusion import fuse_channels
+from features.fusion import FusionResult, fuse_channels
 from features.heart_rate import HeartRateResult, heart_rate
 from features.intervals import (
     IntervalLabels,
@@ -252,30 +252,7 @@ def analyze(
         cardiac_amplitude=morph.jk_amplitude,
     )
 
-    warnings: list[str] = []
-    if mask.usable_fraction < 0.5:
-        warnings.append("less than half of the recording is usable")
-    if not beats.has_beats:
-        warnings.append("no repeating heartbeat waveform was found")
-    stated = subject.body_mass_kg
-    if stated is not None and cond.supported_mass_kg is not None and \
-            abs(cond.supported_mass_kg - stated) > 0.25 * stated:
-        warnings.append("the load on the support differs from the stated body mass by over 25%")
-
-    n_samples = int(cond.signals.shape[1])
     quality = signal_quality(mask, beats, from_load=cond.occupancy_from_load)
-    summary = InputSummary(
-        duration_s=n_samples / fs_hz,
-        sampling_rate_hz=float(fs_hz),
-        n_samples=n_samples,
-        channel_labels=cond.labels,
-        channel_weights=tuple(float(w) for w in fusion.weights),
-        fusion_method=fusion.method,
-        amplitude_unit=fusion.unit,
-        mains_hz_removed=cond.mains_hz_removed,
-        cop_cardiac_excursion_mm=fusion.cop_cardiac_excursion_mm,
-        flags=tuple(cond.flags) + tuple(fusion.flags),
-    )
     # The feature vector reads the finished result (so it is filled in last, over an empty
     # one), and each window is an analyze call of its own (without windows): both modules
     # import this one, hence the imports here.
@@ -283,7 +260,7 @@ def analyze(
     from features.windows import analyze_windows
 
     stages = AnalysisResult(
-        input=summary,
+        input=_input_summary(cond, fusion, fs_hz),
         quality=quality,
         occupancy=occupied,
         heart_rate=hr,
@@ -296,7 +273,7 @@ def analyze(
         modulation=modulation,
         body_mass_kg=mass,
         body_mass_source=mass_source,
-        warnings=tuple(warnings),
+        warnings=_warnings(mask, beats, subject, cond.supported_mass_kg),
         feature_vector=FeatureVector(FEATURE_SET_VERSION, ()),
         windows=None,
         fused_trace=fusion.fused if options.keep_fused_trace else None,
@@ -307,6 +284,38 @@ def analyze(
                                   overlap_s=options.window_overlap_s, subject=subject,
                                   recording=recording, options=options)
     return replace(stages, feature_vector=feature_vector(stages), windows=windows)
+
+
+def _warnings(mask: ArtifactMask, beats: BeatDetection, subject: Subject,
+              supported_mass_kg: float | None) -> tuple[str, ...]:
+    """Plain-language warnings about the recording as a whole."""
+    warnings: list[str] = []
+    if mask.usable_fraction < 0.5:
+        warnings.append("less than half of the recording is usable")
+    if not beats.has_beats:
+        warnings.append("no repeating heartbeat waveform was found")
+    stated = subject.body_mass_kg
+    if stated is not None and supported_mass_kg is not None and \
+            abs(supported_mass_kg - stated) > 0.25 * stated:
+        warnings.append("the load on the support differs from the stated body mass by over 25%")
+    return tuple(warnings)
+
+
+def _input_summary(cond: ConditionedInput, fusion: FusionResult, fs_hz: float) -> InputSummary:
+    """What the conditioning and fusion stages made of the input."""
+    n_samples = int(cond.signals.shape[1])
+    return InputSummary(
+        duration_s=n_samples / fs_hz,
+        sampling_rate_hz=float(fs_hz),
+        n_samples=n_samples,
+        channel_labels=cond.labels,
+        channel_weights=tuple(float(w) for w in fusion.weights),
+        fusion_method=fusion.method,
+        amplitude_unit=fusion.unit,
+        mains_hz_removed=cond.mains_hz_removed,
+        cop_cardiac_excursion_mm=fusion.cop_cardiac_excursion_mm,
+        flags=tuple(cond.flags) + tuple(fusion.flags),
+    )
 
 
 def _check_metadata(subject: Subject, recording: Recording) -> None:

@@ -250,13 +250,7 @@ def breathing(
     # noise test and the spectral rate.
     psd = _welch_psd(y, fs_b, mask_b)
     if cop is not None:
-        best = _concentration(psd)
-        for bp_c, lp_c, m_c in _cop_candidates(cop, cop_fs, y.size, fs_b):
-            psd_c = _welch_psd(bp_c, fs_b, mask_b & m_c)
-            c = _concentration(psd_c)
-            if c > best:
-                best, y, y_low, mask_b, psd = c, bp_c, lp_c, mask_b & m_c, psd_c
-                source = "centre_of_pressure"
+        y, y_low, mask_b, psd, source = _choose_source(y, y_low, mask_b, psd, cop, cop_fs, fs_b)
         if source == "centre_of_pressure":
             flags.append("breathing_from_centre_of_pressure")
     usable_s = float(mask_b.sum() / fs_b)
@@ -340,6 +334,23 @@ def breathing(
 
 # --------------------------------------------------------------------------- validation
 
+
+
+def _choose_source(
+    y: NDArray[np.float64], y_low: NDArray[np.float64], mask_b: NDArray[np.bool_],
+    psd: _Psd, cop: NDArray[np.float64], cop_fs: float, fs_b: float,
+) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.bool_], _Psd, str]:
+    """The trace's breathing band or a centre-of-pressure axis, whichever is more
+    concentrated around its Welch peak (Notes, 1 of :func:`breathing`)."""
+    source = "trace"
+    best = _concentration(psd)
+    for bp_c, lp_c, m_c in _cop_candidates(cop, cop_fs, y.size, fs_b):
+        psd_c = _welch_psd(bp_c, fs_b, mask_b & m_c)
+        c = _concentration(psd_c)
+        if c > best:
+            best, y, y_low, mask_b, psd = c, bp_c, lp_c, mask_b & m_c, psd_c
+            source = "centre_of_pressure"
+    return y, y_low, mask_b, psd, source
 
 def _validate(
     sig: ArrayLike,
