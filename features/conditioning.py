@@ -13,7 +13,6 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Literal
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -33,6 +32,7 @@ from features.filters import (
 from features.limits import (
     COUNTS_UNIT,
     COUPLINGS,
+    MAINS_AUTO,
     MAINS_HZ,
     MAX_CHANNELS,
     MAX_DURATION_S,
@@ -42,6 +42,7 @@ from features.limits import (
     MIN_OCCUPANT_KG,
     STANDARD_GRAVITY_M_S2,
     UNIT_FACTORS,
+    mains_choices,
     units_of,
 )
 from features.spectral import welch_spectra
@@ -64,8 +65,9 @@ MAINS_MARGIN_HZ = 5.0
 #: Auto-detection: narrow-band peak power over the median of its neighbourhood.
 MAINS_PEAK_RATIO = 10.0
 
-Quantity = Literal["force", "acceleration", "velocity", "displacement"]
-
+#: Per quantity (the keys are ``QUANTITIES``; tests/features/test_conditioning.py checks
+#: it): the unit of the kinetic signal it becomes, and how many times it is differentiated
+#: to get there.
 _KINETIC_UNIT = {"force": "N", "acceleration": "m/s^2", "velocity": "m/s^2",
                  "displacement": "m/s^2"}
 _DERIVATIVES = {"force": 0, "acceleration": 0, "velocity": 1, "displacement": 2}
@@ -101,7 +103,7 @@ class ChannelInput:
     label
         Unique channel name, for example ``"cell_front_left"``.
     quantity
-        ``"force"``, ``"acceleration"``, ``"velocity"`` or ``"displacement"``.
+        One of ``features.limits.QUANTITIES``.
     unit
         Unit of ``samples`` (see :func:`features.limits.units_of`) or ``"counts"`` with
         ``counts_scale``.
@@ -221,7 +223,7 @@ def resolve_coupling(quantity: str, unit: str, has_scale: bool, coupling: str | 
 
 
 def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
-                       mains_hz: str | float | None = "auto",
+                       mains_hz: str | float | None = MAINS_AUTO,
                        empty_load_kg: float = 0.0) -> ConditionedInput:
     """Validate raw channels and bring them to SI kinetic form without hum or static part.
 
@@ -529,12 +531,12 @@ def _check_positions(chans: list[ChannelInput]) -> FloatArray | None:
 
 
 def _check_mains(mains_hz: object) -> str | int | None:
-    if mains_hz is None or (isinstance(mains_hz, str) and mains_hz == "auto"):
+    if mains_hz is None or (isinstance(mains_hz, str) and mains_hz == MAINS_AUTO):
         return mains_hz
     if not isinstance(mains_hz, bool) and isinstance(mains_hz, (int, float)) and \
             mains_hz in MAINS_HZ:
         return int(mains_hz)
-    raise InvalidInputError("mains_hz", "`mains_hz` must be one of 'auto', 50, 60 or None; "
+    raise InvalidInputError("mains_hz", f"`mains_hz` must be one of {mains_choices()}; "
                             f"got {mains_hz!r}.")
 
 
@@ -576,8 +578,8 @@ def _choose_mains(arrays: list[NDArray[np.generic]], chans: list[ChannelInput], 
     if mains is None:
         flags.append("mains_removal_off")
         return None
-    if mains == "auto":
-        candidates = [f for f in (50, 60) if _mains_allowed(fs, f)]
+    if mains == MAINS_AUTO:
+        candidates = [f for f in MAINS_HZ if _mains_allowed(fs, f)]
         if not candidates:
             flags.append("mains_detection_skipped_rate_too_low")
             return None

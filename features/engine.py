@@ -29,7 +29,9 @@ from features.intervals import (
     intervals_from_beats,
 )
 from features.limits import (
+    DEFAULT_PLACEMENT,
     DEFAULT_RATE_RANGE_BPM,
+    MAINS_AUTO,
     MAX_BODY_MASS_KG,
     MIN_BODY_MASS_KG,
     PLACEMENTS,
@@ -73,7 +75,7 @@ class Subject:
 class Recording:
     """Where and how the trace was taken. Identifiers are never logged."""
 
-    placement: str = "seat"
+    placement: str = DEFAULT_PLACEMENT
     posture: str | None = None
     start_time: str | None = None
     device_id: str | None = None
@@ -86,14 +88,16 @@ class Options:
     Attributes
     ----------
     mains_hz
-        50 or 60 to remove that hum, "auto" to detect it, None to skip.
+        One of ``features.limits.MAINS_HZ`` to remove that hum, ``MAINS_AUTO`` to detect
+        it, None to skip.
     empty_load_kg
         Load of the empty support (0 for a tared plate).
     rate_range_bpm
         Plausible heart-rate range.
     window_s
-        Also analyse consecutive windows of this length (s), 30 to 3600, at most the
-        recording length (:func:`features.windows.analyze_windows`); None for none.
+        Also analyse consecutive windows of this length (s), ``features.limits.MIN_WINDOW_S``
+        to ``MAX_WINDOW_S``, at most the recording length
+        (:func:`features.windows.analyze_windows`); None for none.
     window_overlap_s
         Overlap of consecutive windows (s), at least 0 and less than ``window_s``.
     keep_fused_trace
@@ -101,7 +105,7 @@ class Options:
         drawing it); off by default, since it is as long as the recording.
     """
 
-    mains_hz: float | str | None = "auto"
+    mains_hz: float | str | None = MAINS_AUTO
     empty_load_kg: float = 0.0
     rate_range_bpm: tuple[float, float] = DEFAULT_RATE_RANGE_BPM
     window_s: float | None = None

@@ -13,7 +13,11 @@ __all__ = [
     "COUNTS_UNIT",
     "COUPLINGS",
     "DEFAULT_MAX_SAMPLES",
+    "DEFAULT_PLACEMENT",
+    "DEFAULT_QUANTITY",
     "DEFAULT_RATE_RANGE_BPM",
+    "DEFAULT_UNIT",
+    "MAINS_AUTO",
     "MAINS_HZ",
     "MAX_BODY_MASS_KG",
     "MAX_CHANNELS",
@@ -34,7 +38,9 @@ __all__ = [
     "QUANTITIES",
     "STANDARD_GRAVITY_M_S2",
     "UNIT_FACTORS",
+    "mains_choices",
     "units_of",
+    "units_text",
 ]
 
 #: Milliseconds per minute: a rate in /min is MS_PER_MIN over an interval in ms.
@@ -97,10 +103,17 @@ MAX_WINDOW_S = 3600.0
 
 #: Where the sensors sit.
 PLACEMENTS = ("bed", "other", "platform", "seat")
+#: Placement of a recording whose caller does not say.
+DEFAULT_PLACEMENT = "seat"
 #: What a channel measures.
 QUANTITIES = ("acceleration", "displacement", "force", "velocity")
+#: Quantity and unit of a channel whose form or file does not say (a load cell in newtons).
+DEFAULT_QUANTITY = "force"
+DEFAULT_UNIT = "N"
 #: Mains frequencies whose hum can be removed, Hz.
 MAINS_HZ = (50, 60)
+#: The mains setting that detects the hum's frequency (one of ``MAINS_HZ``) from the trace.
+MAINS_AUTO = "auto"
 #: Unit of a channel recorded in ADC counts (it then needs a counts scale).
 COUNTS_UNIT = "counts"
 #: How a channel is coupled to the occupant's static weight, sorted. ``dc``: a calibrated
@@ -128,3 +141,15 @@ UNIT_FACTORS = MappingProxyType({
 def units_of(quantity: str) -> list[str]:
     """Sorted units accepted for ``quantity``, :data:`COUNTS_UNIT` included."""
     return sorted([*UNIT_FACTORS[quantity], COUNTS_UNIT])
+
+
+def units_text() -> str:
+    """The physical units of each quantity, for messages and descriptions:
+    ``"acceleration g, m/s2, m/s^2, mg; displacement m, mm, um; ..."``."""
+    return "; ".join(f"{q} {', '.join(sorted(UNIT_FACTORS[q]))}" for q in QUANTITIES)
+
+
+def mains_choices(none: str = "None") -> str:
+    """The accepted mains settings, for messages: ``"'auto', 50, 60 or None"`` (``none``
+    names the empty setting as the caller's language spells it, ``null`` in JSON)."""
+    return ", ".join([repr(MAINS_AUTO), *map(str, MAINS_HZ)]) + f" or {none}"

@@ -27,7 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from features.feature_vector import FeatureValue
+from features.feature_vector import FeatureValue, value_named, values_by_name
 from features.windows import WindowedAnalysis, WindowResult
 
 __all__ = [
@@ -196,14 +196,11 @@ class NightSummary:
         KeyError
             When ``name`` is not in :data:`NIGHT_MEASURES`.
         """
-        for m in self.measures:
-            if m.name == name:
-                return m
-        raise KeyError(name)
+        return value_named(self.measures, name)
 
     def as_dict(self) -> dict[str, float | None]:
         """Name -> value (None when not computed), in catalogue order."""
-        return {m.name: m.value for m in self.measures}
+        return values_by_name(self.measures)
 
 
 def summarize_night(windowed: WindowedAnalysis) -> NightSummary:

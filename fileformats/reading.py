@@ -10,7 +10,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from features.conditioning import ChannelInput, valid_units
-from features.limits import COUNTS_UNIT, QUANTITIES
+from features.limits import COUNTS_UNIT, DEFAULT_QUANTITY, DEFAULT_UNIT, QUANTITIES
 from fileformats import arrays, edf, wfdb_records
 from fileformats.errors import UnreadableFileError
 from fileformats.raw import RawTrace
@@ -215,8 +215,8 @@ def _unit(raw: RawTrace, k: int, quantity: str | None, unit: str | None,
             known = sorted({u for q in _QUANTITIES for u in valid_units(q)} - {COUNTS_UNIT})
             raise UnreadableFileError(
                 "unit", f"`unit` must be given for channel {label!r}: its header unit "
-                f"{raw.units[k]!r} is not a force, acceleration, velocity or displacement "
-                f"unit ({', '.join(known)}); got none."
+                f"{raw.units[k]!r} is not a unit of {', '.join(_QUANTITIES[:-1])} or "
+                f"{_QUANTITIES[-1]} ({', '.join(known)}); got none."
             )
         source = "header"
     else:
@@ -236,8 +236,8 @@ def read_trace(
     fs_hz: float | None = None,
     quantity: str | None = None,
     unit: str | None = None,
-    default_quantity: str = "force",
-    default_unit: str = "N",
+    default_quantity: str = DEFAULT_QUANTITY,
+    default_unit: str = DEFAULT_UNIT,
     max_samples: int | None = None,
 ) -> TraceFile:
     """Read one recording into engine channel inputs.

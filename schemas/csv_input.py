@@ -16,7 +16,15 @@ import numpy as np
 from marshmallow import Schema, ValidationError, fields, post_load
 from marshmallow.validate import Length, OneOf, Range
 
-from features.limits import DEFAULT_MAX_SAMPLES, MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ, QUANTITIES
+from features.limits import (
+    DEFAULT_MAX_SAMPLES,
+    DEFAULT_QUANTITY,
+    DEFAULT_UNIT,
+    MAX_CHANNELS,
+    MAX_FS_HZ,
+    MIN_FS_HZ,
+    QUANTITIES,
+)
 from fileformats.arrays import csv_rows
 from fileformats.bounds import check_samples
 from fileformats.errors import UnreadableFileError
@@ -111,12 +119,12 @@ class CsvUploadFormSchema(Schema):
         metadata={"description": f"Sampling rate of every column, {MIN_FS_HZ:g}-{MAX_FS_HZ:g} Hz."},
     )
     quantity = fields.String(
-        load_default="force",
+        load_default=DEFAULT_QUANTITY,
         validate=OneOf(QUANTITIES, error=f"Must be one of: {', '.join(sorted(QUANTITIES))}."),
         metadata={"description": "Quantity of every column."},
     )
     unit = fields.String(
-        load_default="N",
+        load_default=DEFAULT_UNIT,
         validate=Length(min=1, max=16),
         metadata={"description": "Unit of every column."},
     )
