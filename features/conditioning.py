@@ -167,7 +167,7 @@ class ConditionedInput:
         True/False from the occupant mass bounds; None without a ``dc`` channel or when
         the load is implausible (see flags).
     mains_hz_removed
-        50 or 60 when the hum was notched, else None.
+        The mains frequency (one of ``MAINS_HZ``) when the hum was notched, else None.
     confidence
         Fraction of channels that carry a signal (not constant after conditioning).
     flags
@@ -230,13 +230,13 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
     Parameters
     ----------
     channels
-        1 to 8 :class:`ChannelInput` of equal length, unique labels.
+        1 to ``MAX_CHANNELS`` :class:`ChannelInput` of equal length, unique labels.
     fs_hz
         Sampling rate common to all channels, Hz, within ``features.limits.MIN_FS_HZ`` to
         ``MAX_FS_HZ``.
     mains_hz
-        ``"auto"`` (detect 50 or 60 Hz hum from a narrow spectral peak), 50, 60, or
-        None to skip hum removal.
+        ``MAINS_AUTO`` (detect the hum of one of ``MAINS_HZ`` from a narrow spectral
+        peak), one of ``MAINS_HZ`` (Hz), or None to skip hum removal.
     empty_load_kg
         Load of the empty support (mattress, seat cushion) in kg, >= 0; 0 for a tared
         plate. Subtracted from the supported mass and the load trace.
@@ -285,9 +285,9 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
        level of a film, a pad, an accelerometer or an uncalibrated front end says
        nothing about the occupant's weight.
 
-    Mains detection (``"auto"``): Hann periodograms (0.25 Hz resolution) of up to
+    Mains detection (``MAINS_AUTO``): Hann periodograms (0.25 Hz resolution) of up to
     16 segments of 4 s spread over the record, averaged; hum is present when the
-    largest bin within +-0.5 Hz of 50 or 60 Hz exceeds ``MAINS_PEAK_RATIO`` times
+    largest bin within +-0.5 Hz of a ``MAINS_HZ`` frequency exceeds ``MAINS_PEAK_RATIO`` times
     the median of the bins 2-5 Hz away, in any channel. Notching needs
     ``fs_hz > 2 * (mains + 5 Hz)``; otherwise it is skipped and flagged.
 

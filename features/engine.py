@@ -176,12 +176,13 @@ def analyze(
     recording: Recording | None = None,
     options: Options | None = None,
 ) -> AnalysisResult:
-    """Analyse one recording of one to eight equal-length channels.
+    """Analyse one recording of equal-length channels (1 to ``MAX_CHANNELS``).
 
     Parameters
     ----------
     channels
-        One to eight :class:`features.conditioning.ChannelInput`, equal length.
+        1 to ``features.limits.MAX_CHANNELS`` :class:`features.conditioning.ChannelInput`,
+        equal length.
     fs_hz
         Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     subject, recording, options

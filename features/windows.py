@@ -163,10 +163,10 @@ def analyze_windows(
     Parameters
     ----------
     channels
-        One to eight :class:`features.conditioning.ChannelInput` of equal length. Their
-        ``samples`` may be numpy arrays, ``numpy.memmap`` arrays or any 1-D sequence that
-        supports ``len`` and slicing; they are sliced one window at a time and never copied
-        or concatenated whole.
+        1 to ``features.limits.MAX_CHANNELS`` :class:`features.conditioning.ChannelInput`
+        of equal length. Their ``samples`` may be numpy arrays, ``numpy.memmap`` arrays or
+        any 1-D sequence that supports ``len`` and slicing; they are sliced one window at a
+        time and never copied or concatenated whole.
     fs_hz
         Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     window_s
