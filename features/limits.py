@@ -36,6 +36,7 @@ __all__ = [
     "MS_PER_MIN",
     "PLACEMENTS",
     "QUANTITIES",
+    "SHORT_TERM_S",
     "STANDARD_GRAVITY_M_S2",
     "UNIT_FACTORS",
     "mains_choices",
@@ -100,6 +101,10 @@ DEFAULT_RATE_RANGE_BPM = (30.0, 200.0)
 #: Length of one analysis window, s: the shortest holds about 30 beats and a few breaths.
 MIN_WINDOW_S = 30.0
 MAX_WINDOW_S = 3600.0
+#: The short-term recording of heart-rate variability, s: 5 min (Task Force of the ESC and
+#: NASPE, Circulation 93(5):1043-1065, 1996, "short-term recordings (2 to 5 min)" and the
+#: 5-min segments of SDANN and the SDNN index).
+SHORT_TERM_S = 300.0
 
 #: Where the sensors sit.
 PLACEMENTS = ("bed", "other", "platform", "seat")

@@ -28,6 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from features.feature_vector import FeatureValue, value_named, values_by_name
+from features.limits import SHORT_TERM_S
 from features.windows import WindowedAnalysis, WindowResult
 
 __all__ = [
@@ -43,7 +44,7 @@ __all__ = [
     "summarize_night",
 ]
 
-SEGMENT_S = 300.0
+SEGMENT_S = SHORT_TERM_S
 """Segment length of the Task Force long-term measures and of the 5-minute heart-rate means
 (s): "the mean NN intervals calculated over short periods, usually 5 min" (Task Force 1996,
 time-domain methods)."""
