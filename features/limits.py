@@ -37,6 +37,7 @@ __all__ = [
     "PLACEMENTS",
     "QUANTITIES",
     "SHORT_TERM_S",
+    "S_PER_HOUR",
     "STANDARD_GRAVITY_M_S2",
     "UNIT_FACTORS",
     "mains_choices",
@@ -46,6 +47,8 @@ __all__ = [
 
 #: Milliseconds per minute: a rate in /min is MS_PER_MIN over an interval in ms.
 MS_PER_MIN = 60_000.0
+#: Seconds per hour: a count per hour is the count over the time in s over S_PER_HOUR.
+S_PER_HOUR = 3600.0
 
 #: Standard acceleration of gravity, m/s^2 (3rd CGPM, 1901; NIST SP 811, 2008, B.8).
 STANDARD_GRAVITY_M_S2 = 9.80665

@@ -28,7 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from features.feature_vector import FeatureValue, value_named, values_by_name
-from features.limits import SHORT_TERM_S
+from features.limits import S_PER_HOUR, SHORT_TERM_S
 from features.windows import WindowedAnalysis, WindowResult
 
 __all__ = [
@@ -642,7 +642,7 @@ def _per_hour_and_usable(windows: Sequence[WindowResult], owned: Sequence[tuple[
     # window boundary cut one in two (heartsway definition).
     stretches = [(a + b) / 2.0 for a, b in _merge(moving)]
     inside = sum(any(a <= t < b for a, b in occupied) for t in stretches)
-    out["movement_per_hour"] = _value("movement_per_hour", inside / (occ_s / 3600.0), conf)
+    out["movement_per_hour"] = _value("movement_per_hour", inside / (occ_s / S_PER_HOUR), conf)
     usable = _total(_subtract(list(occupied), _merge(masked)))
     out["usable_fraction"] = _value("usable_fraction", usable / occ_s, conf)
     return out

@@ -30,7 +30,7 @@ from features.catalogue import (
 )
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, butter_filtfilt, frozen
-from features.limits import MIN_DURATION_S
+from features.limits import MIN_DURATION_S, S_PER_HOUR
 from features.spectral import welch_spectra
 
 __all__ = ["CATALOGUE", "RespirationResult", "breathing"]
@@ -50,7 +50,6 @@ FUSION_MAX_SD_PER_MIN = 4.0
 PAUSE_THRESHOLD_PCT = 25.0
 """Default pause threshold: swing below this share of the surrounding baseline (%)."""
 
-_S_PER_HOUR = 3600.0
 _BASELINE_BLOCK_S = 10.0
 _BASELINE_SPAN_S = 120.0
 _WELCH_SEGMENT_S = 64.0
@@ -303,7 +302,7 @@ def breathing(
         confidence = c_agree * min(1.0, intervals.size / 10.0) * np.sqrt(mask_b.mean())
     if spans:
         flags.append("pauses_are_signal_observations_not_diagnosis")
-    if usable_s < _S_PER_HOUR and not noise_limited:
+    if usable_s < S_PER_HOUR and not noise_limited:
         flags.append("pauses_per_hour_extrapolated_from_under_1_h")
     durations = [b - a for a, b in spans]
     return RespirationResult(
@@ -326,7 +325,7 @@ def breathing(
         breathing_amplitude=amp if amp > 0 else None,
         pause_count=None if noise_limited else len(spans),
         pause_spans_s=tuple(spans),
-        pauses_per_hour=None if noise_limited else len(spans) / (usable_s / _S_PER_HOUR),
+        pauses_per_hour=None if noise_limited else len(spans) / (usable_s / S_PER_HOUR),
         longest_pause_s=max(durations) if durations else None,
         breathing_signal=frozen(np.where(mask_b, y, np.nan)),
     )
