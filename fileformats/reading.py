@@ -5,7 +5,7 @@ from __future__ import annotations
 import functools
 import math
 import os
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -141,7 +141,7 @@ def _raw(source: Source, fmt: str | None, name: str | None,
 
 
 def _from_bytes(fmt: str, data: bytes, max_samples: int | None) -> RawTrace:
-    readers = {
+    readers: dict[str, Callable[..., RawTrace]] = {
         "bdf": functools.partial(edf.read_edf, bdf=True),
         "csv": arrays.read_csv,
         "edf": edf.read_edf,
@@ -153,7 +153,7 @@ def _from_bytes(fmt: str, data: bytes, max_samples: int | None) -> RawTrace:
         raise UnreadableFileError(
             "format", f"`format` must be one of {', '.join(FORMATS)}; got {fmt!r}."
         )
-    return readers[fmt](data, max_samples=max_samples)  # type: ignore[operator]
+    return readers[fmt](data, max_samples=max_samples)
 
 
 def _select(raw: RawTrace, channels: Sequence[str] | None) -> list[int]:
