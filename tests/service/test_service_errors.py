@@ -155,7 +155,7 @@ def test_schema_violations_are_422_naming_every_field(client):
 def test_dc_coupling_on_an_accelerometer_is_422(client):
     channel = {**_valid_channel(), "quantity": "acceleration", "unit": "g", "coupling": "dc"}
     response = client.post("/v1/analyses", json=_body(channels=[channel]))
-    problem = _assert_problem(response, 422, "urn:heartsway:problem:validation-error")
+    problem = _assert_problem(response, 422, "tag:heartsway.dev,2026:problem/validation-error")
     by_field = {error["field"]: error["detail"] for error in problem["errors"]}
     assert set(by_field) == {"channels[0].coupling"}
     assert by_field["channels[0].coupling"].startswith(
