@@ -24,4 +24,5 @@ test:
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --disable-pip-version-check -e '.[test]'
 	$(BIN)/ruff check .
+	$(BIN)/mypy features schemas simulation
 	$(BIN)/python -m pytest

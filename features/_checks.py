@@ -104,11 +104,15 @@ def check_trace(trace: ArrayLike, *, name: str = "trace", fs_hz: float | None = 
     Raises
     ------
     InvalidInputError
-        When the trace is not 1-D, is too short, or holds NaN or infinity.
+        When the trace is not 1-D, does not hold real numbers (integers or floats), is too
+        short, or holds NaN or infinity.
     """
-    x = np.asarray(trace, dtype=np.float64)
-    if x.ndim != 1:
-        raise InvalidInputError(name, f"`{name}` must be 1-D; got shape {x.shape}.")
+    raw = np.asarray(trace)
+    if raw.ndim != 1:
+        raise InvalidInputError(name, f"`{name}` must be 1-D; got shape {raw.shape}.")
+    if raw.dtype.kind not in "iuf":
+        raise InvalidInputError(name, f"`{name}` must hold real numbers; got dtype {raw.dtype}.")
+    x = np.asarray(raw, dtype=np.float64)
     if min_duration_s is not None and fs_hz is not None and x.size < min_duration_s * fs_hz:
         raise InvalidInputError(
             name, f"`{name}` must be at least {min_duration_s:g} s long; "
@@ -117,7 +121,10 @@ def check_trace(trace: ArrayLike, *, name: str = "trace", fs_hz: float | None = 
         raise InvalidInputError(name, f"`{name}` must hold at least {min_samples} samples; "
                                       f"got {x.size}.")
     if finite and not np.all(np.isfinite(x)):
-        raise InvalidInputError(name, f"`{name}` must hold finite numbers only; got NaN or inf.")
+        bad = ~np.isfinite(x)
+        raise InvalidInputError(name, f"`{name}` must hold finite numbers only; got "
+                                      f"{int(np.count_nonzero(bad))} NaN or inf, the first at "
+                                      f"index {int(np.argmax(bad))}.")
     return x
 
 

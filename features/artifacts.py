@@ -18,7 +18,7 @@ import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 from numpy.typing import ArrayLike, NDArray
 
-from features._checks import check_sampling_rate
+from features._checks import check_sampling_rate, check_trace
 from features._numeric import MAD_TO_SD, robust_sd, runs
 from features.errors import InvalidInputError
 from features.filters import FloatArray, block_factor, block_means, highpass
@@ -190,7 +190,7 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
        1273-1283, 1993. DOI 10.1080/01621459.1993.10476408.
     """
     fs = check_sampling_rate(fs_hz)
-    x = _check_trace(fused, fs)
+    x = check_trace(fused, name="fused", fs_hz=fs, min_duration_s=MIN_DURATION_S)
     n = x.shape[0]
     raws = _check_raw(raw_signals, n)
     load, load_factor = _check_load(load_n, load_fs_hz, fs, n)
@@ -234,18 +234,6 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
 
 
 # ----------------------------------------------------------------------------- validation
-
-
-def _check_trace(fused: ArrayLike, fs: float) -> FloatArray:
-    x = np.asarray(fused)
-    if x.ndim != 1 or x.dtype.kind not in "iuf":
-        raise InvalidInputError("fused", f"`fused` must be a real 1-D array; got shape "
-                                f"{x.shape} and dtype {x.dtype}.")
-    if x.shape[0] / fs < MIN_DURATION_S:
-        raise InvalidInputError("fused", f"`fused` must span at least {MIN_DURATION_S:g} s; got "
-                                f"{x.shape[0] / fs:g} s.")
-    _check_finite("fused", x)
-    return np.asarray(x, dtype=np.float64)
 
 
 def _check_finite(field: str, x: NDArray[np.generic]) -> None:

@@ -34,7 +34,7 @@ from features._checks import check_sampling_rate, check_trace, check_usable
 from features._numeric import robust_sd, vertex_offset
 from features.errors import InvalidInputError
 from features.filters import bridge_masked
-from features.limits import MAX_RATE_BPM, MIN_RATE_BPM
+from features.limits import DEFAULT_RATE_RANGE_BPM, MAX_RATE_BPM, MIN_RATE_BPM
 from features.wavelets import WAVELET, levels_for_band, swt_component
 
 WORK_RATE_HZ = 125.0
@@ -43,7 +43,7 @@ WORK_RATE_HZ = 125.0
 BEAT_BAND_HZ = (1.5, 16.0)
 """Band of the J-wave complex kept by the wavelet stage (Inan et al. 2015)."""
 
-RATE_RANGE_BPM = (30.0, 200.0)
+RATE_RANGE_BPM = DEFAULT_RATE_RANGE_BPM
 """Plausible heart rates; they set the refractory period and search ranges."""
 
 TEMPLATE_WINDOW_S = (-0.35, 0.45)
@@ -674,7 +674,8 @@ def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
     if size[1 - keep] < TWO_WAVE_COMPARABLE * size[keep] or \
             _pair_span(picks, run_ids) < min_period:
         return None
-    return (cls >= 0) & (cls != keep)
+    first_wave: NDArray[np.bool_] = (cls >= 0) & (cls != keep)
+    return first_wave
 
 
 def _pair_span(picks: NDArray[np.intp], run_ids: NDArray[np.int64]) -> float:

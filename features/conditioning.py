@@ -13,7 +13,6 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Literal
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -34,6 +33,7 @@ from features.gaps import check_enough_samples, fill_gaps
 from features.limits import (
     COUNTS_UNIT,
     COUPLINGS,
+    MAINS_AUTO,
     MAINS_HZ,
     MAX_CHANNELS,
     MAX_DURATION_S,
@@ -43,6 +43,7 @@ from features.limits import (
     MIN_OCCUPANT_KG,
     STANDARD_GRAVITY_M_S2,
     UNIT_FACTORS,
+    mains_choices,
     resolve_coupling,
     units_of,
 )
@@ -66,8 +67,9 @@ MAINS_MARGIN_HZ = 5.0
 #: Auto-detection: narrow-band peak power over the median of its neighbourhood.
 MAINS_PEAK_RATIO = 10.0
 
-Quantity = Literal["force", "acceleration", "velocity", "displacement"]
-
+#: Per quantity (the keys are ``QUANTITIES``; tests/features/test_conditioning.py checks
+#: it): the unit of the kinetic signal it becomes, and how many times it is differentiated
+#: to get there.
 _KINETIC_UNIT = {"force": "N", "acceleration": "m/s^2", "velocity": "m/s^2",
                  "displacement": "m/s^2"}
 _DERIVATIVES = {"force": 0, "acceleration": 0, "velocity": 1, "displacement": 2}
@@ -104,7 +106,7 @@ class ChannelInput:
     label
         Unique channel name, for example ``"cell_front_left"``.
     quantity
-        ``"force"``, ``"acceleration"``, ``"velocity"`` or ``"displacement"``.
+        One of ``features.limits.QUANTITIES``.
     unit
         Unit of ``samples`` (see :func:`features.limits.units_of`) or ``"counts"`` with
         ``counts_scale``.
@@ -168,7 +170,7 @@ class ConditionedInput:
         True/False from the occupant mass bounds; None without a ``dc`` channel or when
         the load is implausible (see flags).
     mains_hz_removed
-        50 or 60 when the hum was notched, else None.
+        The mains frequency (one of ``MAINS_HZ``) when the hum was notched, else None.
     confidence
         Fraction of channels that carry a signal (not constant after conditioning).
     flags
@@ -220,20 +222,20 @@ def occupancy_from_mass(mass_kg: float | None) -> tuple[bool | None, tuple[str, 
 
 
 def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
-                       mains_hz: str | float | None = "auto",
+                       mains_hz: str | float | None = MAINS_AUTO,
                        empty_load_kg: float = 0.0) -> ConditionedInput:
     """Validate raw channels and bring them to SI kinetic form without hum or static part.
 
     Parameters
     ----------
     channels
-        1 to 8 :class:`ChannelInput` of equal length, unique labels.
+        1 to ``MAX_CHANNELS`` :class:`ChannelInput` of equal length, unique labels.
     fs_hz
         Sampling rate common to all channels, Hz, within ``features.limits.MIN_FS_HZ`` to
         ``MAX_FS_HZ``.
     mains_hz
-        ``"auto"`` (detect 50 or 60 Hz hum from a narrow spectral peak), 50, 60, or
-        None to skip hum removal.
+        ``MAINS_AUTO`` (detect the hum of one of ``MAINS_HZ`` from a narrow spectral
+        peak), one of ``MAINS_HZ`` (Hz), or None to skip hum removal.
     empty_load_kg
         Load of the empty support (mattress, seat cushion) in kg, >= 0; 0 for a tared
         plate. Subtracted from the supported mass and the load trace.
@@ -287,9 +289,9 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
        level of a film, a pad, an accelerometer or an uncalibrated front end says
        nothing about the occupant's weight.
 
-    Mains detection (``"auto"``): Hann periodograms (0.25 Hz resolution) of up to
+    Mains detection (``MAINS_AUTO``): Hann periodograms (0.25 Hz resolution) of up to
     16 segments of 4 s spread over the record, averaged; hum is present when the
-    largest bin within +-0.5 Hz of 50 or 60 Hz exceeds ``MAINS_PEAK_RATIO`` times
+    largest bin within +-0.5 Hz of a ``MAINS_HZ`` frequency exceeds ``MAINS_PEAK_RATIO`` times
     the median of the bins 2-5 Hz away, in any channel. Notching needs
     ``fs_hz > 2 * (mains + 5 Hz)``; otherwise it is skipped and flagged.
 
@@ -553,12 +555,12 @@ def _check_positions(chans: list[ChannelInput]) -> FloatArray | None:
 
 
 def _check_mains(mains_hz: object) -> str | int | None:
-    if mains_hz is None or (isinstance(mains_hz, str) and mains_hz == "auto"):
+    if mains_hz is None or (isinstance(mains_hz, str) and mains_hz == MAINS_AUTO):
         return mains_hz
     if not isinstance(mains_hz, bool) and isinstance(mains_hz, (int, float)) and \
             mains_hz in MAINS_HZ:
         return int(mains_hz)
-    raise InvalidInputError("mains_hz", "`mains_hz` must be one of 'auto', 50, 60 or None; "
+    raise InvalidInputError("mains_hz", f"`mains_hz` must be one of {mains_choices()}; "
                             f"got {mains_hz!r}.")
 
 
@@ -600,8 +602,8 @@ def _choose_mains(arrays: list[NDArray[np.generic]], chans: list[ChannelInput], 
     if mains is None:
         flags.append("mains_removal_off")
         return None
-    if mains == "auto":
-        candidates = [f for f in (50, 60) if _mains_allowed(fs, f)]
+    if mains == MAINS_AUTO:
+        candidates = [f for f in MAINS_HZ if _mains_allowed(fs, f)]
         if not candidates:
             flags.append("mains_detection_skipped_rate_too_low")
             return None

@@ -17,10 +17,10 @@ import numpy as np
 from features import __version__
 from features.artifacts import ArtifactMask, mask_artifacts
 from features.beats import BeatDetection, detect_beats
-from features.conditioning import ChannelInput, condition_channels
+from features.conditioning import ChannelInput, ConditionedInput, condition_channels
 from features.errors import InvalidInputError
 from features.filters import FloatArray
-from features.fusion import fuse_channels
+from features.fusion import FusionResult, fuse_channels
 from features.heart_rate import HeartRateResult, heart_rate
 from features.intervals import (
     IntervalLabels,
@@ -29,7 +29,9 @@ from features.intervals import (
     intervals_from_beats,
 )
 from features.limits import (
+    DEFAULT_PLACEMENT,
     DEFAULT_RATE_RANGE_BPM,
+    MAINS_AUTO,
     MAX_BODY_MASS_KG,
     MIN_BODY_MASS_KG,
     PLACEMENTS,
@@ -78,7 +80,7 @@ class Subject:
 class Recording:
     """Where and how the trace was taken. Identifiers are never logged."""
 
-    placement: str = "seat"
+    placement: str = DEFAULT_PLACEMENT
     posture: str | None = None
     start_time: str | None = None
     device_id: str | None = None
@@ -91,14 +93,16 @@ class Options:
     Attributes
     ----------
     mains_hz
-        50 or 60 to remove that hum, "auto" to detect it, None to skip.
+        One of ``features.limits.MAINS_HZ`` to remove that hum, ``MAINS_AUTO`` to detect
+        it, None to skip.
     empty_load_kg
         Load of the empty support (0 for a tared plate).
     rate_range_bpm
         Plausible heart-rate range.
     window_s
-        Also analyse consecutive windows of this length (s), 30 to 3600, at most the
-        recording length (:func:`features.windows.analyze_windows`); None for none.
+        Also analyse consecutive windows of this length (s), ``features.limits.MIN_WINDOW_S``
+        to ``MAX_WINDOW_S``, at most the recording length
+        (:func:`features.windows.analyze_windows`); None for none.
     window_overlap_s
         Overlap of consecutive windows (s), at least 0 and less than ``window_s``.
     keep_fused_trace
@@ -106,7 +110,7 @@ class Options:
         drawing it); off by default, since it is as long as the recording.
     """
 
-    mains_hz: float | str | None = "auto"
+    mains_hz: float | str | None = MAINS_AUTO
     empty_load_kg: float = 0.0
     rate_range_bpm: tuple[float, float] = DEFAULT_RATE_RANGE_BPM
     window_s: float | None = None
@@ -177,12 +181,13 @@ def analyze(
     recording: Recording | None = None,
     options: Options | None = None,
 ) -> AnalysisResult:
-    """Analyse one recording of one to eight equal-length channels.
+    """Analyse one recording of equal-length channels (1 to ``MAX_CHANNELS``).
 
     Parameters
     ----------
     channels
-        One to eight :class:`features.conditioning.ChannelInput`, equal length.
+        1 to ``features.limits.MAX_CHANNELS`` :class:`features.conditioning.ChannelInput`,
+        equal length.
     fs_hz
         Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     subject, recording, options
@@ -261,32 +266,7 @@ def analyze(
         cardiac_amplitude=morph.jk_amplitude,
     )
 
-    warnings: list[str] = []
-    if mask.usable_fraction < 0.5:
-        warnings.append("less than half of the recording is usable")
-    if cond.gap is not None:
-        warnings.append(GAPS_WARNING)
-    if not beats.has_beats:
-        warnings.append("no repeating heartbeat waveform was found")
-    stated = subject.body_mass_kg
-    if stated is not None and cond.supported_mass_kg is not None and \
-            abs(cond.supported_mass_kg - stated) > 0.25 * stated:
-        warnings.append("the load on the support differs from the stated body mass by over 25%")
-
-    n_samples = int(cond.signals.shape[1])
     quality = signal_quality(mask, beats, load_empty_throughout=empty_throughout)
-    summary = InputSummary(
-        duration_s=n_samples / fs_hz,
-        sampling_rate_hz=float(fs_hz),
-        n_samples=n_samples,
-        channel_labels=cond.labels,
-        channel_weights=tuple(float(w) for w in fusion.weights),
-        fusion_method=fusion.method,
-        amplitude_unit=fusion.unit,
-        mains_hz_removed=cond.mains_hz_removed,
-        cop_cardiac_excursion_mm=fusion.cop_cardiac_excursion_mm,
-        flags=tuple(cond.flags) + tuple(fusion.flags),
-    )
     # The feature vector reads the finished result (so it is filled in last, over an empty
     # one), and each window is an analyze call of its own (without windows): both modules
     # import this one, hence the imports here.
@@ -294,7 +274,7 @@ def analyze(
     from features.windows import analyze_windows
 
     stages = AnalysisResult(
-        input=summary,
+        input=_input_summary(cond, fusion, fs_hz),
         quality=quality,
         occupancy=occupied,
         heart_rate=hr,
@@ -307,7 +287,7 @@ def analyze(
         modulation=modulation,
         body_mass_kg=mass,
         body_mass_source=mass_source,
-        warnings=tuple(warnings),
+        warnings=_warnings(mask, beats, subject, cond),
         feature_vector=FeatureVector(FEATURE_SET_VERSION, ()),
         windows=None,
         fused_trace=fusion.fused if options.keep_fused_trace else None,
@@ -318,6 +298,40 @@ def analyze(
                                   overlap_s=options.window_overlap_s, subject=subject,
                                   recording=recording, options=options)
     return replace(stages, feature_vector=feature_vector(stages), windows=windows)
+
+
+def _warnings(mask: ArtifactMask, beats: BeatDetection, subject: Subject,
+              cond: ConditionedInput) -> tuple[str, ...]:
+    """Plain-language warnings about the recording as a whole."""
+    warnings: list[str] = []
+    if mask.usable_fraction < 0.5:
+        warnings.append("less than half of the recording is usable")
+    if cond.gap is not None:
+        warnings.append(GAPS_WARNING)
+    if not beats.has_beats:
+        warnings.append("no repeating heartbeat waveform was found")
+    stated = subject.body_mass_kg
+    supported = cond.supported_mass_kg
+    if stated is not None and supported is not None and abs(supported - stated) > 0.25 * stated:
+        warnings.append("the load on the support differs from the stated body mass by over 25%")
+    return tuple(warnings)
+
+
+def _input_summary(cond: ConditionedInput, fusion: FusionResult, fs_hz: float) -> InputSummary:
+    """What the conditioning and fusion stages made of the input."""
+    n_samples = int(cond.signals.shape[1])
+    return InputSummary(
+        duration_s=n_samples / fs_hz,
+        sampling_rate_hz=float(fs_hz),
+        n_samples=n_samples,
+        channel_labels=cond.labels,
+        channel_weights=tuple(float(w) for w in fusion.weights),
+        fusion_method=fusion.method,
+        amplitude_unit=fusion.unit,
+        mains_hz_removed=cond.mains_hz_removed,
+        cop_cardiac_excursion_mm=fusion.cop_cardiac_excursion_mm,
+        flags=tuple(cond.flags) + tuple(fusion.flags),
+    )
 
 
 def _check_metadata(subject: Subject, recording: Recording) -> None:

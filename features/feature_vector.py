@@ -31,6 +31,7 @@ from __future__ import annotations
 import hashlib
 import math
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -106,14 +107,25 @@ class FeatureVector:
         KeyError
             When ``name`` is not in the catalogue.
         """
-        for feature in self.features:
-            if feature.name == name:
-                return feature
-        raise KeyError(name)
+        return value_named(self.features, name)
 
     def as_dict(self) -> dict[str, float | None]:
         """Name -> value (None when not computed), in catalogue order."""
-        return {f.name: f.value for f in self.features}
+        return values_by_name(self.features)
+
+
+def value_named(values: Sequence[FeatureValue], name: str) -> FeatureValue:
+    """The member of ``values`` called ``name``; KeyError when there is none (the lookup of
+    :class:`FeatureVector` and :class:`features.night.NightSummary`)."""
+    for value in values:
+        if value.name == name:
+            return value
+    raise KeyError(name)
+
+
+def values_by_name(values: Sequence[FeatureValue]) -> dict[str, float | None]:
+    """Name -> value (None when not computed), in the order of ``values``."""
+    return {v.name: v.value for v in values}
 
 
 # --------------------------------------------------------------------------- the catalogue

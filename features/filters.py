@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import functools
 from collections.abc import Callable
+from typing import cast
 
 import numpy as np
 import scipy.fft
@@ -46,9 +47,10 @@ def block_means(x: NDArray[np.generic], factor: int) -> FloatArray:
     if factor < 8 and x.dtype == np.float64:
         # numpy sums fewer than 8 numbers one after the other: the same sum, added up
         # over strided slices instead of along a short axis (several times faster)
-        total = x[..., 0 : m * factor : factor].copy()
+        xf = cast(FloatArray, x)  # the dtype test above narrows what mypy cannot
+        total = xf[..., 0 : m * factor : factor].copy()
         for i in range(1, factor):
-            total += x[..., i : m * factor : factor]
+            total += xf[..., i : m * factor : factor]
         total /= factor
         return total
     shaped = x[..., : m * factor].reshape(*x.shape[:-1], m, factor)

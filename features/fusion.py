@@ -106,8 +106,9 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
     Parameters
     ----------
     signals
-        (n_channels, n) conditioned traces (1 to 8 channels, static part removed), or a
-        1-D trace for a single channel. Finite values only.
+        (n_channels, n) conditioned traces (1 to ``features.limits.MAX_CHANNELS``
+        channels, static part removed), or a 1-D trace for a single channel. Finite values
+        only.
     fs_hz
         Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     units

@@ -13,7 +13,11 @@ __all__ = [
     "COUNTS_UNIT",
     "COUPLINGS",
     "DEFAULT_MAX_SAMPLES",
+    "DEFAULT_PLACEMENT",
+    "DEFAULT_QUANTITY",
     "DEFAULT_RATE_RANGE_BPM",
+    "DEFAULT_UNIT",
+    "MAINS_AUTO",
     "MAINS_HZ",
     "MAX_BODY_MASS_KG",
     "MAX_CHANNELS",
@@ -32,14 +36,20 @@ __all__ = [
     "MS_PER_MIN",
     "PLACEMENTS",
     "QUANTITIES",
+    "SHORT_TERM_S",
+    "S_PER_HOUR",
     "STANDARD_GRAVITY_M_S2",
     "UNIT_FACTORS",
     "resolve_coupling",
+    "mains_choices",
     "units_of",
+    "units_text",
 ]
 
 #: Milliseconds per minute: a rate in /min is MS_PER_MIN over an interval in ms.
 MS_PER_MIN = 60_000.0
+#: Seconds per hour: a count per hour is the count over the time in s over S_PER_HOUR.
+S_PER_HOUR = 3600.0
 
 #: Standard acceleration of gravity, m/s^2 (3rd CGPM, 1901; NIST SP 811, 2008, B.8).
 STANDARD_GRAVITY_M_S2 = 9.80665
@@ -95,13 +105,24 @@ DEFAULT_RATE_RANGE_BPM = (30.0, 200.0)
 #: Length of one analysis window, s: the shortest holds about 30 beats and a few breaths.
 MIN_WINDOW_S = 30.0
 MAX_WINDOW_S = 3600.0
+#: The short-term recording of heart-rate variability, s: 5 min (Task Force of the ESC and
+#: NASPE, Circulation 93(5):1043-1065, 1996, "short-term recordings (2 to 5 min)" and the
+#: 5-min segments of SDANN and the SDNN index).
+SHORT_TERM_S = 300.0
 
 #: Where the sensors sit.
 PLACEMENTS = ("bed", "other", "platform", "seat")
+#: Placement of a recording whose caller does not say.
+DEFAULT_PLACEMENT = "seat"
 #: What a channel measures.
 QUANTITIES = ("acceleration", "displacement", "force", "velocity")
+#: Quantity and unit of a channel whose form or file does not say (a load cell in newtons).
+DEFAULT_QUANTITY = "force"
+DEFAULT_UNIT = "N"
 #: Mains frequencies whose hum can be removed, Hz.
 MAINS_HZ = (50, 60)
+#: The mains setting that detects the hum's frequency (one of ``MAINS_HZ``) from the trace.
+MAINS_AUTO = "auto"
 #: Unit of a channel recorded in ADC counts (it then needs a counts scale).
 COUNTS_UNIT = "counts"
 #: How a channel is coupled to the occupant's static weight, sorted. ``dc``: a calibrated
@@ -137,3 +158,15 @@ def resolve_coupling(quantity: str, unit: str, has_scale: bool, coupling: str | 
         return coupling
     calibrated = unit != COUNTS_UNIT or has_scale
     return "dc" if quantity == "force" and calibrated else "ac"
+
+
+def units_text() -> str:
+    """The physical units of each quantity, for messages and descriptions:
+    ``"acceleration g, m/s2, m/s^2, mg; displacement m, mm, um; ..."``."""
+    return "; ".join(f"{q} {', '.join(sorted(UNIT_FACTORS[q]))}" for q in QUANTITIES)
+
+
+def mains_choices(none: str = "None") -> str:
+    """The accepted mains settings, for messages: ``"'auto', 50, 60 or None"`` (``none``
+    names the empty setting as the caller's language spells it, ``null`` in JSON)."""
+    return ", ".join([repr(MAINS_AUTO), *map(str, MAINS_HZ)]) + f" or {none}"

@@ -28,6 +28,7 @@ from features.catalogue import (
     FeatureDefinition,
 )
 from features.errors import InvalidInputError
+from features.limits import SHORT_TERM_S
 from features.spectral import lomb_scargle_power, welch_spectra
 
 __all__ = ["CATALOGUE", "ModulationResult", "respiratory_modulation"]
@@ -450,7 +451,7 @@ RSA is fully trusted (our choice: at rest in healthy adults the respiratory band
 large part of short-term variability, Task Force 1996; an irregular rhythm spreads it)."""
 
 
-TIMING_SEGMENT_S = 300.0
+TIMING_SEGMENT_S = SHORT_TERM_S
 """Long series are split into consecutive segments of this length (the Task Force
 short-term recording) and their periodograms summed, which keeps the cost linear."""
 

@@ -27,7 +27,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from features.feature_vector import FeatureValue
+from features.feature_vector import FeatureValue, value_named, values_by_name
+from features.limits import S_PER_HOUR, SHORT_TERM_S
 from features.windows import WindowedAnalysis, WindowResult
 
 __all__ = [
@@ -44,7 +45,7 @@ __all__ = [
     "summarize_night",
 ]
 
-SEGMENT_S = 300.0
+SEGMENT_S = SHORT_TERM_S
 """Segment length of the Task Force long-term measures and of the 5-minute heart-rate means
 (s): "the mean NN intervals calculated over short periods, usually 5 min" (Task Force 1996,
 time-domain methods)."""
@@ -198,14 +199,11 @@ class NightSummary:
         KeyError
             When ``name`` is not in :data:`NIGHT_MEASURES`.
         """
-        for m in self.measures:
-            if m.name == name:
-                return m
-        raise KeyError(name)
+        return value_named(self.measures, name)
 
     def as_dict(self) -> dict[str, float | None]:
         """Name -> value (None when not computed), in catalogue order."""
-        return {m.name: m.value for m in self.measures}
+        return values_by_name(self.measures)
 
 
 def summarize_night(windowed: WindowedAnalysis) -> NightSummary:
@@ -545,8 +543,8 @@ def _heart_rate(sitting: Sequence[WindowResult], windowed: WindowedAnalysis,
     else:
         low = min(segments, key=lambda r: r[1][0])
         high = max(segments, key=lambda r: r[1][0])
-        for tag, (w, (v, c)) in (("lowest", low), ("highest", high)):
-            out[f"heart_rate_{tag}_5min_bpm"] = _value(f"heart_rate_{tag}_5min_bpm", v, c)
+        for tag, (w, (rate, c)) in (("lowest", low), ("highest", high)):
+            out[f"heart_rate_{tag}_5min_bpm"] = _value(f"heart_rate_{tag}_5min_bpm", rate, c)
             out[f"heart_rate_{tag}_5min_start_s"] = _value(f"heart_rate_{tag}_5min_start_s",
                                                            w.start_s, c)
         return out
@@ -600,8 +598,8 @@ def _medians(sitting: Sequence[WindowResult], reason: str | None) -> dict[str, F
         if reason or not rows:
             out[name] = _none(name, reason or "no_occupied_window_with_value")
         else:
-            v, c = pick(rows, key=lambda r: r[0])
-            out[name] = _value(name, v, c)
+            rate, c = pick(rows, key=lambda r: r[0])
+            out[name] = _value(name, rate, c)
     return out
 
 
@@ -646,7 +644,7 @@ def _per_hour_and_usable(windows: Sequence[WindowResult], owned: Sequence[tuple[
     # window boundary cut one in two (heartsway definition).
     stretches = [(a + b) / 2.0 for a, b in _merge(moving)]
     inside = sum(any(a <= t < b for a, b in occupied) for t in stretches)
-    out["movement_per_hour"] = _value("movement_per_hour", inside / (occ_s / 3600.0), conf)
+    out["movement_per_hour"] = _value("movement_per_hour", inside / (occ_s / S_PER_HOUR), conf)
     usable = _total(_subtract(list(occupied), _merge(masked)))
     out["usable_fraction"] = _value("usable_fraction", usable / occ_s, conf)
     return out

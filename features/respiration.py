@@ -30,7 +30,7 @@ from features.catalogue import (
 )
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, butter_filtfilt, frozen
-from features.limits import MIN_DURATION_S
+from features.limits import MIN_DURATION_S, S_PER_HOUR
 from features.spectral import welch_spectra
 
 __all__ = ["CATALOGUE", "RespirationResult", "breathing"]
@@ -50,7 +50,6 @@ FUSION_MAX_SD_PER_MIN = 4.0
 PAUSE_THRESHOLD_PCT = 25.0
 """Default pause threshold: swing below this share of the surrounding baseline (%)."""
 
-_S_PER_HOUR = 3600.0
 _BASELINE_BLOCK_S = 10.0
 _BASELINE_SPAN_S = 120.0
 _WELCH_SEGMENT_S = 64.0
@@ -250,13 +249,7 @@ def breathing(
     # noise test and the spectral rate.
     psd = _welch_psd(y, fs_b, mask_b)
     if cop is not None:
-        best = _concentration(psd)
-        for bp_c, lp_c, m_c in _cop_candidates(cop, cop_fs, y.size, fs_b):
-            psd_c = _welch_psd(bp_c, fs_b, mask_b & m_c)
-            c = _concentration(psd_c)
-            if c > best:
-                best, y, y_low, mask_b, psd = c, bp_c, lp_c, mask_b & m_c, psd_c
-                source = "centre_of_pressure"
+        y, y_low, mask_b, psd, source = _choose_source(y, y_low, mask_b, psd, cop, cop_fs, fs_b)
         if source == "centre_of_pressure":
             flags.append("breathing_from_centre_of_pressure")
     usable_s = float(mask_b.sum() / fs_b)
@@ -309,7 +302,7 @@ def breathing(
         confidence = c_agree * min(1.0, intervals.size / 10.0) * np.sqrt(mask_b.mean())
     if spans:
         flags.append("pauses_are_signal_observations_not_diagnosis")
-    if usable_s < _S_PER_HOUR and not noise_limited:
+    if usable_s < S_PER_HOUR and not noise_limited:
         flags.append("pauses_per_hour_extrapolated_from_under_1_h")
     durations = [b - a for a, b in spans]
     return RespirationResult(
@@ -332,7 +325,7 @@ def breathing(
         breathing_amplitude=amp if amp > 0 else None,
         pause_count=None if noise_limited else len(spans),
         pause_spans_s=tuple(spans),
-        pauses_per_hour=None if noise_limited else len(spans) / (usable_s / _S_PER_HOUR),
+        pauses_per_hour=None if noise_limited else len(spans) / (usable_s / S_PER_HOUR),
         longest_pause_s=max(durations) if durations else None,
         breathing_signal=frozen(np.where(mask_b, y, np.nan)),
     )
@@ -340,6 +333,23 @@ def breathing(
 
 # --------------------------------------------------------------------------- validation
 
+
+
+def _choose_source(
+    y: NDArray[np.float64], y_low: NDArray[np.float64], mask_b: NDArray[np.bool_],
+    psd: _Psd, cop: NDArray[np.float64], cop_fs: float, fs_b: float,
+) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.bool_], _Psd, str]:
+    """The trace's breathing band or a centre-of-pressure axis, whichever is more
+    concentrated around its Welch peak (Notes, 1 of :func:`breathing`)."""
+    source = "trace"
+    best = _concentration(psd)
+    for bp_c, lp_c, m_c in _cop_candidates(cop, cop_fs, y.size, fs_b):
+        psd_c = _welch_psd(bp_c, fs_b, mask_b & m_c)
+        c = _concentration(psd_c)
+        if c > best:
+            best, y, y_low, mask_b, psd = c, bp_c, lp_c, mask_b & m_c, psd_c
+            source = "centre_of_pressure"
+    return y, y_low, mask_b, psd, source
 
 def _validate(
     sig: ArrayLike,
@@ -645,7 +655,7 @@ def _window_nanmedian(v: NDArray[np.float64], half: int) -> NDArray[np.float64]:
     rows = np.arange(v.size)
     lo = windows[rows, np.maximum(count - 1, 0) // 2]
     hi = windows[rows, count // 2]
-    out = np.where(count % 2 == 1, lo, (lo + hi) / 2.0)
+    out: NDArray[np.float64] = np.where(count % 2 == 1, lo, (lo + hi) / 2.0)
     out[count == 0] = np.nan
     return out
 

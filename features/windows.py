@@ -23,7 +23,6 @@ from features.conditioning import ChannelInput
 from features.engine import (
     FEATURE_SET_VERSION,
     AnalysisResult,
-    OccupancyResult,
     Options,
     Recording,
     Subject,
@@ -32,6 +31,7 @@ from features.engine import (
 from features.errors import InvalidInputError, UnusableSignalError
 from features.feature_vector import FeatureVector
 from features.limits import MAX_CHANNELS, MAX_WINDOW_S, MIN_WINDOW_S
+from features.quality import OccupancyResult
 
 __all__ = [
     "MAX_WINDOW_S",
@@ -164,10 +164,10 @@ def analyze_windows(
     Parameters
     ----------
     channels
-        One to eight :class:`features.conditioning.ChannelInput` of equal length. Their
-        ``samples`` may be numpy arrays, ``numpy.memmap`` arrays or any 1-D sequence that
-        supports ``len`` and slicing; they are sliced one window at a time and never copied
-        or concatenated whole.
+        1 to ``features.limits.MAX_CHANNELS`` :class:`features.conditioning.ChannelInput`
+        of equal length. Their ``samples`` may be numpy arrays, ``numpy.memmap`` arrays or
+        any 1-D sequence that supports ``len`` and slicing; they are sliced one window at a
+        time and never copied or concatenated whole.
     fs_hz
         Sampling rate, Hz, within ``features.limits.MIN_FS_HZ`` to ``MAX_FS_HZ``.
     window_s

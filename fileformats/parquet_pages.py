@@ -15,6 +15,7 @@ parquet.thrift ``struct PageHeader``: 1 type, 2 uncompressed_page_size,
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 from fileformats.errors import UnreadableFileError
 
@@ -151,18 +152,21 @@ def column_chunks(data: bytes) -> list[Chunk]:
             raise _Broken("the footer length runs past the file")
         meta = _Reader(data, start, len(data) - 8).struct(0)
         chunks = []
-        for group in meta.get(4) or []:
-            for chunk in (group or {}).get(1) or []:  # type: ignore[union-attr]
+        # The footer is untrusted: a field of the wrong type raises TypeError or
+        # AttributeError, answered below, so the fields are left untyped (Any) here.
+        groups: Any = meta.get(4) or []
+        for group in groups:
+            for chunk in (group or {}).get(1) or []:
                 column = chunk.get(3) if isinstance(chunk, dict) else None
                 if not isinstance(column, dict):
                     raise _Broken("a column chunk without its metadata")
-                path = column.get(3) or []
+                path: Any = column.get(3) or []
                 dictionary = column.get(11)
                 data_page = _int(column.get(9))
                 first = _int(dictionary) if isinstance(dictionary, int) and dictionary > 0 \
                     else data_page
                 chunks.append(Chunk(
-                    name=".".join(bytes(p).decode("utf-8", "replace") for p in path),  # type: ignore[arg-type, union-attr]
+                    name=".".join(bytes(p).decode("utf-8", "replace") for p in path),
                     first_page=first, compressed_bytes=_int(column.get(7)),
                     uncompressed_bytes=_int(column.get(6))))
     except (_Broken, TypeError, AttributeError) as error:

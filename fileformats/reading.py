@@ -5,12 +5,12 @@ from __future__ import annotations
 import functools
 import math
 import os
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
 from features.conditioning import ChannelInput, valid_units
-from features.limits import COUNTS_UNIT, QUANTITIES
+from features.limits import COUNTS_UNIT, DEFAULT_QUANTITY, DEFAULT_UNIT, QUANTITIES
 from fileformats import arrays, edf, wfdb_records
 from fileformats.bounds import resolve_limit
 from fileformats.errors import UnreadableFileError
@@ -142,7 +142,7 @@ def _raw(source: Source, fmt: str | None, name: str | None,
 
 
 def _from_bytes(fmt: str, data: bytes, max_samples: int | None) -> RawTrace:
-    readers = {
+    readers: dict[str, Callable[..., RawTrace]] = {
         "bdf": functools.partial(edf.read_edf, bdf=True),
         "csv": arrays.read_csv,
         "edf": edf.read_edf,
@@ -154,7 +154,7 @@ def _from_bytes(fmt: str, data: bytes, max_samples: int | None) -> RawTrace:
         raise UnreadableFileError(
             "format", f"`format` must be one of {', '.join(FORMATS)}; got {fmt!r}."
         )
-    return readers[fmt](data, max_samples=max_samples)  # type: ignore[operator]
+    return readers[fmt](data, max_samples=max_samples)
 
 
 def _select(raw: RawTrace, channels: Sequence[str] | None) -> list[int]:
@@ -217,8 +217,8 @@ def _unit(raw: RawTrace, k: int, quantity: str | None, unit: str | None,
             known = sorted({u for q in _QUANTITIES for u in valid_units(q)} - {COUNTS_UNIT})
             raise UnreadableFileError(
                 "unit", f"`unit` must be given for channel {label!r}: its header unit "
-                f"{raw.units[k]!r} is not a force, acceleration, velocity or displacement "
-                f"unit ({', '.join(known)}); got none."
+                f"{raw.units[k]!r} is not a unit of {', '.join(_QUANTITIES[:-1])} or "
+                f"{_QUANTITIES[-1]} ({', '.join(known)}); got none."
             )
         source = "header"
     else:
@@ -238,8 +238,8 @@ def read_trace(
     fs_hz: float | None = None,
     quantity: str | None = None,
     unit: str | None = None,
-    default_quantity: str = "force",
-    default_unit: str = "N",
+    default_quantity: str = DEFAULT_QUANTITY,
+    default_unit: str = DEFAULT_UNIT,
     max_samples: int | None = None,
 ) -> TraceFile:
     """Read one recording into engine channel inputs.

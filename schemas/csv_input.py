@@ -14,12 +14,20 @@ import numpy as np
 from marshmallow import Schema, ValidationError, fields, post_load
 from marshmallow.validate import Length, OneOf, Range
 
-from features.limits import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ, QUANTITIES
+from features.limits import (
+    DEFAULT_MAX_SAMPLES,
+    DEFAULT_QUANTITY,
+    DEFAULT_UNIT,
+    MAX_CHANNELS,
+    MAX_FS_HZ,
+    MIN_FS_HZ,
+    QUANTITIES,
+)
 from fileformats.arrays import csv_rows, csv_table
 from fileformats.bounds import check_samples
 from fileformats.errors import UnreadableFileError
 from fileformats.raw import TIME_COLUMN, on_time_grid
-from schemas.requests import DEFAULT_MAX_SAMPLES, INCLUDE_PARTS
+from schemas.requests import INCLUDE_PARTS
 
 _NUMPY_POSITION = re.compile(r"at row (\d+), column (\d+)")
 
@@ -115,12 +123,12 @@ class CsvUploadFormSchema(Schema):
             f"when the file has a `{TIME_COLUMN}` column, which then gives it.")},
     )
     quantity = fields.String(
-        load_default="force",
+        load_default=DEFAULT_QUANTITY,
         validate=OneOf(QUANTITIES, error=f"Must be one of: {', '.join(sorted(QUANTITIES))}."),
         metadata={"description": "Quantity of every column."},
     )
     unit = fields.String(
-        load_default="N",
+        load_default=DEFAULT_UNIT,
         validate=Length(min=1, max=16),
         metadata={"description": "Unit of every column."},
     )

@@ -14,9 +14,9 @@ import numpy as np
 from marshmallow import Schema, ValidationError, fields, post_load
 from marshmallow.validate import Length, OneOf, Range
 
-from features.limits import MAX_FS_HZ, MIN_FS_HZ, QUANTITIES
+from features.limits import DEFAULT_MAX_SAMPLES, MAX_FS_HZ, MIN_FS_HZ, QUANTITIES
 from fileformats import FORMATS, Source, read_trace
-from schemas.requests import DEFAULT_MAX_SAMPLES, INCLUDE_PARTS
+from schemas.requests import INCLUDE_PARTS
 
 #: Form fields that only the file road knows (the CSV form refuses them).
 FILE_ONLY_FIELDS = ("channels", "format")

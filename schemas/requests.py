@@ -27,6 +27,7 @@ from features.limits import (
     COUNTS_UNIT,
     COUPLINGS,
     DEFAULT_MAX_SAMPLES,
+    MAINS_AUTO,
     MAINS_HZ,
     MAX_BODY_MASS_KG,
     MAX_CHANNELS,
@@ -39,7 +40,9 @@ from features.limits import (
     MIN_WINDOW_S,
     PLACEMENTS,
     QUANTITIES,
+    mains_choices,
     resolve_coupling,
+    units_text,
 )
 from features.limits import units_of as valid_units
 from schemas.fields import (
@@ -191,8 +194,7 @@ class ChannelSchema(Schema):
         validate=Length(min=1, max=16),
         metadata={
             "description": (
-                "Unit of the samples: force N, kN, kgf, lbf; acceleration m/s^2, m/s2, g, mg; "
-                "velocity m/s, mm/s; displacement m, mm, um; or `counts` (with counts_scale "
+                f"Unit of the samples: {units_text()}; or `{COUNTS_UNIT}` (with counts_scale "
                 "for a calibrated scale; without it only for an `ac` channel)."
             )
         },
@@ -384,27 +386,29 @@ class RecordingSchema(Schema):
 
 
 class MainsField(fields.Field[Any]):
-    """``"auto"``, 50, 60 or null."""
+    """``MAINS_AUTO`` (``"auto"``), one of ``MAINS_HZ`` or null."""
 
     def __init__(self, **kwargs: Any) -> None:
         metadata = {
             "description": (
-                "Mains hum to remove: 50 or 60 (Hz), `auto` to detect it, null for none."
+                f"Mains hum to remove: {' or '.join(map(str, MAINS_HZ))} (Hz), "
+                f"`{MAINS_AUTO}` to detect it, null for none."
             ),
             "oneOf": [
-                {"type": "string", "enum": ["auto"]},
+                {"type": "string", "enum": [MAINS_AUTO]},
                 {"type": "integer", "enum": list(MAINS_HZ)},
                 {"type": "null"},
             ],
         }
-        super().__init__(allow_none=True, load_default="auto", metadata=metadata, **kwargs)
+        super().__init__(allow_none=True, load_default=MAINS_AUTO, metadata=metadata, **kwargs)
 
     def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> Any:
-        if value == "auto" or (
+        if value == MAINS_AUTO or (
             not isinstance(value, bool) and isinstance(value, int | float) and value in MAINS_HZ
         ):
-            return value if value == "auto" else int(value)
-        raise ValidationError(f"`mains_hz` must be one of 'auto', 50, 60 or null; got {value!r}.")
+            return value if value == MAINS_AUTO else int(value)
+        raise ValidationError(f"`mains_hz` must be one of {mains_choices('null')}; "
+                              f"got {value!r}.")
 
 
 def _unique_items(values: list[Any]) -> None:

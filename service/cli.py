@@ -197,7 +197,11 @@ def build_parser() -> argparse.ArgumentParser:
     analyze.add_argument("--plot", default=None, help="also write the report image (.png/.svg)")
     analyze.add_argument("--include", default="", help="comma-separated: beats,signals,...")
     analyze.add_argument("--window-s", type=float, default=None,
-                         help="also analyse consecutive windows of S s (30-3600)")
+                         # The bounds stay in features.limits: importing the engine here
+                         # would slow every command, `serve` and `--help` included.
+                         help="also analyse consecutive windows of S s (within "
+                              "features.limits.MIN_WINDOW_S to MAX_WINDOW_S; an S out of "
+                              "range is refused with the bounds)")
     analyze.add_argument("--overlap-s", type=float, default=0.0, help="window overlap, s")
     analyze.set_defaults(run=_analyze)
 

@@ -24,7 +24,7 @@ DEFAULTS: dict[str, Any] = {
     "MAX_FORM_MEMORY_SIZE": 32 * 1024 * 1024,
     # Cap on the samples of one request, all channels together; more gets 422.
     "HEARTSWAY_MAX_SAMPLES": DEFAULT_MAX_SAMPLES,
-    # Cap on the channels of one request (at most the engine's 8); more gets 422.
+    # Cap on the channels of one request (at most the engine's MAX_CHANNELS); more gets 422.
     "HEARTSWAY_MAX_CHANNELS": MAX_CHANNELS,
     # Wall-clock seconds one analysis may compute; then 503 compute-time-exceeded.
     "HEARTSWAY_MAX_COMPUTE_S": 30.0,

@@ -178,14 +178,9 @@ def _errors(*names: str) -> dict[str, Any]:
     return {codes[name]: {"$ref": f"#/components/responses/{name}"} for name in names}
 
 
-def _paths(spec: APISpec) -> None:
-    """Add the core operations to ``spec``: health, readiness, the catalogue and analyses.
 
-    One ``spec.path`` call per path, each operation with its id, summary, security and
-    responses (shared ones by reference, see ``_RESPONSES``). Reports, the page, static
-    files and /metrics come from :func:`service.openapi_extras.extend`; the multipart
-    bodies are completed by ``_csv_upload`` and ``openapi_extras``.
-    """
+def _operations_paths(spec: APISpec) -> None:
+    """Add the open operations paths to ``spec``: liveness, readiness and this contract."""
     spec.path(
         path="/healthz",
         operations={
@@ -241,6 +236,17 @@ def _paths(spec: APISpec) -> None:
             }
         },
     )
+
+
+def _paths(spec: APISpec) -> None:
+    """Add the core operations to ``spec``: health, readiness, the catalogue and analyses.
+
+    One ``spec.path`` call per path, each operation with its id, summary, security and
+    responses (shared ones by reference, see ``_RESPONSES``). Reports, the page, static
+    files and /metrics come from :func:`service.openapi_extras.extend`; the multipart
+    bodies are completed by ``_csv_upload`` and ``openapi_extras``.
+    """
+    _operations_paths(spec)
     spec.path(
         path="/v1/features",
         operations={

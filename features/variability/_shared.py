@@ -10,9 +10,10 @@ from numpy.typing import NDArray
 
 from features.catalogue import FeatureDefinition
 from features.intervals import adjacent_to_previous
+from features.limits import SHORT_TERM_S
 
 # Task Force (1996) short-term standard: 5-min recordings.
-_SHORT_TERM_S = 300.0
+_SHORT_TERM_S = SHORT_TERM_S
 
 
 def _fin(value: float | np.floating) -> float | None:

@@ -7,6 +7,8 @@ from pathlib import Path
 
 from flask import Blueprint, Response
 
+from features.limits import MAX_FS_HZ, MIN_FS_HZ
+
 STATIC = Path(__file__).resolve().parents[1] / "static"
 
 blueprint = Blueprint("page", __name__)
@@ -16,9 +18,20 @@ _POLICY = ("default-src 'none'; script-src 'self'; style-src 'self'; img-src 'se
            "connect-src 'self'; form-action 'none'; base-uri 'none'; frame-ancestors 'none'")
 
 
+#: Placeholders of index.html and what they become: the engine's limits, so that the page
+#: states the rule the service enforces.
+_PAGE_VALUES = {"{{MIN_FS_HZ}}": f"{MIN_FS_HZ:g}", "{{MAX_FS_HZ}}": f"{MAX_FS_HZ:g}"}
+
+
 @cache
 def _read(name: str) -> bytes:
-    return (STATIC / name).read_bytes()
+    body = (STATIC / name).read_bytes()
+    if name == "index.html":
+        text = body.decode("utf-8")
+        for token, value in _PAGE_VALUES.items():
+            text = text.replace(token, value)
+        body = text.encode("utf-8")
+    return body
 
 
 def _static(name: str, mimetype: str) -> Response:

@@ -197,14 +197,18 @@ def test_error_rules() -> None:
     fused, raw, load = _record(seed=9)
     with pytest.raises(InvalidInputError, match=r"`fs_hz` must be between 50 and 2000 Hz"):
         mask_artifacts(fused, 5000.0)
-    with pytest.raises(InvalidInputError, match=r"`fused` must be a real 1-D array"):
+    with pytest.raises(InvalidInputError, match=r"`fused` must be 1-D; got shape \(2, "):
         mask_artifacts(np.stack([fused, fused]), FS)
-    with pytest.raises(InvalidInputError, match=r"`fused` must span at least 20 s; got 4 s"):
+    with pytest.raises(InvalidInputError, match=r"`fused` must be at least 20 s long; got 4.00 s"):
         mask_artifacts(fused[:1000], FS)
     bad = fused.copy()
     bad[10] = np.inf
-    with pytest.raises(InvalidInputError, match=r"`fused` must be finite .* the first at index 10"):
+    with pytest.raises(InvalidInputError,
+                       match=r"`fused` must hold finite numbers only; got 1 NaN or inf, the first "
+                             r"at index 10"):
         mask_artifacts(bad, FS)
+    with pytest.raises(InvalidInputError, match=r"`fused` must hold real numbers; got dtype bool"):
+        mask_artifacts(fused > 0, FS)
     with pytest.raises(InvalidInputError, match=r"`raw_signals\[1\]` must be a real 1-D array "
                                                 r"of 75000 samples"):
         mask_artifacts(fused, FS, raw_signals=[raw[0], raw[1][:-5]])

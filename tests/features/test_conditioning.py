@@ -18,6 +18,7 @@ from features.conditioning import (
     valid_units,
 )
 from features.errors import InvalidInputError
+from features.limits import MAX_CHANNELS
 
 FS = 250.0
 
@@ -271,9 +272,9 @@ def test_error_sampling_rate() -> None:
 def test_error_channel_count() -> None:
     with pytest.raises(InvalidInputError, match=r"`channels` must hold 1 to 8 channels; got 0"):
         condition_channels([], FS)
-    nine = [_force(_ok(), label=f"c{i}") for i in range(9)]
+    too_many = [_force(_ok(), label=f"c{i}") for i in range(MAX_CHANNELS + 1)]
     with pytest.raises(InvalidInputError, match=r"1 to 8 channels; got 9"):
-        condition_channels(nine, FS)
+        condition_channels(too_many, FS)
 
 
 def test_error_not_a_channel() -> None:
@@ -424,3 +425,18 @@ def test_error_coupling_rules(chan: ChannelInput, message: str) -> None:
     with pytest.raises(InvalidInputError, match=message) as info:
         condition_channels([chan], FS)
     assert info.value.field == "channels[0].coupling"
+
+
+def test_per_quantity_tables_cover_every_quantity_of_the_limits():
+    # The conditioning tables are keyed by quantity name; every quantity the schemas accept
+    # (features.limits.QUANTITIES) must have a row, and no other name may.
+    from features.conditioning import _DERIVATIVES, _KINETIC_UNIT
+    from features.limits import QUANTITIES
+
+    assert set(_KINETIC_UNIT) == set(QUANTITIES)
+    assert set(_DERIVATIVES) == set(QUANTITIES)
+    # a = dv/dt = d2x/dt2 (kinematics, any mechanics textbook); force and acceleration are
+    # already kinetic. Newton's second law puts force in N, the others become m/s^2.
+    assert _DERIVATIVES == {"force": 0, "acceleration": 0, "velocity": 1, "displacement": 2}
+    assert _KINETIC_UNIT["force"] == "N"
+    assert {_KINETIC_UNIT[q] for q in QUANTITIES if q != "force"} == {"m/s^2"}

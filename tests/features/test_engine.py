@@ -8,6 +8,7 @@ from hypothesis.extra.numpy import arrays
 
 from features import ChannelInput, InvalidInputError, UnusableSignalError, analyze
 from features.engine import Options, Subject
+from features.limits import DEFAULT_RATE_RANGE_BPM
 from simulation import SimulationSettings, simulate
 
 
@@ -135,7 +136,8 @@ def test_any_finite_input_gives_a_result_or_a_documented_error(x, quantity):
     except (InvalidInputError, UnusableSignalError):
         return
     assert 0.0 <= r.heart_rate.confidence <= 1.0
-    assert r.heart_rate.mean_bpm is None or 30.0 <= r.heart_rate.mean_bpm <= 200.0
+    lo, hi = DEFAULT_RATE_RANGE_BPM  # the detector's default search range
+    assert r.heart_rate.mean_bpm is None or lo <= r.heart_rate.mean_bpm <= hi
     assert 0.0 <= r.quality.usable_fraction <= 1.0
 
 

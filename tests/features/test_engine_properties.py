@@ -21,6 +21,7 @@ from hypothesis.extra.numpy import arrays
 from features import ChannelInput, InvalidInputError, UnusableSignalError, analyze
 from features.conditioning import valid_units
 from features.engine import Options
+from features.limits import DEFAULT_RATE_RANGE_BPM
 from simulation import SimulationSettings, simulate
 
 QUICK = settings(max_examples=25, deadline=None, derandomize=True,
@@ -166,7 +167,8 @@ def test_any_finite_input_gives_a_result_or_a_documented_error(case):
         assert error.message
         return
     assert 0.0 <= result.heart_rate.confidence <= 1.0
-    assert result.heart_rate.mean_bpm is None or 30.0 <= result.heart_rate.mean_bpm <= 200.0
+    lo, hi = DEFAULT_RATE_RANGE_BPM  # the detector's default search range
+    assert result.heart_rate.mean_bpm is None or lo <= result.heart_rate.mean_bpm <= hi
     assert 0.0 <= result.quality.usable_fraction <= 1.0
     for family in (result.morphology, result.respiration):
         assert 0.0 <= family.confidence <= 1.0

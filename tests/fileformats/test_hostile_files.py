@@ -22,6 +22,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from benchmarks.file_bombs import PARQUET_CODECS, crc32_combine, npz_bomb, parquet_bomb
+from features.limits import DEFAULT_MAX_SAMPLES
 from fileformats import UnreadableFileError, read_trace
 from service import create_app
 from service.batch import run_batch
@@ -173,7 +174,7 @@ def test_bombs_are_refused_with_a_problem(client, bomb_files):
         assert response.status_code in (413, 422), (what, response.status_code)
         assert response.mimetype == PROBLEM
         if what != "npz_liar":
-            _limit_problem(response, 4_000_000)
+            _limit_problem(response, DEFAULT_MAX_SAMPLES)
 
 
 def test_a_bomb_within_the_sample_limit_is_cut_off_by_the_ratio_cap(bomb_files):

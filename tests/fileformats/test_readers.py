@@ -72,7 +72,8 @@ def test_channel_selection_by_label_and_header_units(tmp_path):
     with pytest.raises(UnreadableFileError, match=r"`channels` must be labels in the file "
                                                  r"\(accel, ecg, left, slow\); got 'right'"):
         read_trace(path, channels=["right"])
-    with pytest.raises(UnreadableFileError, match="header unit 'mV' is not a force"):
+    with pytest.raises(UnreadableFileError, match="header unit 'mV' is not a unit of "
+                                                  "acceleration, displacement, force or velocity"):
         read_trace(path, channels=["ecg"])
     assert read_trace(path, channels=["ecg"], unit="g").channels[0].quantity == "acceleration"
     with pytest.raises(UnreadableFileError, match="must share one sampling rate"):

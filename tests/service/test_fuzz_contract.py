@@ -42,6 +42,7 @@ from hypothesis import HealthCheck, settings  # noqa: E402
 from schemathesis.config import SchemathesisConfig  # noqa: E402
 from service_contract import ROOT  # noqa: E402
 
+from features.limits import MAX_FS_HZ, MIN_DURATION_S, MIN_FS_HZ  # noqa: E402
 from service import create_app  # noqa: E402
 from service.loadtest import serve  # noqa: E402
 
@@ -73,8 +74,7 @@ SCHEMA_EXPRESSIBLE = re.compile(
     r"Invalid input type|Must be one of|Must be greater than|Must be less than|"
     r"Length must be|Shorter than minimum|Longer than maximum|must be a trace file part; got none"
 )
-STRETCH_S = 21.0
-STRETCH_MAX_FS_HZ = 2000.0
+STRETCH_S = MIN_DURATION_S + 1.0  # just over the shortest record the engine accepts
 
 STATUSES: Counter[str] = Counter()
 
@@ -87,7 +87,7 @@ def map_body(context, body):
     channels = body.get("channels")
     if not isinstance(fs, int | float) or isinstance(fs, bool) or not isinstance(channels, list):
         return body
-    if not 50 <= fs <= STRETCH_MAX_FS_HZ:
+    if not MIN_FS_HZ <= fs <= MAX_FS_HZ:
         return body
     n = math.ceil(STRETCH_S * fs)
     for channel in channels:

@@ -26,14 +26,17 @@ from service.demo import demo_request_body
 
 ROOT = Path(__file__).resolve().parents[2]
 #: Engine functions that look a name up in a fixed table and compute nothing from a trace
-#: or a result: the request schema reads the unit and coupling rules, the catalogue its
-#: entries.
+#: or a result: the request schema reads the unit choices and the default coupling rule of
+#: a channel's metadata (``resolve_coupling``: quantity, unit and scale -> ``dc``/``ac``),
+#: and formats the limits' choice lists into its messages; the catalogue reads its entries.
 LOOKUPS = frozenset({
     "features.feature_vector.catalogue_fingerprint",
     "features.feature_vector.catalogue_markdown",
     "features.feature_vector.feature_definition",
     "features.limits.resolve_coupling",
+    "features.limits.mains_choices",
     "features.limits.units_of",
+    "features.limits.units_text",
 })
 #: The files that must only translate or draw.
 SCANNED = sorted((ROOT / "schemas").glob("*.py")) + [

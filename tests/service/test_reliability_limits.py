@@ -11,6 +11,7 @@ import time
 import pytest
 from service_contract import ROOT, check_against_contract, contract
 
+from features.limits import DEFAULT_MAX_SAMPLES, MAX_CHANNELS
 from service import create_app
 from service.config import load_config
 from service.deadline import ComputeTimeExceeded, run_with_deadline
@@ -96,10 +97,10 @@ def test_limits_are_in_the_contract():
     operation = spec["paths"]["/v1/analyses"]["post"]
     assert {"401", "413", "503"} <= set(operation["responses"])
     channel = spec["components"]["schemas"]["Channel"]["properties"]
-    assert channel["samples"]["maxItems"] == 4_000_000
+    assert channel["samples"]["maxItems"] == DEFAULT_MAX_SAMPLES
     assert channel["samples_base64"]["maxLength"] > 0
     assert spec["components"]["schemas"]["AnalysisRequest"]["properties"]["channels"][
-        "maxItems"] == 8
+        "maxItems"] == MAX_CHANNELS
     description = spec["info"]["description"]
     for setting in ("HEARTSWAY_MAX_BODY_BYTES", "HEARTSWAY_MAX_SAMPLES",
                     "HEARTSWAY_MAX_CHANNELS", "HEARTSWAY_MAX_COMPUTE_S"):

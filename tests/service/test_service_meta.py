@@ -93,3 +93,18 @@ def test_request_id_is_replaced_when_malformed(client):
     response = client.get("/healthz", headers={"X-Request-ID": "bad id\twith spaces" * 10})
     sent_back = response.headers["X-Request-ID"]
     assert " " not in sent_back and len(sent_back) == 32
+
+
+def test_page_rate_field_states_the_engines_sampling_rate_limits(client):
+    # The page must refuse in the browser exactly what the engine refuses: its rate field's
+    # bounds come from features.limits, and no placeholder of the template is left.
+    import re
+
+    from features.limits import MAX_FS_HZ, MIN_FS_HZ
+
+    page = client.get("/").get_data(as_text=True)
+    assert "{{" not in page
+    field = re.search(r'<input id="rate"[^>]*>', page)
+    assert field is not None
+    assert f'min="{MIN_FS_HZ:g}"' in field.group(0)
+    assert f'max="{MAX_FS_HZ:g}"' in field.group(0)
