@@ -32,6 +32,8 @@ KNOWN_CATALOGUES = {
     # 4: the same catalogue; a heartbeat overrules a load that says "empty" (per-channel
     # coupling, ac sensors), and no breathing is reported without an occupant.
     "4": "b5b32088ca5803e31b792db5f7218bb1570b65646e45c8d11f9c331f63e139fa",
+    # 5: rsa_ms is the cosinor fit against the breathing phase with a slow trend removed.
+    "5": "d4c6a1a1edd1b9fb8651fd7d352086c2f89aab9735064a331732f64613c06f95",
 }
 
 # UCUM symbols for the unit suffixes (Unified Code for Units of Measure, ucum.org; from
