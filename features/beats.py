@@ -406,8 +406,15 @@ def detect_beats(
     # later one. J leads the complex, so a large wave up to LEAD_WAVE_S earlier (and
     # under half the period, so never the previous beat's) takes the fiducial.
     if period is not None:
-        back = int(round(min(LEAD_WAVE_S, 0.4 * period) * fs_w))
-        lead = _recentre(template, half[0], reach_j, back=min(back, half[0] - 1))
+        back = min(int(round(min(LEAD_WAVE_S, 0.4 * period) * fs_w)), half[0] - 1)
+        # A lightly damped support rings after J with waves as large as J, and the match
+        # can settle on one of them with either sign; the first large wave of either
+        # sign over the same reach is J and sets the polarity (ringing supports).
+        first = _first_large(template, half[0], reach_j, back=back)
+        if template[first] < 0:
+            polarity, comp, template = -polarity, -comp, -template
+            flags.append("polarity_revised_on_leading_wave")
+        lead = _recentre(template, half[0], reach_j, back=back)
         if not np.array_equal(lead, template):
             template = lead
             flags.append("fiducial_moved_to_leading_wave")
@@ -439,7 +446,8 @@ def detect_beats(
 
     seg = np.cumsum(~usable_w)
     run_ids = seg[beats].astype(np.int64)
-    second = _second_waves(comp, beats, run_ids, amp, half, int(min_period * fs_w))
+    second = _second_waves(comp, beats, run_ids, amp, half, int(min_period * fs_w),
+                           None if period is None else period * fs_w)
     if second is not None:
         beats, run_ids = beats[~second], run_ids[~second]
         flags.append("second_wave_of_each_complex_dropped")
@@ -640,7 +648,7 @@ def _rhythm_evidence(times: NDArray[np.float64], run_ids: NDArray[np.int64],
 
 def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
                   run_ids: NDArray[np.int64], amp: NDArray[np.float64], half: tuple[int, int],
-                  min_period: int) -> NDArray[np.bool_] | None:
+                  min_period: int, period_n: float | None = None) -> NDArray[np.bool_] | None:
     """Mask of picks that are the second wave of a complex, or None (one pick a beat).
 
     Within each run (at least 6 picks) the picks are split by parity. The mean epochs of
@@ -651,6 +659,15 @@ def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
     wave, Inan et al. 2015 [4]_) and the other is dropped, provided the weaker class is
     comparable (``TWO_WAVE_COMPARABLE``) and a pair of picks spans a plausible beat (at
     least ``min_period`` samples).
+
+    With the settled beat period ``period_n`` (samples) given, picks that come steadily
+    twice a period (median interval within ``RHYTHM_AGREEMENT`` of half of it, successive
+    intervals regular as in ``_rhythm_evidence``) are two picks a beat whatever their
+    shapes: on a lightly damped support the ring after J repeats the complex's shape, so
+    the shape test cannot see it, and the ring is weaker than J by its decay, so the
+    comparability test does not apply either. Then, largest match amplitude first, each
+    kept pick drops the other picks of its run within 0.7 of the period (a missed or
+    extra pick would swap alternating classes, so no parity is used).
     """
     cls = np.full(picks.size, -1)
     for run in np.unique(run_ids):
@@ -667,6 +684,9 @@ def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
     between = _pearson(means[0], means[1])
     within = min(_pearson(ep[c == k][0::2].mean(axis=0), ep[c == k][1::2].mean(axis=0))
                  for k in (0, 1))
+    if period_n is not None and _twice_a_period(picks, run_ids, period_n) and \
+            _pair_span(picks, run_ids) >= min_period:
+        return _weaker_within(picks, run_ids, amp[picks], 0.7 * period_n)
     if between > within - TWO_WAVE_SHAPE_GAP:
         return None
     size = [float(np.median(amp[picks[ok & (cls == k)]])) for k in (0, 1)]
@@ -675,6 +695,34 @@ def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
             _pair_span(picks, run_ids) < min_period:
         return None
     return (cls >= 0) & (cls != keep)
+
+
+def _twice_a_period(picks: NDArray[np.intp], run_ids: NDArray[np.int64],
+                    period_n: float | None) -> bool:
+    """True when the picks come steadily at half the settled period (see _second_waves)."""
+    if period_n is None:
+        return False
+    iv = np.diff(picks)[run_ids[1:] == run_ids[:-1]].astype(float)
+    if iv.size < 8:
+        return False
+    med = float(np.median(iv))
+    steady = float(np.mean(np.abs(np.diff(iv)) < RHYTHM_STEP * med))
+    return abs(2.0 * med / period_n - 1.0) <= RHYTHM_AGREEMENT and steady >= RHYTHM_CONSISTENCY
+
+
+def _weaker_within(picks: NDArray[np.intp], run_ids: NDArray[np.int64],
+                   size: NDArray[np.float64], span: float) -> NDArray[np.bool_]:
+    """Mask of picks dropped by a larger pick of the same run less than ``span`` away."""
+    dropped = np.zeros(picks.size, dtype=bool)
+    for i in np.argsort(-size, kind="stable"):
+        if dropped[i]:
+            continue
+        lo = np.searchsorted(picks, picks[i] - span, side="right")
+        hi = np.searchsorted(picks, picks[i] + span, side="left")
+        near = np.arange(lo, hi)
+        near = near[(near != i) & (run_ids[near] == run_ids[i])]
+        dropped[near] = True
+    return dropped
 
 
 def _pair_span(picks: NDArray[np.intp], run_ids: NDArray[np.int64]) -> float:
