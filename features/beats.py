@@ -147,6 +147,20 @@ comparable waves, not a beat and the noise between beats."""
 TWO_WAVE_MIN_PICKS = 24
 """Fewest picks, over runs of at least 6, on which the two-wave test is made."""
 
+GIVE_BACK_QUANTILE = 0.9
+"""Quantile of the usable part's beat-band envelope that stands for a typical beat peak.
+
+The envelope (0.15-s window) is near a beat's peak for some 15-30 % of the time at 30-200
+bpm, so its 90th percentile lies among the beats' peaks, and unmasked motion must cover
+a tenth of the usable record to raise it (a higher quantile follows the motion sooner)."""
+GIVE_BACK_ENERGY = 2.0
+"""Beat-band energy envelope, over ``GIVE_BACK_QUANTILE``, up to which a masked movement or
+posture sample is given back (step 0): a wave up to 1.4 times a typical beat's size (our
+choice; beat sizes vary by some tens of percent with breathing)."""
+GIVE_BACK_GUARD_S = 0.5
+"""Distance from any louder sample that a given-back sample keeps, s: about half a beat,
+so that the complex of a beat next to a disturbance stays out (our choice)."""
+
 EVIDENCE_THRESHOLD = 10.0
 """Coherence statistic above which a repeating, consistently signed beat is present.
 
@@ -223,6 +237,7 @@ def detect_beats(
     *,
     usable: ArrayLike | None = None,
     rate_range_bpm: tuple[float, float] = RATE_RANGE_BPM,
+    recoverable: ArrayLike | None = None,
 ) -> BeatDetection:
     """Find the J wave of every heartbeat in a conditioned recoil trace.
 
@@ -238,6 +253,10 @@ def detect_beats(
         reported whose complex touches a masked sample.
     rate_range_bpm
         Plausible heart-rate range in beats per minute (default 30-200).
+    recoverable
+        Boolean mask, same length, True where a masked sample was masked only for body
+        movement or a posture step (not clipping, a flat line or an empty support); such
+        samples are given back to the detector where the beat band stays quiet (step 0).
 
     Returns
     -------
@@ -251,6 +270,14 @@ def detect_beats(
 
     Notes
     -----
+    0. Masked samples marked ``recoverable`` are given back where the beat-band
+       component of the unbridged trace (step 2's levels) keeps its energy envelope
+       (step 3's smoothing) under ``GIVE_BACK_ENERGY`` times the ``GIVE_BACK_QUANTILE``
+       quantile of the usable part's, ``GIVE_BACK_GUARD_S`` away from any louder sample
+       (flag): a posture
+       step or a breathing swing many times the cardiac wave is masked as movement by
+       its broadband energy, yet most of it lies below the beat band and the beats on
+       either side of its core still time well.
     1. Resample to ``WORK_RATE_HZ`` with a polyphase anti-aliasing filter,
        so that the wavelet levels and all windows mean the same frequencies
        and durations at any input rate.
@@ -337,6 +364,17 @@ def detect_beats(
     xw, fs_w, usable_w = _to_work_rate(x, fs_hz, mask)
     levels = levels_for_band(fs_w, BEAT_BAND_HZ)
     comp = swt_component(bridge_masked(xw, usable_w), levels=levels, wavelet=WAVELET)
+    if recoverable is not None and not usable_w.all():
+        candidate = _work_mask(mask | check_usable(recoverable, x.size, of="trace"), fs_hz,
+                               fs_w, xw.size) & ~usable_w
+        given = _give_back(xw, fs_w, levels, usable_w, candidate)
+        if given is not None:
+            # The unbridged component where it is quiet: bridging the shorter masked core
+            # would join the levels on either side of a posture step by a steep ramp.
+            back, raw = given
+            comp = np.where(back, raw, comp)
+            usable_w = usable_w | back
+            flags.append("masked_movement_with_quiet_beat_band_given_back")
     comp = _zero_masked(comp, usable_w, int(round(0.1 * fs_w)))
     scale = robust_sd(comp[usable_w]) if usable_w.any() else 0.0
     if not np.isfinite(scale) or scale <= 0.0:
@@ -523,13 +561,36 @@ def _to_work_rate(
     up, down = frac.numerator, frac.denominator
     xw = signal.resample_poly(x - np.median(x), up, down) if (up, down) != (1, 1) else x.copy()
     fs_w = fs_hz * up / down
-    # A working sample is usable only where every input sample near it is.
+    return xw, fs_w, _work_mask(mask, fs_hz, fs_w, xw.size)
+
+
+def _work_mask(mask: NDArray[np.bool_], fs_hz: float, fs_w: float, n_w: int
+               ) -> NDArray[np.bool_]:
+    """A working sample is usable only where every input sample near it is."""
     bad = ~mask
     if bad.any():
         spread = max(1, int(np.ceil(fs_hz / fs_w)))
         bad = ndimage.binary_dilation(bad, iterations=spread)
-    idx = np.minimum(np.round(np.arange(xw.size) * fs_hz / fs_w).astype(np.int64), x.size - 1)
-    return xw, fs_w, ~bad[idx]
+    idx = np.minimum(np.round(np.arange(n_w) * fs_hz / fs_w).astype(np.int64), mask.size - 1)
+    out: NDArray[np.bool_] = ~bad[idx]
+    return out
+
+
+def _give_back(xw: NDArray[np.float64], fs_w: float, levels: tuple[int, ...],
+               usable: NDArray[np.bool_], candidate: NDArray[np.bool_]
+               ) -> tuple[NDArray[np.bool_], NDArray[np.float64]] | None:
+    """The quiet part of ``candidate`` (step 0) and the unbridged component; None if none."""
+    if not candidate.any() or usable.sum() < MIN_DURATION_S * fs_w:
+        return None
+    raw = swt_component(xw, levels=levels, wavelet=WAVELET)
+    env = ndimage.uniform_filter1d(raw * raw, max(1, int(round(ENVELOPE_WINDOW_S * fs_w))))
+    level = float(np.quantile(env[usable], GIVE_BACK_QUANTILE))
+    if not level > 0.0:
+        return None
+    guard = 2 * int(round(GIVE_BACK_GUARD_S * fs_w)) + 1
+    loud = ndimage.maximum_filter1d((env > GIVE_BACK_ENERGY * level).astype(np.int8), guard)
+    back = candidate & (loud == 0)
+    return (back, raw) if back.any() else None
 
 
 def _zero_masked(comp: NDArray[np.float64], usable: NDArray[np.bool_], widen: int) -> NDArray[

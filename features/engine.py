@@ -224,7 +224,8 @@ def analyze(
                                         load_fs_hz=cond.baseline_fs_hz,
                                         raw_signals=cond.raw_signals, pad_s=MOVEMENT_PAD_S)
     beats = detect_beats(fusion.fused, fs_hz, usable=mask.usable,
-                         rate_range_bpm=options.rate_range_bpm)
+                         rate_range_bpm=options.rate_range_bpm,
+                         recoverable=mask.motion_only(fs_hz))
     series = intervals_from_beats(beats.times_s, run_ids=beats.run_ids)
     labels = classify_intervals(series.times_s, series.intervals_ms)
     occupied = occupancy(cond.occupancy_from_load, cond.supported_mass_kg, beats)
