@@ -371,9 +371,9 @@ def detect_beats(
         if given is not None:
             # The unbridged component where it is quiet: bridging the shorter masked core
             # would join the levels on either side of a posture step by a steep ramp.
-            back, raw = given
-            comp = np.where(back, raw, comp)
-            usable_w = usable_w | back
+            quiet, raw = given
+            comp = np.where(quiet, raw, comp)
+            usable_w = usable_w | quiet
             flags.append("masked_movement_with_quiet_beat_band_given_back")
     comp = _zero_masked(comp, usable_w, int(round(0.1 * fs_w)))
     scale = robust_sd(comp[usable_w]) if usable_w.any() else 0.0
