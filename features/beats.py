@@ -477,6 +477,10 @@ def detect_beats(
     n_rejected = n_candidates - int(beats.size)
 
     beats = _drop_extra(beats, corr, amp, fs_w)
+    if period is not None:
+        beats, n_slipped = _repair_slips(beats, corr, amp, fs_w, accept)
+        if n_slipped:
+            flags.append("slipped_beat_pairs_replaced")
     beats, n_recovered = _recover_missed(beats, corr, amp, fs_w, 0.8 * accept,
                                          0.2 * amp_ref, dist, usable_w)
     inside = _complex_usable(beats, usable_w, fs_w)
@@ -956,6 +960,43 @@ def _drop_extra(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray
             return beats
         beats = np.delete(beats, drop)
     return beats
+
+
+def _repair_slips(beats: NDArray[np.intp], corr: NDArray[np.float64],
+                  amp: NDArray[np.float64], fs: float, level: float
+                  ) -> tuple[NDArray[np.intp], int]:
+    """Replace two picks that stand where one beat should by the best match between.
+
+    On a lightly damped support the match is nearly as good one ring period from J, and
+    the picks can slip: one beat's J is missed while a ring wave of the previous beat and
+    one of this beat are picked (three intervals where two belong). Two picks i, i + 1 are
+    such a slip when the span from pick i - 1 to pick i + 2 is 1.8-2.2 reference intervals
+    (``_reference_interval``) and each of the three intervals differs from the reference
+    by more than ``RHYTHM_STEP`` of it; they are replaced by the largest correlation within
+    ``RHYTHM_STEP`` reference intervals of the span's middle, when it reaches ``level``.
+    Used only when the envelope settled a period (a regular rhythm); premature beats with
+    their compensatory pause span three intervals and are left alone.
+    """
+    if beats.size < 6:
+        return beats, 0
+    score = corr[beats] * np.minimum(amp[beats] / np.median(amp[beats]), 1.5)
+    ref = _reference_interval(beats, score >= 0.75 * np.median(score), fs) * fs
+    out = beats.tolist()
+    replaced = 0
+    i = 1
+    while i + 2 < len(out):
+        a, b, c, d = out[i - 1], out[i], out[i + 1], out[i + 2]
+        m = float(ref[min(i, ref.size - 1)])
+        off = [abs(v - m) > RHYTHM_STEP * m for v in (b - a, c - b, d - c)]
+        if 1.8 * m <= d - a <= 2.2 * m and all(off):
+            mid, reach = (a + d) / 2.0, RHYTHM_STEP * m
+            lo, hi = int(np.ceil(mid - reach)), int(np.floor(mid + reach)) + 1
+            j = lo + int(np.argmax(corr[lo:hi]))
+            if corr[j] >= level:
+                out[i:i + 2] = [j]
+                replaced += 1
+        i += 1
+    return np.asarray(out, dtype=beats.dtype), replaced
 
 
 def _reference_interval(beats: NDArray[np.intp], strong: NDArray[np.bool_],
