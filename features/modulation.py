@@ -458,6 +458,8 @@ def _cosinor_segment(
     inner = np.linspace(t[0], t[-1], n_inner + 2)[1:-1]
     knots = np.concatenate(([t[0]] * 4, inner, [t[-1]] * 4))
     trend = BSpline.design_matrix(t, knots, 3).toarray()
+    # A piece of trend inside a gap (a masked movement, breaths left out) has no data.
+    trend = trend[:, np.count_nonzero(trend, axis=0) >= 2]
     design = np.column_stack((np.cos(phi), np.sin(phi), trend))
     dof = t.size - design.shape[1]
     if dof < MIN_BEATS // 2:

@@ -46,6 +46,19 @@ def test_rsa_is_twice_the_amplitude_of_the_breathing_locked_sinusoid():
     assert r.rsa_ms == pytest.approx(60.0, abs=1e-6)  # rounding of the least squares
 
 
+def test_rsa_fit_bridges_a_gap_in_the_beats():
+    # A 40-s stretch without beats (a masked movement) leaves pieces of the slow trend with
+    # no data; the fit must still stand on the rest: 900 + 30 cos(phase) ms gives 60 ms
+    # peak to trough (hand-computed), noise-free, so only rounding separates them.
+    breaths = np.arange(0.0, 240.0, 4.0)
+    beats = np.arange(0.37, 238.0, 0.9)
+    beats = beats[(beats < 100.0) | (beats > 140.0)]
+    iv = 900.0 + 30.0 * np.cos(2 * np.pi * (beats % 4.0) / 4.0)
+    r = respiratory_modulation(sine_breathing(240), FS, beat_times_s=beats,
+                               breath_times_s=breaths, interval_ms=iv, interval_times_s=beats)
+    assert r.rsa_ms == pytest.approx(60.0, abs=1e-6)  # rounding of the least squares
+
+
 def test_rsa_without_respiratory_modulation_reads_near_zero():
     # No RSA at all: intervals 900 ms plus a 0.05-Hz rhythm of 40 ms and beat-to-beat jitter
     # of SD 20 ms (seeded), with breathing at 0.25 Hz. Issue 12 acceptance: bias within 5 ms
