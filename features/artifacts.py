@@ -90,6 +90,24 @@ class ArtifactMask:
     confidence: float
     flags: tuple[str, ...]
 
+    def motion_only(self, fs_hz: float) -> NDArray[np.bool_]:
+        """(n,) bool: True where a sample is masked for movement or a posture step alone.
+
+        Samples inside a clipping, flat-line or empty-support segment are never True: only
+        motion can leave the beats under it intact (see ``features.beats.detect_beats``,
+        ``recoverable``). Segment ``[start_s, end_s)`` covers samples
+        ``round(start_s * fs_hz)`` up to ``round(end_s * fs_hz)``.
+        """
+        n = self.usable.size
+        motion = np.zeros(n, dtype=bool)
+        other = np.zeros(n, dtype=bool)
+        for seg in self.segments:
+            a = max(0, int(round(seg.start_s * fs_hz)))
+            b = min(n, int(round(seg.end_s * fs_hz)))
+            (motion if seg.kind in ("movement", "posture_change") else other)[a:b] = True
+        out: NDArray[np.bool_] = motion & ~other & ~self.usable
+        return out
+
 
 def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None = None,
                    load_fs_hz: float | None = None,

@@ -147,6 +147,20 @@ comparable waves, not a beat and the noise between beats."""
 TWO_WAVE_MIN_PICKS = 24
 """Fewest picks, over runs of at least 6, on which the two-wave test is made."""
 
+GIVE_BACK_QUANTILE = 0.9
+"""Quantile of the usable part's beat-band envelope that stands for a typical beat peak.
+
+The envelope (0.15-s window) is near a beat's peak for some 15-30 % of the time at 30-200
+bpm, so its 90th percentile lies among the beats' peaks, and unmasked motion must cover
+a tenth of the usable record to raise it (a higher quantile follows the motion sooner)."""
+GIVE_BACK_ENERGY = 2.0
+"""Beat-band energy envelope, over ``GIVE_BACK_QUANTILE``, up to which a masked movement or
+posture sample is given back (step 0): a wave up to 1.4 times a typical beat's size (our
+choice; beat sizes vary by some tens of percent with breathing)."""
+GIVE_BACK_GUARD_S = 0.5
+"""Distance from any louder sample that a given-back sample keeps, s: about half a beat,
+so that the complex of a beat next to a disturbance stays out (our choice)."""
+
 EVIDENCE_THRESHOLD = 10.0
 """Coherence statistic above which a repeating, consistently signed beat is present.
 
@@ -223,6 +237,7 @@ def detect_beats(
     *,
     usable: ArrayLike | None = None,
     rate_range_bpm: tuple[float, float] = RATE_RANGE_BPM,
+    recoverable: ArrayLike | None = None,
 ) -> BeatDetection:
     """Find the J wave of every heartbeat in a conditioned recoil trace.
 
@@ -238,6 +253,10 @@ def detect_beats(
         reported whose complex touches a masked sample.
     rate_range_bpm
         Plausible heart-rate range in beats per minute (default 30-200).
+    recoverable
+        Boolean mask, same length, True where a masked sample was masked only for body
+        movement or a posture step (not clipping, a flat line or an empty support); such
+        samples are given back to the detector where the beat band stays quiet (step 0).
 
     Returns
     -------
@@ -251,6 +270,14 @@ def detect_beats(
 
     Notes
     -----
+    0. Masked samples marked ``recoverable`` are given back where the beat-band
+       component of the unbridged trace (step 2's levels) keeps its energy envelope
+       (step 3's smoothing) under ``GIVE_BACK_ENERGY`` times the ``GIVE_BACK_QUANTILE``
+       quantile of the usable part's, ``GIVE_BACK_GUARD_S`` away from any louder sample
+       (flag): a posture
+       step or a breathing swing many times the cardiac wave is masked as movement by
+       its broadband energy, yet most of it lies below the beat band and the beats on
+       either side of its core still time well.
     1. Resample to ``WORK_RATE_HZ`` with a polyphase anti-aliasing filter,
        so that the wavelet levels and all windows mean the same frequencies
        and durations at any input rate.
@@ -337,6 +364,17 @@ def detect_beats(
     xw, fs_w, usable_w = _to_work_rate(x, fs_hz, mask)
     levels = levels_for_band(fs_w, BEAT_BAND_HZ)
     comp = swt_component(bridge_masked(xw, usable_w), levels=levels, wavelet=WAVELET)
+    if recoverable is not None and not usable_w.all():
+        candidate = _work_mask(mask | check_usable(recoverable, x.size, of="trace"), fs_hz,
+                               fs_w, xw.size) & ~usable_w
+        given = _give_back(xw, fs_w, levels, usable_w, candidate)
+        if given is not None:
+            # The unbridged component where it is quiet: bridging the shorter masked core
+            # would join the levels on either side of a posture step by a steep ramp.
+            quiet, raw = given
+            comp = np.where(quiet, raw, comp)
+            usable_w = usable_w | quiet
+            flags.append("masked_movement_with_quiet_beat_band_given_back")
     comp = _zero_masked(comp, usable_w, int(round(0.1 * fs_w)))
     scale = robust_sd(comp[usable_w]) if usable_w.any() else 0.0
     if not np.isfinite(scale) or scale <= 0.0:
@@ -406,8 +444,15 @@ def detect_beats(
     # later one. J leads the complex, so a large wave up to LEAD_WAVE_S earlier (and
     # under half the period, so never the previous beat's) takes the fiducial.
     if period is not None:
-        back = int(round(min(LEAD_WAVE_S, 0.4 * period) * fs_w))
-        lead = _recentre(template, half[0], reach_j, back=min(back, half[0] - 1))
+        back = min(int(round(min(LEAD_WAVE_S, 0.4 * period) * fs_w)), half[0] - 1)
+        # A lightly damped support rings after J with waves as large as J, and the match
+        # can settle on one of them with either sign; the first large wave of either
+        # sign over the same reach is J and sets the polarity (ringing supports).
+        first = _first_large(template, half[0], reach_j, back=back)
+        if template[first] < 0:
+            polarity, comp, template = -polarity, -comp, -template
+            flags.append("polarity_revised_on_leading_wave")
+        lead = _recentre(template, half[0], reach_j, back=back)
         if not np.array_equal(lead, template):
             template = lead
             flags.append("fiducial_moved_to_leading_wave")
@@ -432,6 +477,10 @@ def detect_beats(
     n_rejected = n_candidates - int(beats.size)
 
     beats = _drop_extra(beats, corr, amp, fs_w)
+    if period is not None:
+        beats, n_slipped = _repair_slips(beats, corr, amp, fs_w, accept)
+        if n_slipped:
+            flags.append("slipped_beat_pairs_replaced")
     beats, n_recovered = _recover_missed(beats, corr, amp, fs_w, 0.8 * accept,
                                          0.2 * amp_ref, dist, usable_w)
     inside = _complex_usable(beats, usable_w, fs_w)
@@ -439,7 +488,8 @@ def detect_beats(
 
     seg = np.cumsum(~usable_w)
     run_ids = seg[beats].astype(np.int64)
-    second = _second_waves(comp, beats, run_ids, amp, half, int(min_period * fs_w))
+    second = _second_waves(comp, beats, run_ids, amp, half, int(min_period * fs_w),
+                           None if period is None else period * fs_w)
     if second is not None:
         beats, run_ids = beats[~second], run_ids[~second]
         flags.append("second_wave_of_each_complex_dropped")
@@ -515,13 +565,36 @@ def _to_work_rate(
     up, down = frac.numerator, frac.denominator
     xw = signal.resample_poly(x - np.median(x), up, down) if (up, down) != (1, 1) else x.copy()
     fs_w = fs_hz * up / down
-    # A working sample is usable only where every input sample near it is.
+    return xw, fs_w, _work_mask(mask, fs_hz, fs_w, xw.size)
+
+
+def _work_mask(mask: NDArray[np.bool_], fs_hz: float, fs_w: float, n_w: int
+               ) -> NDArray[np.bool_]:
+    """A working sample is usable only where every input sample near it is."""
     bad = ~mask
     if bad.any():
         spread = max(1, int(np.ceil(fs_hz / fs_w)))
         bad = ndimage.binary_dilation(bad, iterations=spread)
-    idx = np.minimum(np.round(np.arange(xw.size) * fs_hz / fs_w).astype(np.int64), x.size - 1)
-    return xw, fs_w, ~bad[idx]
+    idx = np.minimum(np.round(np.arange(n_w) * fs_hz / fs_w).astype(np.int64), mask.size - 1)
+    out: NDArray[np.bool_] = ~bad[idx]
+    return out
+
+
+def _give_back(xw: NDArray[np.float64], fs_w: float, levels: tuple[int, ...],
+               usable: NDArray[np.bool_], candidate: NDArray[np.bool_]
+               ) -> tuple[NDArray[np.bool_], NDArray[np.float64]] | None:
+    """The quiet part of ``candidate`` (step 0) and the unbridged component; None if none."""
+    if not candidate.any() or usable.sum() < MIN_DURATION_S * fs_w:
+        return None
+    raw = swt_component(xw, levels=levels, wavelet=WAVELET)
+    env = ndimage.uniform_filter1d(raw * raw, max(1, int(round(ENVELOPE_WINDOW_S * fs_w))))
+    level = float(np.quantile(env[usable], GIVE_BACK_QUANTILE))
+    if not level > 0.0:
+        return None
+    guard = 2 * int(round(GIVE_BACK_GUARD_S * fs_w)) + 1
+    loud = ndimage.maximum_filter1d((env > GIVE_BACK_ENERGY * level).astype(np.int8), guard)
+    back = candidate & (loud == 0)
+    return (back, raw) if back.any() else None
 
 
 def _zero_masked(comp: NDArray[np.float64], usable: NDArray[np.bool_], widen: int) -> NDArray[
@@ -640,7 +713,7 @@ def _rhythm_evidence(times: NDArray[np.float64], run_ids: NDArray[np.int64],
 
 def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
                   run_ids: NDArray[np.int64], amp: NDArray[np.float64], half: tuple[int, int],
-                  min_period: int) -> NDArray[np.bool_] | None:
+                  min_period: int, period_n: float | None = None) -> NDArray[np.bool_] | None:
     """Mask of picks that are the second wave of a complex, or None (one pick a beat).
 
     Within each run (at least 6 picks) the picks are split by parity. The mean epochs of
@@ -651,6 +724,15 @@ def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
     wave, Inan et al. 2015 [4]_) and the other is dropped, provided the weaker class is
     comparable (``TWO_WAVE_COMPARABLE``) and a pair of picks spans a plausible beat (at
     least ``min_period`` samples).
+
+    With the settled beat period ``period_n`` (samples) given, picks that come steadily
+    twice a period (median interval within ``RHYTHM_AGREEMENT`` of half of it, successive
+    intervals regular as in ``_rhythm_evidence``) are two picks a beat whatever their
+    shapes: on a lightly damped support the ring after J repeats the complex's shape, so
+    the shape test cannot see it, and the ring is weaker than J by its decay, so the
+    comparability test does not apply either. Then, largest match amplitude first, each
+    kept pick drops the other picks of its run within 0.7 of the period (a missed or
+    extra pick would swap alternating classes, so no parity is used).
     """
     cls = np.full(picks.size, -1)
     for run in np.unique(run_ids):
@@ -667,6 +749,9 @@ def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
     between = _pearson(means[0], means[1])
     within = min(_pearson(ep[c == k][0::2].mean(axis=0), ep[c == k][1::2].mean(axis=0))
                  for k in (0, 1))
+    if period_n is not None and _twice_a_period(picks, run_ids, period_n) and \
+            _pair_span(picks, run_ids) >= min_period:
+        return _weaker_within(picks, run_ids, amp[picks], 0.7 * period_n)
     if between > within - TWO_WAVE_SHAPE_GAP:
         return None
     size = [float(np.median(amp[picks[ok & (cls == k)]])) for k in (0, 1)]
@@ -676,6 +761,34 @@ def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
         return None
     first_wave: NDArray[np.bool_] = (cls >= 0) & (cls != keep)
     return first_wave
+
+
+def _twice_a_period(picks: NDArray[np.intp], run_ids: NDArray[np.int64],
+                    period_n: float | None) -> bool:
+    """True when the picks come steadily at half the settled period (see _second_waves)."""
+    if period_n is None:
+        return False
+    iv = np.diff(picks)[run_ids[1:] == run_ids[:-1]].astype(float)
+    if iv.size < 8:
+        return False
+    med = float(np.median(iv))
+    steady = float(np.mean(np.abs(np.diff(iv)) < RHYTHM_STEP * med))
+    return abs(2.0 * med / period_n - 1.0) <= RHYTHM_AGREEMENT and steady >= RHYTHM_CONSISTENCY
+
+
+def _weaker_within(picks: NDArray[np.intp], run_ids: NDArray[np.int64],
+                   size: NDArray[np.float64], span: float) -> NDArray[np.bool_]:
+    """Mask of picks dropped by a larger pick of the same run less than ``span`` away."""
+    dropped = np.zeros(picks.size, dtype=bool)
+    for i in np.argsort(-size, kind="stable"):
+        if dropped[i]:
+            continue
+        lo = np.searchsorted(picks, picks[i] - span, side="right")
+        hi = np.searchsorted(picks, picks[i] + span, side="left")
+        near = np.arange(lo, hi)
+        near = near[(near != i) & (run_ids[near] == run_ids[i])]
+        dropped[near] = True
+    return dropped
 
 
 def _pair_span(picks: NDArray[np.intp], run_ids: NDArray[np.int64]) -> float:
@@ -848,6 +961,43 @@ def _drop_extra(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray
             return beats
         beats = np.delete(beats, drop)
     return beats
+
+
+def _repair_slips(beats: NDArray[np.intp], corr: NDArray[np.float64],
+                  amp: NDArray[np.float64], fs: float, level: float
+                  ) -> tuple[NDArray[np.intp], int]:
+    """Replace two picks that stand where one beat should by the best match between.
+
+    On a lightly damped support the match is nearly as good one ring period from J, and
+    the picks can slip: one beat's J is missed while a ring wave of the previous beat and
+    one of this beat are picked (three intervals where two belong). Two picks i, i + 1 are
+    such a slip when the span from pick i - 1 to pick i + 2 is 1.8-2.2 reference intervals
+    (``_reference_interval``) and each of the three intervals differs from the reference
+    by more than ``RHYTHM_STEP`` of it; they are replaced by the largest correlation within
+    ``RHYTHM_STEP`` reference intervals of the span's middle, when it reaches ``level``.
+    Used only when the envelope settled a period (a regular rhythm); premature beats with
+    their compensatory pause span three intervals and are left alone.
+    """
+    if beats.size < 6:
+        return beats, 0
+    score = corr[beats] * np.minimum(amp[beats] / np.median(amp[beats]), 1.5)
+    ref = _reference_interval(beats, score >= 0.75 * np.median(score), fs) * fs
+    out = beats.tolist()
+    replaced = 0
+    i = 1
+    while i + 2 < len(out):
+        a, b, c, d = out[i - 1], out[i], out[i + 1], out[i + 2]
+        m = float(ref[min(i, ref.size - 1)])
+        off = [abs(v - m) > RHYTHM_STEP * m for v in (b - a, c - b, d - c)]
+        if 1.8 * m <= d - a <= 2.2 * m and all(off):
+            mid, reach = (a + d) / 2.0, RHYTHM_STEP * m
+            lo, hi = int(np.ceil(mid - reach)), int(np.floor(mid + reach)) + 1
+            j = lo + int(np.argmax(corr[lo:hi]))
+            if corr[j] >= level:
+                out[i:i + 2] = [j]
+                replaced += 1
+        i += 1
+    return np.asarray(out, dtype=beats.dtype), replaced
 
 
 def _reference_interval(beats: NDArray[np.intp], strong: NDArray[np.bool_],

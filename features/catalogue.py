@@ -24,6 +24,7 @@ __all__ = [
     "REF_AASM",
     "REF_BRENNAN",
     "REF_CARTER",
+    "REF_COSINOR",
     "REF_GROSSMAN",
     "REF_INAN",
     "REF_KARLEN",
@@ -153,6 +154,10 @@ REF_GROSSMAN = (
     "Grossman P, van Beek J, Wientjes C. A comparison of three quantification methods for "
     "estimation of respiratory sinus arrhythmia. Psychophysiology 27(6):702-714, 1990. "
     "doi:10.1111/j.1469-8986.1990.tb03198.x"
+)
+REF_COSINOR = (
+    "Nelson W, Tong YL, Lee JK, Halberg F. Methods for cosinor-rhythmometry. Chronobiologia "
+    "6(4):305-323, 1979"
 )
 REF_CARTER = (
     "Carter GC. Coherence and time delay estimation. Proceedings of the IEEE 75(2):236-255, "

@@ -53,7 +53,7 @@ if TYPE_CHECKING:
     from features.feature_vector import FeatureVector
     from features.windows import WindowedAnalysis
 
-FEATURE_SET_VERSION = "4"
+FEATURE_SET_VERSION = "5"
 """Changes whenever the definition of any emitted feature changes."""
 
 MOVEMENT_PAD_S = 0.5
@@ -238,7 +238,8 @@ def analyze(
                                         raw_signals=cond.raw_signals, pad_s=MOVEMENT_PAD_S,
                                         gap=cond.gap)
     beats = detect_beats(fusion.fused, fs_hz, usable=mask.usable,
-                         rate_range_bpm=options.rate_range_bpm)
+                         rate_range_bpm=options.rate_range_bpm,
+                         recoverable=mask.motion_only(fs_hz))
     series = intervals_from_beats(beats.times_s, run_ids=beats.run_ids)
     labels = classify_intervals(series.times_s, series.intervals_ms)
     occupied = occupancy(cond.occupancy_from_load, cond.supported_mass_kg, beats)

@@ -437,7 +437,8 @@ def simulate(settings: SimulationSettings) -> SimulatedRecording:
     lvet = np.where(np.array(kinds) == "ectopic", 0.8 * lvet, lvet)
     lvet = lvet * np.clip(1.0 + 0.03 * beat_rng.standard_normal(lvet.size), 0.9, 1.1)
     onsets = electrical + pep
-    preset = support_preset(s.support, body_mass_kg=mass)
+    preset = support_preset(s.support, body_mass_kg=mass, natural_hz=s.support_natural_hz,
+                            damping_ratio=s.support_damping_ratio)
 
     def recoil(onset_s: np.ndarray, sv: np.ndarray, et: np.ndarray, length: int) -> tuple[
         np.ndarray, np.ndarray

@@ -87,6 +87,10 @@ class SimulationSettings:
         +1 normal (J positive), -1 inverted dynamic part.
     support : str
         "rigid", "firm", "cushion" or "ringing" (see :func:`support_preset`).
+    support_natural_hz, support_damping_ratio : float or None
+        Natural frequency (1-60 Hz) and damping ratio (0.02-2) that replace the preset's,
+        for example 4 Hz for a soft mattress on a frame; None keeps the preset's value. Not
+        allowed with the rigid support.
     movement_count : int
         Random fidgeting bursts, 1-6 s each (0-50).
     movement_spans_s : tuple of (start_s, end_s)
@@ -147,6 +151,8 @@ class SimulationSettings:
     snr_db: float | None = 10.0
     polarity: int = 1
     support: str = "cushion"
+    support_natural_hz: float | None = None
+    support_damping_ratio: float | None = None
     movement_count: int = 0
     movement_spans_s: tuple[tuple[float, float], ...] = ()
     posture_change_count: int = 0
@@ -192,6 +198,16 @@ class SimulationSettings:
         if self.support not in SUPPORTS:
             raise SettingsError(
                 "support", f"`support` must be one of {', '.join(SUPPORTS)}; got {self.support!r}."
+            )
+        if self.support_natural_hz is not None:
+            _in_range("support_natural_hz", self.support_natural_hz, 1.0, 60.0, " Hz")
+        if self.support_damping_ratio is not None:
+            _in_range("support_damping_ratio", self.support_damping_ratio, 0.02, 2.0, "")
+        if self.support == "rigid" and (self.support_natural_hz is not None
+                                        or self.support_damping_ratio is not None):
+            raise SettingsError(
+                "support", "`support` must not be 'rigid' when support_natural_hz or "
+                "support_damping_ratio is set; got 'rigid'."
             )
         _in_range("movement_count", self.movement_count, 0, 50, "")
         _in_range("posture_change_count", self.posture_change_count, 0, 20, "")

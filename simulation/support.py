@@ -48,7 +48,8 @@ class SupportPreset:
     damping_n_s_per_m: float | None
 
 
-def support_preset(name: str, *, body_mass_kg: float) -> SupportPreset:
+def support_preset(name: str, *, body_mass_kg: float, natural_hz: float | None = None,
+                   damping_ratio: float | None = None) -> SupportPreset:
     """Mass-spring-damper constants of a named support for a given occupant.
 
     Parameters
@@ -59,6 +60,8 @@ def support_preset(name: str, *, body_mass_kg: float) -> SupportPreset:
         (f_n 6 Hz, zeta 0.07: a springy chair that rings after each beat).
     body_mass_kg : float
         Mass carried by the support, kg (> 0).
+    natural_hz, damping_ratio : float or None
+        Replace the preset's natural frequency and damping ratio (ignored for "rigid").
 
     Returns
     -------
@@ -87,7 +90,8 @@ def support_preset(name: str, *, body_mass_kg: float) -> SupportPreset:
         )
     if name == "rigid":
         return SupportPreset(name, None, None, None, None)
-    natural_hz, zeta = table[name]
+    natural_hz = table[name][0] if natural_hz is None else natural_hz
+    zeta = table[name][1] if damping_ratio is None else damping_ratio
     k = body_mass_kg * (2.0 * math.pi * natural_hz) ** 2
     c = 2.0 * zeta * math.sqrt(k * body_mass_kg)
     return SupportPreset(name, natural_hz, zeta, k, c)

@@ -32,7 +32,9 @@ simulator's truth:
   ``amplitude_index`` against ``2 x truth.sv_modulation`` (the peak-to-peak relative
   stroke-volume swing, which the J-K amplitude follows if it is proportional to stroke
   volume; an assumption, so only the rank correlation is an acceptance line: Spearman
-  >= 0.8 over each sweep). In irregular rhythm the simulator applies neither RSA nor
+  >= 0.8 over its sweep). RSA (issue 12): Spearman >= 0.95 over the sweep of 0, 5, 10, 20,
+  40, 80, 120 and 200 ms, and a mean error within 5 ms over its depths up to 20 ms. In
+  irregular rhythm the simulator applies neither RSA nor
   stroke-volume modulation, so the truth there is 0 whatever the setting.
 
 A feature the engine leaves None counts as not meeting its line. "Confidence falls when
@@ -79,11 +81,16 @@ __all__ = [
 ]
 
 CONFIDENT = 0.5
-RSA_SWEEP_MS = (0.0, 15.0, 30.0, 50.0, 75.0, 100.0, 150.0, 200.0)
+RSA_SWEEP_MS = (0.0, 5.0, 10.0, 20.0, 40.0, 80.0, 120.0, 200.0)
 SV_SWEEP = (0.0, 0.02, 0.05, 0.1, 0.15, 0.2, 0.3, 0.4)
-RSA_SWEEP_QUICK_MS = (0.0, 40.0, 100.0, 200.0)
+RSA_SWEEP_QUICK_MS = (0.0, 10.0, 40.0, 120.0)
 SV_SWEEP_QUICK = (0.0, 0.05, 0.15, 0.3)
-MIN_SPEARMAN = 0.8
+MIN_SPEARMAN = {"rsa_ms": 0.95, "amplitude_index": 0.8}
+"""Rank correlation each swept feature must reach over its sweep (issue 12 for RSA)."""
+RSA_SMALL_MS = 20.0
+"""RSA depths (ms) up to which the sweep's mean error must stay within ``RSA_MAX_BIAS_MS``."""
+RSA_MAX_BIAS_MS = 5.0
+"""Issue 12: RSA bias within 5 ms for true amplitudes 0-20 ms."""
 
 
 @dataclass(frozen=True)
@@ -204,6 +211,7 @@ class FeaturesReport:
     isolated_acceptance: tuple[dict[str, object], ...]
     spearman: tuple[dict[str, object], ...]
     confidence_vs_error: tuple[dict[str, object], ...]
+    rsa_small_bias: dict[str, object]
     empty_all_none: tuple[int, int]
     n_errors: int
 
@@ -346,11 +354,27 @@ def _rank_rows(cases: Sequence[FeatureCase]) -> list[dict[str, object]]:
             rows.append({
                 "feature": feature, "setting": setting, "scope": scope,
                 "n_cases": len(pairs), "n_with_value": len(valued), "spearman": rho,
-                "required": MIN_SPEARMAN if scope == group else None,
+                "required": MIN_SPEARMAN[feature] if scope == group else None,
                 "meets": None if scope != group else (
-                    rho is not None and rho >= MIN_SPEARMAN and len(valued) == len(pairs)),
+                    rho is not None and rho >= MIN_SPEARMAN[feature]
+                    and len(valued) == len(pairs)),
             })
     return rows
+
+
+def _rsa_bias(cases: Sequence[FeatureCase]) -> dict[str, object]:
+    """Mean and largest error of ``rsa_ms`` over the RSA sweep's depths up to 20 ms."""
+    small = [c for c in cases if c.group == "rsa_sweep" and c.rsa_depth_ms <= RSA_SMALL_MS]
+    errors = [c.get("rsa_ms").error for c in small]
+    valued = [e for e in errors if e is not None]
+    bias = float(np.mean(valued)) if valued else None
+    return {
+        "n_cases": len(small), "n_with_value": len(valued), "bias_ms": bias,
+        "max_abs_error_ms": max((abs(e) for e in valued), default=None),
+        "required_abs_bias_ms": RSA_MAX_BIAS_MS,
+        "meets": bias is not None and len(valued) == len(small)
+        and abs(bias) <= RSA_MAX_BIAS_MS,
+    }
 
 
 def _confidence_rows(cases: Sequence[FeatureCase]) -> list[dict[str, object]]:
@@ -389,6 +413,7 @@ def summarise(cases: Sequence[FeatureCase], *, seeds: Sequence[int] = (0,),
         isolated_acceptance=tuple(_acceptance(cases, isolated=True)),
         spearman=tuple(_rank_rows(cases)),
         confidence_vs_error=tuple(_confidence_rows(cases)),
+        rsa_small_bias=_rsa_bias(cases),
         empty_all_none=(all_none, len(empty)),
         n_errors=sum(c.error is not None for c in cases),
     )
@@ -477,6 +502,12 @@ def format_report(report: FeaturesReport) -> str:
             f"  {r['feature']:<16} vs {r['setting']:<14} over {r['scope']:<13} "
             f"n={r['n_with_value']}/{r['n_cases']}: rho = {_f(r['spearman'], '.3f')}{need}"
         )
+    b = report.rsa_small_bias
+    lines.append(
+        f"  rsa_ms bias over the sweep's depths <= {RSA_SMALL_MS:g} ms, n={b['n_with_value']}/"
+        f"{b['n_cases']}: {_f(b['bias_ms'], '+.1f')} ms (largest |error| "
+        f"{_f(b['max_abs_error_ms'], '.1f')} ms; required |bias| <= {RSA_MAX_BIAS_MS:g}: "
+        f"{'met' if b['meets'] else 'NOT met'})")
     lines += ["", "Confidence against |error| (occupied cases with a value):",
               f"  {'feature':<24} {'n':>3} {'rho(conf,|err|)':>15} {'low-conf':>9} "
               f"{'mid-conf':>9} {'high-conf':>9}  falls?"]

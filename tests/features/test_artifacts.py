@@ -250,3 +250,22 @@ def test_long_clipping_run_is_masked() -> None:
                           raw_signals=[raw[0], held, raw[2], raw[3]])
     clip = _spans(mask, "clipping")
     assert len(clip) == 1 and clip[0].start_s == pytest.approx(100.0, abs=1 / FS)
+
+
+def test_motion_only_marks_movement_and_posture_but_not_clipping() -> None:
+    # Hand-built mask of 10 s at 10 Hz: movement 1-3 s, posture change 5-6 s, clipping
+    # 2-2.5 s (inside the movement). Only motion may leave beats intact under it, so the
+    # clipped half-second stays out; the sample counts follow from the spans by hand.
+    from features.artifacts import ArtifactMask
+
+    usable = np.ones(100, dtype=bool)
+    usable[10:30] = False
+    usable[50:60] = False
+    mask = ArtifactMask(usable=usable, usable_fraction=float(usable.mean()),
+                        segments=(Segment("movement", 1.0, 3.0), Segment("clipping", 2.0, 2.5),
+                                  Segment("posture_change", 5.0, 6.0)),
+                        movement_threshold_ratio=2.0, confidence=1.0, flags=())
+    only = mask.motion_only(10.0)
+    assert only.sum() == 20 + 10 - 5
+    assert not only[20:25].any() and only[10:20].all() and only[25:30].all()
+    assert only[50:60].all() and not only[usable].any()

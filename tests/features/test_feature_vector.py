@@ -33,6 +33,8 @@ KNOWN_CATALOGUES = {
     # a heartbeat overrules a load that says "empty" (per-channel coupling, ac sensors), and
     # no breathing is reported without an occupant.
     "4": "93317820dc3c94b9566c62069a804c27ac8960e506d7ab1364244944f3f4aad8",
+    # 5: rsa_ms is the cosinor fit against the breathing phase with a slow trend removed.
+    "5": "9b6b7d42135a69921ff00afb095bae38a400804afcac4ffd1159e45b667f5c51",
 }
 
 # UCUM symbols for the unit suffixes (Unified Code for Units of Measure, ucum.org; from

@@ -109,6 +109,26 @@ def test_support_presets_meet_textbook_relations(name: str) -> None:
     assert c / (2 * math.sqrt(k * 80.0)) == pytest.approx(preset.damping_ratio)
 
 
+def test_support_settings_replace_the_preset_constants() -> None:
+    # A soft mattress on a frame: f_n 4 Hz, zeta 0.3 in place of the cushion's 9 Hz, 0.35;
+    # k = m (2 pi f_n)^2 and c = 2 zeta sqrt(k m) (Thomson & Dahleh, ch. 2).
+    p = support_preset("cushion", body_mass_kg=80.0, natural_hz=4.0, damping_ratio=0.3)
+    assert p.natural_hz == 4.0 and p.damping_ratio == 0.3
+    assert p.stiffness_n_per_m == pytest.approx(80.0 * (2 * math.pi * 4.0) ** 2, rel=1e-12)
+    assert p.damping_n_s_per_m == pytest.approx(
+        2 * 0.3 * math.sqrt(p.stiffness_n_per_m * 80.0), rel=1e-12)  # float rounding only
+    # The recording follows them: a lightly damped 4-Hz support rings at
+    # f_d = f_n sqrt(1 - zeta^2) (Thomson & Dahleh, ch. 2), so J to the K trough is about
+    # half its period, 1 / (2 f_d) = 126 ms. 15 %: the ejection pulse itself (about 0.3 s
+    # long) also shapes where K falls.
+    t = simulate(SimulationSettings(duration_s=20.0, seed=1, support_natural_hz=4.0,
+                                    support_damping_ratio=0.1)).truth.template
+    assert t is not None
+    waves = {w.name: w.time_s for w in t.waves}
+    half_ring = 1.0 / (2.0 * 4.0 * math.sqrt(1.0 - 0.1**2))
+    assert waves["K"] - waves["J"] == pytest.approx(half_ring, rel=0.15)
+
+
 def test_ringing_support_rings_longer_than_cushion() -> None:
     # Lower damping ratio -> slower decay of the free response (Thomson & Dahleh, ch. 2).
     fs = 2000.0
@@ -358,6 +378,9 @@ def test_deterministic_for_a_seed() -> None:
         ({"quantity": "acceleration", "n_channels": 4}, "quantity"),
         ({"inverted_channel": 4, "n_channels": 4}, "inverted_channel"),
         ({"movement_spans_s": ((10.0, 5.0),)}, "movement_spans_s"),
+        ({"support_natural_hz": 0.5}, "support_natural_hz"),
+        ({"support_damping_ratio": 0.0}, "support_damping_ratio"),
+        ({"support": "rigid", "support_natural_hz": 4.0}, "support"),
     ],
 )
 def test_invalid_settings(kw: dict[str, object], field: str) -> None:

@@ -21,7 +21,7 @@ from validation.cohort import (
 
 def test_full_cohort_composition() -> None:
     cases = build_cases()
-    assert 40 <= len(cases) <= 70
+    assert 40 <= len(cases) <= 80
     assert len({c.name for c in cases}) == len(cases)
     settings = [c.settings for c in cases]
     assert {s.fs_hz for s in settings} >= {100.0, 250.0, 500.0, 1000.0}
@@ -34,6 +34,12 @@ def test_full_cohort_composition() -> None:
     assert any(s.quantity == "acceleration" for s in settings)
     assert any(s.n_channels == 4 and s.inverted_channel is not None
                and s.noisy_channel is not None for s in settings)
+    # Issue 12: supports resonating at 3.5-5 Hz, damped and lightly damped (ringing).
+    soft = [s for s in settings if s.support_natural_hz is not None
+            and 3.5 <= s.support_natural_hz <= 5.0]
+    assert len(soft) >= 3
+    assert any((s.support_damping_ratio or 1.0) <= 0.1 for s in soft)
+    assert any((s.support_damping_ratio or 0.0) >= 0.25 for s in soft)
     assert build_cases(seed=3) == build_cases(seed=3)
     assert build_cases(seed=3) != build_cases(seed=4)
 
