@@ -96,7 +96,8 @@ def detect_format(name: str | None, head: bytes) -> str:
     )
 
 
-def _raw(source: Source, fmt: str | None, name: str | None) -> tuple[str, RawTrace]:
+def _raw(source: Source, fmt: str | None, name: str | None,
+         lazy: bool = False) -> tuple[str, RawTrace]:
     if isinstance(source, Mapping):
         files = dict(source)
         if fmt is None:
@@ -127,6 +128,10 @@ def _raw(source: Source, fmt: str | None, name: str | None) -> tuple[str, RawTra
             fmt = "wfdb"
     if fmt == "wfdb":
         return fmt, wfdb_records.read_wfdb_path(path)
+    if lazy:
+        fmt = fmt or _format_of_path(path)
+        if fmt in ("edf", "bdf"):
+            return fmt, edf.open_edf(path, bdf=fmt == "bdf")
     try:
         data = path.read_bytes()
     except OSError as error:
@@ -136,6 +141,18 @@ def _raw(source: Source, fmt: str | None, name: str | None) -> tuple[str, RawTra
         ) from None
     fmt = fmt or detect_format(path.name, data[:16])
     return fmt, _from_bytes(fmt, data)
+
+
+def _format_of_path(path: Path) -> str:
+    try:
+        with path.open("rb") as handle:
+            head = handle.read(16)
+    except OSError as error:
+        raise UnreadableFileError(
+            "file", f"`file` must be a readable file; got {path.name!r} "
+            f"({type(error).__name__})."
+        ) from None
+    return detect_format(path.name, head)
 
 
 def _from_bytes(fmt: str, data: bytes) -> RawTrace:
@@ -236,6 +253,7 @@ def read_trace(
     unit: str | None = None,
     default_quantity: str = "force",
     default_unit: str = "N",
+    lazy: bool = False,
 ) -> TraceFile:
     """Read one recording into engine channel inputs.
 
@@ -259,6 +277,10 @@ def read_trace(
         no units gets ``default_quantity`` and ``default_unit``.
     default_quantity, default_unit
         For formats without units (npy, npz, csv, Parquet without metadata).
+    lazy
+        For an EDF or BDF file given by its path: read the header only, and give each
+        channel an :class:`fileformats.edf.EdfRow` whose slices read the file (the same
+        values as reading it whole). Other formats and sources are read whole.
 
     Returns
     -------
@@ -280,7 +302,7 @@ def read_trace(
        ``m/s^2``), else the default; the quantity follows from the unit unless
        ``quantity`` is given. The engine checks the pair once more.
     """
-    fmt, raw = _raw(source, format, name)
+    fmt, raw = _raw(source, format, name, lazy)
     picked = _select(raw, channels)
     rate = _rate(raw, picked, fs_hz)
     lengths = {raw.samples[k].size for k in picked}
