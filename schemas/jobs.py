@@ -16,7 +16,6 @@ from marshmallow.validate import OneOf, Range
 
 from features.limits import MAX_WINDOW_S, MIN_WINDOW_S
 from schemas.catalogue import FeatureValueSchema
-from schemas.problems import ProblemSchema
 from schemas.responses import (
     NOTICE,
     Number,
@@ -96,8 +95,10 @@ class JobSchema(Schema):
     attempts = fields.Integer(required=True)
     window_s = Number(required=True)
     window_overlap_s = Number(required=True)
-    problem = fields.Nested(ProblemSchema, required=True, allow_none=True, metadata={
-        "description": "Why the job failed (RFC 9457 problem); null otherwise."})
+    problem = fields.Dict(required=True, allow_none=True, metadata={
+        "description": "Why the job failed: an RFC 9457 problem as the API answers it (with "
+                       "`errors` or `reason` as its type has); null otherwise.",
+        "allOf": [{"$ref": "#/components/schemas/Problem"}]})
     notice = fields.Constant(NOTICE, required=True, dump_only=True)
 
 
