@@ -95,10 +95,10 @@ class JobSchema(Schema):
     attempts = fields.Integer(required=True)
     window_s = Number(required=True)
     window_overlap_s = Number(required=True)
-    problem = fields.Dict(required=True, allow_none=True, metadata={
+    problem = fields.Raw(required=True, allow_none=True, metadata={
         "description": "Why the job failed: an RFC 9457 problem as the API answers it (with "
                        "`errors` or `reason` as its type has); null otherwise.",
-        "allOf": [{"$ref": "#/components/schemas/Problem"}]})
+        "anyOf": [{"$ref": "#/components/schemas/Problem"}, {"type": "null"}]})
     notice = fields.Constant(NOTICE, required=True, dump_only=True)
 
 

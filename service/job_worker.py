@@ -55,7 +55,7 @@ from service.uploads import night_call
 #: Samples a night job may hold, all channels together: 24 h of 8 channels at 2000 Hz
 #: (the engine's channel and rate limits); the upload's byte limit usually binds first.
 JOB_MAX_SAMPLES = 24 * 3600 * 2000 * 8
-#: Callback attempts and the first back-off (s, doubled after each failure).
+#: Callback attempts and the first back-off (s, doubled after each failure by Huey).
 CALLBACK_ATTEMPTS = 5
 CALLBACK_FIRST_DELAY_S = 2.0
 SIGNATURE_HEADER = "Heartsway-Signature"
@@ -64,6 +64,10 @@ _PURGE_EVERY_S = 3600.0
 
 class JobGone(Exception):
     """The job was deleted or taken back while this worker ran it: stop without a trace."""
+
+
+class CallbackFailed(Exception):
+    """The callback's receiver did not answer 2xx: Huey tries again later."""
 
 
 class RetryJob(Exception):
@@ -104,7 +108,9 @@ class JobQueue:
                             utc=True)
         self.run_task = self.huey.task(retries=MAX_ATTEMPTS - 1, retry_delay=1,
                                        name="run_night_job")(self._run)
-        self.callback_task = self.huey.task(name="send_job_callback")(self._callback)
+        self.callback_task = self.huey.task(
+            retries=CALLBACK_ATTEMPTS - 1, retry_delay=CALLBACK_FIRST_DELAY_S, retry_backoff=2,
+            name="send_job_callback")(self._callback)
         self.current: tuple[str, str] | None = None
 
     # -- producer side ---------------------------------------------------------------
@@ -164,19 +170,15 @@ class JobQueue:
         if self.store.requeue(record.id, token):
             raise RetryJob(type(error).__name__) from None
 
-    def _callback(self, job_id: str, attempt: int = 1) -> None:
+    def _callback(self, job_id: str) -> None:
         record = self.store.get(job_id)
         if record is None or not record.callback_url:
             return
         body = json.dumps(job_document(record), allow_nan=False).encode("utf-8")
-        secret = callback_secret()
-        if post_callback(record.callback_url, body, secret):
-            self._log("callback_delivered", job_id, attempt, None)
-            return
-        self._log("callback_failed", job_id, attempt, None)
-        if attempt < CALLBACK_ATTEMPTS:
-            delay = CALLBACK_FIRST_DELAY_S * 2 ** (attempt - 1)
-            self.callback_task.schedule((job_id, attempt + 1), delay=delay)
+        if not post_callback(record.callback_url, body, callback_secret()):
+            self._log("callback_failed", job_id, record.attempts, None)
+            raise CallbackFailed()  # Huey retries: 2, 4, 8, 16 s later
+        self._log("callback_delivered", job_id, record.attempts, None)
 
     def _announce(self, job_id: str) -> None:
         record = self.store.get(job_id)

@@ -164,7 +164,16 @@ def create_job() -> Response:
     except BaseException:
         store.delete_files(job_id)
         raise
+    finally:
+        _close_uploads()
     return _job_answer(record, 202)
+
+
+def _close_uploads() -> None:
+    """Close the spooled parts now (their names go with them), whatever happened."""
+    if request.mimetype == MULTIPART_MEDIA_TYPE:
+        for upload in request.files.getlist("file"):
+            upload.close()
 
 
 @blueprint.get("/jobs/<job_id>")
@@ -180,7 +189,7 @@ def get_job_result(job_id: str) -> Response:
     if record.status != "succeeded":
         return problem(409, f"The job's result exists once it has succeeded; its status is "
                             f"{record.status}.", type_=JOB_NOT_FINISHED_TYPE,
-                       title="The job has not succeeded", status_of_job=record.status)
+                       title="The job has not succeeded")
     try:
         text = _store().result_path(job_id).read_text(encoding="utf-8")
     except OSError:
