@@ -9,6 +9,7 @@ import signal
 import socket
 import subprocess
 import sys
+import tempfile
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -104,17 +105,19 @@ def _pg_bin() -> Path | None:
 
 
 @contextmanager
-def postgres_server(tmp: Path) -> Iterator[str]:
+def postgres_server() -> Iterator[str]:
     """Start a throw-away PostgreSQL cluster on a free port; yield its URL.
 
     Run as root, the cluster belongs to the ``postgres`` user (PostgreSQL refuses to run as
-    root). Fails (never skips) when no server can be started: `.ci/install-test-tools`
-    installs it.
+    root), in a folder of its own under the system's temporary directory (pytest's are
+    closed to other users). Fails (never skips) when no server can be started:
+    `.ci/install-test-tools` installs it.
     """
     folder = _pg_bin()
     if folder is None:
         pytest.fail("the PostgreSQL tests need initdb and pg_ctl (Debian's postgresql package; "
                     "`make test` installs it when run as root)")
+    tmp = Path(tempfile.mkdtemp(prefix="heartsway-pg-"))
     data = tmp / "pgdata"
     data.mkdir(mode=0o700)
     port = free_port()
@@ -123,14 +126,20 @@ def postgres_server(tmp: Path) -> Iterator[str]:
         shutil.chown(tmp, "postgres")
         shutil.chown(data, "postgres")
         as_user = ["runuser", "-u", "postgres", "--"]
-    subprocess.run([*as_user, str(folder / "initdb"), "-D", str(data), "-U", "postgres",
-                    "--auth=trust", "-E", "UTF8"], check=True, capture_output=True)
-    subprocess.run([*as_user, str(folder / "pg_ctl"), "-D", str(data), "-w", "-l",
-                    str(data / "server.log"), "-o",
-                    f"-p {port} -k {data} -c listen_addresses=127.0.0.1 -c fsync=off",
-                    "start"], check=True, capture_output=True)
+    for step in (
+        [str(folder / "initdb"), "-D", str(data), "-U", "postgres", "--auth=trust", "-E",
+         "UTF8"],
+        [str(folder / "pg_ctl"), "-D", str(data), "-w", "-l", str(tmp / "server.log"), "-o",
+         f"-p {port} -k {tmp} -c listen_addresses=127.0.0.1 -c fsync=off", "start"],
+    ):
+        done = subprocess.run([*as_user, *step], capture_output=True, text=True)
+        if done.returncode != 0:
+            shutil.rmtree(tmp, ignore_errors=True)
+            pytest.fail(f"PostgreSQL could not be started ({Path(step[0]).name}): "
+                        f"{(done.stderr or done.stdout)[-400:]}")
     try:
         yield f"postgresql://postgres@127.0.0.1:{port}/postgres"
     finally:
         subprocess.run([*as_user, str(folder / "pg_ctl"), "-D", str(data), "-m", "immediate",
                         "stop"], capture_output=True)
+        shutil.rmtree(tmp, ignore_errors=True)
