@@ -32,7 +32,8 @@ ALLOWED: dict[str, frozenset[str]] = {
     "schemas": frozenset({"features", "fileformats"}),
     "service": frozenset({"features", "schemas", "fileformats", "simulation"}),
     "validation": frozenset({"features", "simulation"}),
-    "benchmarks": frozenset({"features", "fileformats", "schemas", "service", "simulation"}),
+    "benchmarks": frozenset({"client", "features", "fileformats", "schemas", "service",
+                             "simulation"}),
 }
 
 #: The modules of ``service`` that another package may import: the application factory, the
