@@ -24,6 +24,8 @@ MAX_RETRY_AFTER_S = 30.0
 VALIDATION_ERROR = "tag:heartsway.dev,2026:problem/validation-error"
 UNUSABLE_SIGNAL = "tag:heartsway.dev,2026:problem/unusable-signal"
 COMPUTE_TIME_EXCEEDED = "tag:heartsway.dev,2026:problem/compute-time-exceeded"
+JOB_NOT_FINISHED = "tag:heartsway.dev,2026:problem/job-not-finished"
+STORAGE_FULL = "tag:heartsway.dev,2026:problem/storage-full"
 
 
 @dataclass(frozen=True)

@@ -68,7 +68,8 @@ class JobSettingsSchema(Schema):
             return
         parts = urlsplit(value)
         if parts.scheme not in ("http", "https") or not parts.hostname:
-            raise ValidationError(f"`callback_url` must be an http or https URL; got {value[:80]!r}.")
+            raise ValidationError(
+                f"`callback_url` must be an http or https URL; got {value[:80]!r}.")
         if not self.callback_hosts:
             raise ValidationError("`callback_url` must be left out: this service sends no "
                                   "callbacks (HEARTSWAY_CALLBACK_HOSTS is empty).")

@@ -149,8 +149,9 @@ def night_call(path: Path, form: Mapping[str, Any], *, max_samples: int,
         try:
             data = path.read_bytes()
         except OSError as error:
-            raise UnreadableFileError("file", "`file` must be a readable stored input; got "
-                                              f"one that is not ({type(error).__name__}).") from None
+            raise UnreadableFileError(
+                "file", "`file` must be a readable stored input; got one that is not "
+                f"({type(error).__name__}).") from None
         return engine_inputs(schema.load(parse_json(data)))
     fields = {k: v for k, v in form.items() if v is not None}
     settings = FileUploadFormSchema().load(fields)

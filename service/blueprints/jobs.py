@@ -21,11 +21,11 @@ from werkzeug.exceptions import NotFound, RequestEntityTooLarge, UnsupportedMedi
 
 from schemas.errors import SchemaValidationError
 from schemas.fhir import FHIR_JSON, fhir_bundle
-from schemas.identifiers import PROBLEM_TYPE_PREFIX
 from schemas.jobs import JOB_FIELDS, JobSettingsSchema
 from service.analysis import night_windows
 from service.bodies import JSON_MEDIA_TYPE, MULTIPART_MEDIA_TYPE, read_json
 from service.fhir_output import wants_fhir
+from service.job_errors import JobNotFinishedError, StorageFullError
 from service.job_store import (
     JobSettings,
     JobStore,
@@ -36,13 +36,10 @@ from service.job_store import (
     write_private,
 )
 from service.job_worker import JOB_MAX_SAMPLES, queue_for
-from service.problems import problem
 from service.uploads import JSON_INPUT_NAME, night_call
 
 blueprint = Blueprint("jobs", __name__)
 
-JOB_NOT_FINISHED_TYPE = PROBLEM_TYPE_PREFIX + "job-not-finished"
-STORAGE_FULL_TYPE = PROBLEM_TYPE_PREFIX + "storage-full"
 IDEMPOTENCY_HEADER = "Idempotency-Key"
 _MAX_IDEMPOTENCY_KEY = 255
 #: Form fields of a trace file that the job keeps for its worker.
@@ -157,9 +154,7 @@ def create_job() -> Response:
     except OSError as error:
         store.delete_files(job_id)
         if error.errno in (errno.ENOSPC, errno.EDQUOT):
-            return problem(507, "The service has no room to store this upload now; try "
-                                "again later or send a smaller file.",
-                           type_=STORAGE_FULL_TYPE, title="Insufficient storage")
+            raise StorageFullError() from None
         raise
     except BaseException:
         store.delete_files(job_id)
@@ -187,9 +182,7 @@ def get_job_result(job_id: str) -> Response:
     """The night document (or its summary as a FHIR R4 Bundle) once the job succeeded."""
     record = _record_or_404(job_id)
     if record.status != "succeeded":
-        return problem(409, f"The job's result exists once it has succeeded; its status is "
-                            f"{record.status}.", type_=JOB_NOT_FINISHED_TYPE,
-                       title="The job has not succeeded")
+        raise JobNotFinishedError(record.status)
     try:
         text = _store().result_path(job_id).read_text(encoding="utf-8")
     except OSError:

@@ -18,10 +18,10 @@ from http.server import BaseHTTPRequestHandler, HTTPServer
 
 import numpy as np
 import pytest
-from werkzeug.datastructures import FileStorage
-from werkzeug.test import encode_multipart
 from jobs_support import drain, wait_until, write_short_night
 from service_contract import check_against_contract
+from werkzeug.datastructures import FileStorage
+from werkzeug.test import encode_multipart
 
 from fileformats import read_trace
 from service import create_app
