@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import io
 import os
+from typing import Any
 
 import numpy as np
 
@@ -51,24 +52,31 @@ def open_edf(path: str | os.PathLike[str], *, bdf: bool = False) -> RawTrace:
     UnreadableFileError
         As :func:`read_edf`.
     """
+    edf: Any = _open(os.fspath(path), bdf=bdf, lazy=True)
+    signals = list(edf.signals)
+    rows = tuple(EdfRow(s, int(round(s.sampling_frequency * edf.duration))) for s in signals)
+    return _raw_trace(edf, signals, rows)
+
+
+def _open(source: object, *, bdf: bool, lazy: bool) -> object:
+    """edfio's file object (samples loaded or not); an UnreadableFileError if it refuses."""
     edfio = optional_module("edfio", "BDF" if bdf else "EDF")
     reader = edfio.read_bdf if bdf else edfio.read_edf
     try:
-        edf = reader(os.fspath(path), lazy_load_data=True)
-        continuous = edf.is_continuous if hasattr(edf, "is_continuous") else True
-        signals = list(edf.signals)
-        rows = tuple(EdfRow(s, int(round(s.sampling_frequency * edf.duration)))
-                     for s in signals)
+        edf = reader(source, lazy_load_data=lazy)
+        # Reading the header of each signal now, so that a broken one fails here.
+        _ = [(s.label, s.sampling_frequency) for s in edf.signals]
+        return edf
     except Exception as error:  # noqa: BLE001 - edfio raises plain ValueErrors and others
         kind = "BDF" if bdf else "EDF"
         raise UnreadableFileError(
             "file", f"`file` must be a readable {kind} file; got one that edfio refuses "
             f"({type(error).__name__})."
         ) from None
-    return _raw_trace(edf, signals, rows, continuous)
 
 
-def _raw_trace(edf: object, signals: list, samples: tuple, continuous: bool) -> RawTrace:  # type: ignore[type-arg]
+def _raw_trace(edf: Any, signals: list[Any], samples: tuple[Any, ...]) -> RawTrace:
+    continuous = edf.is_continuous if hasattr(edf, "is_continuous") else True
     if not continuous:
         raise UnreadableFileError(
             "file", "`file` must be a continuous EDF+ record (EDF+C); got a discontinuous "
@@ -76,7 +84,7 @@ def _raw_trace(edf: object, signals: list, samples: tuple, continuous: bool) -> 
         )
     if not signals:
         raise UnreadableFileError("file", "`file` must hold at least one signal; got none.")
-    flags = ("edf_annotations_ignored",) if edf.annotations else ()  # type: ignore[attr-defined]
+    flags = ("edf_annotations_ignored",) if edf.annotations else ()
     return RawTrace(
         labels=unique_labels([s.label for s in signals]),
         samples=samples,
@@ -108,17 +116,7 @@ def read_edf(data: bytes, *, bdf: bool = False) -> RawTrace:
         When edfio cannot parse the file, or it is a discontinuous EDF+D record
         (gaps between data records would silently shift the beats).
     """
-    edfio = optional_module("edfio", "BDF" if bdf else "EDF")
-    reader = edfio.read_bdf if bdf else edfio.read_edf
-    try:
-        edf = reader(io.BytesIO(data), lazy_load_data=False)
-        continuous = edf.is_continuous if hasattr(edf, "is_continuous") else True
-    except Exception as error:  # noqa: BLE001 - edfio raises plain ValueErrors and others
-        kind = "BDF" if bdf else "EDF"
-        raise UnreadableFileError(
-            "file", f"`file` must be a readable {kind} file; got one that edfio refuses "
-            f"({type(error).__name__})."
-        ) from None
+    edf: Any = _open(io.BytesIO(data), bdf=bdf, lazy=False)
     signals = list(edf.signals)
     return _raw_trace(edf, signals,
-                      tuple(np.asarray(s.data, dtype=np.float64) for s in signals), continuous)
+                      tuple(np.asarray(s.data, dtype=np.float64) for s in signals))

@@ -129,7 +129,7 @@ def _raw(source: Source, fmt: str | None, name: str | None,
     if fmt == "wfdb":
         return fmt, wfdb_records.read_wfdb_path(path)
     if lazy:
-        fmt = fmt or _format_of_path(path)
+        fmt = fmt or detect_file_format(path)
         if fmt in ("edf", "bdf"):
             return fmt, edf.open_edf(path, bdf=fmt == "bdf")
     try:
@@ -143,7 +143,14 @@ def _raw(source: Source, fmt: str | None, name: str | None,
     return fmt, _from_bytes(fmt, data)
 
 
-def _format_of_path(path: Path) -> str:
+def detect_file_format(path: Path) -> str:
+    """The format of the file at ``path`` from its first bytes, else its name's suffix.
+
+    Raises
+    ------
+    UnreadableFileError
+        When the file cannot be opened or its format is not recognised.
+    """
     try:
         with path.open("rb") as handle:
             head = handle.read(16)

@@ -16,7 +16,7 @@ from typing import Any
 from werkzeug.datastructures import FileStorage
 
 from features.engine import Options
-from fileformats import UnreadableFileError, detect_format, read_trace
+from fileformats import UnreadableFileError, detect_file_format, detect_format, read_trace
 from schemas.csv_input import csv_request_body
 from schemas.engine_inputs import EngineCall, engine_inputs
 from schemas.file_input import (
@@ -155,7 +155,7 @@ def night_call(path: Path, form: Mapping[str, Any], *, max_samples: int,
         return engine_inputs(schema.load(parse_json(data)))
     fields = {k: v for k, v in form.items() if v is not None}
     settings = FileUploadFormSchema().load(fields)
-    fmt = settings.get("format") or _format_of_file(path)
+    fmt = settings.get("format") or detect_file_format(path)
     if fmt not in ("edf", "bdf"):
         return engine_inputs(schema.load(path_request_body(path, fields)))
     trace = read_trace(path, format=fmt, channels=settings["channels"] or None,
@@ -167,12 +167,3 @@ def night_call(path: Path, form: Mapping[str, Any], *, max_samples: int,
     return EngineCall(channels=trace.channels, fs_hz=trace.fs_hz, subject=None, recording=None,
                       options=Options())
 
-
-def _format_of_file(path: Path) -> str:
-    try:
-        with path.open("rb") as handle:
-            head = handle.read(16)
-    except OSError as error:
-        raise UnreadableFileError("file", "`file` must be a readable stored input; got one "
-                                          f"that is not ({type(error).__name__}).") from None
-    return detect_format(path.name, head)
