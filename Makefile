@@ -11,7 +11,7 @@ PORT ?= 8000
 # queue under HEARTSWAY_DATA_DIR, default .heartsway-data), answer the demo request, keep serving.
 run:
 	$(PYTHON) -m venv $(VENV)
-	$(BIN)/python -m pip install --quiet --disable-pip-version-check -e .
+	$(BIN)/python -m pip install --quiet --disable-pip-version-check -e '.[formats]'
 	@$(BIN)/heartsway serve --host $(HOST) --port $(PORT) & server=$$!; \
 	trap 'kill $$server 2>/dev/null; wait $$server' INT TERM; \
 	$(BIN)/heartsway demo --url http://$(HOST):$(PORT) --wait 60 || { kill $$server; exit 1; }; \
