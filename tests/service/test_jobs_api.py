@@ -309,3 +309,39 @@ def test_no_labels_samples_or_device_ids_in_job_logs(client, settings, log_lines
     distinctive = sorted({f"{v}" for v in samples if len(f"{v}") >= 6})[:200]
     for secret in (device, label, *distinctive):
         assert secret not in text
+
+
+def test_reaper_takes_back_expired_leases_and_bounds_attempts(client, settings, night):
+    """The lease of service/job_store.py: what Huey's missing acknowledgement needs."""
+    path, _ = night
+    store, queue = store_for(settings), queue_for(settings)
+    job_id = _post_file(client, path).get_json()["id"]
+    assert queue.huey.dequeue() is not None  # a worker took the message ...
+    assert store.claim(job_id, "dead-worker") is not None  # ... claimed the job, then died
+    assert queue.reap_expired() == 0  # the lease still runs
+    store.Job.update(lease_expires_at=0.0).where(store.Job.id == job_id).execute()
+    assert queue.reap_expired() == 1
+    assert store.get(job_id).status == "queued" and queue.huey.pending_count() == 1
+    assert not store.finish(job_id, "dead-worker", "succeeded")  # its token is void now
+    for attempt in range(2, MAX_ATTEMPTS + 1):  # every further attempt dies too
+        queue.huey.dequeue()
+        assert store.claim(job_id, f"dead-{attempt}").attempts == attempt
+        store.Job.update(lease_expires_at=0.0).where(store.Job.id == job_id).execute()
+        queue.reap_expired()
+    record = store.get(job_id)
+    assert record.status == "failed" and record.attempts == MAX_ATTEMPTS
+    assert json.loads(record.problem)["status"] == 500
+    assert queue.huey.pending_count() == 0 and not store.job_dir(job_id).exists()
+
+
+def test_jobs_past_retention_are_purged_with_their_files(client, settings, night):
+    path, _ = night
+    store = store_for(settings)
+    old = _post_file(client, path).get_json()["id"]
+    new = _post_file(client, path).get_json()["id"]
+    hours = settings.retention_h
+    store.Job.update(created_at=store.get(old).created_at - hours * 3600.0 - 1.0).where(
+        store.Job.id == old).execute()
+    assert store.purge() == 1
+    assert client.get(f"/v1/jobs/{old}").status_code == 404
+    assert not store.job_dir(old).exists() and store.job_dir(new).exists()

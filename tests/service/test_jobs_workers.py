@@ -185,3 +185,24 @@ def test_twenty_nights_two_workers_all_succeed_once(quick_night, tmp_path):
     assert len(_results(data)) == 20
     log = (tmp_path / "serve.log").read_text()
     assert log.count('"event": "job_succeeded"') == 20
+
+
+def test_delete_of_a_running_job_stops_its_worker(slow_night, tmp_path):
+    data = tmp_path / "data"
+    store = store_for(_settings(None, data))
+    env = _env(None, data)
+    port = free_port()
+    server = _serve(env, port, tmp_path / "serve.log")
+    try:
+        api = HeartswayClient(f"http://127.0.0.1:{port}")
+        job = api.submit(slow_night)
+        wait_until(lambda: (r := store.get(job.id)) is not None and r.windows_done >= 1, 60,
+                   "the job running", poll_s=0.02)
+        job.delete()
+        follow = api.submit(slow_night)  # the worker is free again for the next job
+        follow.wait(timeout_s=RERUN_LIMIT_S, poll_s=0.2)
+    finally:
+        stop(server)
+    assert follow.status == "succeeded"
+    assert store.get(job.id) is None and not (data / "jobs" / job.id).exists()
+    assert _results(data) == [data / "jobs" / follow.id / "result.json"]
