@@ -50,6 +50,7 @@ def _serve(args: argparse.Namespace) -> int:
         return 2
     if args.job_workers == 0:
         os.execve(sys.executable, command, env)
+        return 0  # not reached
     from service.job_store import JobSettings
 
     JobSettings.from_env(env).data_dir.mkdir(parents=True, exist_ok=True, mode=0o700)

@@ -234,9 +234,8 @@ def _jobs(document: dict[str, Any], errors: dict[str, Any], headers: dict[str, A
         },
     }}
     paths["/v1/jobs/{job_id}"] = {
-        "parameters": [job_id],
         "get": {
-            "operationId": "getJob",
+            "operationId": "getJob", "parameters": [job_id],
             "summary": "The job: status, progress, attempts, times, and why it failed.",
             "tags": ["jobs"], "security": security,
             "responses": {"200": {"description": "The job document.", "content": job_json,
@@ -244,7 +243,7 @@ def _jobs(document: dict[str, Any], errors: dict[str, Any], headers: dict[str, A
                           "404": not_found, **common},
         },
         "delete": {
-            "operationId": "deleteJob",
+            "operationId": "deleteJob", "parameters": [job_id],
             "summary": "Cancel the job and delete its upload and result.",
             "tags": ["jobs"], "security": security,
             "responses": {"204": {"description": "Cancelled and deleted.", "headers": headers},
@@ -252,9 +251,8 @@ def _jobs(document: dict[str, Any], errors: dict[str, Any], headers: dict[str, A
         },
     }
     paths["/v1/jobs/{job_id}/result"] = {
-        "parameters": [job_id],
         "get": {
-            "operationId": "getJobResult",
+            "operationId": "getJobResult", "parameters": [job_id],
             "summary": "The night document once the job succeeded.",
             "description": "With `Accept: application/fhir+json`, the night summary as a "
                            "FHIR R4 Bundle of Observations.",
