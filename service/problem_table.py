@@ -131,6 +131,6 @@ def describe(error: BaseException) -> Problem:
         return Problem(row, "The job's result exists once it has succeeded; its status is "
                             f"{error.status}.")
     if isinstance(error, StorageFullError):
-        return Problem(row, "The service has no room to store this upload now; try again "
-                            "later or send a smaller file.")
+        return Problem(row, "The service cannot store this upload now (its job store is full "
+                            "or not writable); try again later or send a smaller file.")
     return Problem(row, f"An unexpected {type(error).__name__} stopped the analysis.")

@@ -10,13 +10,13 @@ window length) and queues it; ``GET /v1/jobs/{id}`` is the job document,
 
 from __future__ import annotations
 
-import errno
 import json
 import os
 from pathlib import Path
 from typing import Any
 
 from flask import Blueprint, Response, current_app, jsonify, request
+from peewee import IntegrityError
 from werkzeug.exceptions import NotFound, RequestEntityTooLarge, UnsupportedMediaType
 
 from schemas.errors import SchemaValidationError
@@ -52,7 +52,11 @@ def job_settings() -> JobSettings:
 
 
 def _store() -> JobStore:
-    return store_for(job_settings())
+    try:
+        return store_for(job_settings())
+    except OSError:
+        # HEARTSWAY_DATA_DIR cannot be made or written (full, read-only): a problem, not 500.
+        raise StorageFullError() from None
 
 
 def _owner() -> str:
@@ -144,18 +148,25 @@ def create_job() -> Response:
         night_windows(call, window_s=settings["window_s"],
                       overlap_s=settings["window_overlap_s"])
         queue = queue_for(job_settings())
-        with store.database.atomic():
-            record = store.create(owner=owner, idempotency_key=key, job_id=job_id,
-                                  window_s=settings["window_s"],
-                                  window_overlap_s=settings["window_overlap_s"],
-                                  input_name=name, form=form,
-                                  callback_url=settings["callback_url"])
-            queue.enqueue(job_id)  # in the same transaction: queued record <=> message
-    except OSError as error:
+        try:
+            with store.database.atomic():
+                record = store.create(owner=owner, idempotency_key=key, job_id=job_id,
+                                      window_s=settings["window_s"],
+                                      window_overlap_s=settings["window_overlap_s"],
+                                      input_name=name, form=form,
+                                      callback_url=settings["callback_url"])
+                queue.enqueue(job_id)  # in the same transaction: queued record <=> message
+        except IntegrityError:
+            earlier = store.by_idempotency_key(owner, key) if key is not None else None
+            if earlier is None:
+                raise
+            store.delete_files(job_id)  # the same key raced in: answer the first job
+            return _job_answer(earlier, 202)
+    except OSError:
+        # Writing the upload or the record failed (ENOSPC, EDQUOT, EROFS, EACCES ...): the
+        # store cannot take it now. The input's own errors are UnreadableFileError (422).
         store.delete_files(job_id)
-        if error.errno in (errno.ENOSPC, errno.EDQUOT):
-            raise StorageFullError() from None
-        raise
+        raise StorageFullError() from None
     except BaseException:
         store.delete_files(job_id)
         raise

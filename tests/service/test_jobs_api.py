@@ -345,3 +345,12 @@ def test_jobs_past_retention_are_purged_with_their_files(client, settings, night
     assert store.purge() == 1
     assert client.get(f"/v1/jobs/{old}").status_code == 404
     assert not store.job_dir(old).exists() and store.job_dir(new).exists()
+
+
+def test_job_store_that_cannot_be_written_is_a_problem(tmp_path, night):
+    blocked = tmp_path / "not-a-folder"
+    blocked.write_text("a file where the data folder should be")
+    app = create_app({"TESTING": True, "HEARTSWAY_JOBS": JobSettings(data_dir=blocked / "d")})
+    answer = _post_file(app.test_client(), night[0])
+    assert answer.status_code == 507  # never a 500 (issue 11)
+    assert answer.get_json()["type"].endswith("problem/storage-full")
