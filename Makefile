@@ -7,12 +7,12 @@ PORT ?= 8000
 
 .PHONY: run test
 
-# Install into .venv, start the service on loopback, answer the demo request, keep serving.
+# Install into .venv, start the service on loopback with its night-job workers (the embedded
+# queue under HEARTSWAY_DATA_DIR, default .heartsway-data), answer the demo request, keep serving.
 run:
 	$(PYTHON) -m venv $(VENV)
-	$(BIN)/python -m pip install --quiet --disable-pip-version-check -e .
-	@HEARTSWAY_BIND=$(HOST):$(PORT) $(BIN)/gunicorn --config python:service.gunicorn_conf \
-	    --no-control-socket "service:create_app()" & server=$$!; \
+	$(BIN)/python -m pip install --quiet --disable-pip-version-check -e '.[formats]'
+	@$(BIN)/heartsway serve --host $(HOST) --port $(PORT) & server=$$!; \
 	trap 'kill $$server 2>/dev/null; wait $$server' INT TERM; \
 	$(BIN)/heartsway demo --url http://$(HOST):$(PORT) --wait 60 || { kill $$server; exit 1; }; \
 	echo "heartsway is serving on http://$(HOST):$(PORT) (Ctrl-C to stop)."; \

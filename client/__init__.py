@@ -6,6 +6,9 @@ HeartswayClient(base_url, *, api_key, timeout_s, retries, backoff_s)
     .health() -> dict; .features() -> dict
     .analyze(body) -> Analysis; .analyze_file(path, ...) -> Analysis
     .fhir_bundle(body) -> dict; .report(body, *, image_format) -> bytes
+    .submit(path_or_body, *, window_s, ...) -> Job; .job(id) -> Job
+Job
+    A night job: .wait() (a progress bar on a terminal), .result(), .delete().
 Analysis, Feature
     The answer, typed: the headline numbers and the feature vector (plus the document).
 ApiError, ServiceUnavailable
@@ -30,6 +33,7 @@ from client.api import (
     ApiError,
     Feature,
     HeartswayClient,
+    Job,
     ServiceUnavailable,
 )
 
@@ -41,5 +45,6 @@ __all__ = [
     "ApiError",
     "Feature",
     "HeartswayClient",
+    "Job",
     "ServiceUnavailable",
 ]

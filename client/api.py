@@ -4,11 +4,12 @@ from __future__ import annotations
 
 import json
 import os
+import sys
 import time
 import urllib.error
 import urllib.request
 import uuid
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from email.utils import parsedate_to_datetime
 from pathlib import Path
@@ -23,6 +24,8 @@ MAX_RETRY_AFTER_S = 30.0
 VALIDATION_ERROR = "tag:heartsway.dev,2026:problem/validation-error"
 UNUSABLE_SIGNAL = "tag:heartsway.dev,2026:problem/unusable-signal"
 COMPUTE_TIME_EXCEEDED = "tag:heartsway.dev,2026:problem/compute-time-exceeded"
+JOB_NOT_FINISHED = "tag:heartsway.dev,2026:problem/job-not-finished"
+STORAGE_FULL = "tag:heartsway.dev,2026:problem/storage-full"
 
 
 @dataclass(frozen=True)
@@ -181,16 +184,18 @@ class HeartswayClient:
         self.retries = retries
         self.backoff_s = backoff_s
 
-    def _request(self, method: str, path: str, *, body: bytes | None = None,
-                 content_type: str | None = None, accept: str = "application/json") -> bytes:
-        headers = {"Accept": accept}
+    def _request(self, method: str, path: str, *, body: Any = None,
+                 content_type: str | None = None, accept: str = "application/json",
+                 extra_headers: Mapping[str, str] | None = None) -> bytes:
+        headers = {"Accept": accept, **(extra_headers or {})}
         if content_type:
             headers["Content-Type"] = content_type
         if self.api_key:
             headers["Authorization"] = f"Bearer {self.api_key}"
         wait = self.backoff_s
         for attempt in range(self.retries + 1):
-            request = urllib.request.Request(self.base_url + path, data=body, headers=headers,
+            data = body() if callable(body) else body  # a stream is made afresh per attempt
+            request = urllib.request.Request(self.base_url + path, data=data, headers=headers,
                                              method=method)
             try:
                 with urllib.request.urlopen(request, timeout=self.timeout_s) as response:
@@ -266,3 +271,149 @@ class HeartswayClient:
             raise ValueError(f"`image_format` must be one of png, svg; got {image_format!r}.")
         return self._request("POST", "/v1/reports", body=json.dumps(body).encode(),
                              content_type="application/json", accept=IMAGE_TYPES[image_format])
+
+    # -- night jobs ------------------------------------------------------------------
+
+    def submit(self, path_or_body: str | Path | Mapping[str, Any], *, window_s: float = 300.0,
+               window_overlap_s: float = 0.0, callback_url: str | None = None,
+               idempotency_key: str | None = None, sampling_rate_hz: float | None = None,
+               channels: Sequence[str] = (), quantity: str | None = None,
+               unit: str | None = None, file_format: str | None = None) -> Job:
+        """``POST /v1/jobs``: queue a whole night (a trace file, streamed, or a JSON body).
+
+        The file is sent as it is read, never held whole in memory. ``idempotency_key``
+        (sent as ``Idempotency-Key``) makes a retried submission return the first job.
+        """
+        settings = {"window_s": window_s, "window_overlap_s": window_overlap_s,
+                    "callback_url": callback_url}
+        headers = {"Idempotency-Key": idempotency_key} if idempotency_key else {}
+        if isinstance(path_or_body, Mapping):
+            body = {**path_or_body, **{k: v for k, v in settings.items() if v is not None}}
+            document = self._json("POST", "/v1/jobs", body=json.dumps(body).encode(),
+                                  content_type="application/json", extra_headers=headers)
+            return Job(self, document)
+        fields = {**settings, "sampling_rate_hz": sampling_rate_hz,
+                  "channels": ",".join(channels), "quantity": quantity, "unit": unit,
+                  "format": file_format}
+        form = {k: str(v) for k, v in fields.items() if v is not None and v != ""}
+        make, length, content_type = _multipart_stream(form, Path(path_or_body))
+        headers["Content-Length"] = str(length)
+        document = self._json("POST", "/v1/jobs", body=make, content_type=content_type,
+                              extra_headers=headers)
+        return Job(self, document)
+
+    def job(self, job_id: str) -> Job:
+        """``GET /v1/jobs/{id}``: a job submitted earlier."""
+        return Job(self, self._json("GET", f"/v1/jobs/{job_id}"))
+
+
+_CHUNK = 1 << 20
+
+
+def _multipart_stream(fields: Mapping[str, str], path: Path
+                      ) -> tuple[Callable[[], Iterator[bytes]], int, str]:
+    """A multipart body read from ``path`` as it is sent: (chunk maker, length, type)."""
+    boundary = uuid.uuid4().hex
+    head = b"".join(f'--{boundary}\r\nContent-Disposition: form-data; name="{name}"\r\n\r\n'
+                    .encode() + value.encode("utf-8") + b"\r\n" for name, value in fields.items())
+    safe = path.name.replace('"', "_").replace("\r", "_").replace("\n", "_")
+    head += (f'--{boundary}\r\nContent-Disposition: form-data; name="file"; filename="{safe}"'
+             f"\r\nContent-Type: application/octet-stream\r\n\r\n").encode()
+    tail = f"\r\n--{boundary}--\r\n".encode()
+    size = path.stat().st_size
+
+    def chunks() -> Iterator[bytes]:
+        yield head
+        with path.open("rb") as handle:
+            while block := handle.read(_CHUNK):
+                yield block
+        yield tail
+
+    return chunks, len(head) + size + len(tail), f"multipart/form-data; boundary={boundary}"
+
+
+class Job:
+    """A night job on the service: its document, refreshed by :meth:`refresh` and
+    :meth:`wait`, its result by :meth:`result`.
+
+    Attributes
+    ----------
+    id, status, progress
+        As in the last job document fetched.
+    document
+        That document.
+    """
+
+    def __init__(self, client: HeartswayClient, document: dict[str, Any]) -> None:
+        self._client = client
+        self.document = document
+
+    @property
+    def id(self) -> str:
+        return str(self.document["id"])
+
+    @property
+    def status(self) -> str:
+        return str(self.document["status"])
+
+    @property
+    def progress(self) -> float:
+        return float(self.document["progress"])
+
+    def refresh(self) -> Job:
+        """Fetch the job document again."""
+        self.document = self._client._json("GET", f"/v1/jobs/{self.id}")
+        return self
+
+    def wait(self, *, timeout_s: float | None = None, poll_s: float = 1.0,
+             progress: bool | None = None) -> Job:
+        """Poll until the job ends (succeeded, failed or cancelled).
+
+        ``progress`` draws a bar on stderr; by default when stderr is a terminal.
+
+        Raises
+        ------
+        TimeoutError
+            When ``timeout_s`` passes first.
+        """
+        show = sys.stderr.isatty() if progress is None else progress
+        deadline = None if timeout_s is None else time.monotonic() + timeout_s
+        while self.refresh().status not in JOB_ENDED:
+            if show:
+                _bar(self.progress, self.status)
+            if deadline is not None and time.monotonic() >= deadline:
+                raise TimeoutError(f"job {self.id} still {self.status} after {timeout_s:g} s")
+            time.sleep(poll_s)
+        if show:
+            _bar(self.progress, self.status)
+            sys.stderr.write("\n")
+        return self
+
+    def result(self, *, fhir: bool = False) -> dict[str, Any]:
+        """``GET /v1/jobs/{id}/result``: the night document (or its FHIR R4 Bundle).
+
+        Raises
+        ------
+        ApiError
+            409 while the job has not succeeded.
+        """
+        accept = FHIR_JSON if fhir else "application/json"
+        result: dict[str, Any] = self._client._json("GET", f"/v1/jobs/{self.id}/result",
+                                                    accept=accept)
+        return result
+
+    def delete(self) -> None:
+        """``DELETE /v1/jobs/{id}``: cancel the job and delete its files."""
+        self._client._request("DELETE", f"/v1/jobs/{self.id}")
+
+
+#: Statuses after which a job changes no more.
+JOB_ENDED = ("succeeded", "failed", "cancelled")
+_BAR_WIDTH = 30
+
+
+def _bar(fraction: float, status: str) -> None:
+    filled = int(round(_BAR_WIDTH * min(max(fraction, 0.0), 1.0)))
+    sys.stderr.write(f"\r[{'#' * filled}{'.' * (_BAR_WIDTH - filled)}] "
+                     f"{100 * fraction:5.1f} % {status:<10}")
+    sys.stderr.flush()

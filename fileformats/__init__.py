@@ -6,10 +6,13 @@ A small library beside the engine: it reads a file (a path, or its bytes) into
 
 Catalogue
 ---------
-read_trace(source, *, format, channels, fs_hz, quantity, unit) -> TraceFile
-    Read one recording; channels selected by label; units from the file's header.
+read_trace(source, *, format, channels, fs_hz, quantity, unit, lazy) -> TraceFile
+    Read one recording; channels selected by label; units from the file's header; with
+    ``lazy`` an EDF/BDF path gives channels read window by window (fileformats.edf.EdfRow).
 detect_format(name, head) -> str
     The format of a file from its first bytes and, failing that, its name.
+detect_file_format(path) -> str
+    The same for a file on disk (its first 16 bytes are read).
 FORMATS
     The formats read, sorted.
 normalise_unit(text) -> str | None
@@ -32,7 +35,14 @@ csv        header row                   none                          none
 """
 
 from fileformats.errors import UnreadableFileError
-from fileformats.reading import FORMATS, Source, TraceFile, detect_format, read_trace
+from fileformats.reading import (
+    FORMATS,
+    Source,
+    TraceFile,
+    detect_file_format,
+    detect_format,
+    read_trace,
+)
 from fileformats.units import normalise_unit, quantity_of_unit
 
 __all__ = [
@@ -40,6 +50,7 @@ __all__ = [
     "Source",
     "TraceFile",
     "UnreadableFileError",
+    "detect_file_format",
     "detect_format",
     "normalise_unit",
     "quantity_of_unit",

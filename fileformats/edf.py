@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import io
+import os
 import warnings
+from typing import Any
 
 import numpy as np
 
@@ -27,7 +29,8 @@ def _header_int(data: bytes, start: int, width: int, name: str) -> int:
         ) from None
 
 
-def check_header(data: bytes, *, bdf: bool, max_samples: int) -> None:
+def check_header(data: bytes, *, bdf: bool, max_samples: int,
+                 file_length: int | None = None) -> None:
     """Refuse an EDF/BDF file whose header declares too many samples or another length.
 
     Parameters
@@ -38,6 +41,9 @@ def check_header(data: bytes, *, bdf: bool, max_samples: int) -> None:
         True for 24-bit samples (3 bytes), else 16-bit (2 bytes).
     max_samples
         Most samples over all signals.
+    file_length
+        Length of the whole file, bytes, when ``data`` holds only its header (a file
+        opened by :func:`open_edf`); ``len(data)`` when None.
 
     Raises
     ------
@@ -48,6 +54,7 @@ def check_header(data: bytes, *, bdf: bool, max_samples: int) -> None:
         never "updated".
     """
     kind = "BDF" if bdf else "EDF"
+    length = len(data) if file_length is None else file_length
     if len(data) < 256:
         raise UnreadableFileError(
             "file", f"`file` must start with the 256-byte {kind} header; got {len(data)} bytes."
@@ -58,7 +65,7 @@ def check_header(data: bytes, *, bdf: bool, max_samples: int) -> None:
     if signals < 1 or header_bytes != 256 * (signals + 1) or header_bytes > len(data):
         raise UnreadableFileError(
             "file", f"`file` must have a header of 256 bytes per signal plus 256 ({kind}); its "
-            f"header declares {signals} signals in {header_bytes} bytes of a {len(data)}-byte "
+            f"header declares {signals} signals in {header_bytes} bytes of a {length}-byte "
             "file."
         )
     start = 256 + signals * _BEFORE_SAMPLES_PER_RECORD
@@ -72,10 +79,10 @@ def check_header(data: bytes, *, bdf: bool, max_samples: int) -> None:
     check_samples(records * sum(per_record), max_samples, "its header")
     width = 3 if bdf else 2
     expected = header_bytes + records * sum(per_record) * width
-    if len(data) != expected:
+    if length != expected:
         raise UnreadableFileError(
             "file", f"`file` must be as long as its header declares ({records} data records: "
-            f"{expected} bytes); got {len(data)} bytes."
+            f"{expected} bytes); got {length} bytes."
         )
 
 
@@ -141,5 +148,93 @@ def read_edf(data: bytes, *, bdf: bool = False, max_samples: int | None = None) 
         samples=samples,
         units=tuple(s.physical_dimension.strip() or None for s in signals),
         rates_hz=tuple(float(s.sampling_frequency) for s in signals),
+        flags=flags,
+    )
+
+
+class EdfRow:
+    """One EDF signal read on demand: ``len`` and contiguous slices, each read from the file.
+
+    What :func:`features.windows.analyze_windows` needs of a channel's samples, so a whole
+    night is never in memory at once (``benchmarks/night.py`` measures the difference).
+    A slice returns the physical values as float64, equal to those :func:`read_edf` reads.
+    """
+
+    def __init__(self, signal: object, n_samples: int) -> None:
+        self._signal = signal
+        self.size = n_samples
+        self.fs_hz = float(signal.sampling_frequency)  # type: ignore[attr-defined]
+
+    def __len__(self) -> int:
+        return self.size
+
+    def __getitem__(self, item: slice) -> np.ndarray:
+        if not isinstance(item, slice):
+            raise TypeError("an EDF row is read by contiguous slices only")
+        start, stop, step = item.indices(self.size)
+        if step != 1:
+            raise TypeError("an EDF row is read by contiguous slices only")
+        if stop <= start:
+            return np.empty(0, dtype=np.float64)
+        data = self._signal.get_data_slice(start / self.fs_hz,  # type: ignore[attr-defined]
+                                           stop / self.fs_hz)
+        return np.asarray(data, dtype=np.float64)[: stop - start]
+
+
+def open_edf(path: str | os.PathLike[str], *, bdf: bool = False,
+             max_samples: int | None = None) -> RawTrace:
+    """Read the header of an EDF/EDF+C file; the samples stay in the file.
+
+    As :func:`read_edf`, but each signal's ``samples`` is an :class:`EdfRow` whose slices
+    read only the samples asked for. The header is checked first (:func:`check_header`,
+    against ``max_samples`` and the file's length). A BDF file is read whole: edfio 0.4
+    reads BDF samples eagerly (``read_bdf`` takes no ``lazy_load_data``).
+
+    Raises
+    ------
+    UnreadableFileError
+        As :func:`read_edf`.
+    """
+    path = os.fspath(path)
+    try:
+        length = os.path.getsize(path)
+        with open(path, "rb") as handle:
+            head = handle.read(256)
+            signals = int(head[252:256].decode("ascii").strip()) if len(head) == 256 else 0
+            head += handle.read(256 * max(0, min(signals, 4096)))
+    except (OSError, UnicodeDecodeError, ValueError):
+        head, length = b"", 0
+    check_header(head, bdf=bdf, max_samples=resolve_limit(max_samples), file_length=length)
+    if bdf:
+        with open(path, "rb") as handle:
+            return read_edf(handle.read(), bdf=True, max_samples=max_samples)
+    edfio = optional_module("edfio", "EDF")
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            edf: Any = edfio.read_edf(path, lazy_load_data=True)
+            continuous = edf.is_continuous if hasattr(edf, "is_continuous") else True
+            signals_ = list(edf.signals)
+            rows = tuple(EdfRow(s, int(round(s.sampling_frequency * edf.duration)))
+                         for s in signals_)
+            annotated = bool(edf.annotations)
+    except Exception as error:  # noqa: BLE001 - edfio raises plain ValueErrors and others
+        raise UnreadableFileError(
+            "file", f"`file` must be a readable EDF file; got one that edfio refuses "
+            f"({type(error).__name__})."
+        ) from None
+    if not continuous:
+        raise UnreadableFileError(
+            "file", "`file` must be a continuous EDF+ record (EDF+C); got a discontinuous "
+            "one (EDF+D): export the continuous stretches separately."
+        )
+    if not signals_:
+        raise UnreadableFileError("file", "`file` must hold at least one signal; got none.")
+    flags = ("edf_annotations_ignored",) * annotated + ("edf_header_warning",) * bool(caught)
+    return RawTrace(
+        labels=unique_labels([s.label for s in signals_]),
+        samples=rows,  # type: ignore[arg-type]  # EdfRow slices like an array
+        units=tuple(s.physical_dimension.strip() or None for s in signals_),
+        rates_hz=tuple(float(s.sampling_frequency) for s in signals_),
         flags=flags,
     )

@@ -99,7 +99,7 @@ def detect_format(name: str | None, head: bytes) -> str:
 
 
 def _raw(source: Source, fmt: str | None, name: str | None,
-         max_samples: int | None) -> tuple[str, RawTrace]:
+         max_samples: int | None, lazy: bool = False) -> tuple[str, RawTrace]:
     if isinstance(source, Mapping):
         files = dict(source)
         if fmt is None:
@@ -130,6 +130,10 @@ def _raw(source: Source, fmt: str | None, name: str | None,
             fmt = "wfdb"
     if fmt == "wfdb":
         return fmt, wfdb_records.read_wfdb_path(path, max_samples=max_samples)
+    if lazy:
+        fmt = fmt or detect_file_format(path)
+        if fmt in ("edf", "bdf"):
+            return fmt, edf.open_edf(path, bdf=fmt == "bdf", max_samples=max_samples)
     try:
         data = path.read_bytes()
     except OSError as error:
@@ -139,6 +143,25 @@ def _raw(source: Source, fmt: str | None, name: str | None,
         ) from None
     fmt = fmt or detect_format(path.name, data[:16])
     return fmt, _from_bytes(fmt, data, max_samples)
+
+
+def detect_file_format(path: Path) -> str:
+    """The format of the file at ``path`` from its first bytes, else its name's suffix.
+
+    Raises
+    ------
+    UnreadableFileError
+        When the file cannot be opened or its format is not recognised.
+    """
+    try:
+        with path.open("rb") as handle:
+            head = handle.read(16)
+    except OSError as error:
+        raise UnreadableFileError(
+            "file", f"`file` must be a readable file; got {path.name!r} "
+            f"({type(error).__name__})."
+        ) from None
+    return detect_format(path.name, head)
 
 
 def _from_bytes(fmt: str, data: bytes, max_samples: int | None) -> RawTrace:
@@ -241,6 +264,7 @@ def read_trace(
     default_quantity: str = DEFAULT_QUANTITY,
     default_unit: str = DEFAULT_UNIT,
     max_samples: int | None = None,
+    lazy: bool = False,
 ) -> TraceFile:
     """Read one recording into engine channel inputs.
 
@@ -269,6 +293,10 @@ def read_trace(
         Most samples over all signals of the file; the service's default
         (``HEARTSWAY_MAX_SAMPLES``) when None. A file that declares more (in its
         header, zip directory or metadata) is refused before its data is read.
+    lazy
+        For an EDF file given by its path: read the header only, and give each channel an
+        :class:`fileformats.edf.EdfRow` whose slices read the file (the same values as
+        reading it whole). Other formats and sources (BDF included) are read whole.
 
     Returns
     -------
@@ -295,7 +323,7 @@ def read_trace(
        numbers of steps where samples are missing, which become NaN, gaps for the engine)
        and gives the rate when neither the file nor ``fs_hz`` does.
     """
-    fmt, raw = _raw(source, format, name, max_samples)
+    fmt, raw = _raw(source, format, name, max_samples, lazy)
     picked = _select(raw, channels)
     rate = _rate(raw, picked, fs_hz)
     lengths = {raw.samples[k].size for k in picked}

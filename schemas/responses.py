@@ -351,7 +351,7 @@ class RespirationSchema(Schema):
 # --------------------------------------------------------------------------
 
 
-def _replace_non_finite(node: Any, path: str, found: list[str]) -> Any:
+def replace_non_finite(node: Any, path: str, found: list[str]) -> Any:
     if isinstance(node, float):
         if math.isfinite(node):
             return node
@@ -359,10 +359,10 @@ def _replace_non_finite(node: Any, path: str, found: list[str]) -> Any:
         return None
     if isinstance(node, dict):
         return {
-            k: _replace_non_finite(v, f"{path}.{k}" if path else k, found) for k, v in node.items()
+            k: replace_non_finite(v, f"{path}.{k}" if path else k, found) for k, v in node.items()
         }
     if isinstance(node, list):
-        return [_replace_non_finite(v, f"{path}[{i}]", found) for i, v in enumerate(node)]
+        return [replace_non_finite(v, f"{path}[{i}]", found) for i, v in enumerate(node)]
     return node
 
 
@@ -511,7 +511,7 @@ class AnalysisResponseSchema(Schema):
     def _finish(self, data: dict[str, Any], **kwargs: Any) -> dict[str, Any]:
         warnings = list(data.get("warnings", []))
         found: list[str] = []
-        data = _replace_non_finite(data, "", found)
+        data = replace_non_finite(data, "", found)
         if found:
             shown = ", ".join(found[:10]) + (" and more" if len(found) > 10 else "")
             warnings.append(f"non-finite values replaced by null at: {shown}")

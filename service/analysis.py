@@ -6,17 +6,23 @@ asks for them, the fused trace when the caller keeps it); :func:`dump_analysis` 
 that result into the JSON document. The API (``POST /v1/analyses`` and
 ``POST /v1/reports``), ``heartsway analyze`` (with ``--plot``), ``heartsway batch`` and
 ``heartsway demo`` all go this way, so a recording gets the same numbers from each.
+A night job goes through :func:`analyze_night`: the same engine window by window
+(:func:`features.windows.iter_windows`, as :func:`features.windows.analyze_windows` runs
+it), then :func:`features.night.summarize_night`.
 """
 
 from __future__ import annotations
 
 import dataclasses
 import time
+from collections.abc import Callable, Iterator
 from typing import Any
 
 import features
 from features.engine import AnalysisResult
-from schemas.engine_inputs import engine_inputs
+from features.night import NightSummary, summarize_night
+from features.windows import WindowedAnalysis, WindowResult, collect_windows, iter_windows
+from schemas.engine_inputs import EngineCall, engine_inputs
 from schemas.requests import AnalysisRequest
 from schemas.responses import AnalysisReport, AnalysisResponseSchema
 from service.metrics import record_analysis
@@ -81,3 +87,52 @@ def run_analysis(request: AnalysisRequest) -> dict[str, Any]:
         From the engine, for the service to map to problem details.
     """
     return dump_analysis(analyze_request(request), request)
+
+
+def night_windows(call: EngineCall, *, window_s: float,
+                  overlap_s: float = 0.0) -> tuple[int, Iterator[WindowResult]]:
+    """The windows of a night, checked now and analysed as they are drawn.
+
+    Returns the number of windows and the iterator of :func:`features.windows.iter_windows`
+    over ``call``'s channels (sliced window by window: a lazily read file stays in the file).
+
+    Raises
+    ------
+    features.errors.InvalidInputError
+        At once, for the call (rate, channels, window length, options).
+    """
+    windows = iter_windows(call.channels, call.fs_hz, window_s=window_s, overlap_s=overlap_s,
+                           subject=call.subject, recording=call.recording,
+                           options=call.options)
+    n = len(call.channels[0].samples)
+    n_win = round(window_s * call.fs_hz)
+    n_step = n_win - round(overlap_s * call.fs_hz)
+    return (n - n_win) // n_step + 1, windows
+
+
+def analyze_night(call: EngineCall, *, window_s: float, overlap_s: float = 0.0,
+                  on_window: Callable[[int, int], None] | None = None,
+                  ) -> tuple[WindowedAnalysis, NightSummary]:
+    """Run the engine over a night window by window, then summarise it (a night job's road).
+
+    The windows are those of :func:`features.windows.analyze_windows` on the same channels
+    (the same function underneath); ``on_window(done, total)`` is called after each one
+    and may raise to stop the night.
+
+    Raises
+    ------
+    features.errors.InvalidInputError
+        For the call (see :func:`night_windows`).
+    """
+    total, windows = night_windows(call, window_s=window_s, overlap_s=overlap_s)
+    done: list[WindowResult] = []
+    started = time.perf_counter()
+    for window in windows:
+        done.append(window)
+        if on_window is not None:
+            on_window(len(done), total)
+    windowed = collect_windows(done, len(call.channels[0].samples), call.fs_hz,
+                               window_s=window_s, overlap_s=overlap_s)
+    n_samples = sum(len(c.samples) for c in call.channels)
+    record_analysis(time.perf_counter() - started, n_samples)
+    return windowed, summarize_night(windowed)

@@ -1,7 +1,9 @@
-"""The ``heartsway`` command line: serve, analyze FILE, batch INPUTS, demo.
+"""The ``heartsway`` command line: serve, worker, submit FILE, analyze FILE, batch INPUTS, demo.
 
 ``serve`` runs gunicorn on the application factory with the settings of
-:mod:`service.gunicorn_conf`; ``analyze`` runs a trace file through the same
+:mod:`service.gunicorn_conf`, and ``--job-workers`` night-job workers beside it (each
+``worker``: :func:`service.job_worker.run_worker`); ``submit`` sends a night to a
+service as a job (``--wait`` prints its result); ``analyze`` runs a trace file through the same
 schemas and engine call as the API (:func:`service.analysis.analyze_request`) and
 prints the same JSON, windows included with ``--window-s``, and with ``--plot`` draws
 the report image from that one result; ``demo`` analyses the demo scenario's trace, or
@@ -43,8 +45,87 @@ def _serve(args: argparse.Namespace) -> int:
     env["HEARTSWAY_BIND"] = f"{args.host}:{args.port}"
     env["HEARTSWAY_WORKERS"] = str(args.workers)
     command = [sys.executable, "-m", "gunicorn", *GUNICORN_ARGS]
-    os.execve(sys.executable, command, env)
-    return 0  # not reached
+    if args.job_workers < 0:
+        print(f"`--job-workers` must be 0 or more; got {args.job_workers}.", file=sys.stderr)
+        return 2
+    if args.job_workers == 0:
+        os.execve(sys.executable, command, env)
+        return 0  # not reached
+    from service.job_store import JobSettings
+
+    JobSettings.from_env(env).data_dir.mkdir(parents=True, exist_ok=True, mode=0o700)
+    return _supervise(command, args.job_workers, env)
+
+
+def _supervise(command: list[str], job_workers: int, env: dict[str, str]) -> int:
+    """Run gunicorn and ``job_workers`` job workers; restart a worker that dies; stop all
+    on SIGINT/SIGTERM or when gunicorn ends."""
+    import signal
+    import subprocess
+
+    worker_command = [sys.executable, "-m", "service.cli", "worker"]
+    server = subprocess.Popen(command, env=env)
+    workers = [subprocess.Popen(worker_command, env=env) for _ in range(job_workers)]
+    stopping = False
+
+    def stop(signum: int, frame: object) -> None:
+        nonlocal stopping
+        stopping = True
+
+    signal.signal(signal.SIGTERM, stop)
+    signal.signal(signal.SIGINT, stop)
+    try:
+        while not stopping and server.poll() is None:
+            for k, worker in enumerate(workers):
+                if worker.poll() is not None:
+                    workers[k] = subprocess.Popen(worker_command, env=env)
+            time.sleep(0.5)
+    finally:
+        for process in [server, *workers]:
+            if process.poll() is None:
+                process.send_signal(signal.SIGTERM)
+        for process in [server, *workers]:
+            try:
+                process.wait(timeout=35)
+            except subprocess.TimeoutExpired:
+                process.kill()
+    return 0 if stopping else int(server.returncode or 0)
+
+
+def _worker(args: argparse.Namespace) -> int:
+    from service.job_worker import run_worker
+    from service.logs import configure_logging
+
+    configure_logging(os.environ.get("HEARTSWAY_LOG_LEVEL", "INFO"))
+    run_worker()
+    return 0
+
+
+def _submit(args: argparse.Namespace) -> int:
+    from client import ApiError, HeartswayClient
+
+    api = HeartswayClient(args.url)
+    try:
+        job = api.submit(args.file, window_s=args.window_s, window_overlap_s=args.overlap_s,
+                         sampling_rate_hz=args.rate, file_format=args.format,
+                         channels=[c for c in (args.channels or "").split(",") if c],
+                         idempotency_key=args.idempotency_key)
+        if not args.wait:
+            _print_json(job.document)
+            return 0
+        job.wait()
+        if job.status != "succeeded":
+            print(json.dumps(job.document), file=sys.stderr)
+            return 1
+        _print_json(job.result())
+        return 0
+    except ApiError as error:
+        print(json.dumps(error.problem), file=sys.stderr)
+        return 2 if error.status < 500 else 1
+    except (urllib.error.URLError, OSError) as error:
+        print(f"The service at {args.url} could not be reached ({type(error).__name__}).",
+              file=sys.stderr)
+        return 4
 
 
 def _analyze(args: argparse.Namespace) -> int:
@@ -176,7 +257,30 @@ def build_parser() -> argparse.ArgumentParser:
         default=int(_env_default("HEARTSWAY_WORKERS", "2")),
         help="worker processes (env HEARTSWAY_WORKERS, default 2)",
     )
+    serve.add_argument(
+        "--job-workers",
+        type=int,
+        default=int(_env_default("HEARTSWAY_JOB_WORKERS", "1")),
+        help="night-job worker processes beside the API (env HEARTSWAY_JOB_WORKERS, "
+             "default 1; 0 for none)",
+    )
     serve.set_defaults(run=_serve)
+
+    worker = commands.add_parser(
+        "worker", help="run one night-job worker (HEARTSWAY_QUEUE_URL, HEARTSWAY_DATA_DIR)")
+    worker.set_defaults(run=_worker)
+
+    submit = commands.add_parser("submit", help="send a night to a service as a job")
+    submit.add_argument("file", help="trace file (EDF/BDF read window by window)")
+    submit.add_argument("--url", required=True, help="the service, e.g. http://127.0.0.1:8000")
+    submit.add_argument("--wait", action="store_true", help="wait and print the result")
+    submit.add_argument("--window-s", type=float, default=300.0, help="window length, s")
+    submit.add_argument("--overlap-s", type=float, default=0.0, help="window overlap, s")
+    submit.add_argument("--rate", type=float, default=None, help="sampling rate, Hz")
+    submit.add_argument("--format", default=None, help="file format (default: detected)")
+    submit.add_argument("--channels", default=None, help="comma-separated labels")
+    submit.add_argument("--idempotency-key", default=None, help="sent as Idempotency-Key")
+    submit.set_defaults(run=_submit)
 
     analyze = commands.add_parser("analyze", help="analyse a trace file, print JSON")
     analyze.add_argument(

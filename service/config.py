@@ -34,6 +34,13 @@ DEFAULTS: dict[str, Any] = {
     "HEARTSWAY_API_KEYS": (),
     # Origins allowed to call the API from a browser (CORS); none by default.
     "HEARTSWAY_CORS_ORIGINS": (),
+    # Largest trace file of a night job (POST /v1/jobs), streamed to disk; larger gets 413.
+    "HEARTSWAY_MAX_UPLOAD_BYTES": 1024 * 1024 * 1024,
+    # Hosts (host or host:port) a job's callback_url may name; none: callbacks off.
+    "HEARTSWAY_CALLBACK_HOSTS": (),
+    # Where night jobs live (service.job_store.JobSettings); from the environment
+    # (HEARTSWAY_DATA_DIR, HEARTSWAY_QUEUE_URL, ...) when None.
+    "HEARTSWAY_JOBS": None,
 }
 
 #: Environment variable for each setting that can come from the environment.
@@ -45,6 +52,8 @@ ENVIRONMENT = {
     "HEARTSWAY_MAX_COMPUTE_S": "HEARTSWAY_MAX_COMPUTE_S",
     "HEARTSWAY_LOG_LEVEL": "HEARTSWAY_LOG_LEVEL",
     "HEARTSWAY_CORS_ORIGINS": "HEARTSWAY_CORS_ORIGINS",
+    "HEARTSWAY_MAX_UPLOAD_BYTES": "HEARTSWAY_MAX_UPLOAD_BYTES",
+    "HEARTSWAY_CALLBACK_HOSTS": "HEARTSWAY_CALLBACK_HOSTS",
 }
 #: Keys come from this variable (comma-separated) and/or this file (one per line).
 API_KEYS_VARIABLE = "HEARTSWAY_API_KEYS"
@@ -80,6 +89,8 @@ def _parse(key: str, var: str, text: str) -> Any:
         return text
     if key == "HEARTSWAY_CORS_ORIGINS":
         return _split(text)
+    if key == "HEARTSWAY_CALLBACK_HOSTS":
+        return tuple(part.lower() for part in _split(text))
     if key == "HEARTSWAY_MAX_COMPUTE_S":
         return _positive_seconds(var, text)
     return _positive_int(var, text)

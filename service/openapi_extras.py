@@ -13,6 +13,7 @@ from typing import Any
 
 from schemas.fhir import FEATURE_SYSTEM, FHIR_JSON
 from schemas.file_input import FileUploadFormSchema
+from schemas.jobs import JobSchema, JobSettingsSchema, NightDocumentSchema
 
 #: A FHIR R4 Bundle of Observations as the service emits it (the full rules are FHIR's).
 FHIR_BUNDLE_SCHEMA: dict[str, Any] = {
@@ -57,6 +58,9 @@ FHIR_BUNDLE_SCHEMA: dict[str, Any] = {
 def register(spec: Any) -> None:
     """Add the component schemas of the new bodies to the apispec ``spec``."""
     spec.components.schema("FileUploadForm", schema=FileUploadFormSchema)
+    spec.components.schema("JobSettings", schema=JobSettingsSchema)
+    spec.components.schema("Job", schema=JobSchema)
+    spec.components.schema("NightDocument", schema=NightDocumentSchema)
 
 
 def _file_upload(form: dict[str, Any]) -> dict[str, Any]:
@@ -149,6 +153,7 @@ def extend(document: dict[str, Any]) -> None:
         "operationId": "pageStyle", "summary": "The page's style sheet.", "tags": ["page"],
         "responses": {"200": {**text, "content": {"text/css": {"schema": {"type": "string"}}}}},
     }}
+    _jobs(document, errors, headers)
     paths["/metrics"] = {"get": {
         "operationId": "metrics",
         "summary": "Prometheus metrics, summed over every worker process.",
@@ -165,3 +170,103 @@ def extend(document: dict[str, Any]) -> None:
             "headers": headers,
         }},
     }}
+
+
+def _jobs(document: dict[str, Any], errors: dict[str, Any], headers: dict[str, Any]) -> None:
+    """The night-job paths: POST /v1/jobs, GET/DELETE /v1/jobs/{id}, GET .../result."""
+    schemas = document["components"]["schemas"]
+    settings = schemas.pop("JobSettings")["properties"]
+    body = copy.deepcopy(schemas["AnalysisRequest"])
+    body["properties"].update(copy.deepcopy(settings))
+    body["description"] = ("An analysis request (AnalysisRequest) plus the job's window "
+                           "and callback fields.")
+    schemas["JobRequest"] = body
+    upload = copy.deepcopy(schemas["FileUpload"])
+    upload["properties"].pop("include", None)
+    upload["properties"].update(copy.deepcopy(settings))
+    upload["properties"]["file"] = {
+        "description": "One trace file (EDF/BDF is read window by window; CSV, NumPy and "
+                       "Parquet are read whole). Streamed to disk as it arrives.",
+        "type": "string", "contentMediaType": "application/octet-stream"}
+    schemas["JobUpload"] = upload
+    problem = {"$ref": "#/components/schemas/Problem"}
+
+    def problem_answer(description: str) -> dict[str, Any]:
+        return {"description": description,
+                "content": {"application/problem+json": {"schema": problem}},
+                "headers": headers}
+
+    job_json = {"application/json": {"schema": {"$ref": "#/components/schemas/Job"}}}
+    security = document["paths"]["/v1/analyses"]["post"].get("security", [])
+    not_found = {"$ref": "#/components/responses/NotFound"}
+    job_id = {"name": "job_id", "in": "path", "required": True,
+              "schema": {"type": "string", "maxLength": 64}}
+    common = {k: v for k, v in errors.items() if k in ("401", "500")}
+    paths = document["paths"]
+    paths["/v1/jobs"] = {"post": {
+        "operationId": "createJob",
+        "summary": "Queue a whole night for a windowed analysis and its night summary.",
+        "description": (
+            "The same inputs as `POST /v1/analyses` (a JSON body, or one trace `file` as "
+            "multipart form data up to HEARTSWAY_MAX_UPLOAD_BYTES, default 1 GiB) plus "
+            "`window_s` (default 300), `window_overlap_s` and an optional `callback_url`. "
+            "The input is checked (format, header, rate, channels, window length) before "
+            "the answer. An `Idempotency-Key` header seen before from the same caller "
+            "answers the first job again instead of queueing another."
+        ),
+        "tags": ["jobs"],
+        "security": security,
+        "parameters": [{"name": "Idempotency-Key", "in": "header", "required": False,
+                        "schema": {"type": "string", "minLength": 1, "maxLength": 255}}],
+        "requestBody": {"required": True, "content": {
+            "application/json": {"schema": {"$ref": "#/components/schemas/JobRequest"}},
+            "multipart/form-data": {"schema": {"$ref": "#/components/schemas/JobUpload"},
+                                    "encoding": {"file": {
+                                        "contentType": "application/octet-stream"}}},
+        }},
+        "responses": {
+            "202": {"description": "Queued: the job document, its path in `Location`.",
+                    "content": job_json,
+                    "headers": {**headers, "Location": {
+                        "description": "/v1/jobs/{id}", "schema": {"type": "string"}}}},
+            **errors,
+            "507": problem_answer("No room to store the upload now."),
+        },
+    }}
+    paths["/v1/jobs/{job_id}"] = {
+        "get": {
+            "operationId": "getJob", "parameters": [job_id],
+            "summary": "The job: status, progress, attempts, times, and why it failed.",
+            "tags": ["jobs"], "security": security,
+            "responses": {"200": {"description": "The job document.", "content": job_json,
+                                  "headers": headers},
+                          "404": not_found, **common},
+        },
+        "delete": {
+            "operationId": "deleteJob", "parameters": [job_id],
+            "summary": "Cancel the job and delete its upload and result.",
+            "tags": ["jobs"], "security": security,
+            "responses": {"204": {"description": "Cancelled and deleted.", "headers": headers},
+                          "404": not_found, **common},
+        },
+    }
+    paths["/v1/jobs/{job_id}/result"] = {
+        "get": {
+            "operationId": "getJobResult", "parameters": [job_id],
+            "summary": "The night document once the job succeeded.",
+            "description": "With `Accept: application/fhir+json`, the night summary as a "
+                           "FHIR R4 Bundle of Observations.",
+            "tags": ["jobs"], "security": security,
+            "responses": {
+                "200": {"description": "The night: summary, windows, versions, caution.",
+                        "content": {
+                            "application/json": {
+                                "schema": {"$ref": "#/components/schemas/NightDocument"}},
+                            FHIR_JSON: {"schema": {"$ref": "#/components/schemas/FhirBundle"}},
+                        },
+                        "headers": headers},
+                "409": problem_answer("The job has not succeeded (yet)."),
+                "404": not_found, **common,
+            },
+        },
+    }

@@ -22,10 +22,13 @@ from fileformats import UnreadableFileError
 from schemas.errors import SchemaValidationError, flatten_errors, pointer_of
 from schemas.identifiers import PROBLEM_TYPE_PREFIX
 from service.deadline import ComputeTimeExceeded
+from service.job_errors import JobNotFinishedError, StorageFullError
 
 VALIDATION_TYPE = PROBLEM_TYPE_PREFIX + "validation-error"
 UNUSABLE_SIGNAL_TYPE = PROBLEM_TYPE_PREFIX + "unusable-signal"
 COMPUTE_TIME_TYPE = PROBLEM_TYPE_PREFIX + "compute-time-exceeded"
+JOB_NOT_FINISHED_TYPE = PROBLEM_TYPE_PREFIX + "job-not-finished"
+STORAGE_FULL_TYPE = PROBLEM_TYPE_PREFIX + "storage-full"
 VALIDATION_TITLE = "Request validation failed"
 
 #: Exit codes of ``heartsway`` (documented in service/cli.py and DEVELOPERS.md).
@@ -56,6 +59,10 @@ PROBLEM_TABLE: tuple[ProblemRow, ...] = (
                EXIT_UNUSABLE_SIGNAL, "unusable-signal"),
     ProblemRow(ComputeTimeExceeded, 503, COMPUTE_TIME_TYPE, "Compute time limit exceeded",
                EXIT_FAILURE, "compute-time-exceeded"),
+    ProblemRow(JobNotFinishedError, 409, JOB_NOT_FINISHED_TYPE, "The job has not succeeded",
+               EXIT_FAILURE, "job-not-finished"),
+    ProblemRow(StorageFullError, 507, STORAGE_FULL_TYPE, "Insufficient storage",
+               EXIT_FAILURE, "storage-full"),
     ProblemRow(Exception, 500, "about:blank", "Internal Server Error", EXIT_FAILURE, "error"),
 )
 _ROWS = {row.exception: row for row in PROBLEM_TABLE}
@@ -120,4 +127,10 @@ def describe(error: BaseException) -> Problem:
             f"stopped after {error.elapsed_s:.1f} s. Send a shorter trace or fewer channels.",
             {"limit_s": error.limit_s},
         )
+    if isinstance(error, JobNotFinishedError):
+        return Problem(row, "The job's result exists once it has succeeded; its status is "
+                            f"{error.status}.")
+    if isinstance(error, StorageFullError):
+        return Problem(row, "The service cannot store this upload now (its job store is full "
+                            "or not writable); try again later or send a smaller file.")
     return Problem(row, f"An unexpected {type(error).__name__} stopped the analysis.")

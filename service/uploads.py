@@ -15,9 +15,17 @@ from typing import Any
 
 from werkzeug.datastructures import FileStorage
 
-from fileformats import UnreadableFileError, detect_format
+from features.engine import Options
+from fileformats import UnreadableFileError, detect_file_format, detect_format, read_trace
 from schemas.csv_input import csv_request_body
-from schemas.file_input import FILE_ONLY_FIELDS, file_request_body, select_channels, split_list
+from schemas.engine_inputs import EngineCall, engine_inputs
+from schemas.file_input import (
+    FILE_ONLY_FIELDS,
+    FileUploadFormSchema,
+    file_request_body,
+    select_channels,
+    split_list,
+)
 from schemas.requests import DEFAULT_MAX_SAMPLES
 
 
@@ -117,3 +125,52 @@ def path_request_body(path: str | Path, form: Mapping[str, Any], *,
             "file", f"`file` must be a readable file; got {p.name!r} ({type(error).__name__})."
         ) from None
     return files_request_body({p.name: data}, form, max_samples=max_samples)
+
+
+#: Name of a night job's stored JSON body (a file upload keeps its own name).
+JSON_INPUT_NAME = "input.json"
+
+
+def night_call(path: Path, form: Mapping[str, Any], *, max_samples: int,
+               max_channels: int) -> EngineCall:
+    """The engine inputs of a night job's stored input: a JSON body or a trace file.
+
+    An EDF or BDF file is opened by its header and its samples are read window by window
+    (``fileformats.read_trace(..., lazy=True)``); the channels are those the same file
+    gives through :func:`path_request_body` and the request schema (equal samples, labels,
+    quantities and units; default options). Other formats and JSON bodies are read whole
+    through the request schema (``max_samples``, ``max_channels``).
+
+    Raises
+    ------
+    schemas.errors.SchemaValidationError, fileformats.UnreadableFileError
+        For the form or the file.
+    """
+    from schemas.requests import AnalysisRequestSchema
+    from service.bodies import parse_json
+
+    schema = AnalysisRequestSchema(max_samples=max_samples, max_channels=max_channels)
+    if path.name == JSON_INPUT_NAME:
+        try:
+            data = path.read_bytes()
+        except OSError as error:
+            raise UnreadableFileError(
+                "file", "`file` must be a readable stored input; got one that is not "
+                f"({type(error).__name__}).") from None
+        return engine_inputs(schema.load(parse_json(data)))
+    fields = {k: v for k, v in form.items() if v is not None}
+    settings = FileUploadFormSchema().load(fields)
+    fmt = settings.get("format") or detect_file_format(path)
+    if fmt not in ("edf", "bdf"):
+        return engine_inputs(schema.load(path_request_body(path, fields,
+                                                           max_samples=max_samples)))
+    trace = read_trace(path, format=fmt, channels=settings["channels"] or None,
+                       fs_hz=settings.get("sampling_rate_hz"), quantity=settings.get("quantity"),
+                       unit=settings.get("unit"), lazy=True,
+                       max_samples=max_samples)
+    if len(trace.channels) > max_channels:
+        raise UnreadableFileError("channels", f"`channels` must be at most {max_channels}; got "
+                                              f"{len(trace.channels)} (select some).")
+    return EngineCall(channels=trace.channels, fs_hz=trace.fs_hz, subject=None, recording=None,
+                      options=Options())
+

@@ -30,9 +30,11 @@ ALLOWED: dict[str, frozenset[str]] = {
     "client": frozenset(),
     "fileformats": frozenset({"features"}),
     "schemas": frozenset({"features", "fileformats"}),
-    "service": frozenset({"features", "schemas", "fileformats", "simulation"}),
+    # client: `heartsway submit` sends a night to a running service through it
+    "service": frozenset({"client", "features", "schemas", "fileformats", "simulation"}),
     "validation": frozenset({"features", "simulation"}),
-    "benchmarks": frozenset({"features", "fileformats", "schemas", "service", "simulation"}),
+    "benchmarks": frozenset({"client", "features", "fileformats", "schemas", "service",
+                             "simulation"}),
 }
 
 #: The modules of ``service`` that another package may import: the application factory, the

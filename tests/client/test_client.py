@@ -67,10 +67,18 @@ def test_problems_become_api_errors(service):
 
 def test_the_clients_problem_types_are_the_services():
     # The client is standard library only, so it spells the URIs out; they must not drift.
-    from service.problem_table import COMPUTE_TIME_TYPE, UNUSABLE_SIGNAL_TYPE, VALIDATION_TYPE
+    from client.api import JOB_NOT_FINISHED, STORAGE_FULL
+    from service.problem_table import (
+        COMPUTE_TIME_TYPE,
+        JOB_NOT_FINISHED_TYPE,
+        STORAGE_FULL_TYPE,
+        UNUSABLE_SIGNAL_TYPE,
+        VALIDATION_TYPE,
+    )
 
-    assert (VALIDATION_ERROR, UNUSABLE_SIGNAL, COMPUTE_TIME_EXCEEDED) == (
-        VALIDATION_TYPE, UNUSABLE_SIGNAL_TYPE, COMPUTE_TIME_TYPE)
+    assert (VALIDATION_ERROR, UNUSABLE_SIGNAL, COMPUTE_TIME_EXCEEDED, JOB_NOT_FINISHED,
+            STORAGE_FULL) == (VALIDATION_TYPE, UNUSABLE_SIGNAL_TYPE, COMPUTE_TIME_TYPE,
+                              JOB_NOT_FINISHED_TYPE, STORAGE_FULL_TYPE)
 
 
 class _Flaky(BaseHTTPRequestHandler):

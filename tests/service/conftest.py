@@ -2,9 +2,14 @@
 
 from __future__ import annotations
 
+import io
+import json
+import logging
+
 import pytest
 
 from service import create_app
+from service.logs import LOGGER_NAME, JsonFormatter
 
 
 @pytest.fixture
@@ -15,3 +20,17 @@ def app():
 @pytest.fixture
 def client(app):
     return app.test_client()
+
+
+@pytest.fixture
+def log_lines():
+    """The service's JSON log lines written during the test, parsed."""
+    stream = io.StringIO()
+    handler = logging.StreamHandler(stream)
+    handler.setFormatter(JsonFormatter())
+    logger = logging.getLogger(LOGGER_NAME)
+    logger.addHandler(handler)
+    try:
+        yield lambda: [json.loads(line) for line in stream.getvalue().splitlines()]
+    finally:
+        logger.removeHandler(handler)

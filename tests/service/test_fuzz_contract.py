@@ -6,6 +6,7 @@ operation: every answer must be listed for its operation, carry a declared media
 type and headers, and validate against its schema; no answer may be a 5xx; a
 request that breaks the contract must be refused; a request the contract allows
 must be accepted. Run in process (the WSGI app) and against gunicorn on 127.0.0.1.
+The night-job operations are among them (their jobs are queued in a temporary folder).
 
 One allowance, and a check that keeps it narrow: some rules cannot be written in
 JSON Schema (a trace must last 20 s at its own rate; ``[low, high]`` needs low <
@@ -33,7 +34,10 @@ from __future__ import annotations
 import math
 import os
 import re
+import shutil
+import tempfile
 from collections import Counter
+from pathlib import Path
 
 import pytest
 
@@ -44,6 +48,7 @@ from service_contract import ROOT  # noqa: E402
 
 from features.limits import MAX_FS_HZ, MIN_DURATION_S, MIN_FS_HZ  # noqa: E402
 from service import create_app  # noqa: E402
+from service.job_store import JobSettings  # noqa: E402
 from service.loadtest import serve  # noqa: E402
 
 #: schemathesis's default expected statuses for contract-valid requests, plus 422 for the
@@ -59,7 +64,9 @@ CONFIG = SchemathesisConfig.from_dict(
                 "negative_data_rejection": {"expected-statuses": REFUSED_STATUSES}}}
 )
 SCHEMA = schemathesis.openapi.from_path(ROOT / "openapi.yaml", config=CONFIG)
-APP = create_app({"TESTING": True})
+#: Night jobs queued by the fuzzer live in a folder of their own (no worker runs them).
+JOBS_DIR = Path(tempfile.mkdtemp(prefix="heartsway-fuzz-jobs-"))
+APP = create_app({"TESTING": True, "HEARTSWAY_JOBS": JobSettings(data_dir=JOBS_DIR / "app")})
 API_KEY = "fuzz-key-0123456789abcdef"
 #: Bounded so that both runs take about a minute together on two cores; the environment
 #: variable HEARTSWAY_FUZZ_EXAMPLES sets the in-process count for a longer run by hand.
@@ -119,6 +126,7 @@ def _record(label: str, response) -> None:
 @pytest.fixture(scope="module", autouse=True)
 def report_statuses():
     yield
+    shutil.rmtree(JOBS_DIR, ignore_errors=True)
     # The figures quoted in the README's Reliability section (pytest -s shows them).
     print("\nschemathesis statuses:", dict(sorted(STATUSES.items())))
 
@@ -136,7 +144,8 @@ def test_in_process_app_honours_the_contract(case):
 @pytest.fixture(scope="module")
 def loopback(tmp_path_factory):
     """gunicorn with the service's config, API keys required, on a free loopback port."""
-    env = {"HEARTSWAY_WORKERS": "2", "HEARTSWAY_API_KEYS": f"{API_KEY},second-key-abcdefghijk"}
+    env = {"HEARTSWAY_WORKERS": "2", "HEARTSWAY_API_KEYS": f"{API_KEY},second-key-abcdefghijk",
+           "HEARTSWAY_DATA_DIR": str(JOBS_DIR / "gunicorn")}
     with serve(tmp_path_factory.mktemp("fuzz"), env) as server:
         yield server
 

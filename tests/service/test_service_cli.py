@@ -100,7 +100,26 @@ def test_serve_builds_the_gunicorn_command(monkeypatch):
         seen.update(path=path, args=args, env=env)
 
     monkeypatch.setattr(cli.os, "execve", fake_execve)
-    assert main(["serve", "--host", "127.0.0.1", "--port", "8123", "--workers", "3"]) == 0
+    assert main(["serve", "--host", "127.0.0.1", "--port", "8123", "--workers", "3",
+                 "--job-workers", "0"]) == 0
     assert seen["args"][1:] == ["-m", "gunicorn", *cli.GUNICORN_ARGS]
     assert seen["env"]["HEARTSWAY_BIND"] == "127.0.0.1:8123"
     assert seen["env"]["HEARTSWAY_WORKERS"] == "3"
+
+
+def test_serve_starts_job_workers_beside_gunicorn(monkeypatch, tmp_path):
+    import service.cli as cli
+
+    seen = {}
+
+    def fake_supervise(command, job_workers, env):
+        seen.update(command=command, job_workers=job_workers, env=env)
+        return 0
+
+    monkeypatch.setattr(cli, "_supervise", fake_supervise)
+    monkeypatch.setenv("HEARTSWAY_DATA_DIR", str(tmp_path / "data"))
+    assert main(["serve", "--port", "8124", "--job-workers", "2"]) == 0
+    assert seen["command"][1:] == ["-m", "gunicorn", *cli.GUNICORN_ARGS]
+    assert seen["job_workers"] == 2 and seen["env"]["HEARTSWAY_BIND"] == "127.0.0.1:8124"
+    assert (tmp_path / "data").is_dir()
+    assert main(["serve", "--job-workers", "-1"]) == 2

@@ -2,28 +2,10 @@
 
 from __future__ import annotations
 
-import io
 import json
-import logging
 import os
 
-import pytest
-
 from service.demo import demo_request_body
-from service.logs import LOGGER_NAME, JsonFormatter
-
-
-@pytest.fixture
-def log_lines():
-    stream = io.StringIO()
-    handler = logging.StreamHandler(stream)
-    handler.setFormatter(JsonFormatter())
-    logger = logging.getLogger(LOGGER_NAME)
-    logger.addHandler(handler)
-    try:
-        yield lambda: [json.loads(line) for line in stream.getvalue().splitlines()]
-    finally:
-        logger.removeHandler(handler)
 
 
 def test_every_request_logs_one_json_line_with_its_id(client, log_lines):
