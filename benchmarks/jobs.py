@@ -13,6 +13,10 @@ Run: ``python -m benchmarks.jobs [--hours 8] [--fs 250] [--job-workers 1]``.
 4. The night summary is checked against the simulator's truth: the bed exit within one
    window (300 s) and the night's mean heart rate within 1 bpm (issue 11's acceptance,
    with 60 s as the time limit at 250 Hz and 1 GiB as the memory limit).
+5. ``POST /v1/analyses`` of the demo evening is timed on the same service, one request at
+   a time: 10 before the night is submitted (the service idle) and then back to back while
+   the night runs; the figures are their medians and 95th percentiles, and the ratio of
+   the busy median to the idle one, measured side by side in the one run.
 
 The results as last measured are in ``benchmarks/README.md`` (section "Night jobs").
 """
@@ -85,9 +89,25 @@ def _wait_up(url: str, limit_s: float = 60.0) -> None:
     raise SystemExit(f"the service did not answer at {url} within {limit_s:g} s")
 
 
+def _analysis_seconds(api: object, body: dict) -> float:
+    started = time.perf_counter()
+    api.analyze(body)  # type: ignore[attr-defined]
+    return time.perf_counter() - started
+
+
+def _quantiles(values: list[float]) -> dict:
+    import numpy as np
+
+    if not values:
+        return {"n": 0}
+    return {"n": len(values), "p50_s": float(np.percentile(values, 50)),
+            "p95_s": float(np.percentile(values, 95))}
+
+
 def run(hours: float, fs: float, seed: int, job_workers: int) -> dict:
     """Build the night, serve, submit, wait; the figures."""
     from client import HeartswayClient
+    from service.demo import demo_request_body
 
     with tempfile.TemporaryDirectory() as tmp:
         path = os.path.join(tmp, "night.edf")
@@ -105,10 +125,14 @@ def run(hours: float, fs: float, seed: int, job_workers: int) -> dict:
         try:
             _wait_up(url)
             api = HeartswayClient(url, timeout_s=600)
+            body = demo_request_body()
+            idle = [_analysis_seconds(api, body) for _ in range(11)][1:]  # first warms up
             started = time.perf_counter()
             job = api.submit(path, window_s=WINDOW_S)
             uploaded = time.perf_counter() - started
-            job.wait(poll_s=0.25, progress=False)
+            busy: list[float] = []
+            while job.refresh().status in ("queued", "running"):
+                busy.append(_analysis_seconds(api, body))
             seconds = time.perf_counter() - started
             hwm = _worker_hwm_mib(serve.pid)
             night = job.result() if job.status == "succeeded" else None
@@ -117,7 +141,8 @@ def run(hours: float, fs: float, seed: int, job_workers: int) -> dict:
             serve.wait(timeout=60)
     result = {"status": job.status, "seconds": seconds, "upload_s": uploaded,
               "worker_hwm_mib": hwm,
-              "attempts": job.document["attempts"]}
+              "attempts": job.document["attempts"],
+              "analyses_idle": _quantiles(idle), "analyses_while_night_runs": _quantiles(busy)}
     if night is not None:
         measures = {m["name"]: m["value"] for m in night["summary"]["measures"]}
         exits = [[e["start_s"], e["end_s"]] for e in night["summary"]["bed_exits"]]
@@ -155,6 +180,12 @@ def main(argv: list[str] | None = None) -> int:
           f"{r['worker_hwm_mib']:.0f} MiB; exit error "
           f"{'-' if exit_err is None else f'{exit_err:.1f} s'}, mean heart rate error "
           f"{'-' if hr_err is None else f'{hr_err:.2f} bpm'}")
+    idle, busy = r["analyses_idle"], r["analyses_while_night_runs"]
+    if idle.get("n") and busy.get("n"):
+        print(f"POST /v1/analyses (demo evening): idle p50 {idle['p50_s']:.3f} s, p95 "
+              f"{idle['p95_s']:.3f} s; while the night runs ({busy['n']} requests) p50 "
+              f"{busy['p50_s']:.3f} s, p95 {busy['p95_s']:.3f} s; busy/idle median "
+              f"{busy['p50_s'] / idle['p50_s']:.2f}x")
     for name, good in checks.items():
         print(f"  {'pass' if good else 'FAIL'}: {name}")
     from schemas.responses import NOTICE
