@@ -11,6 +11,7 @@ from typing import Any
 
 from marshmallow import Schema, fields
 
+from features.calibration import is_calibrated
 from features.feature_vector import FEATURES, FeatureDefinition
 
 __all__ = ["FEATURES", "CatalogueSchema", "FeatureSchema", "FeatureValueSchema"]
@@ -38,12 +39,40 @@ class FeatureSchema(Schema):
         "description": "[low, high] of plausible values; null where open.",
     })
     reference = fields.String(required=True, metadata={"description": "Source of the definition."})
+    tolerance = fields.Float(required=True, metadata={
+        "minimum": 0,
+        "description": (
+            "The error the confidence speaks of: for a calibrated feature the confidence is "
+            "the estimated probability that |reported - true| <= tolerance."
+        ),
+    })
+    tolerance_unit = fields.String(required=True, metadata={
+        "description": (
+            "The feature's own unit for an absolute tolerance (`1` when dimensionless; "
+            "percentage points for a feature measured in %), or `%` of the true value when "
+            "`tolerance_relative` is true."
+        ),
+    })
+    tolerance_relative = fields.Boolean(required=True, metadata={
+        "description": "True when the tolerance is a percentage of the true value."
+    })
+    confidence_calibrated = fields.Method("_calibrated", required=True, metadata={
+        "type": "boolean",
+        "description": (
+            "True when the confidence is a fitted probability of lying within the "
+            "tolerance; false when it is the family's own score (it ranks, but is not a "
+            "probability)."
+        ),
+    })
     path = fields.String(
         required=True, metadata={"description": "Dotted path of the value in the engine result."}
     )
 
     def _range(self, entry: FeatureDefinition) -> list[float | None]:
         return [entry.valid_range[0], entry.valid_range[1]]
+
+    def _calibrated(self, entry: FeatureDefinition) -> bool:
+        return is_calibrated(entry.name)
 
 
 class CatalogueSchema(Schema):

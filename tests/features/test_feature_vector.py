@@ -32,6 +32,9 @@ KNOWN_CATALOGUES = {
     # 4: the same catalogue; a heartbeat overrules a load that says "empty" (per-channel
     # coupling, ac sensors), and no breathing is reported without an occupant.
     "4": "b5b32088ca5803e31b792db5f7218bb1570b65646e45c8d11f9c331f63e139fa",
+    # 5: every feature names a tolerance; a calibrated feature's confidence is the fitted
+    # probability of lying within it (issue 12), per feature rather than per family.
+    "5": "eaba90ff438cb1aadcc5886e9bc6df4d5fae462242c284ff8bbd7b23bfbfe60d",
 }
 
 # UCUM symbols for the unit suffixes (Unified Code for Units of Measure, ucum.org; from
