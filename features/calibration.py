@@ -12,7 +12,8 @@ them is a dot product and a logistic function.
 Every evidence quantity is oriented so that a larger value is better evidence, and the fit
 constrains every coefficient to be non-negative: the calibrated confidence never falls when
 evidence improves (monotone by construction). A value whose family confidence is 0 (the
-family found nothing it trusts, for example no heartbeat) keeps confidence 0.
+family found nothing it trusts) keeps confidence 0, and where no heartbeat was found the
+family confidence stands.
 
 References
 ----------
@@ -183,7 +184,10 @@ def calibrated_confidence(name: str, heuristic: float, result: AnalysisResult) -
     Returns
     -------
     float
-        In [0, 1]; 0 when ``heuristic`` is 0.
+        In [0, 1]; 0 when ``heuristic`` is 0. Where the analysis found no heartbeat (no
+        beats, or occupancy not established) ``heuristic`` itself: the models were fitted on
+        occupied recordings, and there the family confidences stay below 0.5 by the rules
+        of the quality stage (issue 12: no confident value without a heartbeat).
 
     Raises
     ------
@@ -193,6 +197,8 @@ def calibrated_confidence(name: str, heuristic: float, result: AnalysisResult) -
     model = MODELS[name]
     if heuristic <= 0.0:
         return 0.0
+    if not result.beats.has_beats or result.occupancy.occupied is not True:
+        return min(1.0, heuristic)
     ev = evidence(result, heuristic)
     z = model.intercept
     for key, w in zip(model.inputs, model.coefficients, strict=True):

@@ -12,7 +12,7 @@ __all__ = ["FIT", "MODELS", "LogisticModel"]
 
 @dataclass(frozen=True)
 class LogisticModel:
-    """P(within tolerance) = 1 / (1 + exp(-(intercept + sum(coefficients * evidence))))."""
+    """P(within tolerance) = logistic(intercept + sum(coefficients * evidence))."""
 
     inputs: tuple[str, ...]
     coefficients: tuple[float, ...]
@@ -24,14 +24,14 @@ class LogisticModel:
 FIT: dict[str, object] = {
     'date': '2026-12-02',
     'script': 'python -m validation.calibration --fit',
-    'method': 'logistic regression, non-negative coefficients, ridge 0.01 (scipy.optimize L-BFGS-B)',
+    'method': 'logistic regression, coefficients >= 0, ridge 0.01, L-BFGS-B',
     'train_seed_first': 710000,
-    'train_seed_last': 710029,
-    'train_cases': 30,
-    'train_samples': 288,
+    'train_seed_last': 711499,
+    'train_cases': 1500,
+    'train_samples': 14132,
     'test_seed_first': 930000,
     'ranges': 'validation.calibration.TRAIN_RANGES (test: TEST_RANGES)',
-    'fit_seconds': 5,
+    'fit_seconds': 296,
 }
 """Provenance of the fit: date, script, seeds, cohort sizes and ranges."""
 
@@ -47,15 +47,15 @@ MODELS: dict[str, LogisticModel] = {
             'hr_agreement',
         ),
         coefficients=(
-            1.15646,
+            0.975811,
             0,
             0,
-            0.16085,
-            0,
-            0.849636,
-            1.25476,
+            0.270641,
+            0.272858,
+            0.674929,
+            1.15553,
         ),
-        intercept=-0.320002, n_train=30, base_rate=0.9000),
+        intercept=-1.35665, n_train=1471, base_rate=0.8810),
     'heart_rate_median_bpm': LogisticModel(
         inputs=(
             'heuristic',
@@ -67,15 +67,15 @@ MODELS: dict[str, LogisticModel] = {
             'hr_agreement',
         ),
         coefficients=(
-            1.15646,
+            1.13134,
             0,
             0,
-            0.16085,
-            0,
-            0.849636,
-            1.25476,
+            0.175682,
+            0.180669,
+            0.898886,
+            1.47521,
         ),
-        intercept=-0.320002, n_train=30, base_rate=0.9000),
+        intercept=-1.45987, n_train=1471, base_rate=0.8688),
     'mean_nn_ms': LogisticModel(
         inputs=(
             'heuristic',
@@ -87,15 +87,15 @@ MODELS: dict[str, LogisticModel] = {
             'hr_agreement',
         ),
         coefficients=(
-            0.540629,
+            0.805608,
+            0.131962,
             0,
-            0,
-            0.383043,
-            0.0808862,
-            1.28672,
-            1.19964,
+            0.124947,
+            0.0720946,
+            1.15655,
+            1.47932,
         ),
-        intercept=-1.46065, n_train=30, base_rate=0.8000),
+        intercept=-2.01212, n_train=1471, base_rate=0.7940),
     'sdnn_ms': LogisticModel(
         inputs=(
             'heuristic',
@@ -108,16 +108,16 @@ MODELS: dict[str, LogisticModel] = {
             'sdnn_over_jitter',
         ),
         coefficients=(
-            0.946711,
-            0.380317,
+            0.6118,
             0,
             0,
-            0.0315715,
-            0.915373,
-            1.81203,
-            0.188583,
+            0.0654605,
+            0.0803339,
+            1.16571,
+            1.91988,
+            0.0503524,
         ),
-        intercept=-5.25755, n_train=30, base_rate=0.4667),
+        intercept=-3.21369, n_train=1471, base_rate=0.4582),
     'rmssd_ms': LogisticModel(
         inputs=(
             'heuristic',
@@ -130,16 +130,16 @@ MODELS: dict[str, LogisticModel] = {
             'rmssd_over_jitter',
         ),
         coefficients=(
-            1.10534,
+            0.520603,
             0,
             0,
-            0,
-            0.0323633,
-            1.15862,
-            2.0043,
-            0.497513,
+            0.116585,
+            0.223846,
+            1.13273,
+            1.85886,
+            0.16484,
         ),
-        intercept=-4.41154, n_train=30, base_rate=0.4000),
+        intercept=-4.05307, n_train=1471, base_rate=0.4324),
     'pnn50_pct': LogisticModel(
         inputs=(
             'heuristic',
@@ -152,16 +152,64 @@ MODELS: dict[str, LogisticModel] = {
             'rmssd_over_jitter',
         ),
         coefficients=(
-            0.688896,
-            1.05996,
-            0.096193,
-            0.0990334,
-            0.0953694,
-            0.669067,
-            0.798624,
+            0.991392,
+            0,
+            0,
+            0.0378188,
+            0.187185,
+            1.07408,
+            1.5573,
             0,
         ),
-        intercept=-5.56643, n_train=30, base_rate=0.9333),
+        intercept=-0.716001, n_train=1471, base_rate=0.9082),
+    'breathing_rate_per_min': LogisticModel(
+        inputs=(
+            'heuristic',
+            'log_usable_s',
+            'breath_agreement',
+            'log_breaths',
+            'breath_regularity',
+        ),
+        coefficients=(
+            0.670833,
+            0.0467062,
+            0.52288,
+            0,
+            0.197549,
+        ),
+        intercept=2.01257, n_train=1392, base_rate=0.9662),
+    'ij_interval_ms': LogisticModel(
+        inputs=(
+            'heuristic',
+            'log_intervals',
+            'template_correlation',
+            'template_snr',
+            'ij_precision',
+        ),
+        coefficients=(
+            0.195167,
+            0.0448673,
+            0,
+            0,
+            0.269525,
+        ),
+        intercept=1.53914, n_train=1221, base_rate=0.9181),
+    'jk_interval_ms': LogisticModel(
+        inputs=(
+            'heuristic',
+            'log_intervals',
+            'template_correlation',
+            'template_snr',
+            'jk_precision',
+        ),
+        coefficients=(
+            0.169067,
+            0.155606,
+            0,
+            0,
+            0.982878,
+        ),
+        intercept=0.788289, n_train=1222, base_rate=0.9664),
     'rsa_ms': LogisticModel(
         inputs=(
             'heuristic',
@@ -172,13 +220,13 @@ MODELS: dict[str, LogisticModel] = {
             'hr_agreement',
         ),
         coefficients=(
-            1.80233,
+            1.65725,
+            0.262685,
+            0.239835,
             0,
-            0.114978,
-            0.262887,
-            0.644484,
-            0,
+            0.367912,
+            0.44027,
         ),
-        intercept=-2.48042, n_train=30, base_rate=0.5333),
+        intercept=-3.00102, n_train=1471, base_rate=0.4827),
 }
 """Catalogue name -> fitted model."""
