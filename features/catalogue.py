@@ -92,6 +92,9 @@ class FeatureDefinition:
         feature measured in ``%``, percentage points), or ``"%"`` with
         ``tolerance_relative`` True for one relative to the true value.
         ``tolerance_note`` says why it is that size. Set with :func:`with_tolerance`.
+    confidence_calibrated
+        True when the reported confidence is a fitted probability of lying within the
+        tolerance (:mod:`features.calibration`); set when the catalogue is assembled.
     """
 
     name: str
@@ -109,6 +112,7 @@ class FeatureDefinition:
     tolerance_unit: str = ""
     tolerance_relative: bool = False
     tolerance_note: str = ""
+    confidence_calibrated: bool = False
 
 
 def with_tolerance(

@@ -31,7 +31,7 @@ from __future__ import annotations
 import hashlib
 import math
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 from features.calibration import calibrated_confidence, is_calibrated
@@ -120,8 +120,9 @@ class FeatureVector:
 
 # --------------------------------------------------------------------------- the catalogue
 
-FEATURES: tuple[FeatureDefinition, ...] = (
-    HEART_RATE_CATALOGUE
+FEATURES: tuple[FeatureDefinition, ...] = tuple(
+    replace(d, confidence_calibrated=is_calibrated(d.name))
+    for d in HEART_RATE_CATALOGUE
     + VARIABILITY_CATALOGUE
     + MORPHOLOGY_CATALOGUE
     + RESPIRATION_CATALOGUE
@@ -262,8 +263,9 @@ def catalogue_markdown() -> str:
             f"- Valid range: {_range_text(d.valid_range)}"
             + ("" if d.unit is None or d.valid_range == (None, None) else f" {d.unit}"),
             f"- Tolerance: {_tolerance_text(d)} ({d.tolerance_note})",
-            f"- Source: `{d.path}`; confidence: {conf}"
-            + ("; calibrated" if is_calibrated(d.name) else ""),
+            f"- Source: `{d.path}`; confidence: "
+            + (f"*calibrated*, P(within tolerance) from {conf} and the analysis's evidence"
+               if d.confidence_calibrated else conf),
             f"- Reference: {d.reference}",
             "",
         ]
@@ -348,6 +350,6 @@ def family_confidence(d: FeatureDefinition, result: AnalysisResult) -> float:
 
 def _confidence(d: FeatureDefinition, result: AnalysisResult) -> float:
     c = family_confidence(d, result)
-    if is_calibrated(d.name):
+    if d.confidence_calibrated:
         c = calibrated_confidence(d.name, c, result)
     return c

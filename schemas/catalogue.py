@@ -11,7 +11,6 @@ from typing import Any
 
 from marshmallow import Schema, fields
 
-from features.calibration import is_calibrated
 from features.feature_vector import FEATURES, FeatureDefinition
 
 __all__ = ["FEATURES", "CatalogueSchema", "FeatureSchema", "FeatureValueSchema"]
@@ -56,8 +55,7 @@ class FeatureSchema(Schema):
     tolerance_relative = fields.Boolean(required=True, metadata={
         "description": "True when the tolerance is a percentage of the true value."
     })
-    confidence_calibrated = fields.Method("_calibrated", required=True, metadata={
-        "type": "boolean",
+    confidence_calibrated = fields.Boolean(required=True, metadata={
         "description": (
             "True when the confidence is a fitted probability of lying within the "
             "tolerance; false when it is the family's own score (it ranks, but is not a "
@@ -70,9 +68,6 @@ class FeatureSchema(Schema):
 
     def _range(self, entry: FeatureDefinition) -> list[float | None]:
         return [entry.valid_range[0], entry.valid_range[1]]
-
-    def _calibrated(self, entry: FeatureDefinition) -> bool:
-        return is_calibrated(entry.name)
 
 
 class CatalogueSchema(Schema):

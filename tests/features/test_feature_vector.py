@@ -8,6 +8,7 @@ from dataclasses import replace
 
 import pytest
 
+from features.calibration import is_calibrated
 from features.conditioning import ChannelInput
 from features.engine import FEATURE_SET_VERSION, AnalysisResult, Subject, analyze
 from features.feature_vector import (
@@ -200,9 +201,15 @@ def test_wave_confidence_caps_only_the_features_that_use_the_wave(
     waves = tuple(replace(w, confidence=0.05) if w.name == "I" else w
                   for w in result.morphology.waves)
     vector = feature_vector(replace(result, morphology=replace(result.morphology, waves=waves)))
-    assert vector.get("ij_interval_ms").confidence <= 0.05
+    before_vector = feature_vector(result)
+    # A calibrated feature (issue 12) takes the capped family confidence as one input of
+    # its fitted model, monotone in it: lower, though not necessarily to the cap.
+    assert is_calibrated("ij_interval_ms")
+    assert (vector.get("ij_interval_ms").confidence
+            < before_vector.get("ij_interval_ms").confidence)
+    assert not is_calibrated("ij_amplitude")
     assert vector.get("ij_amplitude").confidence <= 0.05
-    before = feature_vector(result).get("jk_interval_ms").confidence
+    before = before_vector.get("jk_interval_ms").confidence
     assert vector.get("jk_interval_ms").confidence == before > 0.05
 
 
