@@ -4,14 +4,16 @@ Every catalogue entry names a tolerance (``FeatureDefinition.tolerance``). For t
 listed in :data:`features.calibration_table.MODELS`, the confidence that
 :func:`features.feature_vector.feature_vector` reports is the engine's estimate of
 P(|reported - true| <= tolerance), from a logistic model of a few evidence quantities that
-the engine has already measured (:func:`evidence`). The coefficients were fitted offline on a
+the engine has already measured (:func:`evidence`), mapped to probability by an isotonic
+regression of the hits on the model's score. The coefficients were fitted offline on a
 simulated training cohort by ``python -m validation.calibration --fit`` and are kept as data
 in :mod:`features.calibration_table` with the fit's date, seeds and cohort sizes; applying
 them is a dot product and a logistic function.
 
-Every evidence quantity is oriented so that a larger value is better evidence, and the fit
-constrains every coefficient to be non-negative: the calibrated confidence never falls when
-evidence improves (monotone by construction). A value whose family confidence is 0 (the
+Every evidence quantity but the size of the value itself (:data:`SIGNED_EVIDENCE`) is
+oriented so that a larger value is better evidence, and the fit constrains their
+coefficients to be non-negative: the calibrated confidence never falls when evidence
+improves (monotone by construction). A value whose family confidence is 0 (the
 family found nothing it trusts) keeps confidence 0, and where no heartbeat was found the
 family confidence stands.
 
@@ -27,6 +29,7 @@ doi:10.1145/1102351.1102430
 
 from __future__ import annotations
 
+import bisect
 import math
 from typing import TYPE_CHECKING
 
@@ -35,7 +38,15 @@ from features.calibration_table import MODELS
 if TYPE_CHECKING:
     from features.engine import AnalysisResult
 
-__all__ = ["EVIDENCE_NAMES", "calibrated_confidence", "evidence", "is_calibrated", "logistic"]
+__all__ = [
+    "EVIDENCE_NAMES",
+    "SIGNED_EVIDENCE",
+    "calibrated_confidence",
+    "evidence",
+    "is_calibrated",
+    "isotonic_map",
+    "logistic",
+]
 
 EVIDENCE_NAMES = (
     "heuristic",
@@ -56,9 +67,17 @@ EVIDENCE_NAMES = (
     "jk_precision",
     "rsa_over_jitter",
     "coherence",
+    "normal_fraction",
+    "log_sdnn",
+    "log_rmssd",
+    "log_rsa",
 )
-"""Evidence quantities, each finite and larger when the evidence is better (see
-:func:`evidence` for their definitions)."""
+"""Evidence quantities, each finite (see :func:`evidence` for their definitions); larger is
+better evidence for all but :data:`SIGNED_EVIDENCE`."""
+
+SIGNED_EVIDENCE = frozenset({"log_rsa"})
+"""Evidence whose direction is not known in advance (the size of the value itself); the fit
+lets its coefficient take either sign."""
 
 
 def logistic(z: float) -> float:
@@ -120,7 +139,10 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
           floor 1 ms);
         - ``ij_precision``, ``jk_precision``: log of 10 ms over the interval's standard
           error (floor 0.1 ms; 0 when unknown);
-        - ``coherence``: cardiorespiratory coherence (0 when not computed).
+        - ``coherence``: cardiorespiratory coherence (0 when not computed);
+        - ``normal_fraction``: share of the beat-to-beat intervals screened as normal;
+        - ``log_sdnn``, ``log_rmssd``, ``log_rsa``: log of the value in ms (floor 1 ms; a
+          relative tolerance is easier to meet on a larger value).
     """
     hr = result.heart_rate
     beats = result.beats
@@ -161,6 +183,10 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
         "jk_precision": precision(mor.jk_interval_se_ms),
         "rsa_over_jitter": _log_ratio(result.modulation.rsa_ms, jitter, 1.0),
         "coherence": _num(result.modulation.coherence),
+        "normal_fraction": _num(result.interval_labels.fraction_normal),
+        "log_sdnn": math.log(max(1.0, _num(td.sdnn_ms))),
+        "log_rmssd": math.log(max(1.0, _num(td.rmssd_ms))),
+        "log_rsa": math.log(max(1.0, _num(result.modulation.rsa_ms))),
     }
 
 
@@ -203,4 +229,17 @@ def calibrated_confidence(name: str, heuristic: float, result: AnalysisResult) -
     z = model.intercept
     for key, w in zip(model.inputs, model.coefficients, strict=True):
         z += w * ev[key]
-    return logistic(z)
+    return isotonic_map(z, model.knot_scores, model.knot_probabilities)
+
+
+def isotonic_map(z: float, scores: tuple[float, ...], probabilities: tuple[float, ...]
+                 ) -> float:
+    """The fitted isotonic map at score ``z``: linear between knots, constant beyond."""
+    if z <= scores[0]:
+        return probabilities[0]
+    if z >= scores[-1]:
+        return probabilities[-1]
+    k = bisect.bisect_right(scores, z)
+    z0, z1 = scores[k - 1], scores[k]
+    p0, p1 = probabilities[k - 1], probabilities[k]
+    return p0 + (p1 - p0) * (z - z0) / (z1 - z0)

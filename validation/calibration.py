@@ -14,9 +14,12 @@ becomes one sample (evidence, hit) where hit = |reported - true| <= tolerance.
 Fit: per feature, a logistic regression of the hit on a few evidence quantities
 (:data:`MODEL_INPUTS`; :func:`features.calibration.evidence`) with every coefficient held
 non-negative (the evidence is oriented so that larger is better, so the confidence is monotone
-in each) and a small L2 penalty, by ``scipy.optimize.minimize`` (L-BFGS-B): Platt scaling
-generalised to several inputs (Platt 1999; Niculescu-Mizil and Caruana, ICML 2005). The
-coefficients and the fit's provenance are written to ``features/calibration_table.py``.
+in each; the value's own size may take either sign) and a small L2 penalty, by
+``scipy.optimize.minimize`` (L-BFGS-B): Platt scaling generalised to several inputs (Platt
+1999). Its score is then mapped to probability by isotonic regression fitted on
+out-of-fold scores (5 folds by case), which corrects the shape where the logistic link
+is wrong (Niculescu-Mizil and Caruana, ICML 2005). The coefficients, the isotonic knots and
+the fit's provenance are written to ``features/calibration_table.py``.
 
 Report (test cohort): per headline feature, the expected calibration error over
 :data:`N_BINS` equal-width confidence bins (Guo et al., ICML 2017), the Brier score and that
@@ -44,7 +47,7 @@ from pathlib import Path
 import numpy as np
 from scipy import optimize
 
-from features.calibration import evidence
+from features.calibration import EVIDENCE_NAMES, SIGNED_EVIDENCE, evidence
 from features.conditioning import ChannelInput
 from features.engine import AnalysisResult, Subject, analyze
 from features.errors import EngineError
@@ -73,9 +76,11 @@ use 15 on ten thousands of samples; 10 keeps a few tens of samples per bin here)
 
 TRAIN_SEED = 710_000
 TEST_SEED = 930_000
-L2 = 1e-2
-"""Ridge penalty on the coefficients (not the intercept), per sample; keeps the fit finite
-where a feature's hits are perfectly separated."""
+L2 = 1e-4
+"""Ridge penalty on the standardised coefficients (not the intercept), per sample; keeps the
+fit finite where a feature's hits are perfectly separated."""
+N_FOLDS = 5
+"""Folds (by case) of the out-of-fold scores the isotonic map is fitted on."""
 
 HEADLINE = ("heart_rate_mean_bpm", "breathing_rate_per_min", "sdnn_ms", "rmssd_ms",
             "ij_interval_ms", "jk_interval_ms", "rsa_ms")
@@ -87,9 +92,9 @@ MODEL_INPUTS: dict[str, tuple[str, ...]] = {
     "heart_rate_mean_bpm": _BEATS,
     "heart_rate_median_bpm": _BEATS,
     "mean_nn_ms": _BEATS,
-    "sdnn_ms": (*_BEATS, "sdnn_over_jitter"),
-    "rmssd_ms": (*_BEATS, "rmssd_over_jitter"),
-    "pnn50_pct": (*_BEATS, "rmssd_over_jitter"),
+    "sdnn_ms": (*_BEATS, "sdnn_over_jitter", "normal_fraction", "log_sdnn"),
+    "rmssd_ms": (*_BEATS, "rmssd_over_jitter", "normal_fraction", "log_rmssd"),
+    "pnn50_pct": (*_BEATS, "rmssd_over_jitter", "normal_fraction"),
     "breathing_rate_per_min": ("heuristic", "log_usable_s", "breath_agreement", "log_breaths",
                                "breath_regularity"),
     "ij_interval_ms": ("heuristic", "log_intervals", "template_correlation", "template_snr",
@@ -97,7 +102,7 @@ MODEL_INPUTS: dict[str, tuple[str, ...]] = {
     "jk_interval_ms": ("heuristic", "log_intervals", "template_correlation", "template_snr",
                        "jk_precision"),
     "rsa_ms": ("heuristic", "log_breaths", "interval_consistency", "rsa_over_jitter",
-               "coherence", "hr_agreement"),
+               "coherence", "hr_agreement", "normal_fraction", "log_rsa"),
 }
 """Evidence quantities of each calibrated feature's model."""
 
@@ -280,31 +285,58 @@ def collect(cases: Sequence[Case], features: Sequence[str], *,
 
 # --------------------------------------------------------------------------- fit
 
-def fit_logistic(x: np.ndarray, y: np.ndarray, *, l2: float = L2
-                 ) -> tuple[np.ndarray, float]:
+def fit_logistic(x: np.ndarray, y: np.ndarray, *, l2: float = L2,
+                 signed: Sequence[bool] | None = None) -> tuple[np.ndarray, float]:
     """Logistic regression with non-negative coefficients and a ridge penalty.
 
-    Minimises the mean log loss plus ``l2 * |w|^2`` over w >= 0 and a free intercept
-    (L-BFGS-B); the inputs are used as given (not standardised), so that the stored
-    coefficients apply to the raw evidence. Returns (w, intercept).
+    The inputs are standardised (mean 0, SD 1 over the samples) for the fit, so that the
+    ridge weighs every input alike; the returned coefficients apply to the raw inputs.
+    Minimises the mean log loss plus ``l2 * |w|^2`` (on the standardised scale) over
+    w >= 0 (w free where ``signed``) and a free intercept (L-BFGS-B). Returns (w, intercept).
     """
     n, k = x.shape
+    mu = x.mean(axis=0)
+    sd = x.std(axis=0)
+    sd[sd == 0.0] = 1.0
+    xs = (x - mu) / sd
 
     def loss(theta: np.ndarray) -> tuple[float, np.ndarray]:
         w, b = theta[:k], theta[k]
-        z = x @ w + b
+        z = xs @ w + b
         p = 1.0 / (1.0 + np.exp(-z))
         # log(1 + e^z) - y z, stable for either sign of z
         ll = np.logaddexp(0.0, z) - y * z
         g = p - y
-        grad = np.concatenate([x.T @ g / n + 2.0 * l2 * w, [g.mean()]])
+        grad = np.concatenate([xs.T @ g / n + 2.0 * l2 * w, [g.mean()]])
         return float(ll.mean() + l2 * w @ w), grad
 
     theta0 = np.zeros(k + 1)
-    bounds = [(0.0, None)] * k + [(None, None)]
+    free = signed if signed is not None else [False] * k
+    bounds = [(None, None) if f else (0.0, None) for f in free] + [(None, None)]
     res = optimize.minimize(loss, theta0, jac=True, method="L-BFGS-B", bounds=bounds,
-                            options={"maxiter": 2000})
-    return res.x[:k], float(res.x[k])
+                            options={"maxiter": 5000})
+    w = res.x[:k] / sd
+    return w, float(res.x[k] - w @ mu)
+
+
+def fit_isotonic_map(z: np.ndarray, y: np.ndarray, folds: np.ndarray
+                     ) -> tuple[np.ndarray, np.ndarray]:
+    """Knots (score, probability) of the isotonic regression of the hits on a score.
+
+    Isotonic regression (pool adjacent violators, ``scipy.optimize.isotonic_regression``)
+    of ``y`` on ``z`` sorted; each constant block becomes one knot at its mean score, and
+    the probabilities are clipped to [0.01, 0.99] (a finite cohort cannot show certainty).
+    Niculescu-Mizil and Caruana (ICML 2005), sec. 2.2. ``folds`` is unused here: the
+    caller passes out-of-fold scores.
+    """
+    del folds
+    order = np.argsort(z, kind="stable")
+    levels = optimize.isotonic_regression(y[order]).x
+    zs = z[order]
+    kz = np.array([zs[levels == v].mean() for v in np.unique(levels)])
+    kp = np.clip(np.unique(levels), 0.01, 0.99)
+    order = np.argsort(kz)
+    return kz[order], kp[order]
 
 
 def predict(x: np.ndarray, w: np.ndarray, b: float) -> np.ndarray:
@@ -318,7 +350,8 @@ def _matrix(samples: Sequence[Sample], inputs: Sequence[str]) -> tuple[np.ndarra
     return x.reshape(len(samples), len(inputs)), y
 
 
-def _write_table(models: dict[str, tuple[tuple[str, ...], np.ndarray, float, int, float]],
+def _write_table(models: dict[str, tuple[tuple[str, ...], np.ndarray, float, int, float,
+                                         np.ndarray, np.ndarray]],
                  fit: dict[str, object], path: Path) -> None:
     lines = [
         '"""Fitted calibration models (generated by ``python -m validation.calibration --fit``).',
@@ -335,13 +368,17 @@ def _write_table(models: dict[str, tuple[tuple[str, ...], np.ndarray, float, int
         "",
         "@dataclass(frozen=True)",
         "class LogisticModel:",
-        '    """P(within tolerance) = logistic(intercept + sum(coefficients * evidence))."""',
+        '    """P(within tolerance): the score intercept + sum(coefficients * evidence), mapped',
+        "    through the isotonic knots (linear between them, constant beyond).",
+        '    """',
         "",
         "    inputs: tuple[str, ...]",
         "    coefficients: tuple[float, ...]",
         "    intercept: float",
         "    n_train: int",
         "    base_rate: float",
+        "    knot_scores: tuple[float, ...]",
+        "    knot_probabilities: tuple[float, ...]",
         "",
         "",
         "FIT: dict[str, object] = {",
@@ -350,7 +387,7 @@ def _write_table(models: dict[str, tuple[tuple[str, ...], np.ndarray, float, int
         lines.append(f"    {k!r}: {v!r},")
     lines += ["}", '"""Provenance of the fit: date, script, seeds, cohort sizes and ranges."""',
               "", "MODELS: dict[str, LogisticModel] = {"]
-    for name, (inputs, w, b, n, base) in models.items():
+    for name, (inputs, w, b, n, base, kz, kp) in models.items():
         lines.append(f"    {name!r}: LogisticModel(")
         lines.append("        inputs=(")
         lines += [f"            {k!r}," for k in inputs]
@@ -358,16 +395,39 @@ def _write_table(models: dict[str, tuple[tuple[str, ...], np.ndarray, float, int
         lines.append("        coefficients=(")
         lines += [f"            {float(c):.6g}," for c in w]
         lines.append("        ),")
-        lines.append(f"        intercept={b:.6g}, n_train={n}, base_rate={base:.4f}),")
+        lines.append(f"        intercept={b:.6g}, n_train={n}, base_rate={base:.4f},")
+        lines.append("        knot_scores=(")
+        lines += [f"            {float(v):.6g}," for v in kz]
+        lines.append("        ),")
+        lines.append("        knot_probabilities=(")
+        lines += [f"            {float(v):.4f}," for v in kp]
+        lines.append("        ),")
+        lines.append("    ),")
     lines += ["}", '"""Catalogue name -> fitted model."""', ""]
     path.write_text("\n".join(lines), encoding="utf-8")
 
 
-def run_fit(n_train: int, table: Path) -> dict[str, object]:
+def _cached_collect(cases: Sequence[Case], features: Sequence[str], cache: Path | None
+                    ) -> list[Sample]:
+    """:func:`collect`, kept in ``cache`` (JSON) for reruns with the same cases and evidence."""
+    key = {"seeds": [c.settings.seed for c in cases], "features": list(features),
+           "evidence": list(EVIDENCE_NAMES)}
+    if cache is not None and cache.exists():
+        data = json.loads(cache.read_text(encoding="utf-8"))
+        if data["key"] == key:
+            return [Sample(**row) for row in data["samples"]]
+    samples = collect(cases, features, progress=_progress(len(cases)))
+    if cache is not None:
+        cache.write_text(json.dumps({"key": key, "samples": [vars(s) for s in samples]}),
+                         encoding="utf-8")
+    return samples
+
+
+def run_fit(n_train: int, table: Path, cache: Path | None = None) -> dict[str, object]:
     """Collect the training cohort, fit every model and write ``table``."""
     started = time.time()
     cases = build_cases(TRAIN_RANGES, n_train, TRAIN_SEED)
-    samples = collect(cases, tuple(MODEL_INPUTS), progress=_progress(len(cases)))
+    samples = _cached_collect(cases, tuple(MODEL_INPUTS), cache)
     models = {}
     for name, inputs in MODEL_INPUTS.items():
         own = [s for s in samples if s.feature == name]
@@ -375,12 +435,21 @@ def run_fit(n_train: int, table: Path) -> dict[str, object]:
         if len(own) < 30 or y.min() == y.max():
             print(f"{name}: {len(own)} samples, not fitted", file=sys.stderr)
             continue
-        w, b = fit_logistic(x, y)
-        models[name] = (inputs, w, b, len(own), float(y.mean()))
+        signed = [k in SIGNED_EVIDENCE for k in inputs]
+        w, b = fit_logistic(x, y, signed=signed)
+        # The isotonic map is fitted on scores of models that did not see the sample.
+        fold = np.array([s.case % N_FOLDS for s in own])
+        oof = np.empty(len(y))
+        for f in range(N_FOLDS):
+            m = fold == f
+            wf, bf = fit_logistic(x[~m], y[~m], signed=signed)
+            oof[m] = x[m] @ wf + bf
+        kz, kp = fit_isotonic_map(oof, y, fold)
+        models[name] = (inputs, w, b, len(own), float(y.mean()), kz, kp)
     fit = {
         "date": datetime.date.today().isoformat(),
         "script": "python -m validation.calibration --fit",
-        "method": f"logistic regression, coefficients >= 0, ridge {L2:g}, L-BFGS-B",
+        "method": f"logistic score (w >= 0, ridge {L2:g}), isotonic map ({N_FOLDS} folds)",
         "train_seed_first": TRAIN_SEED,
         "train_seed_last": TRAIN_SEED + n_train - 1,
         "train_cases": n_train,
@@ -539,10 +608,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--quick", action="store_true", help="120 test cases")
     parser.add_argument("--figures", type=Path, default=Path("docs/calibration"))
     parser.add_argument("--json", type=Path, default=None)
+    parser.add_argument("--cache", type=Path, default=None,
+                        help="keep the training samples here (JSON) and reuse them")
     args = parser.parse_args(argv)
     if args.fit:
         table = Path(__file__).resolve().parent.parent / "features" / "calibration_table.py"
-        fit = run_fit(args.n_train, table)
+        fit = run_fit(args.n_train, table, args.cache)
         print(json.dumps(fit, indent=1))
         return 0
     n = 120 if args.quick else args.n_test

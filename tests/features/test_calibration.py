@@ -11,9 +11,11 @@ import pytest
 from features import ChannelInput, Subject, analyze
 from features.calibration import (
     EVIDENCE_NAMES,
+    SIGNED_EVIDENCE,
     calibrated_confidence,
     evidence,
     is_calibrated,
+    isotonic_map,
     logistic,
 )
 from features.calibration_table import FIT, MODELS
@@ -55,10 +57,12 @@ def test_every_headline_feature_is_calibrated_with_known_evidence() -> None:
 
 
 def test_models_are_monotone_in_every_evidence() -> None:
-    # Every evidence quantity is oriented "larger is better": a model may ignore one
-    # (coefficient 0) but never reward worse evidence.
+    # Every evidence quantity but the value's own size is oriented "larger is better": a
+    # model may ignore one (coefficient 0) but never reward worse evidence.
+    assert SIGNED_EVIDENCE < set(EVIDENCE_NAMES)
     for name, model in MODELS.items():
-        assert all(w >= 0.0 for w in model.coefficients), name
+        for key, w in zip(model.inputs, model.coefficients, strict=True):
+            assert w >= 0.0 or key in SIGNED_EVIDENCE, (name, key)
 
 
 def test_confidence_rises_with_the_family_confidence(result) -> None:  # type: ignore[no-untyped-def]
@@ -66,6 +70,9 @@ def test_confidence_rises_with_the_family_confidence(result) -> None:  # type: i
         low = calibrated_confidence(name, 0.2, result)
         high = calibrated_confidence(name, 0.9, result)
         assert 0.0 < low <= high < 1.0, name
+    # And strictly somewhere: the family confidence is evidence, not ignored everywhere.
+    assert any(calibrated_confidence(n, 0.05, result) < calibrated_confidence(n, 1.0, result)
+               for n in MODELS)
 
 
 def test_zero_family_confidence_stays_zero(result) -> None:  # type: ignore[no-untyped-def]
@@ -124,3 +131,22 @@ def test_logistic_is_stable() -> None:
     assert logistic(0.0) == 0.5
     assert logistic(3.0) + logistic(-3.0) == pytest.approx(1.0, abs=1e-15)  # rounding
     assert logistic(1000.0) == 1.0 and logistic(-1000.0) == 0.0
+
+
+def test_isotonic_maps_are_monotone_and_bounded() -> None:
+    # Isotonic regression (Niculescu-Mizil and Caruana, ICML 2005) gives a non-decreasing
+    # map; the fit keeps its probabilities within [0.01, 0.99].
+    for name, model in MODELS.items():
+        ks, kp = model.knot_scores, model.knot_probabilities
+        assert len(ks) == len(kp) >= 1, name
+        assert all(a < b for a, b in zip(ks, ks[1:], strict=False)), name
+        assert all(a <= b for a, b in zip(kp, kp[1:], strict=False)), name
+        assert 0.01 <= kp[0] and kp[-1] <= 0.99, name
+
+
+def test_isotonic_map_interpolates_between_knots() -> None:
+    # Hand-worked: halfway between knots (0, 0.2) and (2, 0.6) is 0.4; constant beyond.
+    ks, kp = (0.0, 2.0, 3.0), (0.2, 0.6, 0.9)
+    assert isotonic_map(1.0, ks, kp) == pytest.approx(0.4, abs=1e-12)  # rounding only
+    assert isotonic_map(-5.0, ks, kp) == 0.2
+    assert isotonic_map(7.0, ks, kp) == 0.9
