@@ -512,7 +512,7 @@ def _diagram(name: str, conf: np.ndarray, hit: np.ndarray, ece: float, path: Pat
     tol = (f"{d.tolerance:g} % of truth" if d.tolerance_relative
            else f"{d.tolerance:g} {d.tolerance_unit}")
     bins = reliability_bins(conf, hit)
-    fig, ax = plt.subplots(figsize=(4.6, 4.6), dpi=80)
+    fig, ax = plt.subplots(figsize=(5.0, 5.0), dpi=90)
     ax.plot([0, 1], [0, 1], color="0.6", lw=1, ls="--", label="perfect calibration")
     mids = (np.arange(N_BINS) + 0.5) / N_BINS
     xs = [m for (n, c, a), m in zip(bins, mids, strict=True) if n]
@@ -529,7 +529,7 @@ def _diagram(name: str, conf: np.ndarray, hit: np.ndarray, ece: float, path: Pat
     ax.set_title(f"{name} (tolerance {tol})\nECE {ece:.3f}, {len(conf)} values, "
                  f"{N_BINS} bins", fontsize=9)
     ax.legend(loc="upper left", fontsize=7)
-    fig.text(0.5, 0.01, CAUTION, ha="center", fontsize=6, wrap=True)
+    fig.text(0.5, 0.015, CAUTION, ha="center", fontsize=7.5, wrap=True)
     fig.subplots_adjust(bottom=0.2)
     fig.savefig(path)
     plt.close(fig)
