@@ -35,7 +35,6 @@ FIT: dict[str, object] = {
     'train_samples': 14132,
     'test_seed_first': 930000,
     'ranges': 'validation.calibration.TRAIN_RANGES (test: TEST_RANGES)',
-    'fit_seconds': 0,
 }
 """Provenance of the fit: date, script, seeds, cohort sizes and ranges."""
 

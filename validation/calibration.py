@@ -39,7 +39,6 @@ import datetime
 import json
 import math
 import sys
-import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -387,21 +386,16 @@ def _write_table(models: dict[str, tuple[tuple[str, ...], np.ndarray, float, int
         lines.append(f"    {k!r}: {v!r},")
     lines += ["}", '"""Provenance of the fit: date, script, seeds, cohort sizes and ranges."""',
               "", "MODELS: dict[str, LogisticModel] = {"]
+    def field(key: str, items: Sequence[str]) -> list[str]:
+        return [f"        {key}=(", *(f"            {v}," for v in items), "        ),"]
+
     for name, (inputs, w, b, n, base, kz, kp) in models.items():
         lines.append(f"    {name!r}: LogisticModel(")
-        lines.append("        inputs=(")
-        lines += [f"            {k!r}," for k in inputs]
-        lines.append("        ),")
-        lines.append("        coefficients=(")
-        lines += [f"            {float(c):.6g}," for c in w]
-        lines.append("        ),")
+        lines += field("inputs", [repr(k) for k in inputs])
+        lines += field("coefficients", [f"{float(c):.6g}" for c in w])
         lines.append(f"        intercept={b:.6g}, n_train={n}, base_rate={base:.4f},")
-        lines.append("        knot_scores=(")
-        lines += [f"            {float(v):.6g}," for v in kz]
-        lines.append("        ),")
-        lines.append("        knot_probabilities=(")
-        lines += [f"            {float(v):.4f}," for v in kp]
-        lines.append("        ),")
+        lines += field("knot_scores", [f"{float(v):.6g}" for v in kz])
+        lines += field("knot_probabilities", [f"{float(v):.4f}" for v in kp])
         lines.append("    ),")
     lines += ["}", '"""Catalogue name -> fitted model."""', ""]
     path.write_text("\n".join(lines), encoding="utf-8")
@@ -425,7 +419,6 @@ def _cached_collect(cases: Sequence[Case], features: Sequence[str], cache: Path 
 
 def run_fit(n_train: int, table: Path, cache: Path | None = None) -> dict[str, object]:
     """Collect the training cohort, fit every model and write ``table``."""
-    started = time.time()
     cases = build_cases(TRAIN_RANGES, n_train, TRAIN_SEED)
     samples = _cached_collect(cases, tuple(MODEL_INPUTS), cache)
     models = {}
@@ -456,7 +449,6 @@ def run_fit(n_train: int, table: Path, cache: Path | None = None) -> dict[str, o
         "train_samples": len(samples),
         "test_seed_first": TEST_SEED,
         "ranges": "validation.calibration.TRAIN_RANGES (test: TEST_RANGES)",
-        "fit_seconds": round(time.time() - started),
     }
     _write_table(models, fit, table)
     return fit
