@@ -143,7 +143,9 @@ def heart_rate_variability(
        min(1, duration_s / 300)``: the share of intervals kept, the NN count
        against the largest short-term minimum used here (200, sample
        entropy), and the time covered against the Task Force 5-min standard.
-       A heuristic from measurable evidence, not a calibrated probability.
+       A heuristic from measurable evidence, not a calibrated probability; the
+       feature vector turns it, with the rest of the analysis's evidence, into each
+       feature's calibrated confidence (:mod:`features.calibration`).
     """
     times, intervals = validate_interval_series(times_s, intervals_ms)
     names = labels.labels if isinstance(labels, IntervalLabels) else labels
