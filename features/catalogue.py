@@ -9,7 +9,8 @@ every family can import it.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import math
+from dataclasses import dataclass, replace
 
 from features.limits import MAX_RATE_BPM, MIN_RATE_BPM, MS_PER_MIN
 
@@ -36,6 +37,7 @@ __all__ = [
     "REF_TASK_FORCE",
     "REF_WELCH",
     "UNIT_INTERVAL",
+    "with_tolerance",
 ]
 
 AMPLITUDE_UNIT = "{amplitude_unit}"
@@ -84,6 +86,16 @@ class FeatureDefinition:
         Words that a flag explaining this feature's absence contains (between underscores),
         for example ``("lf",)`` for ``"lf_needs_120_s"``; the path's last name without its
         unit suffix when empty.
+    tolerance, tolerance_unit, tolerance_relative, tolerance_note
+        The error the confidence speaks of: the confidence of a calibrated feature is the
+        probability that |reported - true| <= ``tolerance``. ``tolerance_unit`` is the
+        feature's own unit for an absolute tolerance (``"1"`` when dimensionless; for a
+        feature measured in ``%``, percentage points), or ``"%"`` with
+        ``tolerance_relative`` True for one relative to the true value.
+        ``tolerance_note`` says why it is that size. Set with :func:`with_tolerance`.
+    confidence_calibrated
+        True when the reported confidence is a fitted probability of lying within the
+        tolerance (:mod:`features.calibration`); set when the catalogue is assembled.
     """
 
     name: str
@@ -97,6 +109,33 @@ class FeatureDefinition:
     confidence_waves: tuple[str, ...] = ()
     flags_paths: tuple[str, ...] = ()
     reason_keys: tuple[str, ...] = ()
+    tolerance: float = math.nan
+    tolerance_unit: str = ""
+    tolerance_relative: bool = False
+    tolerance_note: str = ""
+    confidence_calibrated: bool = False
+
+
+def with_tolerance(
+    entries: tuple[FeatureDefinition, ...],
+    tolerances: dict[str, tuple[float, str, str]],
+) -> tuple[FeatureDefinition, ...]:
+    """The entries with their tolerances set from ``name -> (tolerance, kind, note)``.
+
+    ``kind`` is ``"abs"`` (in the feature's own unit) or ``"rel"`` (% of the true value).
+    Every entry must have one, and every tolerance an entry (KeyError otherwise).
+    """
+    missing = sorted({d.name for d in entries} ^ set(tolerances))
+    if missing:
+        raise KeyError(f"tolerance table and catalogue differ: {missing}")
+    out = []
+    for d in entries:
+        tol, kind, note = tolerances[d.name]
+        relative = kind == "rel"
+        unit = "%" if relative else (d.unit or "1")
+        out.append(replace(d, tolerance=float(tol), tolerance_unit=unit,
+                           tolerance_relative=relative, tolerance_note=note))
+    return tuple(out)
 
 
 # --------------------------------------------------------------------------- citations

@@ -53,7 +53,7 @@ if TYPE_CHECKING:
     from features.feature_vector import FeatureVector
     from features.windows import WindowedAnalysis
 
-FEATURE_SET_VERSION = "5"
+FEATURE_SET_VERSION = "6"
 """Changes whenever the definition of any emitted feature changes."""
 
 MOVEMENT_PAD_S = 0.5

@@ -32,9 +32,10 @@ import hashlib
 import math
 import re
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
+from features.calibration import calibrated_confidence, is_calibrated
 from features.catalogue import AMPLITUDE_UNIT, FeatureDefinition
 from features.engine import FEATURE_SET_VERSION, AnalysisResult
 from features.heart_rate import CATALOGUE as HEART_RATE_CATALOGUE
@@ -54,6 +55,7 @@ __all__ = [
     "FeatureVector",
     "catalogue_fingerprint",
     "catalogue_markdown",
+    "family_confidence",
     "feature_definition",
     "feature_vector",
 ]
@@ -130,8 +132,9 @@ def values_by_name(values: Sequence[FeatureValue]) -> dict[str, float | None]:
 
 # --------------------------------------------------------------------------- the catalogue
 
-FEATURES: tuple[FeatureDefinition, ...] = (
-    HEART_RATE_CATALOGUE
+FEATURES: tuple[FeatureDefinition, ...] = tuple(
+    replace(d, confidence_calibrated=is_calibrated(d.name))
+    for d in HEART_RATE_CATALOGUE
     + VARIABILITY_CATALOGUE
     + MORPHOLOGY_CATALOGUE
     + RESPIRATION_CATALOGUE
@@ -185,9 +188,13 @@ def feature_vector(result: AnalysisResult) -> FeatureVector:
        feature (starts with its stem, for example ``sdnn`` for ``sdnn_ms``), else the first
        flag that reads as a reason (contains ``needs``, ``too_few``, ``no_``,
        ``not_found``, ``undefined``, ``limited`` or ``zero``), else ``"not_computed"``.
-    3. Confidence is read at ``confidence_path`` and clipped to [0, 1]; for morphology
-       features that depend on located waves it is capped by the lowest confidence of those
-       waves (a missing wave counts 0). A None value has confidence 0.
+    3. The family confidence is read at ``confidence_path`` and clipped to [0, 1]; for
+       morphology features that depend on located waves it is capped by the lowest
+       confidence of those waves (a missing wave counts 0). For a feature with a fitted
+       calibration model (:mod:`features.calibration`) the reported confidence is that
+       model's P(|reported - true| <= tolerance) given the family confidence and the
+       analysis's evidence; otherwise it is the family confidence. A None value has
+       confidence 0.
     4. The unit template ``{amplitude_unit}`` becomes ``result.input.amplitude_unit``. When
        the breathing signal came from the centre of pressure (``respiration.source``), the
        two features measured in its unit (``breathing_amplitude``,
@@ -214,7 +221,8 @@ def catalogue_fingerprint() -> str:
     """SHA-256 (hex) of the catalogue's names, units, definitions, ranges and paths."""
     text = "\n".join(
         "|".join((d.name, d.family, str(d.unit), d.definition, repr(d.valid_range), d.path,
-                  d.confidence_path, ",".join(d.confidence_waves)))
+                  d.confidence_path, ",".join(d.confidence_waves), repr(d.tolerance),
+                  d.tolerance_unit, d.tolerance_note))
         for d in FEATURES
     )
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
@@ -242,6 +250,14 @@ def catalogue_markdown() -> str:
         "computed value outside the valid range is reported as null with reason "
         "`outside_valid_range`. The version changes whenever a definition does.",
         "",
+        "Each feature names a tolerance: an absolute one in the feature's own unit (for a "
+        "feature measured in `%`, percentage points), or one relative to the true value "
+        "(`%` of it, marked *relative*). Where the feature is marked *calibrated*, its "
+        "confidence is the engine's estimate of the probability that the reported value "
+        "lies within that tolerance of the truth, fitted on simulated recordings "
+        "(`python -m validation.calibration --fit`; see docs/validation.md); elsewhere it is "
+        "the family's own confidence, which ranks values but is not a probability.",
+        "",
     ]
     family = None
     for i, d in enumerate(FEATURES, start=1):
@@ -258,7 +274,10 @@ def catalogue_markdown() -> str:
             f"- Unit: {'dimensionless' if d.unit is None else '`' + d.unit + '`'}",
             f"- Valid range: {_range_text(d.valid_range)}"
             + ("" if d.unit is None or d.valid_range == (None, None) else f" {d.unit}"),
-            f"- Source: `{d.path}`; confidence: {conf}",
+            f"- Tolerance: {_tolerance_text(d)} ({d.tolerance_note})",
+            f"- Source: `{d.path}`; confidence: "
+            + (f"*calibrated*, P(within tolerance) from {conf} and the analysis's evidence"
+               if d.confidence_calibrated else conf),
             f"- Reference: {d.reference}",
             "",
         ]
@@ -266,6 +285,13 @@ def catalogue_markdown() -> str:
 
 
 # --------------------------------------------------------------------------- kernels
+
+
+def _tolerance_text(d: FeatureDefinition) -> str:
+    if d.tolerance_relative:
+        return f"{d.tolerance:g} % of the true value (relative)"
+    unit = "" if d.tolerance_unit == "1" else f" {d.tolerance_unit}"
+    return f"{d.tolerance:g}{unit}" + (" (percentage points)" if d.tolerance_unit == "%" else "")
 
 
 def _range_text(rng: tuple[float | None, float | None]) -> str:
@@ -323,10 +349,19 @@ def _reason(d: FeatureDefinition, result: AnalysisResult) -> str:
     return reasons[0] if reasons else NOT_COMPUTED
 
 
-def _confidence(d: FeatureDefinition, result: AnalysisResult) -> float:
+def family_confidence(d: FeatureDefinition, result: AnalysisResult) -> float:
+    """The family's own confidence of feature ``d`` in [0, 1] (Notes of
+    :func:`feature_vector`, step 3, before calibration)."""
     raw = _get(result, d.confidence_path)
     c = float(raw) if raw is not None and math.isfinite(float(raw)) else 0.0
     for name in d.confidence_waves:
         wave = result.morphology.wave(name)
         c = min(c, 0.0 if wave is None or wave.time_ms is None else float(wave.confidence))
     return min(1.0, max(0.0, c))
+
+
+def _confidence(d: FeatureDefinition, result: AnalysisResult) -> float:
+    c = family_confidence(d, result)
+    if d.confidence_calibrated:
+        c = calibrated_confidence(d.name, c, result)
+    return c

@@ -22,7 +22,13 @@ import numpy as np
 from numpy.typing import NDArray
 
 from features.beats import BeatDetection
-from features.catalogue import MS_PER_MIN, RATE_RANGE_BPM, REF_OURS, FeatureDefinition
+from features.catalogue import (
+    MS_PER_MIN,
+    RATE_RANGE_BPM,
+    REF_OURS,
+    FeatureDefinition,
+    with_tolerance,
+)
 from features.intervals import IntervalLabels, IntervalSeries
 
 DETECTION_ERROR_REASONS = frozenset({"extra_beat", "missed_beat", "out_of_range"})
@@ -183,3 +189,10 @@ CATALOGUE: tuple[FeatureDefinition, ...] = (
            f"{MS_PER_MIN:g} divided by the median of the same intervals."),
 )
 """Catalogue entries of the heart-rate family (see :mod:`features.catalogue`)."""
+
+TOLERANCES: dict[str, tuple[float, str, str]] = {
+    "heart_rate_mean_bpm": (2.0, "abs", "issue 12's bound for heart rate"),
+    "heart_rate_median_bpm": (2.0, "abs", "as the mean rate"),
+}
+"""Tolerance of each heart-rate feature: (value, ``"abs"`` or ``"rel"``, why)."""
+CATALOGUE = with_tolerance(CATALOGUE, TOLERANCES)

@@ -29,6 +29,7 @@ from features.catalogue import (
     REF_OURS,
     UNIT_INTERVAL,
     FeatureDefinition,
+    with_tolerance,
 )
 from features.errors import InvalidInputError
 from features.limits import SHORT_TERM_S
@@ -658,3 +659,13 @@ CATALOGUE: tuple[FeatureDefinition, ...] = (
            "coherence"),
 )
 """Catalogue entries of the respiratory-modulation family (see :mod:`features.catalogue`)."""
+
+TOLERANCES: dict[str, tuple[float, str, str]] = {
+    "rsa_ms": (10.0, "abs", "issue 12's bound for RSA"),
+    "amplitude_index": (0.05, "abs", "5 % of stroke volume, the size of a small modulation"),
+    "timing_modulation_pct": (5.0, "abs", "5 percentage points"),
+    "baseline_modulation_ratio": (25.0, "rel", "as the spectral powers"),
+    "cardiorespiratory_coherence": (0.1, "abs", "a tenth of its range"),
+}
+"""Tolerance of each modulation feature: (value, ``"abs"`` or ``"rel"``, why)."""
+CATALOGUE = with_tolerance(CATALOGUE, TOLERANCES)

@@ -30,6 +30,7 @@ from features.catalogue import (
     REF_PYWT,
     UNIT_INTERVAL,
     FeatureDefinition,
+    with_tolerance,
 )
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, frozen, lowpass
@@ -914,3 +915,21 @@ CATALOGUE: tuple[FeatureDefinition, ...] = (
     ),
 )
 """Catalogue entries of the morphology family (see :mod:`features.catalogue`)."""
+
+TOLERANCES: dict[str, tuple[float, str, str]] = {
+    "ij_interval_ms": (10.0, "abs", "issue 12's bound for the I-J interval"),
+    "jk_interval_ms": (10.0, "abs", "issue 12's bound for the J-K interval"),
+    "ik_interval_ms": (10.0, "abs", "as the I-J and J-K intervals"),
+    "hj_interval_ms": (10.0, "abs", "as the I-J and J-K intervals"),
+    "j_width_ms": (10.0, "abs", "as the wave intervals"),
+    "ij_amplitude": (15.0, "rel", "issue 12's bound for wave amplitudes"),
+    "jk_amplitude": (15.0, "rel", "issue 12's bound for wave amplitudes"),
+    "ij_amplitude_per_kg": (15.0, "rel", "as the amplitude it divides"),
+    "jk_amplitude_per_kg": (15.0, "rel", "as the amplitude it divides"),
+    "template_correlation": (0.05, "abs", "a twentieth of its range"),
+    "jk_amplitude_cv_pct": (5.0, "abs", "5 percentage points"),
+    **{f"wavelet_energy_d{k + 1}": (0.05, "abs", "five hundredths of a share that sums to 1")
+       for k in range(len(SIGNATURE_BAND_LABELS))},
+}
+"""Tolerance of each morphology feature: (value, ``"abs"`` or ``"rel"``, why)."""
+CATALOGUE = with_tolerance(CATALOGUE, TOLERANCES)

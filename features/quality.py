@@ -15,7 +15,7 @@ from numpy.typing import NDArray
 
 from features.artifacts import ArtifactMask, Segment
 from features.beats import BeatDetection
-from features.catalogue import REF_OURS, UNIT_INTERVAL, FeatureDefinition
+from features.catalogue import REF_OURS, UNIT_INTERVAL, FeatureDefinition, with_tolerance
 from features.errors import CLIPPED_SIGNAL, FLAT_SIGNAL, UnusableSignalError
 from features.limits import MIN_OCCUPANT_KG, STANDARD_GRAVITY_M_S2
 
@@ -215,3 +215,9 @@ CATALOGUE: tuple[FeatureDefinition, ...] = (
                       (), ("quality.flags",)),
 )
 """Catalogue entries of the quality family (see :mod:`features.catalogue`)."""
+
+TOLERANCES: dict[str, tuple[float, str, str]] = {
+    "usable_fraction": (0.05, "abs", "five hundredths of the recording"),
+}
+"""Tolerance of each quality feature: (value, ``"abs"`` or ``"rel"``, why)."""
+CATALOGUE = with_tolerance(CATALOGUE, TOLERANCES)

@@ -27,6 +27,7 @@ from features.catalogue import (
     REF_OURS,
     REF_WELCH,
     FeatureDefinition,
+    with_tolerance,
 )
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, butter_filtfilt, frozen
@@ -760,3 +761,16 @@ CATALOGUE: tuple[FeatureDefinition, ...] = (
            "observation, not a diagnosis.", NONNEGATIVE, REF_AASM),
 )
 """Catalogue entries of the respiration family (see :mod:`features.catalogue`)."""
+
+TOLERANCES: dict[str, tuple[float, str, str]] = {
+    "breathing_rate_per_min": (1.0, "abs", "issue 12's bound for breathing rate"),
+    "breathing_rate_counted_per_min": (1.0, "abs", "as the breathing rate"),
+    "breathing_rate_spectral_per_min": (1.0, "abs", "as the breathing rate"),
+    "breath_interval_cv_pct": (5.0, "abs", "5 percentage points"),
+    "breathing_rise_fall_ratio": (20.0, "rel", "a fifth of the ratio"),
+    "breathing_amplitude": (15.0, "rel", "as the cardiac wave amplitudes"),
+    "breathing_pauses_per_hour": (5.0, "abs", "the width of one AASM severity band "
+                                  "(5-15 /h, from memory)"),
+}
+"""Tolerance of each respiration feature: (value, ``"abs"`` or ``"rel"``, why)."""
+CATALOGUE = with_tolerance(CATALOGUE, TOLERANCES)

@@ -38,6 +38,30 @@ class FeatureSchema(Schema):
         "description": "[low, high] of plausible values; null where open.",
     })
     reference = fields.String(required=True, metadata={"description": "Source of the definition."})
+    tolerance = fields.Float(required=True, metadata={
+        "minimum": 0,
+        "description": (
+            "The error the confidence speaks of: for a calibrated feature the confidence is "
+            "the estimated probability that |reported - true| <= tolerance."
+        ),
+    })
+    tolerance_unit = fields.String(required=True, metadata={
+        "description": (
+            "The feature's own unit for an absolute tolerance (`1` when dimensionless; "
+            "percentage points for a feature measured in %), or `%` of the true value when "
+            "`tolerance_relative` is true."
+        ),
+    })
+    tolerance_relative = fields.Boolean(required=True, metadata={
+        "description": "True when the tolerance is a percentage of the true value."
+    })
+    confidence_calibrated = fields.Boolean(required=True, metadata={
+        "description": (
+            "True when the confidence is a fitted probability of lying within the "
+            "tolerance; false when it is the family's own score (it ranks, but is not a "
+            "probability)."
+        ),
+    })
     path = fields.String(
         required=True, metadata={"description": "Dotted path of the value in the engine result."}
     )

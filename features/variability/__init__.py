@@ -32,7 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike
 
-from features.catalogue import FeatureDefinition
+from features.catalogue import FeatureDefinition, with_tolerance
 from features.errors import InvalidInputError
 from features.intervals import LABELS, IntervalLabels, validate_interval_series
 from features.variability._shared import _SHORT_TERM_S
@@ -143,7 +143,9 @@ def heart_rate_variability(
        min(1, duration_s / 300)``: the share of intervals kept, the NN count
        against the largest short-term minimum used here (200, sample
        entropy), and the time covered against the Task Force 5-min standard.
-       A heuristic from measurable evidence, not a calibrated probability.
+       A heuristic from measurable evidence, not a calibrated probability; the
+       feature vector turns it, with the rest of the analysis's evidence, into each
+       feature's calibrated confidence (:mod:`features.calibration`).
     """
     times, intervals = validate_interval_series(times_s, intervals_ms)
     names = labels.labels if isinstance(labels, IntervalLabels) else labels
@@ -197,3 +199,23 @@ CATALOGUE: tuple[FeatureDefinition, ...] = (
     _TIME_CATALOGUE + _FREQUENCY_CATALOGUE + _NONLINEAR_CATALOGUE
 )
 """Catalogue entries of the variability families, time domain first."""
+
+TOLERANCES: dict[str, tuple[float, str, str]] = {
+    "mean_nn_ms": (20.0, "abs", "2 /min of heart rate near 75 /min, the heart-rate bound"),
+    "sdnn_ms": (10.0, "rel", "issue 12's bound for SDNN"),
+    "rmssd_ms": (15.0, "rel", "issue 12's bound for RMSSD"),
+    "sdsd_ms": (15.0, "rel", "as RMSSD, which it equals up to the mean difference"),
+    "pnn50_pct": (10.0, "abs", "issue 12's bound for pNN50, 10 percentage points"),
+    "pnn20_pct": (10.0, "abs", "as pNN50"),
+    "cvnn_pct": (10.0, "rel", "as SDNN, of which it is a scaled copy"),
+    "vlf_power_ms2": (25.0, "rel", "as LF and HF power"),
+    "lf_power_ms2": (25.0, "rel", "issue 12's bound for LF power"),
+    "hf_power_ms2": (25.0, "rel", "issue 12's bound for HF power"),
+    "lf_hf_ratio": (35.0, "rel", "two 25 % errors in quadrature (25 x sqrt 2)"),
+    "sd1_ms": (15.0, "rel", "as RMSSD: SD1 is RMSSD / sqrt 2 up to the mean difference"),
+    "sd2_ms": (10.0, "rel", "as SDNN, which dominates it"),
+    "sample_entropy": (15.0, "rel", "as RMSSD, the short-term variation it also reflects"),
+    "dfa_alpha1": (0.1, "abs", "a tenth of the healthy value near 1 (common practice)"),
+}
+"""Tolerance of each variability feature: (value, ``"abs"`` or ``"rel"``, why)."""
+CATALOGUE = with_tolerance(CATALOGUE, TOLERANCES)

@@ -8,6 +8,7 @@ from dataclasses import replace
 
 import pytest
 
+from features.calibration import is_calibrated
 from features.conditioning import ChannelInput
 from features.engine import FEATURE_SET_VERSION, AnalysisResult, Subject, analyze
 from features.feature_vector import (
@@ -35,6 +36,9 @@ KNOWN_CATALOGUES = {
     "4": "93317820dc3c94b9566c62069a804c27ac8960e506d7ab1364244944f3f4aad8",
     # 5: rsa_ms is the cosinor fit against the breathing phase with a slow trend removed.
     "5": "9b6b7d42135a69921ff00afb095bae38a400804afcac4ffd1159e45b667f5c51",
+    # 6: every feature names a tolerance; a calibrated feature's confidence is the fitted
+    # probability of lying within it (issue 12), per feature rather than per family.
+    "6": "df9632c050e841502d3c8e013db2b0c02887208550e875615993523548243a63",
 }
 
 # UCUM symbols for the unit suffixes (Unified Code for Units of Measure, ucum.org; from
@@ -200,9 +204,15 @@ def test_wave_confidence_caps_only_the_features_that_use_the_wave(
     waves = tuple(replace(w, confidence=0.05) if w.name == "I" else w
                   for w in result.morphology.waves)
     vector = feature_vector(replace(result, morphology=replace(result.morphology, waves=waves)))
-    assert vector.get("ij_interval_ms").confidence <= 0.05
+    before_vector = feature_vector(result)
+    # A calibrated feature (issue 12) takes the capped family confidence as one input of
+    # its fitted model, monotone in it: lower, though not necessarily to the cap.
+    assert is_calibrated("ij_interval_ms")
+    assert (vector.get("ij_interval_ms").confidence
+            < before_vector.get("ij_interval_ms").confidence)
+    assert not is_calibrated("ij_amplitude")
     assert vector.get("ij_amplitude").confidence <= 0.05
-    before = feature_vector(result).get("jk_interval_ms").confidence
+    before = before_vector.get("jk_interval_ms").confidence
     assert vector.get("jk_interval_ms").confidence == before > 0.05
 
 

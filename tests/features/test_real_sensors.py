@@ -89,3 +89,5 @@ def test_no_value_is_confident_on_traces_without_a_heartbeat(kind):
     # Breathing too: a slow swing without a heartbeat is not an occupant's breath.
     assert result.respiration.confidence < 0.5
     assert result.modulation.confidence < 0.5
+    # And every feature as reported, calibrated ones included.
+    assert max(f.confidence for f in result.feature_vector.features) < 0.5

@@ -62,8 +62,17 @@ def test_feature_catalogue_lists_features_with_units(client):
     assert {"sdnn_ms", "rmssd_ms", "heart_rate_mean_bpm"} <= set(names)
     for entry in body["features"]:
         assert set(entry) == {"name", "family", "unit", "path", "definition", "valid_range",
-                              "reference"}
+                              "reference", "tolerance", "tolerance_unit",
+                              "tolerance_relative", "confidence_calibrated"}
         assert entry["definition"]
+        # Issue 12: every confidence names the error it speaks of.
+        assert entry["tolerance"] > 0 and entry["tolerance_unit"]
+    by_name = {e["name"]: e for e in body["features"]}
+    # Issue 12's bound for heart rate, 2 /min, and SDNN, 10 % of the true value.
+    assert (by_name["heart_rate_mean_bpm"]["tolerance"],
+            by_name["heart_rate_mean_bpm"]["tolerance_unit"]) == (2.0, "/min")
+    assert by_name["sdnn_ms"]["tolerance_relative"] is True
+    assert by_name["sdnn_ms"]["confidence_calibrated"] is True
     check_against_contract(response, "/v1/features", "get")
 
 

@@ -1,0 +1,245 @@
+"""Calibrated confidence: the probability that a reported value lies within its tolerance.
+
+Every catalogue entry names a tolerance (``FeatureDefinition.tolerance``). For the features
+listed in :data:`features.calibration_table.MODELS`, the confidence that
+:func:`features.feature_vector.feature_vector` reports is the engine's estimate of
+P(|reported - true| <= tolerance), from a logistic model of a few evidence quantities that
+the engine has already measured (:func:`evidence`), mapped to probability by an isotonic
+regression of the hits on the model's score. The coefficients were fitted offline on a
+simulated training cohort by ``python -m validation.calibration --fit`` and are kept as data
+in :mod:`features.calibration_table` with the fit's date, seeds and cohort sizes; applying
+them is a dot product and a logistic function.
+
+Every evidence quantity but the size of the value itself (:data:`SIGNED_EVIDENCE`) is
+oriented so that a larger value is better evidence, and the fit constrains their
+coefficients to be non-negative: the calibrated confidence never falls when evidence
+improves (monotone by construction). A value whose family confidence is 0 (the
+family found nothing it trusts) keeps confidence 0, and where no heartbeat was found the
+family confidence stands.
+
+References
+----------
+Platt JC. Probabilistic outputs for support vector machines and comparisons to regularized
+likelihood methods. In: Advances in Large Margin Classifiers, MIT Press, 61-74, 1999.
+
+Niculescu-Mizil A, Caruana R. Predicting good probabilities with supervised learning.
+Proceedings of the 22nd International Conference on Machine Learning (ICML), 625-632, 2005.
+doi:10.1145/1102351.1102430
+"""
+
+from __future__ import annotations
+
+import bisect
+import math
+from typing import TYPE_CHECKING
+
+from features.calibration_table import MODELS
+
+if TYPE_CHECKING:
+    from features.engine import AnalysisResult
+
+__all__ = [
+    "EVIDENCE_NAMES",
+    "SIGNED_EVIDENCE",
+    "calibrated_confidence",
+    "evidence",
+    "is_calibrated",
+    "isotonic_map",
+    "logistic",
+]
+
+EVIDENCE_NAMES = (
+    "heuristic",
+    "log_intervals",
+    "log_usable_s",
+    "beat_correlation",
+    "template_correlation",
+    "log_beat_evidence",
+    "interval_consistency",
+    "hr_agreement",
+    "breath_agreement",
+    "log_breaths",
+    "breath_regularity",
+    "template_snr",
+    "sdnn_over_jitter",
+    "rmssd_over_jitter",
+    "ij_precision",
+    "jk_precision",
+    "rsa_over_jitter",
+    "coherence",
+    "normal_fraction",
+    "log_sdnn",
+    "log_rmssd",
+    "log_rsa",
+)
+"""Evidence quantities, each finite (see :func:`evidence` for their definitions); larger is
+better evidence for all but :data:`SIGNED_EVIDENCE`."""
+
+SIGNED_EVIDENCE = frozenset({"log_rsa"})
+"""Evidence whose direction is not known in advance (the size of the value itself); the fit
+lets its coefficient take either sign."""
+
+
+def logistic(z: float) -> float:
+    """1 / (1 + exp(-z)), computed without overflow."""
+    if z >= 0.0:
+        return 1.0 / (1.0 + math.exp(-z))
+    e = math.exp(z)
+    return e / (1.0 + e)
+
+
+def _num(x: object, default: float = 0.0) -> float:
+    if x is None:
+        return default
+    v = float(x)  # type: ignore[arg-type]
+    return v if math.isfinite(v) else default
+
+
+def _log_ratio(num: object, den: object, floor: float) -> float:
+    """log(num / max(den, floor)), 0 when num is missing or not positive; clipped to +-6."""
+    n = _num(num)
+    if n <= 0.0:
+        return 0.0
+    return max(-6.0, min(6.0, math.log(n / max(_num(den), floor))))
+
+
+def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
+    """The evidence quantities of one analysis, for one feature's family confidence.
+
+    Parameters
+    ----------
+    result
+        The analysis (its stages; the feature vector is not needed).
+    heuristic
+        The family's own confidence of the feature, in [0, 1].
+
+    Returns
+    -------
+    dict
+        One finite float per name of :data:`EVIDENCE_NAMES`:
+
+        - ``heuristic``: the family confidence;
+        - ``log_intervals``: log(1 + beat-to-beat intervals used for the heart rate);
+        - ``log_usable_s``: log(1 + usable seconds of the recording);
+        - ``beat_correlation``: median correlation of the detected beats with the detector's
+          template (0 without beats);
+        - ``template_correlation``: median correlation of the morphology beats with their
+          ensemble template (0 when not built);
+        - ``log_beat_evidence``: log(1 + the detector's rhythm evidence);
+        - ``interval_consistency``: 1 - fraction of intervals screened out by the
+          variability stage;
+        - ``hr_agreement``: 1 / (1 + |mean-interval rate - envelope rate| / 1 /min), two
+          independent heart-rate estimates (0 when either is missing);
+        - ``breath_agreement``: the same for counted vs spectral breathing rate;
+        - ``log_breaths``: log(1 + breaths counted);
+        - ``breath_regularity``: 1 / (1 + breath-interval CV / 100 %);
+        - ``template_snr``: log of the J - K amplitude over the template's standard error;
+        - ``sdnn_over_jitter``, ``rmssd_over_jitter``, ``rsa_over_jitter``: log of SDNN,
+          RMSSD and RSA over the spread of the J wave's location (the beat-timing jitter,
+          floor 1 ms);
+        - ``ij_precision``, ``jk_precision``: log of 10 ms over the interval's standard
+          error (floor 0.1 ms; 0 when unknown);
+        - ``coherence``: cardiorespiratory coherence (0 when not computed);
+        - ``normal_fraction``: share of the beat-to-beat intervals screened as normal;
+        - ``log_sdnn``, ``log_rmssd``, ``log_rsa``: log of the value in ms (floor 1 ms; a
+          relative tolerance is easier to meet on a larger value).
+    """
+    hr = result.heart_rate
+    beats = result.beats
+    mor = result.morphology
+    resp = result.respiration
+    td = result.variability.time_domain
+    corr = beats.correlation
+    jwave = mor.wave("J")
+    jitter = None if jwave is None else jwave.location_sd_ms
+    usable_s = _num(result.quality.usable_fraction) * _num(result.input.duration_s)
+    rejected = _num(result.variability.fraction_rejected, 1.0)
+
+    def agreement(a: object, b: object) -> float:
+        if a is None or b is None:
+            return 0.0
+        return 1.0 / (1.0 + abs(_num(a) - _num(b)))
+
+    def precision(se: object) -> float:
+        return 0.0 if se is None else _log_ratio(10.0, se, 0.1)
+
+    cv = resp.interval_cv_pct
+    return {
+        "heuristic": min(1.0, max(0.0, _num(heuristic))),
+        "log_intervals": math.log1p(max(0, hr.intervals_used)),
+        "log_usable_s": math.log1p(max(0.0, usable_s)),
+        "beat_correlation": float(sorted(corr)[len(corr) // 2]) if len(corr) else 0.0,
+        "template_correlation": _num(mor.template_correlation_median),
+        "log_beat_evidence": math.log1p(max(0.0, _num(beats.evidence))),
+        "interval_consistency": min(1.0, max(0.0, 1.0 - rejected)),
+        "hr_agreement": agreement(hr.mean_bpm, hr.envelope_bpm),
+        "breath_agreement": agreement(resp.counted_rate_per_min, resp.spectral_rate_per_min),
+        "log_breaths": math.log1p(max(0, resp.breath_count)),
+        "breath_regularity": 0.0 if cv is None else 1.0 / (1.0 + _num(cv) / 100.0),
+        "template_snr": _log_ratio(mor.jk_amplitude, mor.jk_amplitude_se, 1e-12),
+        "sdnn_over_jitter": _log_ratio(td.sdnn_ms, jitter, 1.0),
+        "rmssd_over_jitter": _log_ratio(td.rmssd_ms, jitter, 1.0),
+        "ij_precision": precision(mor.ij_interval_se_ms),
+        "jk_precision": precision(mor.jk_interval_se_ms),
+        "rsa_over_jitter": _log_ratio(result.modulation.rsa_ms, jitter, 1.0),
+        "coherence": _num(result.modulation.coherence),
+        "normal_fraction": _num(result.interval_labels.fraction_normal),
+        "log_sdnn": math.log(max(1.0, _num(td.sdnn_ms))),
+        "log_rmssd": math.log(max(1.0, _num(td.rmssd_ms))),
+        "log_rsa": math.log(max(1.0, _num(result.modulation.rsa_ms))),
+    }
+
+
+def is_calibrated(name: str) -> bool:
+    """True when the feature ``name`` has a fitted calibration model."""
+    return name in MODELS
+
+
+def calibrated_confidence(name: str, heuristic: float, result: AnalysisResult) -> float:
+    """P(|reported - true| <= tolerance) of feature ``name`` in ``result``.
+
+    Parameters
+    ----------
+    name
+        Catalogue name of a feature with a model (:func:`is_calibrated`).
+    heuristic
+        The family's confidence of that feature, in [0, 1].
+    result
+        The analysis.
+
+    Returns
+    -------
+    float
+        In [0, 1]; 0 when ``heuristic`` is 0. Where the analysis found no heartbeat (no
+        beats, or occupancy not established) ``heuristic`` itself: the models were fitted on
+        occupied recordings, and there the family confidences stay below 0.5 by the rules
+        of the quality stage (issue 12: no confident value without a heartbeat).
+
+    Raises
+    ------
+    KeyError
+        When ``name`` has no model.
+    """
+    model = MODELS[name]
+    if heuristic <= 0.0:
+        return 0.0
+    if not result.beats.has_beats or result.occupancy.occupied is not True:
+        return min(1.0, heuristic)
+    ev = evidence(result, heuristic)
+    z = model.intercept
+    for key, w in zip(model.inputs, model.coefficients, strict=True):
+        z += w * ev[key]
+    return isotonic_map(z, model.knot_scores, model.knot_probabilities)
+
+
+def isotonic_map(z: float, scores: tuple[float, ...], probabilities: tuple[float, ...]
+                 ) -> float:
+    """The fitted isotonic map at score ``z``: linear between knots, constant beyond."""
+    if z <= scores[0]:
+        return probabilities[0]
+    if z >= scores[-1]:
+        return probabilities[-1]
+    k = bisect.bisect_right(scores, z)
+    z0, z1 = scores[k - 1], scores[k]
+    p0, p1 = probabilities[k - 1], probabilities[k]
+    return p0 + (p1 - p0) * (z - z0) / (z1 - z0)
