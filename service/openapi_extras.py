@@ -140,7 +140,8 @@ def extend(document: dict[str, Any]) -> None:
     }}
     text = {"description": "Static text.", "headers": headers}
     paths["/"] = {"get": {
-        "operationId": "page", "summary": "The page: drop a trace file, see its report.",
+        "operationId": "page",
+        "summary": "The page: drop a trace file (or a night), see its report; or the demo.",
         "tags": ["page"],
         "responses": {"200": {**text, "content": {"text/html": {"schema": {"type": "string"}}}}},
     }}
@@ -148,6 +149,13 @@ def extend(document: dict[str, Any]) -> None:
         "operationId": "pageScript", "summary": "The page's script.", "tags": ["page"],
         "responses": {"200": {**text, "content": {"text/javascript": {
             "schema": {"type": "string"}}}}},
+    }}
+    paths["/static/demo.json"] = {"get": {
+        "operationId": "pageDemo", "tags": ["page"],
+        "summary": "The demo evening (invented data) as the body of an analysis.",
+        "responses": {"200": {**text, "description": "An AnalysisRequest body.",
+                              "content": {"application/json": {"schema": {
+                                  "$ref": "#/components/schemas/AnalysisRequest"}}}}},
     }}
     paths["/static/page.css"] = {"get": {
         "operationId": "pageStyle", "summary": "The page's style sheet.", "tags": ["page"],
