@@ -14,7 +14,12 @@ from urllib.parse import urlsplit
 from marshmallow import Schema, ValidationError, fields, post_dump, validates
 from marshmallow.validate import OneOf, Range
 
+from features.artifacts import Segment
+from features.feature_vector import FeatureValue, FeatureVector
 from features.limits import MAX_WINDOW_S, MIN_WINDOW_S
+from features.night import BedExit, NightSummary
+from features.quality import OccupancyResult
+from features.windows import WindowedAnalysis, WindowError, WindowResult
 from schemas.catalogue import FeatureValueSchema
 from schemas.responses import (
     NOTICE,
@@ -143,6 +148,8 @@ class NightDocumentSchema(Schema):
     engine_version = fields.String(required=True)
     feature_set_version = fields.String(required=True)
     duration_s = Number(required=True)
+    sampling_rate_hz = Number(required=True, metadata={
+        "description": "Sampling rate of the recording (Hz)."})
     summary = fields.Nested(NightSummarySchema, required=True)
     windows = fields.Nested(NightWindowsSchema, required=True)
     notice = fields.Constant(NOTICE, required=True, dump_only=True)
@@ -159,6 +166,63 @@ def night_document(job_id: str, engine_version: str, windowed: Any, summary: Any
     document: dict[str, Any] = NightDocumentSchema().dump({
         "job_id": job_id, "engine_version": engine_version,
         "feature_set_version": windowed.feature_set_version, "duration_s": windowed.duration_s,
-        "summary": summary, "windows": windowed,
+        "sampling_rate_hz": windowed.fs_hz, "summary": summary, "windows": windowed,
     })
     return document
+
+
+def night_from_document(document: dict[str, Any]) -> tuple[NightSummary, WindowedAnalysis]:
+    """The night summary and windowed analysis a night document was dumped from.
+
+    The night picture (:func:`service.night_report.draw_night`) reads these; rebuilding
+    them from the stored result means a picture never reruns the analysis. A number the
+    document holds as null (None, or NaN where the engine had a non-finite float) stays
+    missing; nothing is filled in.
+    """
+    night = document["summary"]
+    summary = NightSummary(
+        measures=tuple(_feature_value(m) for m in night["measures"]),
+        bed_exits=tuple(BedExit(start_s=e["start_s"], end_s=e["end_s"],
+                                duration_s=e["duration_s"], confidence=e["confidence"])
+                        for e in night["bed_exits"]),
+        occupied_spans_s=tuple((a, b) for a, b in night["occupied_spans_s"]),
+        window_s=night["window_s"], overlap_s=night["overlap_s"],
+        n_windows=night["n_windows"], n_occupied_windows=night["n_occupied_windows"],
+        n_failed_windows=night["n_failed_windows"], unknown_s=night["unknown_s"],
+        flags=tuple(night["flags"]),
+    )
+    windows = document["windows"]
+    windowed = WindowedAnalysis(
+        window_s=windows["window_s"], overlap_s=windows["overlap_s"],
+        step_s=windows["step_s"], fs_hz=document["sampling_rate_hz"],
+        duration_s=document["duration_s"],
+        windows=tuple(_window(w) for w in windows["windows"]),
+        unanalysed_tail_s=windows["unanalysed_tail_s"], n_failed=windows["n_failed"],
+        feature_set_version=document["feature_set_version"], flags=tuple(windows["flags"]),
+    )
+    return summary, windowed
+
+
+def _feature_value(m: dict[str, Any]) -> FeatureValue:
+    return FeatureValue(name=m["name"], value=m["value"], unit=m["unit"],
+                        confidence=m["confidence"], reason=m["reason"])
+
+
+def _window(w: dict[str, Any]) -> WindowResult:
+    vector, error, occupancy = w["feature_vector"], w["error"], w["occupancy"]
+    return WindowResult(
+        index=w["index"], start_s=w["start_s"], end_s=w["end_s"],
+        feature_vector=None if vector is None else FeatureVector(
+            feature_set_version=vector["feature_set_version"],
+            features=tuple(_feature_value(f) for f in vector["features"])),
+        confidence=w["confidence"], usable_fraction=w["usable_fraction"],
+        flags=tuple(w["flags"]),
+        error=None if error is None else WindowError(
+            kind=error["kind"], code=error["code"], message=error["message"]),
+        occupancy=None if occupancy is None else OccupancyResult(
+            occupied=occupancy["occupied"], supported_mass_kg=occupancy["supported_mass_kg"],
+            from_load=occupancy["from_load"], from_heartbeat=occupancy["from_heartbeat"],
+            confidence=occupancy["confidence"], flags=tuple(occupancy["flags"])),
+        segments=tuple(Segment(kind=s["kind"], start_s=s["start_s"], end_s=s["end_s"])
+                       for s in w["segments"]),
+    )

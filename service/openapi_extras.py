@@ -140,7 +140,8 @@ def extend(document: dict[str, Any]) -> None:
     }}
     text = {"description": "Static text.", "headers": headers}
     paths["/"] = {"get": {
-        "operationId": "page", "summary": "The page: drop a trace file, see its report.",
+        "operationId": "page",
+        "summary": "The page: drop a trace file (or a night), see its report; or the demo.",
         "tags": ["page"],
         "responses": {"200": {**text, "content": {"text/html": {"schema": {"type": "string"}}}}},
     }}
@@ -148,6 +149,13 @@ def extend(document: dict[str, Any]) -> None:
         "operationId": "pageScript", "summary": "The page's script.", "tags": ["page"],
         "responses": {"200": {**text, "content": {"text/javascript": {
             "schema": {"type": "string"}}}}},
+    }}
+    paths["/static/demo.json"] = {"get": {
+        "operationId": "pageDemo", "tags": ["page"],
+        "summary": "The demo evening (invented data) as the body of an analysis.",
+        "responses": {"200": {**text, "description": "An AnalysisRequest body.",
+                              "content": {"application/json": {"schema": {
+                                  "$ref": "#/components/schemas/AnalysisRequest"}}}}},
     }}
     paths["/static/page.css"] = {"get": {
         "operationId": "pageStyle", "summary": "The page's style sheet.", "tags": ["page"],
@@ -173,7 +181,8 @@ def extend(document: dict[str, Any]) -> None:
 
 
 def _jobs(document: dict[str, Any], errors: dict[str, Any], headers: dict[str, Any]) -> None:
-    """The night-job paths: POST /v1/jobs, GET/DELETE /v1/jobs/{id}, GET .../result."""
+    """The night-job paths: POST /v1/jobs, GET/DELETE /v1/jobs/{id}, GET .../result and
+    GET .../report."""
     schemas = document["components"]["schemas"]
     settings = schemas.pop("JobSettings")["properties"]
     body = copy.deepcopy(schemas["AnalysisRequest"])
@@ -267,6 +276,32 @@ def _jobs(document: dict[str, Any], errors: dict[str, Any], headers: dict[str, A
                         "headers": headers},
                 "409": problem_answer("The job has not succeeded (yet)."),
                 "404": not_found, **common,
+            },
+        },
+    }
+    paths["/v1/jobs/{job_id}/report"] = _job_report(document, [job_id], security, {
+        "409": problem_answer("The job has not succeeded (yet)."), "404": not_found, **common})
+
+
+def _job_report(document: dict[str, Any], parameters: list[Any], security: list[Any],
+                responses: dict[str, Any]) -> dict[str, Any]:
+    """GET /v1/jobs/{id}/report: the image answers of POST /v1/reports, the job's errors."""
+    images = document["paths"]["/v1/reports"]["post"]["responses"]
+    return {
+        "get": {
+            "operationId": "getJobReport", "parameters": parameters,
+            "summary": "The night picture once the job succeeded.",
+            "description": (
+                "Heart rate, breathing rate and RMSSD of each occupied window across the "
+                "night, each point as opaque as its confidence; the occupied and movement "
+                "stretches and the bed exits; the caution on the image. Drawn from the "
+                "stored result. `Accept: image/png` (the default) or `image/svg+xml`."),
+            "tags": ["jobs"], "security": security,
+            "responses": {
+                "200": {**copy.deepcopy(images["200"]),
+                        "description": "The night picture (1100 x 850 pixels as PNG)."},
+                "406": copy.deepcopy(images["406"]),
+                **responses,
             },
         },
     }

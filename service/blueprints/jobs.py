@@ -3,7 +3,8 @@
 ``POST /v1/jobs`` stores the input (a multipart ``file`` is streamed to disk as it arrives,
 see :class:`service.app.InMemoryRequest`), checks it (format, header, rate, channels,
 window length) and queues it; ``GET /v1/jobs/{id}`` is the job document,
-``GET /v1/jobs/{id}/result`` the night document once the job succeeded, and
+``GET /v1/jobs/{id}/result`` the night document once the job succeeded,
+``GET /v1/jobs/{id}/report`` its night picture (drawn from the stored result), and
 ``DELETE /v1/jobs/{id}`` cancels the job and deletes its files. Where the jobs live:
 :mod:`service.job_store`; who runs them: :mod:`service.job_worker`.
 """
@@ -21,8 +22,9 @@ from werkzeug.exceptions import NotFound, RequestEntityTooLarge, UnsupportedMedi
 
 from schemas.errors import SchemaValidationError
 from schemas.fhir import FHIR_JSON, fhir_bundle
-from schemas.jobs import JOB_FIELDS, JobSettingsSchema
+from schemas.jobs import JOB_FIELDS, JobSettingsSchema, night_from_document
 from service.analysis import night_windows
+from service.blueprints.reports import negotiate_image
 from service.bodies import JSON_MEDIA_TYPE, MULTIPART_MEDIA_TYPE, read_json
 from service.fhir_output import wants_fhir
 from service.job_errors import JobNotFinishedError, StorageFullError
@@ -36,6 +38,7 @@ from service.job_store import (
     write_private,
 )
 from service.job_worker import JOB_MAX_SAMPLES, queue_for
+from service.night_report import draw_night
 from service.uploads import JSON_INPUT_NAME, night_call
 
 blueprint = Blueprint("jobs", __name__)
@@ -188,16 +191,21 @@ def get_job(job_id: str) -> Response:
     return jsonify(job_document(_record_or_404(job_id)))
 
 
-@blueprint.get("/jobs/<job_id>/result")
-def get_job_result(job_id: str) -> Response:
-    """The night document (or its summary as a FHIR R4 Bundle) once the job succeeded."""
+def _result_text(job_id: str) -> str:
+    """The stored night document of a succeeded job (409 before then, 404 when gone)."""
     record = _record_or_404(job_id)
     if record.status != "succeeded":
         raise JobNotFinishedError(record.status)
     try:
-        text = _store().result_path(job_id).read_text(encoding="utf-8")
+        return _store().result_path(job_id).read_text(encoding="utf-8")
     except OSError:
         raise NotFound() from None  # deleted meanwhile
+
+
+@blueprint.get("/jobs/<job_id>/result")
+def get_job_result(job_id: str) -> Response:
+    """The night document (or its summary as a FHIR R4 Bundle) once the job succeeded."""
+    text = _result_text(job_id)
     if not wants_fhir():
         response = current_app.response_class(text, mimetype=JSON_MEDIA_TYPE)
     else:
@@ -210,6 +218,24 @@ def get_job_result(job_id: str) -> Response:
         }
         response = current_app.response_class(
             json.dumps(fhir_bundle(summary_as_analysis), allow_nan=False), mimetype=FHIR_JSON)
+    response.vary.add("Accept")
+    return response
+
+
+@blueprint.get("/jobs/<job_id>/report")
+def get_job_report(job_id: str) -> Response:
+    """The night picture (PNG or SVG by ``Accept``) once the job succeeded.
+
+    Drawn from the stored night document (:func:`schemas.jobs.night_from_document`): the
+    analysis is not run again.
+    """
+    negotiated = negotiate_image()
+    if isinstance(negotiated, Response):
+        return negotiated
+    media_type, image_format = negotiated
+    summary, windowed = night_from_document(json.loads(_result_text(job_id)))
+    response = Response(draw_night(summary, windowed, image_format=image_format),
+                        mimetype=media_type)
     response.vary.add("Accept")
     return response
 

@@ -18,11 +18,13 @@ from http.server import BaseHTTPRequestHandler, HTTPServer
 import numpy as np
 import pytest
 from jobs_support import drain, wait_until, write_short_night
-from service_contract import check_against_contract
+from picture_checks import assert_caution_dark_readable_and_last, png_size, svg_texts
+from service_contract import check_against_contract, contract
 from werkzeug.datastructures import FileStorage
 from werkzeug.test import encode_multipart
 
 from fileformats import read_trace
+from schemas.jobs import night_document, night_from_document
 from service import create_app
 from service.demo import demo_request_body
 from service.job_store import JobSettings, store_for
@@ -127,6 +129,58 @@ def test_window_vectors_equal_analyze_windows_and_batch(client, settings, night)
                                    np.asarray(want, dtype=float), rtol=1e-12, equal_nan=True)
 
 
+def test_night_picture_of_a_job_png_svg_and_refusals(client, settings, night):
+    import matplotlib.image
+
+    path, recording = night
+    job_id = _post_file(client, path).get_json()["id"]
+    early = client.get(f"/v1/jobs/{job_id}/report")
+    assert early.status_code == 409  # no picture before success, as the result (issue 11)
+    check_against_contract(early, "/v1/jobs/{job_id}/report", "get")
+    assert client.get("/v1/jobs/" + "0" * 32 + "/report").status_code == 404
+    drain(queue_for(settings))
+
+    png = client.get(f"/v1/jobs/{job_id}/report")
+    assert png.status_code == 200 and png.mimetype == "image/png"  # PNG when Accept is absent
+    assert "Accept" in png.headers["Vary"]
+    # check_against_contract reads JSON bodies: the image's media type is checked by hand.
+    images = contract()["paths"]["/v1/jobs/{job_id}/report"]["get"]["responses"]["200"]
+    assert png.mimetype in images["content"]
+    pixels = matplotlib.image.imread(io.BytesIO(png.data), format="png")  # it decodes
+    assert pixels.shape[:2][::-1] == png_size(png.data)
+    # Not blank: a drawn page has many colours and a fair share of ink (white is 1, 1, 1).
+    flat = pixels[..., :3].reshape(-1, 3)
+    assert len(np.unique(np.round(flat * 255), axis=0)) > 50
+    assert (flat.mean(axis=1) < 0.9).mean() > 0.03
+
+    svg = client.get(f"/v1/jobs/{job_id}/report", headers={"Accept": "image/svg+xml"})
+    assert svg.status_code == 200 and svg.mimetype == "image/svg+xml"
+    assert svg.mimetype in images["content"]
+    assert_caution_dark_readable_and_last(svg.data)
+    texts = " ".join(text for text, _, _ in svg_texts(svg.data))
+    # The simulated night (simulation/night.py, NightSettings.scaled) leaves the bed once
+    # for 600 s: the picture drawn from the stored result names that exit.
+    [(exit_start, exit_end)] = recording.truth.bed_exits_s
+    assert f"exit 1: {(exit_end - exit_start) / 60:.0f} min" in texts
+
+    refused = client.get(f"/v1/jobs/{job_id}/report", headers={"Accept": "application/pdf"})
+    assert refused.status_code == 406  # as POST /v1/reports answers an Accept it cannot meet
+    check_against_contract(refused, "/v1/jobs/{job_id}/report", "get")
+
+
+def test_night_document_rebuilds_what_it_was_dumped_from(client, settings, night):
+    """The picture reads the stored result: rebuilding it must lose nothing the dump kept."""
+    path, _ = night
+    job_id = _post_file(client, path).get_json()["id"]
+    drain(queue_for(settings))
+    stored = client.get(f"/v1/jobs/{job_id}/result").get_json()
+    summary, windowed = night_from_document(stored)
+    assert len(windowed.windows) == summary.n_windows == 8  # 2400 s / 300 s
+    # Dumped again, the rebuilt night is the stored document to the last digit: JSON keeps
+    # a float64 exactly (repr is shortest round-trip), so equality is the property here.
+    assert night_document(job_id, stored["engine_version"], windowed, summary) == stored
+
+
 def test_json_body_job_and_fhir_summary(client, settings):
     body = {**demo_request_body(), "window_s": 30.0}
     answer = client.post("/v1/jobs", json=body)
@@ -153,7 +207,7 @@ def test_another_key_gets_404_and_ids_are_random(settings, night):
     # 128 random bits as 32 hex digits (issue 11 asks for at least 122, a UUID4's).
     assert len(mine) == 32 and int(mine, 16) >= 0 and mine != again
     other = {"Authorization": f"Bearer {KEY_B}"}
-    for suffix in ("", "/result"):
+    for suffix in ("", "/result", "/report"):
         answer = client.get(f"/v1/jobs/{mine}{suffix}", headers=other)
         assert answer.status_code == 404  # not 403: the job's existence stays hidden
     assert client.delete(f"/v1/jobs/{mine}", headers=other).status_code == 404
