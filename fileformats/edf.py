@@ -5,6 +5,7 @@ from __future__ import annotations
 import io
 import os
 import warnings
+from collections.abc import Callable
 from typing import Any
 
 import numpy as np
@@ -115,22 +116,34 @@ def read_edf(data: bytes, *, bdf: bool = False, max_samples: int | None = None) 
     check_header(data, bdf=bdf, max_samples=resolve_limit(max_samples))
     edfio = optional_module("edfio", "BDF" if bdf else "EDF")
     reader = edfio.read_bdf if bdf else edfio.read_edf
+    # read_bdf takes no lazy_load_data (edfio 0.4); a stream is read eagerly.
+    return _edfio_trace(
+        lambda: reader(io.BytesIO(data)),
+        lambda _, signals: tuple(samples_float64(np.asarray(s.data), f"signal {k + 1}")
+                                 for k, s in enumerate(signals)),
+        "BDF" if bdf else "EDF",
+    )
+
+
+def _edfio_trace(read: Callable[[], Any],
+                 samples_of: Callable[[Any, list[Any]], tuple[Any, ...]], kind: str) -> RawTrace:
+    """The RawTrace of the file edfio's ``read()`` opens, its samples by ``samples_of``.
+
+    The header's lengths were checked before; what edfio still warns about (a start date
+    that differs from the EDF+ one, ...) becomes a flag. A discontinuous EDF+D record is
+    refused (gaps between data records would silently shift the beats).
+    """
     try:
-        # The header's lengths were checked above; what edfio still warns about (a
-        # start date that differs from the EDF+ one, ...) becomes a flag.
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            # read_bdf takes no lazy_load_data (edfio 0.4); a stream is read eagerly.
-            edf = reader(io.BytesIO(data))
+            edf = read()
             continuous = edf.is_continuous if hasattr(edf, "is_continuous") else True
             signals = list(edf.signals)
-            samples = tuple(samples_float64(np.asarray(s.data), f"signal {k + 1}")
-                            for k, s in enumerate(signals))
+            samples = samples_of(edf, signals) if signals else ()
             annotated = bool(edf.annotations)
     except UnreadableFileError:
         raise
     except Exception as error:  # noqa: BLE001 - edfio raises plain ValueErrors and others
-        kind = "BDF" if bdf else "EDF"
         raise UnreadableFileError(
             "file", f"`file` must be a readable {kind} file; got one that edfio refuses "
             f"({type(error).__name__})."
@@ -209,32 +222,9 @@ def open_edf(path: str | os.PathLike[str], *, bdf: bool = False,
         with open(path, "rb") as handle:
             return read_edf(handle.read(), bdf=True, max_samples=max_samples)
     edfio = optional_module("edfio", "EDF")
-    try:
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            edf: Any = edfio.read_edf(path, lazy_load_data=True)
-            continuous = edf.is_continuous if hasattr(edf, "is_continuous") else True
-            signals_ = list(edf.signals)
-            rows = tuple(EdfRow(s, int(round(s.sampling_frequency * edf.duration)))
-                         for s in signals_)
-            annotated = bool(edf.annotations)
-    except Exception as error:  # noqa: BLE001 - edfio raises plain ValueErrors and others
-        raise UnreadableFileError(
-            "file", f"`file` must be a readable EDF file; got one that edfio refuses "
-            f"({type(error).__name__})."
-        ) from None
-    if not continuous:
-        raise UnreadableFileError(
-            "file", "`file` must be a continuous EDF+ record (EDF+C); got a discontinuous "
-            "one (EDF+D): export the continuous stretches separately."
-        )
-    if not signals_:
-        raise UnreadableFileError("file", "`file` must hold at least one signal; got none.")
-    flags = ("edf_annotations_ignored",) * annotated + ("edf_header_warning",) * bool(caught)
-    return RawTrace(
-        labels=unique_labels([s.label for s in signals_]),
-        samples=rows,  # type: ignore[arg-type]  # EdfRow slices like an array
-        units=tuple(s.physical_dimension.strip() or None for s in signals_),
-        rates_hz=tuple(float(s.sampling_frequency) for s in signals_),
-        flags=flags,
+    return _edfio_trace(
+        lambda: edfio.read_edf(path, lazy_load_data=True),
+        lambda edf, signals: tuple(EdfRow(s, int(round(s.sampling_frequency * edf.duration)))
+                                   for s in signals),
+        "EDF",
     )
