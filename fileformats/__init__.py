@@ -8,7 +8,7 @@ Catalogue
 ---------
 read_trace(source, *, format, channels, fs_hz, quantity, unit, lazy) -> TraceFile
     Read one recording; channels selected by label; units from the file's header; with
-    ``lazy`` an EDF/BDF path gives channels read window by window (fileformats.edf.EdfRow).
+    ``lazy`` an EDF path gives channels read window by window (fileformats.edf.EdfRow).
 detect_format(name, head) -> str
     The format of a file from its first bytes and, failing that, its name.
 detect_file_format(path) -> str
