@@ -71,6 +71,34 @@ def analyze_request(request: AnalysisRequest, *, keep_fused_trace: bool = False)
     return result
 
 
+def analyze_request_windows(request: AnalysisRequest) -> WindowedAnalysis:
+    """Only the windows of ``request`` (its ``options.window_s`` and ``window_overlap_s``).
+
+    For a table of windows (``heartsway batch --window-s``), which has no use for the
+    analysis of the whole recording that :func:`analyze_request` also runs: the same
+    :func:`features.analyze_windows` that the engine runs for ``include=windows``.
+
+    Raises
+    ------
+    features.errors.InvalidInputError
+        From the engine, for the service to map to problem details; also when the request
+        asks for no windows.
+    """
+    call = engine_inputs(request)
+    options = call.options
+    if options.window_s is None:
+        raise features.InvalidInputError(
+            "options.window_s", "`options.window_s` must be given for an analysis of windows; "
+            "got none.")
+    started = time.perf_counter()
+    windowed = features.analyze_windows(call.channels, call.fs_hz, window_s=options.window_s,
+                                        overlap_s=options.window_overlap_s,
+                                        subject=call.subject, recording=call.recording,
+                                        options=options)
+    record_analysis(time.perf_counter() - started, sum(c.samples.size for c in call.channels))
+    return windowed
+
+
 def dump_analysis(result: AnalysisResult, request: AnalysisRequest) -> dict[str, Any]:
     """The JSON document of ``result``, with the parts ``request`` asked for."""
     report = AnalysisReport(result=result, include=request.options.include)

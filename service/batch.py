@@ -132,19 +132,22 @@ def analyze_file(path: str, form: dict[str, Any], window_s: float | None = None,
         One row (or one per window), with every feature column.
     """
     from schemas.requests import AnalysisRequestSchema
-    from service.analysis import analyze_request, ask_for_windows
+    from service.analysis import analyze_request, analyze_request_windows, ask_for_windows
     from service.uploads import path_request_body
 
     columns = feature_columns()
     try:
         body = path_request_body(path, form)
-        if window_s is not None:
+        if window_s is None:
+            result = analyze_request(AnalysisRequestSchema().load(body))
+        else:
+            # Only the windows: the table has no row for the whole recording.
             body = ask_for_windows(body, window_s, overlap_s)
-        result = analyze_request(AnalysisRequestSchema().load(body))
+            windowed = analyze_request_windows(AnalysisRequestSchema().load(body))
     except Exception as error:  # noqa: BLE001 - one bad file must not stop the batch
         # The row's `error`: the kind from the problem table, the field or reason, the message.
         return _failure(path, error)
-    if result.windows is None:
+    if window_s is None:
         vector = result.feature_vector
         cells = _feature_cells(vector.features)
         row = {"recording": path, "window": None, "start_s": 0.0,
@@ -152,9 +155,9 @@ def analyze_file(path: str, form: dict[str, Any], window_s: float | None = None,
                "feature_set_version": vector.feature_set_version}
         return [{**row, **{column: cells.get(column) for column in columns}}]
     rows = []
-    for window in result.windows.windows:
+    for window in windowed.windows:
         row = {"recording": path, "window": window.index, "start_s": window.start_s,
-               "end_s": window.end_s, "feature_set_version": result.windows.feature_set_version}
+               "end_s": window.end_s, "feature_set_version": windowed.feature_set_version}
         if window.error is not None or window.feature_vector is None:
             detail = window.error.code + ": " + window.error.message if window.error else ""
             row.update(status="failed", error=detail[:500])
