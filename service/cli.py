@@ -242,46 +242,8 @@ def _demo(args: argparse.Namespace) -> int:
         return 4
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """The argument parser of ``heartsway``."""
-    parser = argparse.ArgumentParser(
-        prog="heartsway",
-        description="Heart-health features from body-recoil force traces (not a medical device).",
-    )
-    commands = parser.add_subparsers(dest="command", required=True)
-
-    serve = commands.add_parser("serve", help="run the REST service under gunicorn")
-    serve.add_argument(
-        "--host",
-        default=None,
-        help="address to bind (env HEARTSWAY_HOST, default 127.0.0.1; with neither --host "
-             "nor --port, HEARTSWAY_BIND=host:port when set)",
-    )
-    serve.add_argument(
-        "--port",
-        type=int,
-        default=None,
-        help="port to bind (env HEARTSWAY_PORT, default 8000)",
-    )
-    serve.add_argument(
-        "--workers",
-        type=int,
-        default=int(_env_default("HEARTSWAY_WORKERS", "2")),
-        help="worker processes (env HEARTSWAY_WORKERS, default 2)",
-    )
-    serve.add_argument(
-        "--job-workers",
-        type=int,
-        default=int(_env_default("HEARTSWAY_JOB_WORKERS", "1")),
-        help="night-job worker processes beside the API (env HEARTSWAY_JOB_WORKERS, "
-             "default 1; 0 for none)",
-    )
-    serve.set_defaults(run=_serve)
-
-    worker = commands.add_parser(
-        "worker", help="run one night-job worker (HEARTSWAY_QUEUE_URL, HEARTSWAY_DATA_DIR)")
-    worker.set_defaults(run=_worker)
-
+def _add_file_commands(commands: Any) -> None:
+    """The commands that read trace files: ``submit``, ``analyze`` and ``batch``."""
     submit = commands.add_parser("submit", help="send a night to a service as a job")
     submit.add_argument("file", help="trace file (EDF/BDF read window by window)")
     submit.add_argument("--url", required=True, help="the service, e.g. http://127.0.0.1:8000")
@@ -335,6 +297,49 @@ def build_parser() -> argparse.ArgumentParser:
                        help="Dask scheduler address (tcp://host:8786); local when absent")
     batch.add_argument("--no-progress", action="store_true", help="no progress bar")
     batch.set_defaults(run=_batch)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of ``heartsway``."""
+    parser = argparse.ArgumentParser(
+        prog="heartsway",
+        description="Heart-health features from body-recoil force traces (not a medical device).",
+    )
+    commands = parser.add_subparsers(dest="command", required=True)
+
+    serve = commands.add_parser("serve", help="run the REST service under gunicorn")
+    serve.add_argument(
+        "--host",
+        default=None,
+        help="address to bind (env HEARTSWAY_HOST, default 127.0.0.1; with neither --host "
+             "nor --port, HEARTSWAY_BIND=host:port when set)",
+    )
+    serve.add_argument(
+        "--port",
+        type=int,
+        default=None,
+        help="port to bind (env HEARTSWAY_PORT, default 8000)",
+    )
+    serve.add_argument(
+        "--workers",
+        type=int,
+        default=int(_env_default("HEARTSWAY_WORKERS", "2")),
+        help="worker processes (env HEARTSWAY_WORKERS, default 2)",
+    )
+    serve.add_argument(
+        "--job-workers",
+        type=int,
+        default=int(_env_default("HEARTSWAY_JOB_WORKERS", "1")),
+        help="night-job worker processes beside the API (env HEARTSWAY_JOB_WORKERS, "
+             "default 1; 0 for none)",
+    )
+    serve.set_defaults(run=_serve)
+
+    worker = commands.add_parser(
+        "worker", help="run one night-job worker (HEARTSWAY_QUEUE_URL, HEARTSWAY_DATA_DIR)")
+    worker.set_defaults(run=_worker)
+
+    _add_file_commands(commands)
 
     demo = commands.add_parser("demo", help="analyse the demo armchair trace")
     demo.add_argument("--url", help="send the demo request to this running service instead")
