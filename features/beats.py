@@ -161,6 +161,16 @@ GIVE_BACK_GUARD_S = 0.5
 """Distance from any louder sample that a given-back sample keeps, s: about half a beat,
 so that the complex of a beat next to a disturbance stays out (our choice)."""
 
+EXTRA_BEAT_SPAN = 1.3
+"""Span of two intervals, in local median intervals, under which the beat between them may
+be an extra pick (step 7, ``_drop_extra``): regular rhythm varies by some tens of percent
+from beat to beat, so two true intervals rarely sum to less (our choice)."""
+MISSED_BEAT_SPAN = 1.6
+"""Interval, in local median intervals, from which a beat may have been missed inside it
+(step 7): a premature beat and its compensatory pause span about two intervals, so a span
+under 1.6 is a pause and holds no beat; over it, one is looked for (our choice, between the
+longest sinus pause of regular rhythm and two intervals)."""
+
 EVIDENCE_THRESHOLD = 10.0
 """Coherence statistic above which a repeating, consistently signed beat is present.
 
@@ -334,9 +344,11 @@ def detect_beats(
        added to every beat with a preceding interval (flag). Only the trend is used, never
        the per-beat peak, whose noise the template match exists to avoid.
     7. Extra beats: a beat that splits one interval into two short ones
-       (summing to under 1.3 local medians) goes when its match score is
-       weak (under 0.75 of the median). Missed beats: where an interval is 1.6 or more local
-       medians, the correlation trace is searched around each expected
+       (summing to under ``EXTRA_BEAT_SPAN`` local medians) goes when its match score is
+       weak (under 0.75 of the median); with a settled period, after the slips below, a
+       weak pick inside the compensatory pause after a premature beat goes too
+       (``_drop_in_pauses``). Missed beats: where an interval is ``MISSED_BEAT_SPAN``
+       or more local medians, the correlation trace is searched around each expected
        position with relaxed levels (0.8 of the acceptance correlation,
        0.2 of the median amplitude): a beat is expected there.
     8. Beats whose complex (-0.25 to +0.35 s around J) touches a masked
@@ -481,6 +493,11 @@ def detect_beats(
         beats, n_slipped = _repair_slips(beats, corr, amp, fs_w, accept)
         if n_slipped:
             flags.append("slipped_beat_pairs_replaced")
+        paused = _drop_in_pauses(beats, corr, amp, fs_w)
+        if paused.size < beats.size:
+            # With the pause's pick gone, a pick that split the pause in two is judged
+            # against its true neighbours.
+            beats = _drop_extra(paused, corr, amp, fs_w)
     beats, n_recovered = _recover_missed(beats, corr, amp, fs_w, 0.8 * accept,
                                          0.2 * amp_ref, dist, usable_w)
     inside = _complex_usable(beats, usable_w, fs_w)
@@ -935,11 +952,41 @@ def _local_median(values: NDArray[np.float64], half: int = 5) -> NDArray[np.floa
     return out
 
 
+def _drop_in_pauses(beats: NDArray[np.intp], corr: NDArray[np.float64],
+                    amp: NDArray[np.float64], fs: float) -> NDArray[np.intp]:
+    """Drop weak picks inside the compensatory pause after a premature beat.
+
+    A premature beat (its interval shorter than the reference by more than
+    ``RHYTHM_STEP`` of it) is followed by a pause that holds no beat: a pick inside it is
+    noise or a ring wave that the pause left room for. A pick goes when the beat before it
+    is premature, the span between its neighbours is ``EXTRA_BEAT_SPAN`` to
+    ``MISSED_BEAT_SPAN`` reference intervals (shorter spans are ``_drop_extra``'s; a
+    longer one may hold a missed beat), it is weak (score under 0.75 of the median, as in
+    ``_drop_extra``) and it scores below both neighbours. The beat after the pause, and
+    the normal beat before a premature one, are not inside a pause and stay.
+    """
+    if beats.size < 5:
+        return beats
+    score = corr[beats] * np.minimum(amp[beats] / np.median(amp[beats]), 1.5)
+    strong = score >= 0.75 * np.median(score)
+    ref = _reference_interval(beats, strong, fs)
+    iv = np.diff(beats) / fs
+    # Pick j (2 .. n-2): intervals iv[j-2] (into the beat before it), iv[j-1], iv[j].
+    j = np.arange(2, beats.size - 1)
+    m = ref[j]
+    span = iv[j - 1] + iv[j]
+    premature = iv[j - 2] < (1.0 - RHYTHM_STEP) * ref[j - 1]
+    lowest = (score[j] < score[j - 1]) & (score[j] < score[j + 1])
+    pause = (span >= EXTRA_BEAT_SPAN * m) & (span < MISSED_BEAT_SPAN * m)
+    drop = j[premature & pause & lowest & ~strong[j]]
+    return np.delete(beats, drop) if drop.size else beats
+
+
 def _drop_extra(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray[np.float64],
                 fs: float) -> NDArray[np.intp]:
     """Drop weak beats that split one interval into two short ones.
 
-    A beat is suspect when its two intervals sum to less than 1.3 reference
+    A beat is suspect when its two intervals sum to less than ``EXTRA_BEAT_SPAN`` reference
     intervals and the shorter is under 0.6 of it; it goes only when its match
     score is under 0.75 of the median score, so a true premature beat or a
     run of short irregular intervals with good matches stays. The reference
@@ -955,7 +1002,7 @@ def _drop_extra(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray
         iv = np.diff(beats) / fs
         before, after = iv[:-1], iv[1:]
         m = ref[1:-1]
-        suspect = ((before + after) < 1.3 * m) & (np.minimum(before, after) < 0.6 * m)
+        suspect = ((before + after) < EXTRA_BEAT_SPAN * m) & (np.minimum(before, after) < 0.6 * m)
         drop = np.flatnonzero(suspect & ~strong[1:-1]) + 1
         if drop.size == 0:
             return beats
@@ -1034,7 +1081,7 @@ def _recover_missed(
         return beats, 0
     iv = np.diff(beats) / fs
     med = _local_median(iv)
-    gaps = np.flatnonzero(iv >= 1.6 * med)
+    gaps = np.flatnonzero(iv >= MISSED_BEAT_SPAN * med)
     added: list[int] = []
     for g in gaps:
         a, b = int(beats[g]), int(beats[g + 1])

@@ -314,7 +314,9 @@ def make_beats(
             sv = s.stroke_volume_ml * (1.0 - s.sv_modulation * drive)
             kind = "normal"
             if pending_pause > 0.0:
-                interval = pending_pause
+                # This beat ends the compensatory pause (placed when the premature beat
+                # was); the interval after it is an ordinary one.
+                interval = base
                 sv *= 1.15  # post-extrasystolic potentiation
                 pending_pause = 0.0
             elif times and rng.uniform() < s.ectopic_fraction:

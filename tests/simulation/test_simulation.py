@@ -332,6 +332,13 @@ def test_ectopic_beats_premature_with_compensatory_pause() -> None:
     assert np.all(pre < 0.75 * ibi)
     np.testing.assert_allclose(pair, 2 * ibi, atol=0.03)
     assert np.all(rec.truth.stroke_volumes_ml[ectopic] < 0.6 * 70.0)
+    # The pause is one interval long: the beat that ends it is followed by an ordinary
+    # interval (the sinus node, reset or not, keeps its rate). Until this was checked the
+    # simulator put a second long interval (1.4 normal) after every pause. Tolerance 0.03 s
+    # as above: the simulator's beat-to-beat jitter is 4 ms SD, with no RSA or slow rhythm.
+    after = ectopic[ectopic + 2 < r.size]
+    after = after[kinds[after + 2] == "normal"]
+    np.testing.assert_allclose(r[after + 2] - r[after + 1], ibi, atol=0.03)
 
 
 def test_empty_support() -> None:

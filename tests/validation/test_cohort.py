@@ -11,8 +11,10 @@ from simulation import SimulationSettings
 from validation.baseline import detect_beats_baseline
 from validation.cohort import (
     CaseSpec,
+    _score_case,
     baseline_detector,
     build_cases,
+    engine_detector,
     format_report,
     main,
     run_cohort,
@@ -95,6 +97,20 @@ def test_quick_cohort_with_engine() -> None:
     assert report.engine_ppv is not None and report.engine_ppv > 0.9
     assert report.n_empty_unoccupied == report.n_empty == 2
     assert report.n_empty_hr_none == 2
+
+
+@pytest.mark.parametrize("seed", [1, 2])
+def test_hard_mix_keeps_pauses_after_premature_beats_free_of_false_beats(seed: int) -> None:
+    # The cohort's hardest case (4 cells, 3 dB, a 6-Hz ringing support, movement, 5 %
+    # premature beats): weak picks inside the compensatory pause after a premature beat
+    # (noise or a ring wave, a pause left room for) brought positive predictivity to
+    # 0.922 and 0.935 on these two draws. Issue 12's acceptance: sensitivity and positive
+    # predictivity at least 0.95 in every case, scored as the cohort scores it (ANSI/AAMI
+    # EC57 one-to-one matching within 150 ms, validation.matching).
+    spec = next(c for c in build_cases(seed=seed) if c.name == "hard_mix")
+    result = _score_case(spec, engine_detector)
+    assert result.engine_ppv is not None and result.engine_ppv >= 0.95
+    assert result.engine_se is not None and result.engine_se >= 0.95
 
 
 def test_baseline_rejects_bad_input() -> None:
