@@ -952,6 +952,19 @@ def _local_median(values: NDArray[np.float64], half: int = 5) -> NDArray[np.floa
     return out
 
 
+def _scored(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray[np.float64],
+            fs: float) -> tuple[NDArray[np.float64], NDArray[np.bool_], NDArray[np.float64]]:
+    """Each pick's match score, whether it is strong, and the reference interval at it.
+
+    The score is the correlation times the amplitude relative to the median (capped at
+    1.5); a pick is strong at 0.75 of the median score or more; the reference is the local
+    median interval between strong beats (``_reference_interval``), s.
+    """
+    score = corr[beats] * np.minimum(amp[beats] / np.median(amp[beats]), 1.5)
+    strong = score >= 0.75 * np.median(score)
+    return score, strong, _reference_interval(beats, strong, fs)
+
+
 def _drop_in_pauses(beats: NDArray[np.intp], corr: NDArray[np.float64],
                     amp: NDArray[np.float64], fs: float) -> NDArray[np.intp]:
     """Drop weak picks inside the compensatory pause after a premature beat.
@@ -967,9 +980,7 @@ def _drop_in_pauses(beats: NDArray[np.intp], corr: NDArray[np.float64],
     """
     if beats.size < 5:
         return beats
-    score = corr[beats] * np.minimum(amp[beats] / np.median(amp[beats]), 1.5)
-    strong = score >= 0.75 * np.median(score)
-    ref = _reference_interval(beats, strong, fs)
+    score, strong, ref = _scored(beats, corr, amp, fs)
     iv = np.diff(beats) / fs
     # Pick j (2 .. n-2): intervals iv[j-2] (into the beat before it), iv[j-1], iv[j].
     j = np.arange(2, beats.size - 1)
@@ -996,9 +1007,7 @@ def _drop_extra(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray
     for _ in range(3):
         if beats.size < 5:
             return beats
-        score = corr[beats] * np.minimum(amp[beats] / np.median(amp[beats]), 1.5)
-        strong = score >= 0.75 * np.median(score)
-        ref = _reference_interval(beats, strong, fs)
+        _, strong, ref = _scored(beats, corr, amp, fs)
         iv = np.diff(beats) / fs
         before, after = iv[:-1], iv[1:]
         m = ref[1:-1]
