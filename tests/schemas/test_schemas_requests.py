@@ -219,3 +219,15 @@ def test_signalling_nan_widens_quietly_to_a_lost_sample():
     # widening it to float64 makes numpy warn; it must load as NaN (a gap) without one.
     text = base64.b64encode(bytes([0x01, 0x00, 0x80, 0x7F])).decode()
     assert np.isnan(decode_base64_samples(text, "float32", field="x")).all()
+
+
+@pytest.mark.parametrize("values", [[True, 0.5], [0.5, 2.0, False], [0, 1, True]])
+def test_booleans_are_refused_among_zeros_and_ones(values):
+    # A boolean packs to 1.0 or 0.0 as a number would; its type must still be refused.
+    with pytest.raises(ValidationError, match="bool"):
+        SamplesField().deserialize(values)
+
+
+def test_the_numbers_zero_and_one_load():
+    loaded = SamplesField().deserialize([0, 1, 0.0, 1.0, 2.5])
+    np.testing.assert_array_equal(loaded, [0.0, 1.0, 0.0, 1.0, 2.5])
