@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import json
 from typing import Any, NoReturn
 
@@ -88,12 +89,19 @@ def read_json() -> Any:
 
 
 def request_schema() -> AnalysisRequestSchema:
-    """The request schema with this app's caps on samples and channels (the one factory)."""
+    """The request schema with this app's caps on samples and channels (the one factory).
+
+    Built once per pair of caps and reused (a schema holds no state between loads):
+    building one copies every declared field, about a fifth of the load of a 5-minute
+    request.
+    """
     config = current_app.config
-    return AnalysisRequestSchema(
-        max_samples=config["HEARTSWAY_MAX_SAMPLES"],
-        max_channels=config["HEARTSWAY_MAX_CHANNELS"],
-    )
+    return _request_schema(config["HEARTSWAY_MAX_SAMPLES"], config["HEARTSWAY_MAX_CHANNELS"])
+
+
+@functools.lru_cache(maxsize=16)
+def _request_schema(max_samples: int, max_channels: int) -> AnalysisRequestSchema:
+    return AnalysisRequestSchema(max_samples=max_samples, max_channels=max_channels)
 
 
 def read_analysis_request() -> AnalysisRequest:
