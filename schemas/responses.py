@@ -520,7 +520,7 @@ class AnalysisResponseSchema(Schema):
 
 
 # Schemas hold no state between dumps: one instance of each serves every analysis
-# (building them anew cost a fifth of the dump of a 5-minute analysis).
+# (building them anew was most of the dump of a 5-minute analysis).
 _BEATS = BeatsSchema()
 _TEMPLATE = TemplateSchema()
 _SIGNALS = SignalsSchema()
