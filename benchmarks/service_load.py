@@ -23,6 +23,7 @@ would flatter the ratio. Wall-clock medians and ratio are kept too.
 
 from __future__ import annotations
 
+import argparse
 import base64
 import contextlib
 import json
@@ -143,6 +144,74 @@ def _summary(runs: dict[str, list[float]]) -> dict[str, float]:
     return out
 
 
+REQUEST_LIMIT = 1.5
+"""Issue 13: a 5-minute request in process at most this multiple of the engine's time."""
+ROUNDS = 15
+"""Rounds of the full run (each: the steps, then the whole request), per encoding."""
+
+
+def measure_requests(duration_s: float, rounds: int) -> dict[str, Any]:
+    """:func:`request_shares` of a one-channel 250-Hz request, JSON numbers then base64."""
+    body = request_body(duration_s, 250.0)
+    body64 = request_body(duration_s, 250.0, encoding="base64")
+    return {"request_s": duration_s, "body_kb": len(body) / 1024,
+            "body64_kb": len(body64) / 1024, "shares": request_shares(body, rounds),
+            "shares64": request_shares(body64, rounds)}
+
+
+def split_lines(service: dict[str, Any]) -> list[str]:
+    """The steps of the request, JSON beside base64, as the suite prints them."""
+    json_s, b64_s = service["shares"], service["shares64"]
+    lines = [f"one {service['request_s']:g}-s 250 Hz request, 1 channel, in-process (median "
+             "CPU seconds over rounds of the steps then the whole request): JSON samples "
+             f"list ({service['body_kb']:.0f} kB) / samples_base64 float32 "
+             f"({service['body64_kb']:.0f} kB)"]
+    for key in STEPS:
+        a, b = json_s[key], b64_s[key]
+        lines.append(f"  {key:>8} {a:8.4f} ({100 * a / json_s['request']:4.1f} %)   "
+                     f"{b:8.4f} ({100 * b / b64_s['request']:4.1f} %)")
+    for key, label in (("overhead", "request less engine"), ("ratio", "request / engine")):
+        lines.append(f"  {label}: {json_s[key]:.4f} / {b64_s[key]:.4f} CPU, "
+                     f"{json_s['wall'][key]:.4f} / {b64_s['wall'][key]:.4f} wall")
+    return lines
+
+
+def request_acceptance(service: dict[str, Any]) -> tuple[bool | None, str]:
+    """Issue 13's request line: at most 1.5x the engine, the worse of JSON and base64.
+
+    Judged only on a 5-minute request (None otherwise, as in the quick run).
+    """
+    json_s, b64_s = service["shares"], service["shares64"]
+    worst = max(json_s["ratio"], b64_s["ratio"])
+    return (worst <= REQUEST_LIMIT if service["request_s"] >= 300.0 else None,
+            f"POST /v1/analyses in process <= {REQUEST_LIMIT:g}x the engine's time "
+            f"({service['request_s']:g} s, 250 Hz, 1 ch; median of the rounds' CPU ratios): "
+            f"JSON samples {json_s['ratio']:.2f}x, samples_base64 {b64_s['ratio']:.2f}x "
+            f"(overhead {1e3 * json_s['overhead']:.1f} and {1e3 * b64_s['overhead']:.1f} ms "
+            f"CPU beside an engine of {1e3 * json_s['engine']:.0f} ms; wall ratios "
+            f"{json_s['wall']['ratio']:.2f}x and {b64_s['wall']['ratio']:.2f}x)")
+
+
+def main(argv: list[str] | None = None) -> int:
+    """``python -m benchmarks.service_load [--rounds N] [--seconds S] [--json PATH]``."""
+    ap = argparse.ArgumentParser(description="One request in process beside the engine "
+                                 "(the suite's in-process part alone).")
+    ap.add_argument("--rounds", type=int, default=ROUNDS, help="rounds per encoding")
+    ap.add_argument("--seconds", type=float, default=300.0, help="length of the request")
+    ap.add_argument("--json", metavar="PATH", help="also write every number as JSON here")
+    args = ap.parse_args(argv)
+    res = measure_requests(args.seconds, args.rounds)
+    print("\n".join(split_lines(res)))
+    ok, text = request_acceptance(res)
+    print(f"  [{'holds' if ok else 'FAILS' if ok is False else 'n/a  '}] {text}")
+    if args.json:
+        Path(args.json).write_text(json.dumps(res, indent=1))
+    from schemas.responses import NOTICE
+
+    print(f"Caution: {NOTICE}")
+    return 0
+
+
 def wrk_available() -> bool:
     """True when the ``wrk`` load generator is on the PATH."""
     return shutil.which("wrk") is not None
@@ -234,3 +303,7 @@ def load_test(body: bytes, workers: int, *, duration_s: float,
                 server.kill()
                 server.wait()
     return rows
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

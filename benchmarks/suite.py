@@ -391,13 +391,7 @@ def run_pictures(quick: bool, log: Any) -> dict[str, Any]:
 def run_service(quick: bool, log: Any) -> dict[str, Any]:
     """Request split in-process, then gunicorn + wrk for 1, 2 and 4 workers."""
     dur = 60.0 if quick else 300.0
-    body = service_load.request_body(dur, 250.0)
-    body64 = service_load.request_body(dur, 250.0, encoding="base64")
-    out: dict[str, Any] = {"request_s": dur, "body_kb": len(body) / 1024,
-                           "body64_kb": len(body64) / 1024}
-    reps = 3 if quick else 15
-    out["shares"] = service_load.request_shares(body, reps)
-    out["shares64"] = service_load.request_shares(body64, reps)
+    out = service_load.measure_requests(dur, 3 if quick else service_load.ROUNDS)
     log("request split measured")
     if not service_load.wrk_available():
         out["load"] = {"skipped": "wrk not on PATH (apt-get install wrk)"}
@@ -405,6 +399,7 @@ def run_service(quick: bool, log: Any) -> dict[str, Any]:
     if not service_load.gunicorn_available():
         out["load"] = {"skipped": "gunicorn not installed"}
         return out
+    body = service_load.request_body(dur, 250.0)
     rows = []
     settings = ((1, (1,)),) if quick else ((1, (1, 2)), (2, (1, 4)), (4, (1, 8)))
     for workers, conns in settings:
@@ -506,16 +501,7 @@ def report(res: dict[str, Any]) -> str:
                      f"{w['ru_maxrss_mb']:.0f} MB, peak anonymous RSS "
                      f"{w['rss_anon_peak_mb']:.0f} MB")
     s = res["service"]
-    lines += ["", f"one {s['request_s']:g}-s 250 Hz request, 1 channel, in-process (median "
-              "CPU seconds over rounds of the steps then the whole request): JSON samples "
-              f"list ({s['body_kb']:.0f} kB) / samples_base64 float32 ({s['body64_kb']:.0f} kB)"]
-    for key in service_load.STEPS:
-        a, b = s["shares"][key], s["shares64"][key]
-        lines.append(f"  {key:>8} {a:8.4f} ({100 * a / s['shares']['request']:4.1f} %)   "
-                     f"{b:8.4f} ({100 * b / s['shares64']['request']:4.1f} %)")
-    for key, label in (("overhead", "request less engine"), ("ratio", "request / engine")):
-        lines.append(f"  {label}: {s['shares'][key]:.4f} / {s['shares64'][key]:.4f} CPU, "
-                     f"{s['shares']['wall'][key]:.4f} / {s['shares64']['wall'][key]:.4f} wall")
+    lines += [""] + service_load.split_lines(s)
     load = s["load"]
     lines.append("")
     if isinstance(load, dict):
@@ -541,8 +527,6 @@ FLOOR_LIMIT = 2.0
 """Issue 13: the engine at most this multiple of its floor at every case."""
 PEER_SPEED_UP = 10.0
 """Issue 13 (and the issue before it): at least this many times faster than the peer."""
-REQUEST_LIMIT = 1.5
-"""Issue 13: a 5-minute request in process at most this multiple of the engine's time."""
 EXPONENT_LIMIT = 1.1
 """Issue 13: the fitted exponent of time against length, 5 minutes to 8 hours."""
 
@@ -571,20 +555,6 @@ def _engine_lines(res: dict[str, Any]) -> list[tuple[bool | None, str]]:
     out.append((None, "1. every accuracy figure of the cohort unchanged: not judged here "
                 "(python -m validation.cohort and validation.features_check are)"))
     return out
-
-
-def _request_line(service: dict[str, Any]) -> tuple[bool | None, str]:
-    """Issue 13, line 2: the in-process request against the engine, JSON and base64."""
-    json_s, b64_s = service["shares"], service["shares64"]
-    worst = max(json_s["ratio"], b64_s["ratio"])
-    full = service["request_s"] >= 300.0
-    return (worst <= REQUEST_LIMIT if full else None,
-            f"2. POST /v1/analyses in process <= {REQUEST_LIMIT:g}x the engine's time "
-            f"({service['request_s']:g} s, 250 Hz, 1 ch; median of the rounds' CPU ratios): "
-            f"JSON samples {json_s['ratio']:.2f}x, samples_base64 {b64_s['ratio']:.2f}x "
-            f"(overhead {1e3 * json_s['overhead']:.1f} and {1e3 * b64_s['overhead']:.1f} ms "
-            f"CPU beside an engine of {1e3 * json_s['engine']:.0f} ms; wall ratios "
-            f"{json_s['wall']['ratio']:.2f}x and {b64_s['wall']['ratio']:.2f}x)")
 
 
 def _information_lines(res: dict[str, Any]) -> list[tuple[bool | None, str]]:
@@ -627,7 +597,8 @@ def acceptance(res: dict[str, Any]) -> list[tuple[bool | None, str]]:
        The lines of the performance issue before it follow, marked "(information)".
     """
     out = _engine_lines(res)
-    out.append(_request_line(res["service"]))
+    ok, text = service_load.request_acceptance(res["service"])
+    out.append((ok, f"2. {text}"))
     if "pictures" in res:
         out += [(ok, f"3. {text}") for ok, text in pictures.acceptance(res["pictures"])]
     else:
