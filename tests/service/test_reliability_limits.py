@@ -94,6 +94,23 @@ def test_a_shorter_deadline_armed_after_a_longer_one_still_fires_on_time():
     assert outcome["long"] == "done"  # the other thread's call was not interrupted
 
 
+@pytest.mark.skipif(not hasattr(os, "fork"), reason="needs os.fork (POSIX)")
+def test_a_forked_child_gets_its_own_watchdog():
+    # gunicorn forks its workers: the parent's watchdog thread does not exist in a child.
+    run_with_deadline(1.0, lambda: None)  # the parent's watchdog is running
+    pid = os.fork()
+    if pid == 0:  # the child: exit 0 only if its deadline fires
+        try:
+            run_with_deadline(0.05, lambda: [time.sleep(0.01) for _ in range(200)])
+        except ComputeTimeExceeded:
+            os._exit(0)
+        except BaseException:
+            os._exit(2)
+        os._exit(1)
+    _, status = os.waitpid(pid, 0)
+    assert os.waitstatus_to_exitcode(status) == 0
+
+
 def test_engine_exceptions_pass_through_the_deadline():
     with pytest.raises(KeyError):
         run_with_deadline(1.0, lambda: {}["missing"])
