@@ -231,3 +231,28 @@ def test_booleans_are_refused_among_zeros_and_ones(values):
 def test_the_numbers_zero_and_one_load():
     loaded = SamplesField().deserialize([0, 1, 0.0, 1.0, 2.5])
     np.testing.assert_array_equal(loaded, [0.0, 1.0, 0.0, 1.0, 2.5])
+
+
+_ELEMENTS = st.one_of(
+    st.floats(allow_nan=False, allow_infinity=False, width=64),
+    st.integers(min_value=-(2**53), max_value=2**53),
+    st.sampled_from([0, 1, 0.0, 1.0, -0.0]),  # the values a boolean packs to
+    st.none(),
+    st.booleans(),
+    st.just("1.5"),
+)
+
+
+@given(st.lists(_ELEMENTS, min_size=1, max_size=60))
+@settings(max_examples=200, deadline=None)
+def test_samples_accept_exactly_numbers_and_null(values):
+    # The contract's rule (openapi.yaml, Channel.samples items: number or null): booleans
+    # and strings are refused; numbers load as numpy converts them, null as NaN.
+    odd = [v for v in values if isinstance(v, bool | str)]
+    if odd:
+        with pytest.raises(ValidationError, match="must hold only numbers"):
+            SamplesField().deserialize(values)
+        return
+    loaded = SamplesField().deserialize(values)
+    want = np.array([np.nan if v is None else v for v in values], dtype=np.float64)
+    np.testing.assert_array_equal(loaded, want)  # NaN compares equal here
