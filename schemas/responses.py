@@ -21,7 +21,7 @@ import numpy as np
 from marshmallow import Schema, fields, missing, post_dump
 
 from features.artifacts import KINDS
-from schemas.catalogue import FeatureValueSchema
+from schemas.catalogue import FeatureValueSchema, dump_feature_values
 
 #: The caution carried by every analysis.
 NOTICE = (
@@ -471,37 +471,37 @@ class AnalysisResponseSchema(Schema):
     def _beats(self, report: AnalysisReport) -> Any:
         if not self._asked(report, "beats"):
             return missing
-        return BeatsSchema().dump(report.result)
+        return _BEATS.dump(report.result)
 
     def _template(self, report: AnalysisReport) -> Any:
         if not self._asked(report, "template"):
             return missing
         morphology = report.result.morphology
         if morphology.template is not None:
-            return TemplateSchema().dump(morphology)
-        return TemplateSchema().dump(report.result.beats)
+            return _TEMPLATE.dump(morphology)
+        return _TEMPLATE.dump(report.result.beats)
 
     def _signals(self, report: AnalysisReport) -> Any:
         if not self._asked(report, "signals"):
             return missing
-        return SignalsSchema().dump(report.result)
+        return _SIGNALS.dump(report.result)
 
     def _windows(self, report: AnalysisReport) -> Any:
         if not self._asked(report, "windows") or report.result.windows is None:
             return missing
-        return WindowsSchema().dump(report.result.windows)
+        return _WINDOWS.dump(report.result.windows)
 
     def _respiration(self, report: AnalysisReport) -> Any:
         # The engine keeps the modulation beside the respiration; the response nests it.
-        document: dict[str, Any] = RespirationSchema().dump(report.result.respiration)
-        document["modulation"] = ModulationSchema().dump(report.result.modulation)
+        document: dict[str, Any] = _RESPIRATION.dump(report.result.respiration)
+        document["modulation"] = _MODULATION.dump(report.result.modulation)
         return document
 
     def _feature_vector(self, report: AnalysisReport) -> dict[str, Any]:
         vector = report.result.feature_vector
         return {
             "feature_set_version": vector.feature_set_version,
-            "features": FeatureValueSchema(many=True).dump(vector.features),
+            "features": dump_feature_values(vector.features),
         }
 
     def _warnings(self, report: AnalysisReport) -> list[str]:
@@ -517,3 +517,20 @@ class AnalysisResponseSchema(Schema):
             warnings.append(f"non-finite values replaced by null at: {shown}")
         data["warnings"] = warnings
         return data
+
+
+# Schemas hold no state between dumps: one instance of each serves every analysis
+# (building them anew was most of the dump of a 5-minute analysis).
+_BEATS = BeatsSchema()
+_TEMPLATE = TemplateSchema()
+_SIGNALS = SignalsSchema()
+_WINDOWS = WindowsSchema()
+_RESPIRATION = RespirationSchema()
+_MODULATION = ModulationSchema()
+_RESPONSE = AnalysisResponseSchema()
+
+
+def dump_report(report: AnalysisReport) -> dict[str, Any]:
+    """The JSON document of ``report`` (:class:`AnalysisResponseSchema`, built once)."""
+    document: dict[str, Any] = _RESPONSE.dump(report)
+    return document

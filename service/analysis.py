@@ -24,7 +24,7 @@ from features.night import NightSummary, summarize_night
 from features.windows import WindowedAnalysis, WindowResult, collect_windows, iter_windows
 from schemas.engine_inputs import EngineCall, engine_inputs
 from schemas.requests import AnalysisRequest
-from schemas.responses import AnalysisReport, AnalysisResponseSchema
+from schemas.responses import AnalysisReport, dump_report
 from service.metrics import record_analysis
 
 
@@ -102,8 +102,7 @@ def analyze_request_windows(request: AnalysisRequest) -> WindowedAnalysis:
 def dump_analysis(result: AnalysisResult, request: AnalysisRequest) -> dict[str, Any]:
     """The JSON document of ``result``, with the parts ``request`` asked for."""
     report = AnalysisReport(result=result, include=request.options.include)
-    document: dict[str, Any] = AnalysisResponseSchema().dump(report)
-    return document
+    return dump_report(report)
 
 
 def run_analysis(request: AnalysisRequest) -> dict[str, Any]:

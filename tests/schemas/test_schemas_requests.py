@@ -219,3 +219,40 @@ def test_signalling_nan_widens_quietly_to_a_lost_sample():
     # widening it to float64 makes numpy warn; it must load as NaN (a gap) without one.
     text = base64.b64encode(bytes([0x01, 0x00, 0x80, 0x7F])).decode()
     assert np.isnan(decode_base64_samples(text, "float32", field="x")).all()
+
+
+@pytest.mark.parametrize("values", [[True, 0.5], [0.5, 2.0, False], [0, 1, True]])
+def test_booleans_are_refused_among_zeros_and_ones(values):
+    # A boolean packs to 1.0 or 0.0 as a number would; its type must still be refused.
+    with pytest.raises(ValidationError, match="bool"):
+        SamplesField().deserialize(values)
+
+
+def test_the_numbers_zero_and_one_load():
+    loaded = SamplesField().deserialize([0, 1, 0.0, 1.0, 2.5])
+    np.testing.assert_array_equal(loaded, [0.0, 1.0, 0.0, 1.0, 2.5])
+
+
+_ELEMENTS = st.one_of(
+    st.floats(allow_nan=False, allow_infinity=False, width=64),
+    st.integers(min_value=-(2**53), max_value=2**53),
+    st.sampled_from([0, 1, 0.0, 1.0, -0.0]),  # the values a boolean packs to
+    st.none(),
+    st.booleans(),
+    st.just("1.5"),
+)
+
+
+@given(st.lists(_ELEMENTS, min_size=1, max_size=60))
+@settings(max_examples=200, deadline=None)
+def test_samples_accept_exactly_numbers_and_null(values):
+    # The contract's rule (openapi.yaml, Channel.samples items: number or null): booleans
+    # and strings are refused; numbers load as numpy converts them, null as NaN.
+    odd = [v for v in values if isinstance(v, bool | str)]
+    if odd:
+        with pytest.raises(ValidationError, match="must hold only numbers"):
+            SamplesField().deserialize(values)
+        return
+    loaded = SamplesField().deserialize(values)
+    want = np.array([np.nan if v is None else v for v in values], dtype=np.float64)
+    np.testing.assert_array_equal(loaded, want)  # NaN compares equal here

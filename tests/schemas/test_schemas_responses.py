@@ -17,7 +17,8 @@ from jsonschema import Draft202012Validator
 
 import features
 from features.conditioning import ChannelInput
-from schemas.responses import NOTICE, AnalysisReport, AnalysisResponseSchema
+from schemas.catalogue import FeatureValueSchema, dump_feature_values
+from schemas.responses import NOTICE, AnalysisReport, AnalysisResponseSchema, dump_report
 from service.demo import DEMO_SETTINGS
 from simulation import simulate
 
@@ -76,3 +77,24 @@ def test_infinity_anywhere_becomes_null_and_is_reported(full_result):
     json.dumps(document, allow_nan=False)
     assert document["respiration"]["rise_fall_ratio"] is None
     assert any("respiration.rise_fall_ratio" in w for w in document["warnings"])
+
+
+def test_feature_values_written_out_match_their_schema(full_result):
+    # FeatureValueSchema is the contract's FeatureValue; the written-out dump must give
+    # the same members, types and order, null values and reasons included.
+    values = full_result.feature_vector.features
+    assert any(v.value is None for v in values) and any(v.value is not None for v in values)
+    want = FeatureValueSchema(many=True).dump(values)
+    got = dump_feature_values(values)
+    assert json.dumps(got) == json.dumps(want)
+
+
+def test_the_cached_schema_dumps_each_report_alone(full_result):
+    # One schema instance serves every analysis: what one report asked for must not
+    # leak into the next one's document.
+    with_beats = dump_report(AnalysisReport(full_result, frozenset({"beats"})))
+    plain = dump_report(AnalysisReport(full_result))
+    assert "beats" in with_beats and "beats" not in plain
+    fresh = AnalysisResponseSchema().dump(AnalysisReport(full_result, frozenset(),
+                                                         plain["analysis_id"]))
+    assert json.dumps(plain) == json.dumps(fresh)

@@ -6,6 +6,7 @@ import json
 import os
 import subprocess
 import sys
+import threading
 import time
 
 import pytest
@@ -63,6 +64,51 @@ def test_deadline_returns_the_result_when_in_time_and_never_fires_later():
     with pytest.raises(ComputeTimeExceeded) as info:
         run_with_deadline(0.05, lambda: time.sleep(0.3))
     assert info.value.limit_s == 0.05 and 0.3 <= info.value.elapsed_s < 0.6
+
+
+def test_one_watchdog_thread_serves_every_call():
+    run_with_deadline(1.0, lambda: None)  # the watchdog is started on first use
+    before = threading.active_count()
+    for _ in range(50):
+        assert run_with_deadline(1.0, lambda: 7) == 7
+    assert threading.active_count() == before
+
+
+def test_a_shorter_deadline_armed_after_a_longer_one_still_fires_on_time():
+    # The watchdog sleeps until the earliest deadline it holds; a later call with an
+    # earlier deadline must wake it.
+    outcome = {}
+
+    def long_call():
+        outcome["long"] = run_with_deadline(5.0, lambda: time.sleep(0.6) or "done")
+
+    other = threading.Thread(target=long_call)
+    other.start()
+    time.sleep(0.1)  # the 5-s deadline is armed first
+    with pytest.raises(ComputeTimeExceeded) as info:
+        run_with_deadline(0.05, lambda: [time.sleep(0.01) for _ in range(100)])
+    # Fired at its own deadline, not at the other call's 5 s (the loop above takes 1 s;
+    # 0.5 s leaves room for a loaded machine).
+    assert info.value.elapsed_s < 0.5
+    other.join()
+    assert outcome["long"] == "done"  # the other thread's call was not interrupted
+
+
+@pytest.mark.skipif(not hasattr(os, "fork"), reason="needs os.fork (POSIX)")
+def test_a_forked_child_gets_its_own_watchdog():
+    # gunicorn forks its workers: the parent's watchdog thread does not exist in a child.
+    run_with_deadline(1.0, lambda: None)  # the parent's watchdog is running
+    pid = os.fork()
+    if pid == 0:  # the child: exit 0 only if its deadline fires
+        try:
+            run_with_deadline(0.05, lambda: [time.sleep(0.01) for _ in range(200)])
+        except ComputeTimeExceeded:
+            os._exit(0)
+        except BaseException:
+            os._exit(2)
+        os._exit(1)
+    _, status = os.waitpid(pid, 0)
+    assert os.waitstatus_to_exitcode(status) == 0
 
 
 def test_engine_exceptions_pass_through_the_deadline():
