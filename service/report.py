@@ -37,12 +37,15 @@ from service.picture import (
     png_bytes,
     save,
 )
+from service.stamps import Overlay, axis_ticks, with_overlay
 
 __all__ = ["DPI", "MEDIA_TYPES", "NOTICE_COLOUR", "NOTICE_FONT_PT", "SIZE_IN",
            "analysis_with_report", "draw_report", "report_of"]
 
 #: Display band of the trace panel, Hz (the cardiac band; breathing is in its own panel).
 DISPLAY_BAND_HZ = (0.7, 20.0)
+#: Colour of the breathing signal and of its axis.
+_BREATH = "#9467bd"
 _FAMILIES = ("quality", "heart_rate", "variability", "morphology", "respiration", "modulation")
 #: Where the panels sit (left, bottom, width, height in figure fraction): about the places
 #: constrained layout found for them, fixed, with room on the left for tick labels such as
@@ -153,7 +156,7 @@ def _interval_panel(ax: Any, twin: Any, result: AnalysisResult) -> None:
     if shown:
         tb = np.arange(breath.size) / resp.breathing_fs_hz
         tb, breath = envelope(tb, breath, columns_of(INTERVAL_RECT))
-        twin.plot(tb, breath, color="#9467bd", linewidth=0.7, alpha=0.8)
+        twin.plot(tb, breath, color=_BREATH, linewidth=0.7, alpha=0.8)
     if not times.size and not shown:
         ax.set_xlim(0.0, 1.0)
 
@@ -198,7 +201,6 @@ class _Page:
         self.confidence = figure.add_axes(CONFIDENCE_RECT)
         self.interval = figure.add_axes(INTERVAL_RECT)
         self.twin = self.interval.twinx()
-        self.headline = figure.text(0.5, 0.992, "", ha="center", va="top", fontsize=10)
         for ax, title in ((self.trace, "Trace, masked segments and beats"),
                           (self.ensemble, "Beat ensemble and located waves"),
                           (self.interval, "Beat-to-beat intervals and breathing"),
@@ -209,8 +211,7 @@ class _Page:
         self.ensemble.set_xlabel("time from J (ms)")
         self.interval.set_xlabel("time (s)")
         self.interval.set_ylabel("interval (ms)")
-        self.twin.set_ylabel("breathing (a.u.)", color="#9467bd")
-        self.twin.tick_params(axis="y", labelsize=7, colors="#9467bd")
+        self.twin.set_ylabel("breathing (a.u.)", color=_BREATH)
         positions = np.arange(len(_FAMILIES))
         conf = self.confidence
         conf.set_yticks(positions, [name.replace("_", " ") for name in _FAMILIES], fontsize=8)
@@ -220,18 +221,17 @@ class _Page:
         conf.set_xlabel("confidence")
         draw_caution(figure)
         self.moving = (self.trace, self.ensemble, self.interval, self.twin)
+        # The axes whose ticks follow the data are not drawn by matplotlib: their ticks,
+        # tick labels and axis labels are the overlay's (``_axes_overlay``).
+        for ax in self.moving:
+            ax.xaxis.set_visible(False)
+            ax.yaxis.set_visible(False)
         self.fixed: set[Any] = {conf.xaxis, conf.yaxis}
         for ax in (*self.moving, conf):
             self.fixed |= {ax.patch, ax.title, ax._left_title, ax._right_title}
-        # The background: everything but the axes whose ticks follow the data.
-        hidden = [axis for ax in self.moving for axis in (ax.xaxis, ax.yaxis)
-                  if axis.get_visible()]
-        for axis in hidden:
-            axis.set_visible(False)
+        # The background: everything that does not change from one report to the next.
         figure.canvas.draw()
         self.background = figure.canvas.copy_from_bbox(figure.bbox)
-        for axis in hidden:
-            axis.set_visible(True)
 
     def clear(self) -> None:
         """Remove the last report's data, legends and data limits."""
@@ -244,8 +244,9 @@ class _Page:
         for ax in self.moving:
             ax.set_autoscale_on(True)
 
-    def png(self) -> bytes:
-        """The report as PNG: the background restored, the changing artists drawn over it."""
+    def png(self, overlay: Overlay) -> bytes:
+        """The report as PNG: the background restored, the changing artists drawn over it,
+        then the overlay."""
         canvas = self.figure.canvas
         canvas.restore_region(self.background)
         for ax in (self.trace, self.ensemble, self.confidence, self.interval, self.twin):
@@ -256,8 +257,27 @@ class _Page:
                         if a not in self.fixed and a.get_visible()]
             for artist in sorted(children, key=lambda a: a.get_zorder()):
                 ax.draw_artist(artist)
-        self.figure.draw_artist(self.headline)
+        overlay.paint(np.asarray(canvas.buffer_rgba()))
         return png_bytes(canvas)
+
+    def svg(self, overlay: Overlay) -> bytes:
+        """The report as SVG: the figure written whole, the overlay's elements closing it."""
+        return with_overlay(save(self.figure, "svg"), overlay)
+
+    def overlay(self, result: AnalysisResult) -> Overlay:
+        """The ticks and axis labels that follow the data, and the headline."""
+        overlay = Overlay()
+        axis_ticks(overlay, self.trace, "x", side="bottom")
+        axis_ticks(overlay, self.trace, "y", side="left")
+        axis_ticks(overlay, self.ensemble, "x", side="bottom")
+        axis_ticks(overlay, self.ensemble, "y", side="left")
+        axis_ticks(overlay, self.interval, "x", side="bottom")
+        axis_ticks(overlay, self.interval, "y", side="left")
+        if self.twin.get_visible():
+            axis_ticks(overlay, self.twin, "y", side="right", size_pt=7.0, colour=_BREATH)
+        overlay.label(0.5 * SIZE_IN[0] * DPI, 0.992 * SIZE_IN[1] * DPI, _headline(result),
+                      10.0, "#000000", "center", "top")
+        return overlay
 
 
 _PAGES: list[_Page] = []
@@ -312,8 +332,8 @@ def draw_report(result: AnalysisResult, *, image_format: str = "png") -> bytes:
     _ensemble_panel(page.ensemble, result)
     _confidence_panel(page.confidence, result)
     _interval_panel(page.interval, page.twin, result)
-    page.headline.set_text(_headline(result))
-    image = page.png() if image_format == "png" else save(page.figure, image_format)
+    overlay = page.overlay(result)
+    image = page.png(overlay) if image_format == "png" else page.svg(overlay)
     _give_back(page)
     return image
 

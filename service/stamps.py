@@ -1,0 +1,283 @@
+"""Text and tick marks laid on a picture without matplotlib's artists: the overlay.
+
+A picture's changing words (tick labels, axis units, legends, the headline) cost
+matplotlib a text layout and a glyph rasterisation each on every draw. Here a text is
+measured and rasterised once per process (the same Agg renderer and font as the figure),
+kept as a coverage stamp, and laid on the page by array compositing: a few microseconds
+for a label seen before. The same overlay is written into an SVG as ``<text>`` and
+``<path>`` elements, so both formats show the same words at the same places.
+
+Coordinates are pixels of the page at ``DPI``, x to the right and y up from the bottom
+(matplotlib's display coordinates); SVG user units are points, y down.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+from dataclasses import dataclass
+from xml.sax.saxutils import escape
+
+import numpy as np
+
+from service.picture import DPI, SIZE_IN
+from service.ticks import nice_ticks, tick_labels
+
+__all__ = ["Label", "Mark", "Overlay", "axis_ticks", "text_size", "with_overlay"]
+
+#: Page height in pixels, and points per pixel (SVG units).
+_HEIGHT_PX = SIZE_IN[1] * DPI
+_PT_PER_PX = 72.0 / DPI
+#: Blank pixels around a stamp's text box (glyphs may overhang their advance).
+_PAD = 3
+#: Fonts as matplotlib's SVG backend names them (the Agg raster uses the first found).
+_SVG_FONTS = ("'DejaVu Sans', 'Bitstream Vera Sans', 'Lucida Grande', 'Verdana', "
+              "'Arial', 'Helvetica', sans-serif")
+
+
+@dataclass(frozen=True)
+class Label:
+    """One text: anchor point (pixels), alignment of its box on it, size, colour, angle.
+
+    ``ha`` is left, center or right; ``va`` top, center, baseline or bottom, of the text's
+    box (ascent of "lp" above the baseline, its descent below), before rotation;
+    ``rotation`` is 0 or 90 degrees (reading upwards).
+    """
+
+    x: float
+    y: float
+    text: str
+    size_pt: float = 10.0
+    colour: str = "#000000"
+    ha: str = "center"
+    va: str = "center"
+    rotation: int = 0
+
+
+@dataclass(frozen=True)
+class Mark:
+    """A filled rectangle in pixels (x0, y0 bottom-left; x1, y1 top-right), e.g. a tick."""
+
+    x0: float
+    y0: float
+    x1: float
+    y1: float
+    colour: str = "#000000"
+
+
+@functools.lru_cache(maxsize=4096)
+def text_size(text: str, size_pt: float) -> tuple[float, float, float]:
+    """(width, ascent, descent) of ``text`` in pixels, by the Agg renderer's metrics.
+
+    Ascent and descent are at least those of "lp", so labels of one row line up.
+    """
+    renderer, prop = _measurer(size_pt)
+    width, height, descent = renderer.get_text_width_height_descent(text, prop, ismath=False)
+    _, lp_height, lp_descent = renderer.get_text_width_height_descent("lp", prop, ismath=False)
+    return (float(width), float(max(height - descent, lp_height - lp_descent)),
+            float(max(descent, lp_descent)))
+
+
+@functools.lru_cache(maxsize=16)
+def _measurer(size_pt: float):  # type: ignore[no-untyped-def]
+    from matplotlib.backends.backend_agg import RendererAgg
+    from matplotlib.font_manager import FontProperties
+
+    return RendererAgg(8, 8, DPI), FontProperties(size=size_pt)
+
+
+@functools.lru_cache(maxsize=4096)
+def _stamp(text: str, size_pt: float, colour: str, rotation: int) -> tuple[np.ndarray,
+                                                                          np.ndarray]:
+    """The rasterised text: its coverage (0-255, rows from the top) and its RGB colour.
+
+    The box of :func:`text_size` starts ``_PAD`` pixels in from the stamp's top-left
+    corner (before rotation).
+    """
+    from matplotlib.backends.backend_agg import RendererAgg
+    from matplotlib.colors import to_rgb
+    from matplotlib.font_manager import FontProperties
+
+    width, ascent, descent = text_size(text, size_pt)
+    renderer = RendererAgg(math.ceil(width) + 2 * _PAD,
+                           math.ceil(ascent + descent) + 2 * _PAD, DPI)
+    gc = renderer.new_gc()
+    gc.set_foreground("#000000")
+    # Agg's text y is downwards, at the baseline.
+    renderer.draw_text(gc, _PAD, _PAD + ascent, text, FontProperties(size=size_pt), 0)
+    coverage = np.array(np.asarray(renderer.buffer_rgba())[..., 3])
+    if rotation == 90:
+        coverage = np.ascontiguousarray(np.rot90(coverage))
+    rgb = np.array([round(255 * c) for c in to_rgb(colour)], dtype=np.uint16)
+    return coverage, rgb
+
+
+def _box(label: Label) -> tuple[float, float, float, float]:
+    """(left, top) of the label's unrotated box in pixels from the page's top-left, with
+    its width and height, after alignment (rotation 90 turns the box about the anchor)."""
+    width, ascent, descent = text_size(label.text, label.size_pt)
+    height = ascent + descent
+    along = {"left": 0.0, "center": width / 2.0, "right": width}[label.ha]
+    across = {"top": 0.0, "center": height / 2.0, "baseline": ascent,
+              "bottom": height}[label.va]
+    top_down = _HEIGHT_PX - label.y
+    if label.rotation == 90:
+        # Reading upwards: the text runs up the page from its left end; its top faces left.
+        return label.x - across, top_down - width + along, height, width
+    return label.x - along, top_down - across, width, height
+
+
+class Overlay:
+    """Labels and marks gathered for one picture, then laid on its PNG pixels or its SVG."""
+
+    def __init__(self) -> None:
+        self.labels: list[Label] = []
+        self.marks: list[Mark] = []
+
+    def label(self, *args: object, **kwargs: object) -> Label:
+        """Add a :class:`Label` (same arguments) and return it."""
+        item = Label(*args, **kwargs)  # type: ignore[arg-type]
+        self.labels.append(item)
+        return item
+
+    def mark(self, x0: float, y0: float, x1: float, y1: float,
+             colour: str = "#000000") -> None:
+        """Add a :class:`Mark`."""
+        self.marks.append(Mark(x0, y0, x1, y1, colour))
+
+    def paint(self, rgba: np.ndarray) -> None:
+        """Lay the marks, then the labels, on ``rgba`` (height x width x 4, rows from the
+        top, opaque), in place."""
+        from matplotlib.colors import to_rgb
+
+        height, width = rgba.shape[:2]
+        for m in self.marks:
+            c0, c1 = max(0, round(m.x0)), min(width, max(round(m.x1), round(m.x0) + 1))
+            r0 = max(0, round(_HEIGHT_PX - m.y1))
+            r1 = min(height, max(round(_HEIGHT_PX - m.y0), r0 + 1))
+            rgba[r0:r1, c0:c1, :3] = [round(255 * c) for c in to_rgb(m.colour)]
+        for label in self.labels:
+            coverage, rgb = _stamp(label.text, label.size_pt, label.colour, label.rotation)
+            left, top, _, _ = _box(label)
+            _composite(rgba, coverage, rgb, round(left) - _PAD, round(top) - _PAD)
+
+    def svg(self) -> str:
+        """The overlay as SVG elements (points, y down), to close the picture's document."""
+        parts = ['<g id="overlay">']
+        for m in self.marks:
+            x, y = m.x0 * _PT_PER_PX, (_HEIGHT_PX - m.y1) * _PT_PER_PX
+            w, h = (m.x1 - m.x0) * _PT_PER_PX, (m.y1 - m.y0) * _PT_PER_PX
+            parts.append(f'<rect x="{x:.2f}" y="{y:.2f}" width="{w:.2f}" height="{h:.2f}" '
+                         f'style="fill: {m.colour}"/>')
+        for label in self.labels:
+            parts.append(_svg_text(label))
+        parts.append("</g>")
+        return "\n".join(parts)
+
+
+def _svg_text(label: Label) -> str:
+    """One ``<text>`` element: anchored at the baseline, as the raster places it."""
+    width, ascent, _ = text_size(label.text, label.size_pt)
+    left, top, _, _ = _box(label)
+    if label.rotation == 90:
+        x, y = left + ascent, top + width  # baseline's start after the turn
+        turn = f' transform="rotate(-90 {x * _PT_PER_PX:.2f} {y * _PT_PER_PX:.2f})"'
+    else:
+        x, y, turn = left, top + ascent, ""
+    return (f'<text x="{x * _PT_PER_PX:.2f}" y="{y * _PT_PER_PX:.2f}"{turn} '
+            f'style="font-size: {label.size_pt:g}px; font-family: {_SVG_FONTS}; '
+            f'fill: {label.colour}">{escape(label.text)}</text>')
+
+
+def _composite(rgba: np.ndarray, coverage: np.ndarray, rgb: np.ndarray, left: int,
+               top: int) -> None:
+    """Blend ``rgb`` onto ``rgba`` with ``coverage`` as opacity, its corner at (left, top)."""
+    height, width = rgba.shape[:2]
+    r0, c0 = max(0, top), max(0, left)
+    r1, c1 = min(height, top + coverage.shape[0]), min(width, left + coverage.shape[1])
+    if r1 <= r0 or c1 <= c0:
+        return
+    a = coverage[r0 - top:r1 - top, c0 - left:c1 - left, None].astype(np.uint16)
+    dst = rgba[r0:r1, c0:c1, :3]
+    dst[...] = ((dst.astype(np.uint16) * (255 - a) + rgb * a + 127) // 255).astype(np.uint8)
+
+
+#: Tick length and the gap from a tick to its label, pixels (3.5 pt each, matplotlib's
+#: defaults), the gap from tick labels to the axis label (4 pt), and tick width (0.8 pt).
+TICK_PX = 3.5 / _PT_PER_PX
+LABEL_GAP_PX = 4.0 / _PT_PER_PX
+TICK_WIDTH_PX = 0.8 / _PT_PER_PX
+#: Most tick intervals across an axis: its length over three label heights (x) or two
+#: (y), between 1 and 9, as matplotlib's ``Axis.get_tick_space`` and ``MaxNLocator``.
+_SPACE_PER_TICK = {"x": 3.0, "y": 2.0}
+
+
+def axis_ticks(overlay: Overlay, ax: object, which: str, *, side: str,
+               size_pt: float = 10.0, colour: str = "#000000", labels: bool = True) -> None:
+    """Ticks, tick labels and the axis label of one axis of ``ax``, onto ``overlay``.
+
+    Parameters
+    ----------
+    overlay
+        Where the marks and labels go.
+    ax
+        A matplotlib axes with linear scales whose ``which`` axis artist is hidden: its
+        view limits and its label text (``set_xlabel``/``set_ylabel``) are read here.
+    which
+        ``"x"`` or ``"y"``.
+    side
+        ``"bottom"`` for x; ``"left"`` or ``"right"`` for y.
+    size_pt, colour
+        Of the tick labels (the axis label is 10 pt, in its own colour).
+    labels
+        False: tick marks alone (an x axis whose labels the panel below carries).
+    """
+    x0, y0, x1, y1 = ax.bbox.extents  # type: ignore[attr-defined]
+    lo, hi = ax.get_xlim() if which == "x" else ax.get_ylim()  # type: ignore[attr-defined]
+    start, end = (x0, x1) if which == "x" else (y0, y1)
+    length_pt = (end - start) * _PT_PER_PX
+    max_ticks = int(np.clip(length_pt // (size_pt * _SPACE_PER_TICK[which]), 1, 9))
+    ticks = nice_ticks(lo, hi, max_ticks=max_ticks)
+    where = start + (ticks - lo) * ((end - start) / (hi - lo)) if hi != lo else ticks * 0
+    half = TICK_WIDTH_PX / 2.0
+    widest = 0.0
+    axis_label = (ax.xaxis if which == "x" else ax.yaxis).label  # type: ignore[attr-defined]
+    texts = tick_labels(ticks) if labels else [""] * ticks.size
+    for at, text in zip(where, texts, strict=True):
+        if side == "bottom":
+            overlay.mark(at - half, y0 - TICK_PX, at + half, y0)
+            if text:
+                overlay.label(at, y0 - 2 * TICK_PX, text, size_pt, colour, "center", "top")
+        elif side == "left":
+            overlay.mark(x0 - TICK_PX, at - half, x0, at + half)
+            overlay.label(x0 - 2 * TICK_PX, at, text, size_pt, colour, "right", "center")
+        else:
+            overlay.mark(x1, at - half, x1 + TICK_PX, at + half)
+            overlay.label(x1 + 2 * TICK_PX, at, text, size_pt, colour, "left", "center")
+        widest = max(widest, text_size(text, size_pt)[0]) if text else widest
+    name = axis_label.get_text()
+    if not name or not labels:
+        return
+    label_colour = _hex(axis_label.get_color())
+    if side == "bottom":
+        _, ascent, descent = text_size("0", size_pt)
+        overlay.label((x0 + x1) / 2.0, y0 - 2 * TICK_PX - ascent - descent - LABEL_GAP_PX,
+                      name, 10.0, label_colour, "center", "top")
+    elif side == "left":
+        overlay.label(x0 - 2 * TICK_PX - widest - LABEL_GAP_PX, (y0 + y1) / 2.0, name, 10.0,
+                      label_colour, "center", "bottom", 90)
+    else:
+        overlay.label(x1 + 2 * TICK_PX + widest + LABEL_GAP_PX, (y0 + y1) / 2.0, name, 10.0,
+                      label_colour, "center", "top", 90)
+
+
+def _hex(colour: object) -> str:
+    from matplotlib.colors import to_hex
+
+    return str(to_hex(colour))  # type: ignore[arg-type]
+
+
+def with_overlay(svg: bytes, overlay: Overlay) -> bytes:
+    """``svg`` (a document matplotlib wrote) with ``overlay``'s elements before its end."""
+    end = svg.rindex(b"</svg>")
+    return svg[:end] + overlay.svg().encode("utf-8") + b"\n" + svg[end:]
