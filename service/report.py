@@ -37,7 +37,13 @@ from service.picture import (
     png_bytes,
     save,
 )
-from service.stamps import Overlay, axis_ticks, with_overlay
+from service.stamps import (
+    Overlay,
+    axis_ticks,
+    legend_to_overlay,
+    texts_to_overlay,
+    with_overlay,
+)
 
 __all__ = ["DPI", "MEDIA_TYPES", "NOTICE_COLOUR", "NOTICE_FONT_PT", "SIZE_IN",
            "analysis_with_report", "draw_report", "report_of"]
@@ -89,7 +95,6 @@ def _trace_panel(ax: Any, result: AnalysisResult, trace: np.ndarray) -> None:
     ax.set_xlim(0, max(t[-1] if t.size else 1.0, 1e-3))
     unit = result.input.amplitude_unit
     ax.set_ylabel(f"{unit} ({DISPLAY_BAND_HZ[0]:g}-{DISPLAY_BAND_HZ[1]:g} Hz)")
-    ax.legend(loc="upper right", fontsize=7, ncols=3)
 
 
 def _window_marks(ax: Any, result: AnalysisResult) -> None:
@@ -144,7 +149,6 @@ def _interval_panel(ax: Any, twin: Any, result: AnalysisResult) -> None:
         if (~normal).any():
             ax.plot(times[~normal], values[~normal], linestyle="none", marker="x",
                     markersize=4, color="#d62728", label="not normal")
-        ax.legend(loc="upper left", fontsize=7)
     else:
         ax.text(0.5, 0.5, "no intervals", ha="center", va="center", transform=ax.transAxes,
                 fontsize=8)
@@ -229,6 +233,7 @@ class _Page:
         self.fixed: set[Any] = {conf.xaxis, conf.yaxis}
         for ax in (*self.moving, conf):
             self.fixed |= {ax.patch, ax.title, ax._left_title, ax._right_title}
+        self.extra: list[Any] = []  # the legends' frames and handles, figure artists
         # The background: everything that does not change from one report to the next.
         figure.canvas.draw()
         self.background = figure.canvas.copy_from_bbox(figure.bbox)
@@ -241,6 +246,9 @@ class _Page:
             if ax.legend_ is not None:
                 ax.legend_.remove()
             ax.relim()
+        for artist in self.extra:
+            artist.remove()
+        self.extra = []
         for ax in self.moving:
             ax.set_autoscale_on(True)
 
@@ -257,6 +265,8 @@ class _Page:
                         if a not in self.fixed and a.get_visible()]
             for artist in sorted(children, key=lambda a: a.get_zorder()):
                 ax.draw_artist(artist)
+        for artist in self.extra:
+            self.figure.draw_artist(artist)
         overlay.paint(np.asarray(canvas.buffer_rgba()))
         return png_bytes(canvas)
 
@@ -265,8 +275,13 @@ class _Page:
         return with_overlay(save(self.figure, "svg"), overlay)
 
     def overlay(self, result: AnalysisResult) -> Overlay:
-        """The ticks and axis labels that follow the data, and the headline."""
+        """The ticks, axis labels, texts and legends that follow the data, and the
+        headline; the legends' frames and handles join ``extra``."""
         overlay = Overlay()
+        for ax in (self.trace, self.ensemble, self.interval, self.confidence):
+            texts_to_overlay(overlay, ax)
+        self.extra = [*legend_to_overlay(overlay, self.trace, loc="upper right", ncols=3),
+                      *legend_to_overlay(overlay, self.interval, loc="upper left")]
         axis_ticks(overlay, self.trace, "x", side="bottom")
         axis_ticks(overlay, self.trace, "y", side="left")
         axis_ticks(overlay, self.ensemble, "x", side="bottom")

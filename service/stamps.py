@@ -16,6 +16,7 @@ from __future__ import annotations
 import functools
 import math
 from dataclasses import dataclass
+from typing import Any
 from xml.sax.saxutils import escape
 
 import numpy as np
@@ -23,7 +24,8 @@ import numpy as np
 from service.picture import DPI, SIZE_IN
 from service.ticks import nice_ticks, tick_labels
 
-__all__ = ["Label", "Mark", "Overlay", "axis_ticks", "text_size", "with_overlay"]
+__all__ = ["Label", "Mark", "Overlay", "axis_ticks", "legend_to_overlay", "text_size",
+           "texts_to_overlay", "with_overlay"]
 
 #: Page height in pixels, and points per pixel (SVG units).
 _HEIGHT_PX = SIZE_IN[1] * DPI
@@ -281,3 +283,110 @@ def with_overlay(svg: bytes, overlay: Overlay) -> bytes:
     """``svg`` (a document matplotlib wrote) with ``overlay``'s elements before its end."""
     end = svg.rindex(b"</svg>")
     return svg[:end] + overlay.svg().encode("utf-8") + b"\n" + svg[end:]
+
+
+def texts_to_overlay(overlay: Overlay, ax: Any) -> None:
+    """Move the texts and annotations of ``ax`` onto ``overlay`` (hidden on the axes).
+
+    A text keeps its place (its own transform, or an annotation's point plus its offset
+    in points), size, colour and alignment; annotations are drawn without arrows here.
+    """
+    from matplotlib.text import Annotation
+
+    for text in ax.texts:
+        if not text.get_visible():
+            continue
+        if isinstance(text, Annotation):
+            x, y = ax.transData.transform(text.xy)
+            dx, dy = text.xyann
+            x, y = x + dx / _PT_PER_PX, y + dy / _PT_PER_PX
+        else:
+            x, y = text.get_transform().transform(text.get_position())
+        va = text.get_verticalalignment()
+        overlay.label(float(x), float(y), text.get_text(), float(text.get_fontsize()),
+                      _hex(text.get_color()), text.get_horizontalalignment(),
+                      "center" if va == "center_baseline" else va)
+        text.set_visible(False)
+
+
+#: Legend geometry in font sizes (matplotlib's rcParams ``legend.*`` defaults).
+_BORDER_PAD, _LABEL_SPACING, _HANDLE_LENGTH = 0.4, 0.5, 2.0
+_HANDLE_PAD, _AXES_PAD, _COLUMN_SPACING = 0.8, 0.5, 2.0
+
+
+def legend_to_overlay(overlay: Overlay, ax: Any, *, loc: str, ncols: int = 1,
+                      size_pt: float = 7.0, frame: bool = True) -> list[Any]:
+    """A legend of the labelled artists of ``ax``: its words on ``overlay``, its frame and
+    handles as figure artists (returned, to be drawn after the axes and removed later).
+
+    Parameters
+    ----------
+    loc
+        ``"upper right"`` or ``"upper left"`` of the axes.
+    ncols
+        Columns, filled top to bottom then left to right (as matplotlib's legend).
+    """
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Rectangle
+
+    handles, names = ax.get_legend_handles_labels()
+    if not handles:
+        return []
+    figure = ax.figure
+    size_px = size_pt / _PT_PER_PX
+    _, ascent, descent = text_size("lp", size_pt)
+    row = ascent + descent
+    ncols = max(1, min(ncols, len(handles)))
+    nrows = math.ceil(len(handles) / ncols)
+    columns = [list(range(c * nrows, min((c + 1) * nrows, len(handles))))
+               for c in range(ncols)]
+    widths = [(_HANDLE_LENGTH + _HANDLE_PAD) * size_px
+              + max(text_size(names[k], size_pt)[0] for k in col) for col in columns if col]
+    box_w = (2 * _BORDER_PAD + _COLUMN_SPACING * (len(widths) - 1)) * size_px + sum(widths)
+    box_h = 2 * _BORDER_PAD * size_px + nrows * row + (nrows - 1) * _LABEL_SPACING * size_px
+    x0, _, x1, y1 = ax.bbox.extents
+    left = x1 - _AXES_PAD * size_px - box_w if loc == "upper right" else x0 + _AXES_PAD * size_px
+    top = y1 - _AXES_PAD * size_px
+    page_w, page_h = SIZE_IN[0] * DPI, _HEIGHT_PX
+    made: list[Any] = []
+    if frame:
+        made.append(Rectangle((left / page_w, (top - box_h) / page_h), box_w / page_w,
+                              box_h / page_h, transform=figure.transFigure, facecolor="white",
+                              edgecolor="0.8", linewidth=1.0, alpha=0.8))
+    hx = left + _BORDER_PAD * size_px
+    for col, width in zip(columns, widths, strict=False):
+        for r, k in enumerate(col):
+            cy = top - _BORDER_PAD * size_px - r * (row + _LABEL_SPACING * size_px) - row / 2
+            made.extend(_handle(handles[k], hx, cy, size_px, figure, Line2D, Rectangle))
+            overlay.label(hx + (_HANDLE_LENGTH + _HANDLE_PAD) * size_px, cy, names[k],
+                          size_pt, "#000000", "left", "center")
+        hx += width + _COLUMN_SPACING * size_px
+    for artist in made:
+        figure.add_artist(artist)
+    return made
+
+
+def _handle(source: Any, hx: float, cy: float, size_px: float, figure: Any,
+            line_type: Any, rect_type: Any) -> list[Any]:
+    """The handle of ``source`` (a line or a patch), ``_HANDLE_LENGTH`` font sizes wide."""
+    page_w, page_h = SIZE_IN[0] * DPI, _HEIGHT_PX
+    length = _HANDLE_LENGTH * size_px
+    if not isinstance(source, line_type):
+        height = 0.7 * size_px
+        return [rect_type((hx / page_w, (cy - height / 2) / page_h), length / page_w,
+                          height / page_h, transform=figure.transFigure,
+                          facecolor=source.get_facecolor(), linewidth=0)]
+    style = {"color": source.get_color(), "alpha": source.get_alpha(),
+             "transform": figure.transFigure}
+    made = []
+    if source.get_linestyle() not in ("None", "none", " ", ""):
+        made.append(line_type([hx / page_w, (hx + length) / page_w], [cy / page_h] * 2,
+                              linewidth=source.get_linewidth(),
+                              linestyle=source.get_linestyle(), **style))
+    if source.get_marker() not in ("None", "none", " ", "", None):
+        made.append(line_type([(hx + length / 2) / page_w], [cy / page_h], linestyle="none",
+                              marker=source.get_marker(), markersize=source.get_markersize(),
+                              markerfacecolor=source.get_markerfacecolor(),
+                              markeredgecolor=source.get_markeredgecolor(),
+                              markeredgewidth=source.get_markeredgewidth(), **style))
+    return made
