@@ -39,10 +39,10 @@ from service.picture import (
 )
 from service.stamps import (
     Overlay,
+    StaticSvg,
     axis_ticks,
     legend_to_overlay,
     texts_to_overlay,
-    with_overlay,
 )
 
 __all__ = ["DPI", "MEDIA_TYPES", "NOTICE_COLOUR", "NOTICE_FONT_PT", "SIZE_IN",
@@ -232,11 +232,13 @@ class _Page:
             ax.yaxis.set_visible(False)
         self.fixed: set[Any] = {conf.xaxis, conf.yaxis}
         for ax in (*self.moving, conf):
-            self.fixed |= {ax.patch, ax.title, ax._left_title, ax._right_title}
+            self.fixed |= {ax.patch, ax.title, ax._left_title, ax._right_title,
+                           *ax.spines.values()}
         self.extra: list[Any] = []  # the legends' frames and handles, figure artists
         # The background: everything that does not change from one report to the next.
         figure.canvas.draw()
         self.background = figure.canvas.copy_from_bbox(figure.bbox)
+        self.static_svg = StaticSvg(save(figure, "svg"))
 
     def clear(self) -> None:
         """Remove the last report's data, legends and data limits."""
@@ -257,22 +259,26 @@ class _Page:
         then the overlay."""
         canvas = self.figure.canvas
         canvas.restore_region(self.background)
-        for ax in (self.trace, self.ensemble, self.confidence, self.interval, self.twin):
-            if not ax.get_visible():
-                continue
-            # As Axes.draw does: every child by z-order (spines and legend included).
-            children = [a for a in ax.get_children()
-                        if a not in self.fixed and a.get_visible()]
-            for artist in sorted(children, key=lambda a: a.get_zorder()):
-                ax.draw_artist(artist)
-        for artist in self.extra:
-            self.figure.draw_artist(artist)
+        for artist in self.changing():
+            artist.draw(canvas.get_renderer())
         overlay.paint(np.asarray(canvas.buffer_rgba()))
         return png_bytes(canvas)
 
     def svg(self, overlay: Overlay) -> bytes:
-        """The report as SVG: the figure written whole, the overlay's elements closing it."""
-        return with_overlay(save(self.figure, "svg"), overlay)
+        """The report as SVG: the static part written once, the changing artists and the
+        overlay's elements after it."""
+        return self.static_svg.with_changes(self.figure, self.changing(), overlay)
+
+    def changing(self) -> list[Any]:
+        """The artists that change from one report to the next, in drawing order: of each
+        visible axes its children by z-order (as ``Axes.draw``), then ``extra``."""
+        out = []
+        for ax in (self.trace, self.ensemble, self.confidence, self.interval, self.twin):
+            if ax.get_visible():
+                children = [a for a in ax.get_children()
+                            if a not in self.fixed and a.get_visible()]
+                out.extend(sorted(children, key=lambda a: a.get_zorder()))
+        return out + self.extra
 
     def overlay(self, result: AnalysisResult) -> Overlay:
         """The ticks, axis labels, texts and legends that follow the data, and the

@@ -24,7 +24,7 @@ import numpy as np
 from service.picture import DPI, SIZE_IN
 from service.ticks import nice_ticks, tick_labels
 
-__all__ = ["Label", "Mark", "Overlay", "axis_ticks", "legend_to_overlay", "text_size",
+__all__ = ["Label", "Mark", "Overlay", "StaticSvg", "axis_ticks", "legend_to_overlay", "text_size",
            "texts_to_overlay", "with_overlay"]
 
 #: Page height in pixels, and points per pixel (SVG units).
@@ -390,3 +390,49 @@ def _handle(source: Any, hx: float, cy: float, size_px: float, figure: Any,
                               markeredgecolor=source.get_markeredgecolor(),
                               markeredgewidth=source.get_markeredgewidth(), **style))
     return made
+
+
+class StaticSvg:
+    """An SVG document of a figure's static part, to which each picture adds its changes.
+
+    matplotlib writes the figure's artists inside one group (``<g id="figure_1">``), then
+    the clip paths and hatches they use (``<defs>``). The changing artists of a picture are
+    written by a fresh SVG renderer (the figure at 72 dots per inch while they draw, as
+    ``savefig`` sets it) and spliced at the end of that group; their own ``<defs>`` follow
+    the static ones, and the overlay closes the document. The static part is written once,
+    so its texts are laid out once.
+    """
+
+    def __init__(self, svg: bytes) -> None:
+        text = svg.decode("utf-8")
+        group_end = text.rindex(" </g>\n")
+        self.head = text[:group_end]
+        self.tail = text[group_end:text.rindex("</svg>")]
+
+    def with_changes(self, figure: Any, artists: list[Any], overlay: Overlay) -> bytes:
+        """The document with ``artists`` drawn after the static part, then ``overlay``."""
+        import io
+
+        from matplotlib.backends.backend_svg import RendererSVG
+
+        buffer = io.StringIO()
+        width, height = figure.get_size_inches()
+        renderer = RendererSVG(width * 72, height * 72, buffer, image_dpi=DPI,
+                               metadata={"Date": None})
+        start = buffer.tell()  # after the header the renderer wrote
+        dpi = figure.dpi
+        figure.dpi = 72
+        try:
+            for k, artist in enumerate(artists, start=1):
+                artist.set_gid(f"changing_{k}")  # ids apart from the static part's
+                artist.draw(renderer)
+            renderer.finalize()
+        finally:
+            figure.dpi = dpi
+        body = buffer.getvalue()
+        changes = body[start:body.rindex("</svg>")]
+        # The changes' own <defs> (clip paths, markers) may come after the last group.
+        cut = changes.rfind("\n <defs>")
+        drawn, defs = (changes[:cut], changes[cut:]) if cut >= 0 else (changes, "")
+        return "".join((self.head, drawn, "\n", self.tail, defs, "\n", overlay.svg(),
+                        "\n</svg>\n")).encode("utf-8")
