@@ -215,7 +215,8 @@ _SPACE_PER_TICK = {"x": 3.0, "y": 2.0}
 
 
 def axis_ticks(overlay: Overlay, ax: object, which: str, *, side: str,
-               size_pt: float = 10.0, colour: str = "#000000", labels: bool = True) -> None:
+               size_pt: float = 10.0, colour: str = "#000000", labels: bool = True,
+               ticks: bool = True) -> None:
     """Ticks, tick labels and the axis label of one axis of ``ax``, onto ``overlay``.
 
     Parameters
@@ -233,18 +234,21 @@ def axis_ticks(overlay: Overlay, ax: object, which: str, *, side: str,
         Of the tick labels (the axis label is 10 pt, in its own colour).
     labels
         False: tick marks alone (an x axis whose labels the panel below carries).
+    ticks
+        False: the axis label alone (a panel with nothing to scale).
     """
     x0, y0, x1, y1 = ax.bbox.extents  # type: ignore[attr-defined]
     lo, hi = ax.get_xlim() if which == "x" else ax.get_ylim()  # type: ignore[attr-defined]
     start, end = (x0, x1) if which == "x" else (y0, y1)
     length_pt = (end - start) * _PT_PER_PX
     max_ticks = int(np.clip(length_pt // (size_pt * _SPACE_PER_TICK[which]), 1, 9))
-    ticks = nice_ticks(lo, hi, max_ticks=max_ticks)
-    where = start + (ticks - lo) * ((end - start) / (hi - lo)) if hi != lo else ticks * 0
+    at_ticks = nice_ticks(lo, hi, max_ticks=max_ticks) if ticks else np.empty(0)
+    where = (start + (at_ticks - lo) * ((end - start) / (hi - lo)) if hi != lo
+             else at_ticks * 0)
     half = TICK_WIDTH_PX / 2.0
     widest = 0.0
     axis_label = (ax.xaxis if which == "x" else ax.yaxis).label  # type: ignore[attr-defined]
-    texts = tick_labels(ticks) if labels else [""] * ticks.size
+    texts = tick_labels(at_ticks) if labels else [""] * at_ticks.size
     for at, text in zip(where, texts, strict=True):
         if side == "bottom":
             overlay.mark(at - half, y0 - TICK_PX, at + half, y0)
