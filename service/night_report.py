@@ -25,7 +25,6 @@ from service.picture import (
     SIZE_IN,
     check_format,
     columns_of,
-    draw_caution,
     new_figure,
     png_bytes,
     save,
@@ -34,8 +33,10 @@ from service.stamps import (
     TICK_PX,
     Overlay,
     axis_ticks,
+    caution,
     legend_to_overlay,
     texts_to_overlay,
+    title,
     with_overlay,
 )
 
@@ -122,7 +123,7 @@ def draw_night(summary: NightSummary, windowed: WindowedAnalysis, *,
     _axes_overlay(figure, overlay, strip, panels)
     overlay.label(0.5 * SIZE_IN[0] * DPI, 0.992 * SIZE_IN[1] * DPI,
                   _headline(summary, windowed), 10.0, "#000000", "center", "top")
-    draw_caution(figure)
+    caution(overlay)
     if image_format == "svg":
         return with_overlay(save(figure, image_format), overlay)
     figure.canvas.draw()
@@ -138,6 +139,8 @@ def _axes_overlay(figure: Any, overlay: Overlay, strip: Any,
         ax.xaxis.set_visible(False)
         ax.yaxis.set_visible(False)
         texts_to_overlay(overlay, ax)
+        title(overlay, ax, ax.get_title(loc="left"))
+        ax.set_title("", loc="left")
     axis_ticks(overlay, strip, "x", side="bottom", labels=False)
     for ax, has_values in panels:
         axis_ticks(overlay, ax, "x", side="bottom", labels=ax is panels[-1][0])

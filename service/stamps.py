@@ -25,7 +25,7 @@ from service.picture import DPI, SIZE_IN
 from service.ticks import nice_ticks, tick_labels
 
 __all__ = ["Label", "Mark", "Overlay", "StaticSvg", "axis_ticks", "legend_to_overlay", "text_size",
-           "texts_to_overlay", "with_overlay"]
+           "caution", "texts_to_overlay", "title", "with_overlay"]
 
 #: Page height in pixels, and points per pixel (SVG units).
 _HEIGHT_PX = SIZE_IN[1] * DPI
@@ -440,3 +440,27 @@ class StaticSvg:
         drawn, defs = (changes[:cut], changes[cut:]) if cut >= 0 else (changes, "")
         return "".join((self.head, drawn, "\n", self.tail, defs, "\n", overlay.svg(),
                         "\n</svg>\n")).encode("utf-8")
+
+
+#: Gap between an axes' top and its title's baseline, points (matplotlib's axes.titlepad).
+TITLE_PAD_PT = 6.0
+
+
+def title(overlay: Overlay, ax: Any, text: str, *, size_pt: float = 10.0) -> None:
+    """A title over the left end of ``ax``, as ``ax.set_title(text, loc="left")`` sets it."""
+    x0, _, _, y1 = ax.bbox.extents
+    overlay.label(x0, y1 + TITLE_PAD_PT / _PT_PER_PX, text, size_pt, "#000000", "left",
+                  "baseline")
+
+
+def caution(overlay: Overlay) -> None:
+    """The caution's lines at the foot of the page, as :func:`service.picture.draw_caution`
+    writes them: centred, ``NOTICE_FONT_PT``, ``NOTICE_COLOUR``, line spacing 1.25."""
+    from service.picture import NOTICE_BOTTOM, NOTICE_COLOUR, NOTICE_FONT_PT, caution_lines
+
+    lines = caution_lines()
+    step = NOTICE_FONT_PT * 1.25 / _PT_PER_PX
+    bottom = NOTICE_BOTTOM * _HEIGHT_PX
+    for k, line in enumerate(lines):
+        overlay.label(SIZE_IN[0] * DPI / 2.0, bottom + (len(lines) - 1 - k) * step, line,
+                      NOTICE_FONT_PT, NOTICE_COLOUR, "center", "bottom")
