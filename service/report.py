@@ -127,10 +127,11 @@ def _ensemble_panel(ax: Any, result: AnalysisResult) -> None:
     # template_start_s is the time of the first sample relative to J (negative).
     t_ms = (np.arange(template.size) / morph.template_fs_hz + morph.template_start_s) * 1000.0
     ax.plot(t_ms, template, color="#2ca02c", linewidth=1.2)
-    for wave in morph.waves:
-        if wave.time_ms is None or wave.amplitude is None:
-            continue
-        ax.plot([wave.time_ms], [wave.amplitude], marker="o", markersize=4, color="#444444")
+    located = [w for w in morph.waves if w.time_ms is not None and w.amplitude is not None]
+    if located:
+        ax.plot([w.time_ms for w in located], [w.amplitude for w in located],
+                linestyle="none", marker="o", markersize=4, color="#444444")
+    for wave in located:
         ax.annotate(f"{wave.name} ({wave.confidence:.2f})", (wave.time_ms, wave.amplitude),
                     textcoords="offset points", xytext=(3, 5), fontsize=7)
     ax.axvline(0.0, color="#999999", linewidth=0.6, linestyle=":")
@@ -167,8 +168,12 @@ def _interval_panel(ax: Any, twin: Any, result: AnalysisResult) -> None:
 
 def _confidence_panel(ax: Any, result: AnalysisResult) -> None:
     values = [float(getattr(result, name).confidence) for name in _FAMILIES]
-    positions = np.arange(len(values))
-    ax.barh(positions, values, color=["#7f7f7f" if v < 0.5 else "#2ca02c" for v in values])
+    colours = ["#7f7f7f" if v < 0.5 else "#2ca02c" for v in values]
+    if len(ax.patches) != len(values):  # the page's first report: the bars are made
+        ax.barh(np.arange(len(values)), values, color=colours)
+    for bar, value, colour in zip(ax.patches, values, colours, strict=True):
+        bar.set_width(value)  # then kept, and only their lengths and colours change
+        bar.set_facecolor(colour)
     for k, value in enumerate(values):
         ax.text(min(value + 0.02, 0.9), k, f"{value:.2f}", va="center", fontsize=7)
 
@@ -243,8 +248,10 @@ class _Page:
     def clear(self) -> None:
         """Remove the last report's data, legends and data limits."""
         for ax in (*self.moving, self.confidence):
+            kept = ax.patches if ax is self.confidence else []  # the bars, reused
             for artist in [*ax.lines, *ax.collections, *ax.patches, *ax.texts]:
-                artist.remove()
+                if artist not in kept:
+                    artist.remove()
             if ax.legend_ is not None:
                 ax.legend_.remove()
             ax.relim()

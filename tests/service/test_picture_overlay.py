@@ -153,10 +153,10 @@ def test_png_bytes_decode_to_the_canvas_pixels():
     ax.plot(np.sin(np.linspace(0, 20, 500)), color="#1f4e79")
     figure.canvas.draw()
     data = png_bytes(figure.canvas)
-    decoded = np.asarray(Image.open(io.BytesIO(data)).convert("RGB"))
+    decoded = np.asarray(Image.open(io.BytesIO(data)).convert("RGBA"))
     # PNG is lossless: bit-equality is the property under test.
-    np.testing.assert_array_equal(decoded, np.asarray(figure.canvas.buffer_rgba())[..., :3])
-    assert decoded.shape == (round(SIZE_IN[1] * 100), round(SIZE_IN[0] * 100), 3)
+    np.testing.assert_array_equal(decoded, np.asarray(figure.canvas.buffer_rgba()))
+    assert decoded.shape == (round(SIZE_IN[1] * 100), round(SIZE_IN[0] * 100), 4)
 
 
 def test_report_svg_splices_the_same_elements_as_a_whole_savefig():
