@@ -8,7 +8,9 @@ fused trace is the one the engine kept, ``AnalysisResult.fused_trace``); nothing
 runs a stage of the engine. The page, the caution and saving are shared with the night
 picture (:mod:`service.picture`); the axes sit at fixed places and long lines are drawn
 from their min/max envelope per pixel column, so the cost of a report hardly grows with
-the length of the recording.
+the length of the recording. Ticks, tick and axis labels, texts, the legends' words and
+the headline are laid by the overlay (:mod:`service.stamps`), not by matplotlib's axis
+and text artists, whose layout and rasterisation were most of a report's time.
 """
 
 from __future__ import annotations
@@ -195,11 +197,12 @@ def _headline(result: AnalysisResult) -> str:
 class _Page:
     """One report figure whose set-up is done once and reused.
 
-    Built once: the axes at their places, the twin axis of the breathing signal, the
-    panel titles, the fixed labels, the confidence panel's axes and the caution; and for
-    PNG the pixels of all of these (``background``), so that a report restores them and
-    draws over them only what changes: the data, the ticks and labels that follow the
-    data, the legends and the headline. SVG is written whole from the same figure.
+    Built once: the axes at their places and their frames, the twin axis of the
+    breathing signal, the panel titles, the confidence panel's axes and the caution; for
+    PNG the pixels of all of these (``background``), for SVG their document
+    (``static_svg``). A report restores them and draws after them only what changes (the
+    data artists, the confidence bars' lengths, the legends' frames and handles), then
+    its overlay: ticks and labels that follow the data, texts, legends' words, headline.
     """
 
     def __init__(self) -> None:
