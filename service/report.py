@@ -250,13 +250,11 @@ class _Page:
 
     def clear(self) -> None:
         """Remove the last report's data, legends and data limits."""
-        for ax in (*self.moving, self.confidence):
-            kept = ax.patches if ax is self.confidence else []  # the bars, reused
+        for artist in self.confidence.texts:  # its bars are kept and its limits fixed
+            artist.remove()
+        for ax in self.moving:
             for artist in [*ax.lines, *ax.collections, *ax.patches, *ax.texts]:
-                if artist not in kept:
-                    artist.remove()
-            if ax.legend_ is not None:
-                ax.legend_.remove()
+                artist.remove()
             ax.relim()
         for artist in self.extra:
             artist.remove()

@@ -91,7 +91,8 @@ def _measurer(size_pt: float):  # type: ignore[no-untyped-def]
 @functools.lru_cache(maxsize=4096)
 def _stamp(text: str, size_pt: float, colour: str, rotation: int) -> tuple[np.ndarray,
                                                                           np.ndarray]:
-    """The rasterised text: its coverage (0-255, rows from the top) and its RGB colour.
+    """The rasterised text as blending terms: ``255 - coverage`` and ``colour * coverage
+    + 127`` (coverage 0-255, rows from the top; uint16, height x width x 1 and x 3).
 
     The box of :func:`text_size` starts ``_PAD`` pixels in from the stamp's top-left
     corner (before rotation).
@@ -111,7 +112,10 @@ def _stamp(text: str, size_pt: float, colour: str, rotation: int) -> tuple[np.nd
     if rotation == 90:
         coverage = np.ascontiguousarray(np.rot90(coverage))
     rgb = np.array([round(255 * c) for c in to_rgb(colour)], dtype=np.uint16)
-    return coverage, rgb
+    # Blending terms computed once: what is kept of the page (255 - coverage) and what is
+    # added (colour times coverage, plus 127 to round the division by 255).
+    cover = coverage.astype(np.uint16)[..., None]
+    return 255 - cover, rgb * cover + 127
 
 
 def _box(label: Label) -> tuple[float, float, float, float]:
@@ -159,9 +163,9 @@ class Overlay:
             r1 = min(height, max(round(_HEIGHT_PX - m.y0), r0 + 1))
             rgba[r0:r1, c0:c1, :3] = [round(255 * c) for c in to_rgb(m.colour)]
         for label in self.labels:
-            coverage, rgb = _stamp(label.text, label.size_pt, label.colour, label.rotation)
+            keep, add = _stamp(label.text, label.size_pt, label.colour, label.rotation)
             left, top, _, _ = _box(label)
-            _composite(rgba, coverage, rgb, round(left) - _PAD, round(top) - _PAD)
+            _composite(rgba, keep, add, round(left) - _PAD, round(top) - _PAD)
 
     def svg(self) -> str:
         """The overlay as SVG elements (points, y down), to close the picture's document."""
@@ -191,17 +195,19 @@ def _svg_text(label: Label) -> str:
             f'fill: {label.colour}">{escape(label.text)}</text>')
 
 
-def _composite(rgba: np.ndarray, coverage: np.ndarray, rgb: np.ndarray, left: int,
+def _composite(rgba: np.ndarray, keep: np.ndarray, add: np.ndarray, left: int,
                top: int) -> None:
-    """Blend ``rgb`` onto ``rgba`` with ``coverage`` as opacity, its corner at (left, top)."""
+    """Blend a stamp (``keep``, ``add`` of :func:`_stamp`) onto ``rgba`` at (left, top):
+    ``(page * keep + add) // 255`` per channel, the usual "over" with the text's coverage
+    as its opacity, in integers."""
     height, width = rgba.shape[:2]
     r0, c0 = max(0, top), max(0, left)
-    r1, c1 = min(height, top + coverage.shape[0]), min(width, left + coverage.shape[1])
+    r1, c1 = min(height, top + keep.shape[0]), min(width, left + keep.shape[1])
     if r1 <= r0 or c1 <= c0:
         return
-    a = coverage[r0 - top:r1 - top, c0 - left:c1 - left, None].astype(np.uint16)
+    rows, cols = slice(r0 - top, r1 - top), slice(c0 - left, c1 - left)
     dst = rgba[r0:r1, c0:c1, :3]
-    dst[...] = ((dst.astype(np.uint16) * (255 - a) + rgb * a + 127) // 255).astype(np.uint8)
+    dst[...] = (dst * keep[rows, cols] + add[rows, cols]) // 255
 
 
 #: Tick length and the gap from a tick to its label, pixels (3.5 pt each, matplotlib's
