@@ -81,7 +81,7 @@ def text_size(text: str, size_pt: float) -> tuple[float, float, float]:
 
 
 @functools.lru_cache(maxsize=16)
-def _measurer(size_pt: float):  # type: ignore[no-untyped-def]
+def _measurer(size_pt: float) -> tuple[Any, Any]:
     from matplotlib.backends.backend_agg import RendererAgg
     from matplotlib.font_manager import FontProperties
 
@@ -300,6 +300,9 @@ def texts_to_overlay(overlay: Overlay, ax: Any) -> None:
 
     A text keeps its place (its own transform, or an annotation's point plus its offset
     in points), size, colour and alignment; annotations are drawn without arrows here.
+    An annotation whose point lies outside the axes is dropped (as matplotlib's default
+    ``annotation_clip`` drops it); another text clipped to the axes (``clip_on=True``) is
+    left to matplotlib, which clips it.
     """
     from matplotlib.text import Annotation
 
@@ -308,8 +311,13 @@ def texts_to_overlay(overlay: Overlay, ax: Any) -> None:
             continue
         if isinstance(text, Annotation):
             x, y = ax.transData.transform(text.xy)
+            if not ax.bbox.contains(x, y):
+                text.set_visible(False)
+                continue
             dx, dy = text.xyann
             x, y = x + dx / _PT_PER_PX, y + dy / _PT_PER_PX
+        elif text.get_clip_on():
+            continue
         else:
             x, y = text.get_transform().transform(text.get_position())
         va = text.get_verticalalignment()

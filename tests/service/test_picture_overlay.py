@@ -186,3 +186,30 @@ def test_report_svg_splices_the_same_elements_as_a_whole_savefig():
         return collections.Counter(e.tag for e in root.iter())
 
     assert tags(spliced) == tags(whole)
+
+
+def test_texts_to_overlay_moves_plain_texts_and_keeps_matplotlibs_clipping():
+    from service.stamps import texts_to_overlay
+
+    figure = new_figure()
+    ax = figure.add_axes((0.1, 0.1, 0.8, 0.8))
+    ax.set_xlim(0, 10)
+    ax.set_ylim(0, 10)
+    plain = ax.text(0.5, 0.5, "moved", transform=ax.transAxes, fontsize=7, color="#2ca02c")
+    inside = ax.annotate("J (0.92)", (5, 5), textcoords="offset points", xytext=(3, 5))
+    outside = ax.annotate("off the axes", (50, 5), textcoords="offset points", xytext=(3, 5))
+    clipped = ax.text(9.5, 5, "clipped", clip_on=True)
+    overlay = Overlay()
+    texts_to_overlay(overlay, ax)
+    placed = {label.text: label for label in overlay.labels}
+    assert set(placed) == {"moved", "J (0.92)"}
+    assert not plain.get_visible() and not inside.get_visible()
+    # matplotlib's default annotation_clip drops an annotation whose point is outside
+    # the axes (matplotlib.text.Annotation); a clipped text stays matplotlib's to clip.
+    assert not outside.get_visible() and clipped.get_visible()
+    # The axes span 80 % of 1100 x 850 pixels from 10 %: the middle is (550, 425); the
+    # annotation sits its offset (3, 5) points right and up of its point, 100/72 px each.
+    assert (placed["moved"].x, placed["moved"].y) == pytest.approx((550.0, 425.0), abs=1e-6)
+    assert (placed["J (0.92)"].x, placed["J (0.92)"].y) == pytest.approx(
+        (550.0 + 3 * 100 / 72, 425.0 + 5 * 100 / 72), abs=1e-6)
+    assert placed["moved"].colour == "#2ca02c" and placed["moved"].size_pt == 7.0
