@@ -182,17 +182,21 @@ class Overlay:
 
 
 def _svg_text(label: Label) -> str:
-    """One ``<text>`` element: anchored at the baseline, as the raster places it."""
+    """One ``<text>`` element on the baseline at the label's own anchor along the text
+    (``text-anchor`` start, middle or end), as the raster places it: a viewer with
+    another font keeps centred and right-aligned texts where they belong."""
     width, ascent, _ = text_size(label.text, label.size_pt)
     left, top, _, _ = _box(label)
+    along = {"left": 0.0, "center": width / 2.0, "right": width}[label.ha]
+    anchor = {"left": "start", "center": "middle", "right": "end"}[label.ha]
     if label.rotation == 90:
-        x, y = left + ascent, top + width  # baseline's start after the turn
+        x, y = left + ascent, top + width - along  # up the page from the text's start
         turn = f' transform="rotate(-90 {x * _PT_PER_PX:.2f} {y * _PT_PER_PX:.2f})"'
     else:
-        x, y, turn = left, top + ascent, ""
+        x, y, turn = left + along, top + ascent, ""
     return (f'<text x="{x * _PT_PER_PX:.2f}" y="{y * _PT_PER_PX:.2f}"{turn} '
             f'style="font-size: {label.size_pt:g}px; font-family: {_SVG_FONTS}; '
-            f'fill: {label.colour}">{escape(label.text)}</text>')
+            f'fill: {label.colour}; text-anchor: {anchor}">{escape(label.text)}</text>')
 
 
 def _composite(rgba: np.ndarray, keep: np.ndarray, add: np.ndarray, left: int,

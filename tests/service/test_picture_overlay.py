@@ -128,7 +128,11 @@ def test_overlay_svg_elements_read_back():
     # Points, y down: 72 points per inch, SIZE_IN[1] inches high (72/100 per pixel).
     assert float(texts[0].get("x")) == pytest.approx(100.0 * 0.72, abs=0.01)
     assert float(texts[0].get("y")) == pytest.approx((HEIGHT_PX - 50.0) * 0.72, abs=0.01)
+    # Centred along the text: the anchor itself, turned with the text (x stays, y is
+    # the anchor's height from the top).
     assert "rotate(-90" in texts[1].get("transform")
+    assert "text-anchor: middle" in texts[1].get("style")
+    assert float(texts[1].get("y")) == pytest.approx((HEIGHT_PX - 400.0) * 0.72, abs=0.01)
     assert "fill: #9467bd" in texts[0].get("style")
     (rect,) = root.iter("{http://www.w3.org/2000/svg}rect")
     assert float(rect.get("height")) == pytest.approx(5.0 * 0.72, abs=0.01)
