@@ -35,6 +35,7 @@ from service.stamps import (
     axis_ticks,
     caution,
     legend_to_overlay,
+    points_to_svg,
     texts_to_overlay,
     title,
     with_overlay,
@@ -125,6 +126,11 @@ def draw_night(summary: NightSummary, windowed: WindowedAnalysis, *,
                   _headline(summary, windowed), 10.0, "#000000", "center", "top")
     caution(overlay)
     if image_format == "svg":
+        from matplotlib.collections import PathCollection  # matplotlib is loaded by now
+
+        for ax, _ in panels:
+            for points in [c for c in ax.collections if isinstance(c, PathCollection)]:
+                points_to_svg(overlay, ax, points)
         return with_overlay(save(figure, image_format), overlay)
     figure.canvas.draw()
     overlay.paint(np.asarray(figure.canvas.buffer_rgba()))

@@ -234,7 +234,7 @@ class _Page:
         draw_caution(figure)
         self.moving = (self.trace, self.ensemble, self.interval, self.twin)
         # The axes whose ticks follow the data are not drawn by matplotlib: their ticks,
-        # tick labels and axis labels are the overlay's (``_axes_overlay``).
+        # tick labels and axis labels are the overlay's (``overlay``).
         for ax in self.moving:
             ax.xaxis.set_visible(False)
             ax.yaxis.set_visible(False)

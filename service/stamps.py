@@ -25,7 +25,7 @@ from service.picture import DPI, SIZE_IN
 from service.ticks import nice_ticks, tick_labels
 
 __all__ = ["Label", "Mark", "Overlay", "StaticSvg", "axis_ticks", "legend_to_overlay", "text_size",
-           "caution", "texts_to_overlay", "title", "with_overlay"]
+           "caution", "points_to_svg", "texts_to_overlay", "title", "with_overlay"]
 
 #: Page height in pixels, and points per pixel (SVG units).
 _HEIGHT_PX = SIZE_IN[1] * DPI
@@ -139,6 +139,9 @@ class Overlay:
     def __init__(self) -> None:
         self.labels: list[Label] = []
         self.marks: list[Mark] = []
+        #: Points for the SVG alone, (x, y, radius in pixels, colour, opacity): see
+        #: :func:`points_to_svg`. The PNG keeps matplotlib's raster of the same points.
+        self.svg_points: list[tuple[float, float, float, str, float]] = []
 
     def label(self, *args: object, **kwargs: object) -> Label:
         """Add a :class:`Label` (same arguments) and return it."""
@@ -175,6 +178,10 @@ class Overlay:
             w, h = (m.x1 - m.x0) * _PT_PER_PX, (m.y1 - m.y0) * _PT_PER_PX
             parts.append(f'<rect x="{x:.2f}" y="{y:.2f}" width="{w:.2f}" height="{h:.2f}" '
                          f'style="fill: {m.colour}"/>')
+        for x, y, r, colour, alpha in self.svg_points:
+            parts.append(f'<circle cx="{x * _PT_PER_PX:.2f}" '
+                         f'cy="{(_HEIGHT_PX - y) * _PT_PER_PX:.2f}" r="{r * _PT_PER_PX:.2f}" '
+                         f'style="fill: {colour}; fill-opacity: {alpha:.3f}"/>')
         for label in self.labels:
             parts.append(_svg_text(label))
         parts.append("</g>")
@@ -482,3 +489,28 @@ def caution(overlay: Overlay) -> None:
     for k, line in enumerate(lines):
         overlay.label(SIZE_IN[0] * DPI / 2.0, bottom + (len(lines) - 1 - k) * step, line,
                       NOTICE_FONT_PT, NOTICE_COLOUR, "center", "bottom")
+
+
+def points_to_svg(overlay: Overlay, ax: Any, points: Any) -> None:
+    """A scatter's round points (``ax.scatter``, no edge) as ``<circle>`` elements of the
+    overlay's SVG, hidden on the axes.
+
+    matplotlib's SVG writer spends a style lookup per point of a collection whose points
+    each have their own colour (about 0.2 ms a point: half a second for the 2,880 points
+    of a night in 30-s windows); a circle per point written here is a string each. Same
+    centre (data to pixels by the axes' transform), radius (a marker of area ``s``
+    square points is ``sqrt(s)`` points across) and colour with its opacity.
+    """
+    from matplotlib.colors import to_hex
+
+    xy = ax.transData.transform(np.asarray(points.get_offsets(), dtype=np.float64))
+    colours = points.get_facecolors()
+    sizes = points.get_sizes()
+    for k, (x, y) in enumerate(xy):
+        if not (math.isfinite(x) and math.isfinite(y)):
+            continue
+        rgba = colours[k % len(colours)]
+        radius_px = math.sqrt(sizes[k % len(sizes)]) / 2.0 / _PT_PER_PX
+        overlay.svg_points.append((float(x), float(y), radius_px, to_hex(rgba[:3]),
+                                   float(rgba[3])))
+    points.set_visible(False)

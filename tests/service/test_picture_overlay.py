@@ -217,3 +217,38 @@ def test_texts_to_overlay_moves_plain_texts_and_keeps_matplotlibs_clipping():
     assert (placed["J (0.92)"].x, placed["J (0.92)"].y) == pytest.approx(
         (550.0 + 3 * 100 / 72, 425.0 + 5 * 100 / 72), abs=1e-6)
     assert placed["moved"].colour == "#2ca02c" and placed["moved"].size_pt == 7.0
+
+
+def test_points_to_svg_writes_matplotlibs_points_as_circles():
+    from matplotlib.colors import to_rgba
+
+    from service.picture import save
+    from service.stamps import points_to_svg
+
+    rng = np.random.default_rng(4)
+    figure = new_figure()
+    ax = figure.add_axes((0.1, 0.1, 0.8, 0.8))
+    rgba = np.tile(to_rgba("#1f4e79"), (40, 1))
+    rgba[:, 3] = rng.uniform(0.12, 1.0, 40)
+    x, y = rng.uniform(0, 10, 40), rng.uniform(50, 70, 40)
+    points = ax.scatter(x, y, s=14, c=rgba, linewidths=0)
+    ax.set_xlim(-1, 11)
+    ax.set_ylim(45, 75)
+    root = ElementTree.fromstring(save(figure, "svg"))
+    svg_ns, xlink = "{http://www.w3.org/2000/svg}", "{http://www.w3.org/1999/xlink}"
+    # matplotlib's SVG of the same points: one <use> per point of the collection.
+    uses = [u for u in root.iter(svg_ns + "use") if u.get(xlink + "href", "").startswith("#C")]
+    want = np.array([[float(u.get("x")), float(u.get("y"))] for u in uses])
+    overlay = Overlay()
+    points_to_svg(overlay, ax, points)
+    assert not points.get_visible()
+    circles = list(ElementTree.fromstring(
+        '<svg xmlns="http://www.w3.org/2000/svg">' + overlay.svg() + "</svg>"
+    ).iter(svg_ns + "circle"))
+    got = np.array([[float(c.get("cx")), float(c.get("cy"))] for c in circles])
+    # Centres to the 0.01 point both writers round to (2 decimals here; matplotlib more).
+    np.testing.assert_allclose(got, want, rtol=0, atol=0.01)
+    # A marker of area 14 square points is sqrt(14) points across (matplotlib's scatter).
+    assert float(circles[0].get("r")) == pytest.approx(np.sqrt(14) / 2, abs=0.01)
+    opacity = [float(c.get("style").split("fill-opacity:")[1].strip(' "/')) for c in circles]
+    np.testing.assert_allclose(opacity, rgba[:, 3], atol=5e-4)  # written to 3 decimals
