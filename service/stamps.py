@@ -143,9 +143,9 @@ class Overlay:
         #: :func:`points_to_svg`. The PNG keeps matplotlib's raster of the same points.
         self.svg_points: list[tuple[float, float, float, str, float]] = []
 
-    def label(self, *args: object, **kwargs: object) -> Label:
+    def label(self, *args: Any, **kwargs: Any) -> Label:
         """Add a :class:`Label` (same arguments) and return it."""
-        item = Label(*args, **kwargs)  # type: ignore[arg-type]
+        item = Label(*args, **kwargs)
         self.labels.append(item)
         return item
 
@@ -231,7 +231,7 @@ TICK_WIDTH_PX = 0.8 / _PT_PER_PX
 _SPACE_PER_TICK = {"x": 3.0, "y": 2.0}
 
 
-def axis_ticks(overlay: Overlay, ax: object, which: str, *, side: str,
+def axis_ticks(overlay: Overlay, ax: Any, which: str, *, side: str,
                size_pt: float = 10.0, colour: str = "#000000", labels: bool = True,
                ticks: bool = True) -> None:
     """Ticks, tick labels and the axis label of one axis of ``ax``, onto ``overlay``.
@@ -254,8 +254,8 @@ def axis_ticks(overlay: Overlay, ax: object, which: str, *, side: str,
     ticks
         False: the axis label alone (a panel with nothing to scale).
     """
-    x0, y0, x1, y1 = ax.bbox.extents  # type: ignore[attr-defined]
-    lo, hi = ax.get_xlim() if which == "x" else ax.get_ylim()  # type: ignore[attr-defined]
+    x0, y0, x1, y1 = ax.bbox.extents
+    lo, hi = ax.get_xlim() if which == "x" else ax.get_ylim()
     start, end = (x0, x1) if which == "x" else (y0, y1)
     length_pt = (end - start) * _PT_PER_PX
     max_ticks = int(np.clip(length_pt // (size_pt * _SPACE_PER_TICK[which]), 1, 9))
@@ -264,7 +264,7 @@ def axis_ticks(overlay: Overlay, ax: object, which: str, *, side: str,
              else at_ticks * 0)
     half = TICK_WIDTH_PX / 2.0
     widest = 0.0
-    axis_label = (ax.xaxis if which == "x" else ax.yaxis).label  # type: ignore[attr-defined]
+    axis_label = (ax.xaxis if which == "x" else ax.yaxis).label
     texts = tick_labels(at_ticks) if labels else [""] * at_ticks.size
     for at, text in zip(where, texts, strict=True):
         if side == "bottom":
@@ -273,10 +273,12 @@ def axis_ticks(overlay: Overlay, ax: object, which: str, *, side: str,
                 overlay.label(at, y0 - 2 * TICK_PX, text, size_pt, colour, "center", "top")
         elif side == "left":
             overlay.mark(x0 - TICK_PX, at - half, x0, at + half)
-            overlay.label(x0 - 2 * TICK_PX, at, text, size_pt, colour, "right", "center")
+            if text:
+                overlay.label(x0 - 2 * TICK_PX, at, text, size_pt, colour, "right", "center")
         else:
             overlay.mark(x1, at - half, x1 + TICK_PX, at + half)
-            overlay.label(x1 + 2 * TICK_PX, at, text, size_pt, colour, "left", "center")
+            if text:
+                overlay.label(x1 + 2 * TICK_PX, at, text, size_pt, colour, "left", "center")
         widest = max(widest, text_size(text, size_pt)[0]) if text else widest
     name = axis_label.get_text()
     if not name or not labels:
@@ -294,10 +296,10 @@ def axis_ticks(overlay: Overlay, ax: object, which: str, *, side: str,
                       label_colour, "center", "top", 90)
 
 
-def _hex(colour: object) -> str:
+def _hex(colour: Any) -> str:
     from matplotlib.colors import to_hex
 
-    return str(to_hex(colour))  # type: ignore[arg-type]
+    return str(to_hex(colour))
 
 
 def with_overlay(svg: bytes, overlay: Overlay) -> bytes:
