@@ -20,7 +20,26 @@ import numpy as np
 
 from features.night import MOVEMENT_KINDS, NightSummary
 from features.windows import WindowedAnalysis
-from service.picture import check_format, columns_of, draw_caution, new_figure, save
+from service.picture import (
+    DPI,
+    SIZE_IN,
+    check_format,
+    columns_of,
+    new_figure,
+    png_bytes,
+    save,
+)
+from service.stamps import (
+    TICK_PX,
+    Overlay,
+    axis_ticks,
+    caution,
+    legend_to_overlay,
+    points_to_svg,
+    texts_to_overlay,
+    title,
+    with_overlay,
+)
 
 __all__ = ["NIGHT_PANELS", "draw_night"]
 
@@ -90,22 +109,51 @@ def draw_night(summary: NightSummary, windowed: WindowedAnalysis, *,
                          f"{len(windowed.windows)}.")
     hours = max(float(windowed.duration_s), 1.0) / 3600.0
     figure = new_figure()
+    overlay = Overlay()
     strip = figure.add_axes(STRIP_RECT)
-    _strip(strip, summary, windowed)
+    _strip(strip, summary, windowed, overlay)
+    panels = []
     for (name, label, colour), rect in zip(NIGHT_PANELS, PANEL_RECTS, strict=True):
         ax = figure.add_axes(rect, sharex=strip)
-        _panel(ax, windowed, name, label, colour)
+        panels.append((ax, _panel(ax, windowed, name, label, colour)))
         _exits(ax, summary)
         if name == "heart_rate_mean_bpm":
             _lowest(ax, summary)
-        if rect is not PANEL_RECTS[-1]:
-            ax.tick_params(labelbottom=False)
     strip.set_xlim(0.0, hours)
-    figure.axes[-1].set_xlabel("time from the start of the recording (h)")
-    figure.text(0.5, 0.992, _headline(summary, windowed), ha="center", va="top",
-                fontsize=10)
-    draw_caution(figure)
-    return save(figure, image_format)
+    panels[-1][0].set_xlabel("time from the start of the recording (h)")
+    _axes_overlay(figure, overlay, strip, panels)
+    overlay.label(0.5 * SIZE_IN[0] * DPI, 0.992 * SIZE_IN[1] * DPI,
+                  _headline(summary, windowed), 10.0, "#000000", "center", "top")
+    caution(overlay)
+    if image_format == "svg":
+        from matplotlib.collections import PathCollection  # matplotlib is loaded by now
+
+        for ax, _ in panels:
+            for points in [c for c in ax.collections if isinstance(c, PathCollection)]:
+                points_to_svg(overlay, ax, points)
+        return with_overlay(save(figure, image_format), overlay)
+    figure.canvas.draw()
+    overlay.paint(np.asarray(figure.canvas.buffer_rgba()))
+    return png_bytes(figure.canvas)
+
+
+def _axes_overlay(figure: Any, overlay: Overlay, strip: Any,
+                  panels: list[tuple[Any, bool]]) -> None:
+    """Ticks, tick and axis labels, texts and the legend of the night's axes, drawn by the
+    overlay (:mod:`service.stamps`) instead of matplotlib's axis artists."""
+    for ax in figure.axes:
+        ax.xaxis.set_visible(False)
+        ax.yaxis.set_visible(False)
+        texts_to_overlay(overlay, ax)
+        title(overlay, ax, ax.get_title(loc="left"))
+        ax.set_title("", loc="left")
+    axis_ticks(overlay, strip, "x", side="bottom", labels=False)
+    for ax, has_values in panels:
+        axis_ticks(overlay, ax, "x", side="bottom", labels=ax is panels[-1][0])
+        axis_ticks(overlay, ax, "y", side="left", ticks=has_values)
+        for artist in legend_to_overlay(overlay, ax, loc="upper right", size_pt=8.0,
+                                        frame=False):
+            artist.set_zorder(3)
 
 
 def _spans_h(spans: Any, duration_s: float) -> list[tuple[float, float]]:
@@ -125,7 +173,8 @@ def _spans_h(spans: Any, duration_s: float) -> list[tuple[float, float]]:
     return out
 
 
-def _strip(ax: Any, summary: NightSummary, windowed: WindowedAnalysis) -> None:
+def _strip(ax: Any, summary: NightSummary, windowed: WindowedAnalysis,
+           overlay: Overlay) -> None:
     moving = [(s.start_s, s.end_s) for w in windowed.windows if w.error is None
               for s in w.segments if s.kind in MOVEMENT_KINDS]
     unknown = [(w.start_s, w.end_s) for w in windowed.windows if w.error is not None]
@@ -144,9 +193,10 @@ def _strip(ax: Any, summary: NightSummary, windowed: WindowedAnalysis) -> None:
     ax.broken_barh(_spans_h(unknown, duration_s), (0.15, 0.7), facecolors="none",
                    edgecolor=_UNKNOWN, hatch="////", linewidth=0.5)
     ax.set_ylim(0.0, 3.0)
-    ax.set_yticks([y + 0.5 for y, *_ in rows], [label for _, label, *_ in rows], fontsize=8)
-    ax.tick_params(axis="y", length=0)
-    ax.tick_params(axis="x", labelbottom=False)
+    x0, y0, _, y1 = ax.bbox.extents
+    for y, label, *_ in rows:  # the rows' names, 3.5 pt left of the strip (no tick)
+        overlay.label(x0 - TICK_PX, y0 + (y + 0.5) / 3.0 * (y1 - y0), label, 8.0,
+                      "#000000", "right", "center")
     for k, e in enumerate(summary.bed_exits, start=1):
         # Beside the bar, in dark ink: an exit of minutes is a few pixels wide in a night.
         ax.text(e.end_s / 3600.0, 0.5, f"  exit {k}: {e.duration_s / 60:.0f} min",
@@ -156,7 +206,8 @@ def _strip(ax: Any, summary: NightSummary, windowed: WindowedAnalysis) -> None:
                  loc="left", fontsize=10, y=1.0)
 
 
-def _panel(ax: Any, windowed: WindowedAnalysis, name: str, label: str, colour: str) -> None:
+def _panel(ax: Any, windowed: WindowedAnalysis, name: str, label: str, colour: str) -> bool:
+    """Draw one measure across the night; False when no window has a value."""
     t, v, c, unit = [], [], [], ""
     previous_end = None
     for w in windowed.windows:
@@ -181,8 +232,7 @@ def _panel(ax: Any, windowed: WindowedAnalysis, name: str, label: str, colour: s
     if not t:
         ax.text(0.5, 0.5, "no occupied window with a value", ha="center", va="center",
                 transform=ax.transAxes, fontsize=9, color="#1a1a1a")
-        ax.set_yticks([])
-        return
+        return False
     alpha = MIN_ALPHA + (1.0 - MIN_ALPHA) * np.clip(np.asarray(c), 0.0, 1.0)
     from matplotlib.colors import to_rgba
 
@@ -193,6 +243,7 @@ def _panel(ax: Any, windowed: WindowedAnalysis, name: str, label: str, colour: s
     lo, hi = float(np.nanmin(v)), float(np.nanmax(v))
     pad = max(0.08 * (hi - lo), 0.02 * max(abs(hi), 1.0))
     ax.set_ylim(lo - pad, hi + pad)
+    return True
 
 
 def _lowest(ax: Any, summary: NightSummary) -> None:
@@ -204,7 +255,6 @@ def _lowest(ax: Any, summary: NightSummary) -> None:
     ax.plot([(start + summary.window_s / 2.0) / 3600.0], [rate], linestyle="none",
             marker="o", markersize=9, markerfacecolor="none", markeredgecolor="#1a1a1a",
             markeredgewidth=1.0, label=f"lowest 5-min mean {rate:.1f} /min")
-    ax.legend(loc="upper right", fontsize=8, frameon=False)
 
 
 def _exits(ax: Any, summary: NightSummary) -> None:

@@ -105,24 +105,28 @@ def save(figure: Any, image_format: str) -> bytes:
 
 
 def png_bytes(canvas: Any) -> bytes:
-    """The pixels an opaque Agg canvas holds now, as an 8-bit RGB PNG.
+    """The pixels an Agg canvas holds now, as an 8-bit RGBA PNG.
 
-    Written here rather than through Pillow: the page is opaque (alpha dropped), every
-    row is stored with filter type 0 and compressed at zlib level ``PNG_COMPRESS_LEVEL``,
-    which on a mostly white page takes about half of Pillow's time (its adaptive
-    filtering) for a file about 3 % larger.
+    Written here rather than through Pillow: every row is the canvas's own RGBA row after
+    a filter-type byte of 0, compressed at zlib level ``PNG_COMPRESS_LEVEL``. Keeping the
+    (opaque) alpha byte lets each row be copied whole; dropping it was a strided copy
+    that, with the larger compression it saved, took longer (about 45 against 35 ms on a
+    loaded two-core machine, for a file 10 % smaller). Pillow's adaptive filtering took
+    about twice as long again.
 
     Notes
     -----
     Chunks as in the PNG specification (ISO/IEC 15948:2004): the signature (5.2), IHDR
-    with colour type 2, bit depth 8 (11.2.2), pHYs with ``DPI`` in pixels per metre
-    (11.3.5.3), one IDAT of the zlib stream of the filtered rows (11.2.4, filter type 0
-    of 9.2) and IEND (11.2.5); each chunk ends with the CRC-32 of its type and data (5.3).
+    with colour type 6 (truecolour with alpha), bit depth 8 (11.2.2), pHYs with ``DPI`` in
+    pixels per metre (11.3.5.3), one IDAT of the zlib stream of the filtered rows (11.2.4,
+    filter type 0 of 9.2) and IEND (11.2.5); each chunk ends with the CRC-32 of its type
+    and data (5.3).
     """
     width, height = canvas.get_width_height()
-    rgba = np.asarray(canvas.buffer_rgba()).reshape(height, width, 4)
-    rows = np.zeros((height, 1 + 3 * width), dtype=np.uint8)  # a 0 byte: no filter
-    rows[:, 1:] = rgba[..., :3].reshape(height, 3 * width)
+    rgba = np.asarray(canvas.buffer_rgba()).reshape(height, 4 * width)
+    rows = np.empty((height, 1 + 4 * width), dtype=np.uint8)
+    rows[:, 0] = 0  # filter type 0: none
+    rows[:, 1:] = rgba
     per_metre = round(DPI / 0.0254)
 
     def chunk(kind: bytes, data: bytes) -> bytes:
@@ -131,9 +135,9 @@ def png_bytes(canvas: Any) -> bytes:
 
     return b"".join((
         b"\x89PNG\r\n\x1a\n",
-        chunk(b"IHDR", struct.pack(">IIBBBBB", width, height, 8, 2, 0, 0, 0)),
+        chunk(b"IHDR", struct.pack(">IIBBBBB", width, height, 8, 6, 0, 0, 0)),
         chunk(b"pHYs", struct.pack(">IIB", per_metre, per_metre, 1)),
-        chunk(b"IDAT", zlib.compress(rows.tobytes(), PNG_COMPRESS_LEVEL)),
+        chunk(b"IDAT", zlib.compress(rows, PNG_COMPRESS_LEVEL)),
         chunk(b"IEND", b""),
     ))
 

@@ -8,7 +8,9 @@ fused trace is the one the engine kept, ``AnalysisResult.fused_trace``); nothing
 runs a stage of the engine. The page, the caution and saving are shared with the night
 picture (:mod:`service.picture`); the axes sit at fixed places and long lines are drawn
 from their min/max envelope per pixel column, so the cost of a report hardly grows with
-the length of the recording.
+the length of the recording. Ticks, tick and axis labels, texts, the legends' words and
+the headline are laid by the overlay (:mod:`service.stamps`), not by matplotlib's axis
+and text artists, whose layout and rasterisation were most of a report's time.
 """
 
 from __future__ import annotations
@@ -37,12 +39,21 @@ from service.picture import (
     png_bytes,
     save,
 )
+from service.stamps import (
+    Overlay,
+    StaticSvg,
+    axis_ticks,
+    legend_to_overlay,
+    texts_to_overlay,
+)
 
 __all__ = ["DPI", "MEDIA_TYPES", "NOTICE_COLOUR", "NOTICE_FONT_PT", "SIZE_IN",
            "analysis_with_report", "draw_report", "report_of"]
 
 #: Display band of the trace panel, Hz (the cardiac band; breathing is in its own panel).
 DISPLAY_BAND_HZ = (0.7, 20.0)
+#: Colour of the breathing signal and of its axis.
+_BREATH = "#9467bd"
 _FAMILIES = ("quality", "heart_rate", "variability", "morphology", "respiration", "modulation")
 #: Where the panels sit (left, bottom, width, height in figure fraction): about the places
 #: constrained layout found for them, fixed, with room on the left for tick labels such as
@@ -86,7 +97,6 @@ def _trace_panel(ax: Any, result: AnalysisResult, trace: np.ndarray) -> None:
     ax.set_xlim(0, max(t[-1] if t.size else 1.0, 1e-3))
     unit = result.input.amplitude_unit
     ax.set_ylabel(f"{unit} ({DISPLAY_BAND_HZ[0]:g}-{DISPLAY_BAND_HZ[1]:g} Hz)")
-    ax.legend(loc="upper right", fontsize=7, ncols=3)
 
 
 def _window_marks(ax: Any, result: AnalysisResult) -> None:
@@ -119,10 +129,11 @@ def _ensemble_panel(ax: Any, result: AnalysisResult) -> None:
     # template_start_s is the time of the first sample relative to J (negative).
     t_ms = (np.arange(template.size) / morph.template_fs_hz + morph.template_start_s) * 1000.0
     ax.plot(t_ms, template, color="#2ca02c", linewidth=1.2)
-    for wave in morph.waves:
-        if wave.time_ms is None or wave.amplitude is None:
-            continue
-        ax.plot([wave.time_ms], [wave.amplitude], marker="o", markersize=4, color="#444444")
+    located = [w for w in morph.waves if w.time_ms is not None and w.amplitude is not None]
+    if located:
+        ax.plot([w.time_ms for w in located], [w.amplitude for w in located],
+                linestyle="none", marker="o", markersize=4, color="#444444")
+    for wave in located:
         ax.annotate(f"{wave.name} ({wave.confidence:.2f})", (wave.time_ms, wave.amplitude),
                     textcoords="offset points", xytext=(3, 5), fontsize=7)
     ax.axvline(0.0, color="#999999", linewidth=0.6, linestyle=":")
@@ -141,7 +152,6 @@ def _interval_panel(ax: Any, twin: Any, result: AnalysisResult) -> None:
         if (~normal).any():
             ax.plot(times[~normal], values[~normal], linestyle="none", marker="x",
                     markersize=4, color="#d62728", label="not normal")
-        ax.legend(loc="upper left", fontsize=7)
     else:
         ax.text(0.5, 0.5, "no intervals", ha="center", va="center", transform=ax.transAxes,
                 fontsize=8)
@@ -153,15 +163,19 @@ def _interval_panel(ax: Any, twin: Any, result: AnalysisResult) -> None:
     if shown:
         tb = np.arange(breath.size) / resp.breathing_fs_hz
         tb, breath = envelope(tb, breath, columns_of(INTERVAL_RECT))
-        twin.plot(tb, breath, color="#9467bd", linewidth=0.7, alpha=0.8)
+        twin.plot(tb, breath, color=_BREATH, linewidth=0.7, alpha=0.8)
     if not times.size and not shown:
         ax.set_xlim(0.0, 1.0)
 
 
 def _confidence_panel(ax: Any, result: AnalysisResult) -> None:
     values = [float(getattr(result, name).confidence) for name in _FAMILIES]
-    positions = np.arange(len(values))
-    ax.barh(positions, values, color=["#7f7f7f" if v < 0.5 else "#2ca02c" for v in values])
+    colours = ["#7f7f7f" if v < 0.5 else "#2ca02c" for v in values]
+    if len(ax.patches) != len(values):  # the page's first report: the bars are made
+        ax.barh(np.arange(len(values)), values, color=colours)
+    for bar, value, colour in zip(ax.patches, values, colours, strict=True):
+        bar.set_width(value)  # then kept, and only their lengths and colours change
+        bar.set_facecolor(colour)
     for k, value in enumerate(values):
         ax.text(min(value + 0.02, 0.9), k, f"{value:.2f}", va="center", fontsize=7)
 
@@ -183,11 +197,12 @@ def _headline(result: AnalysisResult) -> str:
 class _Page:
     """One report figure whose set-up is done once and reused.
 
-    Built once: the axes at their places, the twin axis of the breathing signal, the
-    panel titles, the fixed labels, the confidence panel's axes and the caution; and for
-    PNG the pixels of all of these (``background``), so that a report restores them and
-    draws over them only what changes: the data, the ticks and labels that follow the
-    data, the legends and the headline. SVG is written whole from the same figure.
+    Built once: the axes at their places and their frames, the twin axis of the
+    breathing signal, the panel titles, the confidence panel's axes and the caution; for
+    PNG the pixels of all of these (``background``), for SVG their document
+    (``static_svg``). A report restores them and draws after them only what changes (the
+    data artists, the confidence bars' lengths, the legends' frames and handles), then
+    its overlay: ticks and labels that follow the data, texts, legends' words, headline.
     """
 
     def __init__(self) -> None:
@@ -198,7 +213,6 @@ class _Page:
         self.confidence = figure.add_axes(CONFIDENCE_RECT)
         self.interval = figure.add_axes(INTERVAL_RECT)
         self.twin = self.interval.twinx()
-        self.headline = figure.text(0.5, 0.992, "", ha="center", va="top", fontsize=10)
         for ax, title in ((self.trace, "Trace, masked segments and beats"),
                           (self.ensemble, "Beat ensemble and located waves"),
                           (self.interval, "Beat-to-beat intervals and breathing"),
@@ -209,8 +223,7 @@ class _Page:
         self.ensemble.set_xlabel("time from J (ms)")
         self.interval.set_xlabel("time (s)")
         self.interval.set_ylabel("interval (ms)")
-        self.twin.set_ylabel("breathing (a.u.)", color="#9467bd")
-        self.twin.tick_params(axis="y", labelsize=7, colors="#9467bd")
+        self.twin.set_ylabel("breathing (a.u.)", color=_BREATH)
         positions = np.arange(len(_FAMILIES))
         conf = self.confidence
         conf.set_yticks(positions, [name.replace("_", " ") for name in _FAMILIES], fontsize=8)
@@ -220,44 +233,80 @@ class _Page:
         conf.set_xlabel("confidence")
         draw_caution(figure)
         self.moving = (self.trace, self.ensemble, self.interval, self.twin)
+        # The axes whose ticks follow the data are not drawn by matplotlib: their ticks,
+        # tick labels and axis labels are the overlay's (``overlay``).
+        for ax in self.moving:
+            ax.xaxis.set_visible(False)
+            ax.yaxis.set_visible(False)
         self.fixed: set[Any] = {conf.xaxis, conf.yaxis}
         for ax in (*self.moving, conf):
-            self.fixed |= {ax.patch, ax.title, ax._left_title, ax._right_title}
-        # The background: everything but the axes whose ticks follow the data.
-        hidden = [axis for ax in self.moving for axis in (ax.xaxis, ax.yaxis)
-                  if axis.get_visible()]
-        for axis in hidden:
-            axis.set_visible(False)
+            self.fixed |= {ax.patch, ax.title, ax._left_title, ax._right_title,
+                           *ax.spines.values()}
+        self.extra: list[Any] = []  # the legends' frames and handles, figure artists
+        # The background: everything that does not change from one report to the next.
         figure.canvas.draw()
         self.background = figure.canvas.copy_from_bbox(figure.bbox)
-        for axis in hidden:
-            axis.set_visible(True)
+        self.static_svg = StaticSvg(save(figure, "svg"))
 
     def clear(self) -> None:
         """Remove the last report's data, legends and data limits."""
-        for ax in (*self.moving, self.confidence):
+        for artist in self.confidence.texts:  # its bars are kept and its limits fixed
+            artist.remove()
+        for ax in self.moving:
             for artist in [*ax.lines, *ax.collections, *ax.patches, *ax.texts]:
                 artist.remove()
-            if ax.legend_ is not None:
-                ax.legend_.remove()
             ax.relim()
+        for artist in self.extra:
+            artist.remove()
+        self.extra = []
         for ax in self.moving:
             ax.set_autoscale_on(True)
 
-    def png(self) -> bytes:
-        """The report as PNG: the background restored, the changing artists drawn over it."""
+    def png(self, overlay: Overlay) -> bytes:
+        """The report as PNG: the background restored, the changing artists drawn over it,
+        then the overlay."""
         canvas = self.figure.canvas
         canvas.restore_region(self.background)
-        for ax in (self.trace, self.ensemble, self.confidence, self.interval, self.twin):
-            if not ax.get_visible():
-                continue
-            # As Axes.draw does: every child by z-order (spines and legend included).
-            children = [a for a in ax.get_children()
-                        if a not in self.fixed and a.get_visible()]
-            for artist in sorted(children, key=lambda a: a.get_zorder()):
-                ax.draw_artist(artist)
-        self.figure.draw_artist(self.headline)
+        for artist in self.changing():
+            artist.draw(canvas.get_renderer())
+        overlay.paint(np.asarray(canvas.buffer_rgba()))
         return png_bytes(canvas)
+
+    def svg(self, overlay: Overlay) -> bytes:
+        """The report as SVG: the static part written once, the changing artists and the
+        overlay's elements after it."""
+        return self.static_svg.with_changes(self.figure, self.changing(), overlay)
+
+    def changing(self) -> list[Any]:
+        """The artists that change from one report to the next, in drawing order: of each
+        visible axes its children by z-order (as ``Axes.draw``), then ``extra``."""
+        out = []
+        for ax in (self.trace, self.ensemble, self.confidence, self.interval, self.twin):
+            if ax.get_visible():
+                children = [a for a in ax.get_children()
+                            if a not in self.fixed and a.get_visible()]
+                out.extend(sorted(children, key=lambda a: a.get_zorder()))
+        return out + self.extra
+
+    def overlay(self, result: AnalysisResult) -> Overlay:
+        """The ticks, axis labels, texts and legends that follow the data, and the
+        headline; the legends' frames and handles join ``extra``."""
+        overlay = Overlay()
+        for ax in (self.trace, self.ensemble, self.interval, self.confidence):
+            texts_to_overlay(overlay, ax)
+        self.extra = [*legend_to_overlay(overlay, self.trace, loc="upper right", ncols=3),
+                      *legend_to_overlay(overlay, self.interval, loc="upper left")]
+        axis_ticks(overlay, self.trace, "x", side="bottom")
+        axis_ticks(overlay, self.trace, "y", side="left")
+        axis_ticks(overlay, self.ensemble, "x", side="bottom")
+        axis_ticks(overlay, self.ensemble, "y", side="left")
+        axis_ticks(overlay, self.interval, "x", side="bottom")
+        axis_ticks(overlay, self.interval, "y", side="left")
+        if self.twin.get_visible():
+            axis_ticks(overlay, self.twin, "y", side="right", size_pt=7.0, colour=_BREATH)
+        overlay.label(0.5 * SIZE_IN[0] * DPI, 0.992 * SIZE_IN[1] * DPI, _headline(result),
+                      10.0, "#000000", "center", "top")
+        return overlay
 
 
 _PAGES: list[_Page] = []
@@ -312,8 +361,8 @@ def draw_report(result: AnalysisResult, *, image_format: str = "png") -> bytes:
     _ensemble_panel(page.ensemble, result)
     _confidence_panel(page.confidence, result)
     _interval_panel(page.interval, page.twin, result)
-    page.headline.set_text(_headline(result))
-    image = page.png() if image_format == "png" else save(page.figure, image_format)
+    overlay = page.overlay(result)
+    image = page.png(overlay) if image_format == "png" else page.svg(overlay)
     _give_back(page)
     return image
 
