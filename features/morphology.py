@@ -582,22 +582,6 @@ def _fit_half_width(fs: float) -> int:
     return max(1, round(_FIT_HALF_WIDTH_S * fs))
 
 
-def _extremum(
-    y: NDArray[np.float64], tau_s: NDArray[np.float64], lo_s: float, hi_s: float, sign: int
-) -> int | None:
-    """Index of the most extreme local extremum of ``sign * y`` with ``lo_s <= tau <= hi_s``."""
-    idx = np.flatnonzero((tau_s >= lo_s) & (tau_s <= hi_s))
-    idx = idx[(idx >= 1) & (idx <= y.size - 2)]
-    if idx.size == 0:
-        return None
-    s = sign * y
-    local = idx[(s[idx] >= s[idx - 1]) & (s[idx] >= s[idx + 1]) & (s[idx] > np.minimum(
-        s[idx - 1], s[idx + 1]))]
-    if local.size == 0:
-        return None
-    return int(local[np.argmax(s[local])])
-
-
 def _locate_waves(
     template: NDArray[np.float64],
     located: NDArray[np.float64],
@@ -636,18 +620,43 @@ def _wave_times_values(located: NDArray[np.float64], tau_s: NDArray[np.float64],
     Index and time come from ``located`` (the low-passed template), the value from the
     same parabola fitted to ``raw`` at that index.
     """
-    found: dict[str, tuple[int, float, float]] = {}
+    rows = _wave_rows(located[None, :], tau_s, fs, raw[None, :], names)
+    return {name: (int(i[0]), float(t[0]), float(v[0]))
+            for name, (i, t, v) in rows.items() if i[0] >= 0}
+
+
+def _wave_rows(located: NDArray[np.float64], tau_s: NDArray[np.float64], fs: float,
+               raw: NDArray[np.float64], names: str
+               ) -> dict[str, tuple[NDArray[np.int64], NDArray[np.float64], NDArray[np.float64]]]:
+    """:func:`_wave_times_values` for each row of ``located`` and ``raw`` (rows x samples).
+
+    Per wave: index (-1 where the row lacks it), time (s) and value (NaN where it lacks
+    it). A wave is the most extreme local extremum of its sign inside its window (the
+    first such sample on a tie), as in step 4.
+    """
+    n_rows = located.shape[0]
+    h = _fit_half_width(fs)
+    found: dict[str, tuple[NDArray[np.int64], NDArray[np.float64], NDArray[np.float64]]] = {}
     for name, sign, anchor, lo, hi in _WAVE_RULES:
         if name not in names or (anchor is not None and anchor not in found):
             continue
-        t0 = 0.0 if anchor is None else found[anchor][1]
-        i = _extremum(located, tau_s, t0 + lo, t0 + hi, sign)
-        if i is None:
-            continue
-        h = _fit_half_width(fs)
-        off, _ = _parabola_rows(sign * located[None, :], np.array([i]), h)
-        _, val = _parabola_rows(sign * raw[None, :], np.array([i]), h)
-        found[name] = (i, float(tau_s[i] + float(off[0]) / fs), sign * float(val[0]))
+        t0 = np.zeros(n_rows) if anchor is None else found[anchor][1]  # NaN: no window
+        s = sign * located
+        mid, left, right = s[:, 1:-1], s[:, :-2], s[:, 2:]
+        cand = np.zeros(s.shape, dtype=bool)
+        cand[:, 1:-1] = (mid >= left) & (mid >= right) & (mid > np.minimum(left, right))
+        cand &= (tau_s[None, :] >= (t0 + lo)[:, None]) & (tau_s[None, :] <= (t0 + hi)[:, None])
+        ok = cand.any(axis=1)
+        idx = np.where(ok, np.argmax(np.where(cand, s, -np.inf), axis=1), -1)
+        t = np.full(n_rows, np.nan)
+        value = np.full(n_rows, np.nan)
+        if ok.any():
+            k = idx[ok]
+            off, _ = _parabola_rows(s[ok], k, h)
+            _, val = _parabola_rows(sign * raw[ok], k, h)
+            t[ok] = tau_s[k] + off / fs
+            value[ok] = sign * val
+        found[name] = (idx, t, value)
     return found
 
 
@@ -656,18 +665,14 @@ def _split_standard_errors(epochs: NDArray[np.float64], tau_s: NDArray[np.float6
     """Standard errors of the I-J, J-K intervals (ms) and amplitudes from split ensembles."""
     n = epochs.shape[0]
     k = max(2, min(SPLIT_GROUPS, n // 5))
-    rows: list[tuple[float, float, float, float]] = []
     parts = np.array([_trimmed_mean(epochs[g::k]) for g in range(k)])
-    views = _wave_view(parts, fs)
-    for part, view in zip(parts, views, strict=True):
-        w = _wave_times_values(view, tau_s, fs, part, names="IJK")
-        if not {"I", "J", "K"} <= set(w):
-            return dict.fromkeys(("ij_interval", "jk_interval", "ij_amplitude",
-                                  "jk_amplitude"))
-        rows.append((1e3 * (w["J"][1] - w["I"][1]), 1e3 * (w["K"][1] - w["J"][1]),
-                     w["J"][2] - w["I"][2], w["J"][2] - w["K"][2]))
+    w = _wave_rows(_wave_view(parts, fs), tau_s, fs, parts, names="IJK")
+    if len(w) < 3 or any((w[name][0] < 0).any() for name in "IJK"):
+        return dict.fromkeys(("ij_interval", "jk_interval", "ij_amplitude", "jk_amplitude"))
+    (_, t_i, v_i), (_, t_j, v_j), (_, t_k, v_k) = w["I"], w["J"], w["K"]
+    rows = np.column_stack((1e3 * (t_j - t_i), 1e3 * (t_k - t_j), v_j - v_i, v_j - v_k))
     # Each group holds 1/k of the beats: the full template's SE is the groups' SD / sqrt(k).
-    sd = np.std(np.array(rows), axis=0, ddof=1) / np.sqrt(k)
+    sd = np.std(rows, axis=0, ddof=1) / np.sqrt(k)
     return {key: float(v) for key, v in zip(
         ("ij_interval", "jk_interval", "ij_amplitude", "jk_amplitude"), sd, strict=True)}
 
