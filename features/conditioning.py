@@ -479,6 +479,11 @@ def _check_samples(samples: ArrayLike, i: int) -> NDArray[np.generic]:
         raise InvalidInputError(field, f"`{field}` must be 1-D; got shape {x.shape}.")
     if x.dtype.kind not in "iuf":
         raise InvalidInputError(field, f"`{field}` must hold real numbers; got dtype {x.dtype}.")
+    if x.dtype.kind == "f" and x.size and -MAX_SAMPLE_MAGNITUDE <= np.fmin.reduce(x) and \
+            np.fmax.reduce(x) <= MAX_SAMPLE_MAGNITUDE:
+        # Two reductions that skip NaN (a missing sample) and need no temporary: no
+        # infinity and no magnitude over the limit. Otherwise the checks below say which.
+        return x
     if x.dtype.kind == "f":
         bad = np.isinf(x)
         count = int(np.count_nonzero(bad))
