@@ -21,7 +21,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
 from features._checks import check_between, check_sampling_rate, check_usable
-from features._numeric import MAD_TO_SD, lane_median, median_1d
+from features._numeric import MAD_TO_SD, SORTED_LANES_UP_TO, lane_median, median_1d
 from features.catalogue import (
     AMPLITUDE_UNIT,
     NONNEGATIVE,
@@ -709,14 +709,27 @@ def _location_sd_ms(epochs: NDArray[np.float64], i: int, sign: int, fs: float) -
 def _trimmed_mean(epochs: NDArray[np.float64]) -> NDArray[np.float64]:
     """20 % trimmed mean over beats minus its median (the template of step 3, no noise).
 
-    Each sample's beats are sorted as one contiguous row (for short rows a sort costs less
-    than numpy's partition, and much less than a partition across rows).
+    Each sample's beats are ordered as one contiguous row (:func:`_ordered_lanes`).
     """
     n = epochs.shape[0]
     cut = int(_TRIM_PROPORTION * n)
-    ordered = np.sort(epochs.T, axis=1)
+    ordered = _ordered_lanes(epochs, (cut, n - cut - 1))
     template = ordered[:, cut : n - cut].mean(axis=1)
     return np.asarray(template - median_1d(template), dtype=float)
+
+
+def _ordered_lanes(epochs: NDArray[np.float64], kth: tuple[int, ...]) -> NDArray[np.float64]:
+    """The beats of each sample as one contiguous row (samples x beats), each row's order
+    statistics ``kth`` in place and every value between two of them in between.
+
+    Up to ``SORTED_LANES_UP_TO`` beats the rows are sorted (for short rows a sort costs
+    less than numpy's partition with several pivots); beyond, partitioned, which costs
+    less on long rows (4081 beats: about 110 against 120 ms, 8000: 180 against 260 ms).
+    """
+    lanes = np.ascontiguousarray(epochs.T)
+    if epochs.shape[0] <= SORTED_LANES_UP_TO:
+        return np.sort(lanes, axis=1)
+    return np.partition(lanes, sorted(set(kth)), axis=1)
 
 
 def _robust_template(epochs: NDArray[np.float64]) -> tuple[NDArray[np.float64], float]:
@@ -724,13 +737,14 @@ def _robust_template(epochs: NDArray[np.float64]) -> tuple[NDArray[np.float64], 
 
     The same as ``scipy.stats.trim_mean(epochs, 0.2, axis=0)`` and
     ``scipy.stats.median_abs_deviation(epochs, axis=0)``, computed on the
-    transposed (one contiguous row per sample) epochs with one sort that
-    gives both the trimmed range and the median (the centre the MAD reuses).
+    transposed (one contiguous row per sample) epochs ordered once
+    (:func:`_ordered_lanes`) for both the trimmed range and the median (the
+    centre the MAD reuses).
     """
     n = epochs.shape[0]
-    rows = np.sort(epochs.T, axis=1)
     cut = int(_TRIM_PROPORTION * n)
     mid = ((n - 1) // 2, n // 2)
+    rows = _ordered_lanes(epochs, (cut, n - cut - 1, *mid))
     template = rows[:, cut : n - cut].mean(axis=1)
     template = template - median_1d(template)
     centre = rows[:, mid[0]] if n % 2 else (rows[:, mid[0]] + rows[:, mid[1]]) / 2.0
