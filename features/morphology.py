@@ -363,9 +363,12 @@ def beat_morphology(
     if by_name["J"].time_ms is None:
         return _empty(amplitude_unit, offered, int(chosen.sum()), "j_wave_not_found")
     flags.extend(f"{w.name.lower()}_wave_not_found" for w in waves if w.time_ms is None)
-    corr_template = _correlations(template_epochs, template)
-    beat_t, beat_jk, cv, jk_flags = _per_beat_jk(epochs[inside], beats[inside], template, tau_s,
-                                                 fs, by_name)
+    # One correlation per usable beat; the template's beats are among them.
+    inside_epochs = epochs if inside.all() else epochs[inside]
+    corr_inside = _correlations(inside_epochs, template)
+    corr_template = corr_inside[chosen[inside]]
+    beat_t, beat_jk, cv, jk_flags = _per_beat_jk(inside_epochs, beats[inside], corr_inside,
+                                                 tau_s, fs, by_name)
     flags.extend(jk_flags)
     signature, bands, sig_flags = _wavelet_signature(template, fs)
     flags.extend(sig_flags)
@@ -755,13 +758,14 @@ def _robust_template(epochs: NDArray[np.float64]) -> tuple[NDArray[np.float64], 
 def _per_beat_jk(
     epochs: NDArray[np.float64],
     beats: NDArray[np.float64],
-    template: NDArray[np.float64],
+    correlations: NDArray[np.float64],
     tau_s: NDArray[np.float64],
     fs: float,
     waves: dict[str, WaveLocation],
 ) -> tuple[NDArray[np.float64], NDArray[np.float64], float | None, list[str]]:
-    """Times, J - K amplitudes and their CV (%) for beats correlating >= 0.5 with the template."""
-    keep = _correlations(epochs, template) >= _MIN_BEAT_CORRELATION
+    """Times, J - K amplitudes and their CV (%) for beats correlating >= 0.5 with the template
+    (``correlations``, one per row of ``epochs``)."""
+    keep = correlations >= _MIN_BEAT_CORRELATION
     jk = _beat_jk(epochs[keep], tau_s, fs, waves)
     if jk is None:
         return np.empty(0), np.empty(0), None, ["k_wave_not_found_per_beat"]
