@@ -20,7 +20,7 @@ import pywt
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
-from features._checks import check_between, check_sampling_rate, check_usable
+from features._checks import check_between, check_sampling_rate, check_usable, finite_where
 from features._numeric import MAD_TO_SD, SORTED_LANES_UP_TO, lane_median, median_1d
 from features.catalogue import (
     AMPLITUDE_UNIT,
@@ -451,7 +451,7 @@ def _validate(
             f"got {x.size}."
         )
     mask = check_usable(usable, x.size, of="signal")
-    if not np.all(np.isfinite(x[mask])):
+    if not finite_where(x, mask):
         raise InvalidInputError(
             "signal", "`signal` must be finite where `usable` is True; got NaN or infinity."
         )

@@ -17,7 +17,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 from scipy import signal as sps
 
-from features._checks import check_sampling_rate, check_usable
+from features._checks import check_sampling_rate, check_usable, finite_where
 from features._numeric import MAD_TO_SD, lane_median, median_1d, robust_sd, runs, vertex_offset
 from features.catalogue import (
     AMPLITUDE_UNIT,
@@ -375,7 +375,7 @@ def _validate(
             f"({int(np.ceil(MIN_DURATION_S * fs))} samples); got {x.size}.",
         )
     mask = check_usable(usable, x.size, of="signal_or_lowband")
-    if not np.all(np.isfinite(x[mask])):
+    if not finite_where(x, mask):
         raise InvalidInputError(
             "signal_or_lowband",
             "`signal_or_lowband` must be finite where `usable` is True; got NaN or infinity.",
