@@ -551,20 +551,24 @@ def _epochs(
 
 
 def _parabola_rows(
-    y: NDArray[np.float64], k: NDArray[np.int64], h: int
+    y: NDArray[np.float64], k: NDArray[np.int64], h: int, sign: int = 1
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """Vertex of a least-squares parabola around the maximum at ``k[r]`` of each row of ``y``.
+    """Vertex of a least-squares parabola around the maximum at ``k[r]`` of each row of
+    ``sign * y``.
 
     Row ``r`` is fitted over samples ``k[r] - h ... k[r] + h`` (the window is moved inside the
     row if needed); with h = 1 this is three-point parabolic interpolation. Returns the vertex
     offset from ``k`` (samples, clipped to the window) and the vertex value. A fit without a
-    maximum (curvature >= 0) falls back to the sample itself.
+    maximum (curvature >= 0) falls back to the sample itself. The sign is applied to the
+    fitted samples only (exact), not to every row.
     """
     # np.minimum/np.maximum rather than np.clip: the same values, without clip's per-call
     # overhead, which counted at the dozens of calls per recording
     kc = np.minimum(np.maximum(k, h), y.shape[1] - 1 - h)
     u = np.arange(-h, h + 1)
     seg = y[np.arange(y.shape[0])[:, None], kc[:, None] + u[None, :]]
+    if sign != 1:
+        seg = sign * seg
     a, b, c = _parabola_solver(h) @ seg.T
     good = c < 0
     d = np.where(good, np.minimum(np.maximum(-b / (2.0 * np.where(good, c, -1.0)), -h), h),
@@ -699,7 +703,7 @@ def _beat_extrema(
     lo, hi = max(1, i - h), min(epochs.shape[1] - 2, i + h)
     seg = sign * epochs[:, lo : hi + 1]
     k = np.argmax(seg, axis=1) + lo
-    off, value = _parabola_rows(sign * epochs, k, _fit_half_width(fs))
+    off, value = _parabola_rows(epochs, k, _fit_half_width(fs), sign)
     return k - i + off, sign * value
 
 
