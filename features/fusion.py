@@ -18,7 +18,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.linalg import blas
 
 from features._checks import check_2d, check_sampling_rate
-from features._numeric import MAD_TO_SD, robust_sd
+from features._numeric import MAD_TO_SD, lane_median, median_1d, robust_sd
 from features.errors import InvalidInputError
 from features.filters import FloatArray, bandpass, block_centres, block_factor, block_means
 from features.limits import MIN_DURATION_S, MIN_OCCUPANT_KG, STANDARD_GRAVITY_M_S2
@@ -344,7 +344,7 @@ def _mrc_weights(cardiac: FloatArray, fs_a: float, flags: list[str]
     n_ch = cardiac.shape[0]
     win = _windows(cardiac, fs_a, MAX_ANALYSIS_WINDOWS)
     r = _autocorr(win, int(round(LAG_RANGE_S[1] * fs_a)))
-    total = np.median(np.mean(win ** 2, axis=-1), axis=-1)
+    total = lane_median(np.mean(win ** 2, axis=-1))
     dead = total <= 0.0
     loo = int(np.count_nonzero(~dead)) >= 3
     r0, lag = _heart_lags(r, fs_a, leave_one_out=loo)
@@ -352,8 +352,8 @@ def _mrc_weights(cardiac: FloatArray, fs_a: float, flags: list[str]
         lag = np.broadcast_to(lag, r0.shape)
     rt = np.take_along_axis(r, lag[..., None], axis=-1)[..., 0]
     frac = np.divide(rt, r0, out=np.zeros_like(rt), where=r0 > 0.0)
-    med = np.median(frac, axis=-1)
-    se = _SE_MEDIAN * MAD_TO_SD * np.median(np.abs(frac - med[:, None]), axis=-1) \
+    med = lane_median(frac)
+    se = _SE_MEDIAN * MAD_TO_SD * lane_median(np.abs(frac - med[:, None])) \
         / np.sqrt(frac.shape[-1])
     frac_hat = np.clip(med - 2.0 * se, 0.0, MAX_PERIODIC_FRACTION)
     ps = frac_hat * total
@@ -368,7 +368,7 @@ def _mrc_weights(cardiac: FloatArray, fs_a: float, flags: list[str]
     energy = np.einsum("cwl,cwl->cw", win, win)
     denom = np.sqrt(energy * energy[ref][None, :])
     corr = np.divide(cross, denom, out=np.zeros_like(cross), where=denom > 0.0)
-    sign = np.where(np.median(corr, axis=-1) < 0.0, -1.0, 1.0)
+    sign = np.where(lane_median(corr) < 0.0, -1.0, 1.0)
     raw = np.where(dead, 0.0, sign * np.sqrt(ps) / np.where(pn > 0.0, pn, np.inf))
     if raw.sum() < 0.0:
         # Polarity is relative: keep the weighted majority of channels as recorded.
@@ -391,7 +391,7 @@ def _periodic_fraction(cardiac: FloatArray, fs_a: float) -> float:
     r0, lag = _heart_lags(r, fs_a)
     rt = np.take_along_axis(r[0], lag[:, None], axis=-1)[:, 0]
     frac = np.divide(rt, r0[0], out=np.zeros_like(rt), where=r0[0] > 0.0)
-    return float(np.clip(np.median(frac), 0.0, 1.0))
+    return float(np.clip(median_1d(frac), 0.0, 1.0))
 
 
 def _cop(x: FloatArray, fs: float, cardiac: FloatArray, fs_a: float,
@@ -467,7 +467,7 @@ def _cardiac_excursion_mm(cardiac: FloatArray, fs_a: float, total: FloatArray,
     lever = (pos[:, :, None] - centre[None, :, :]) / s  # (n_ch, 2, k)
     band_cop = np.einsum("cak,ckl->kal", lever, win[:, keep])
     rms = np.sqrt((band_cop * band_cop).sum(axis=1).mean(axis=-1))
-    return float(1000.0 * np.median(rms))
+    return float(1000.0 * median_1d(rms))
 
 
 def _static_at(static_n: ArrayLike, static_fs_hz: float | None, fs: float, factor: int,

@@ -21,6 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
+from features._numeric import median_1d
 from features.beats import BeatDetection
 from features.catalogue import (
     MS_PER_MIN,
@@ -128,7 +129,7 @@ def heart_rate(
     if used.size < MIN_INTERVALS:
         return _none("too_few_intervals", env_bpm)
     mean_bpm = MS_PER_MIN / float(np.mean(used))
-    median_bpm = MS_PER_MIN / float(np.median(used))
+    median_bpm = MS_PER_MIN / median_1d(used)
 
     r_med = float(np.median(beats.correlation)) if beats.correlation.size else 0.0
     c_template = _clip01((r_med - 0.3) / 0.5)

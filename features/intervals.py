@@ -502,14 +502,14 @@ def classify_intervals(
     n_ectopic = int(np.count_nonzero(labels == "ectopic"))
     flags = ("unscreened_short_runs",) if unscreened.any() else ()
     return IntervalLabels(
-        labels=tuple(str(v) for v in labels),
-        reasons=tuple(str(v) for v in reasons),
+        labels=tuple(str(v) for v in labels.tolist()),
+        reasons=tuple(str(v) for v in reasons.tolist()),
         n_normal=n_normal,
         n_ectopic=n_ectopic,
         n_artifact=n - n_normal - n_ectopic,
         fraction_normal=n_normal / n,
-        nn_times_s=tuple(float(v) for v in times[normal]),
-        nn_intervals_ms=tuple(float(v) for v in intervals[normal]),
+        nn_times_s=tuple(times[normal].tolist()),
+        nn_intervals_ms=tuple(intervals[normal].tolist()),
         confidence=float(np.count_nonzero(screenable | ~in_range)) / n,
         flags=flags,
     )

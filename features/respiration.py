@@ -17,8 +17,8 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 from scipy import signal as sps
 
-from features._checks import check_sampling_rate, check_usable
-from features._numeric import MAD_TO_SD, robust_sd, runs, vertex_offset
+from features._checks import check_sampling_rate, check_usable, finite_where
+from features._numeric import MAD_TO_SD, lane_median, median_1d, robust_sd, runs, vertex_offset
 from features.catalogue import (
     AMPLITUDE_UNIT,
     NONNEGATIVE,
@@ -269,7 +269,7 @@ def breathing(
         amp_z = y / amp
     rises, rise_idx = _schmitt_rises(amp_z, fs_b, mask_b)
     all_iv, _ = _breath_intervals(rises, rise_idx, mask_b, [], fs_b)
-    period = float(np.median(all_iv)) if all_iv.size else _DEFAULT_PERIOD_S
+    period = median_1d(all_iv) if all_iv.size else _DEFAULT_PERIOD_S
     spans, pause_flags = _pauses(y_low, fs_b, mask_b, thr_pct / 100.0, period)
     flags.extend(pause_flags)
     noise_limited = _noise_limited(psd, y_low, fs_b, mask_b, thr_pct / 100.0, period)
@@ -280,7 +280,7 @@ def breathing(
     counted = None
     sd = cv = None
     if intervals.size >= 2:
-        counted = 60.0 / float(np.median(intervals))
+        counted = 60.0 / median_1d(intervals)
         sd = float(np.std(intervals, ddof=1))
         cv = 100.0 * sd / float(np.mean(intervals))
     else:
@@ -375,7 +375,7 @@ def _validate(
             f"({int(np.ceil(MIN_DURATION_S * fs))} samples); got {x.size}.",
         )
     mask = check_usable(usable, x.size, of="signal_or_lowband")
-    if not np.all(np.isfinite(x[mask])):
+    if not finite_where(x, mask):
         raise InvalidInputError(
             "signal_or_lowband",
             "`signal_or_lowband` must be finite where `usable` is True; got NaN or infinity.",
@@ -430,7 +430,7 @@ def _breathing_band(
 ) -> tuple[NDArray[np.float64], NDArray[np.float64], float, NDArray[np.bool_]]:
     """Band-passed and low-passed (0.7 Hz) breathing signals at ~10 Hz, and their mask."""
     q = max(1, int(fs // TARGET_FS_HZ))
-    x0 = x - np.median(x)
+    x0 = x - median_1d(x)
     if q > 1:
         y = sps.resample_poly(x0, 1, q, padtype="line", window=_decimation_fir(q))
         n_b = y.size
@@ -635,11 +635,11 @@ def _baseline(env: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]) -> N
     # complete blocks that are wholly usable: one median per row; the rest one by one
     whole = mask[: n_full * nb].reshape(n_full, nb).all(axis=1)
     if whole.any():
-        level[:n_full][whole] = np.median(env[: n_full * nb].reshape(n_full, nb)[whole], axis=1)
+        level[:n_full][whole] = lane_median(env[: n_full * nb].reshape(n_full, nb)[whole])
     for k in np.flatnonzero(~np.concatenate((whole, np.zeros(n_blocks - n_full, dtype=bool)))):
         seg, m = env[k * nb : (k + 1) * nb], mask[k * nb : (k + 1) * nb]
         if m.mean() >= 0.5:
-            level[k] = np.median(seg[m])
+            level[k] = median_1d(seg[m])
     half = round(_BASELINE_SPAN_S / _BASELINE_BLOCK_S / 2)
     return np.repeat(_window_nanmedian(level, half), nb)[: env.size]
 
@@ -689,7 +689,7 @@ def _refine_edges(
 ) -> tuple[int, int]:
     """Pause edges: the run of low swing widened by up to ``half`` samples at each end, to
     the last (first) sample deviating by more than ``tol`` from the run's median level."""
-    level = float(np.median(y[a:b]))
+    level = median_1d(y[a:b])
     lo, hi = max(0, a - half), min(y.size, b + half)
     left = np.flatnonzero(np.abs(y[lo:a] - level) > tol)
     right = np.flatnonzero(np.abs(y[b:hi] - level) > tol)
@@ -716,7 +716,7 @@ def _noise_limited(
     f, p = est
     band = (f >= BAND_HZ[0]) & (f <= BAND_HZ[1])
     sd = float(np.sqrt(np.percentile(p[band], 20) * (BAND_HZ[1] - BAND_HZ[0])))
-    swing = float(np.median(_swing(y_low, _window(period_s, fs))[mask]))
+    swing = median_1d(_swing(y_low, _window(period_s, fs))[mask])
     return 6.0 * sd >= fraction * swing
 
 

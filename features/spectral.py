@@ -50,6 +50,8 @@ import scipy.fft
 from numpy.typing import NDArray
 from scipy import signal
 
+from features._numeric import median_1d
+
 FloatArray = NDArray[np.float64]
 
 #: Frequencies per block of the factorised grid (offsets share one exponential matrix).
@@ -124,7 +126,7 @@ def _sums_grid(
 def _grid_positions(w: FloatArray) -> tuple[float, float, NDArray[np.intp], NDArray[np.bool_]]:
     """Evenly spaced part of a sorted frequency array: start, step, indices, membership."""
     steps = np.diff(w)
-    dw = float(np.median(steps))
+    dw = median_1d(steps)
     k = np.rint((w - w[0]) / dw).astype(np.intp)
     on = np.abs(w[0] + k * dw - w) <= 1e-9 * dw
     return float(w[0]), dw, k, on

@@ -100,6 +100,12 @@ def _sample_entropy(
     return float(-math.log(count_a / count_b)), None
 
 
+def _run_bounds(runs: NDArray[np.int64]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """Start index and length of each run of equal run ids."""
+    run_start = np.flatnonzero(np.r_[True, runs[1:] != runs[:-1]])
+    return run_start, np.diff(np.r_[run_start, runs.size])
+
+
 def _dfa_fluctuations(
     profile: NDArray[np.float64], runs: NDArray[np.int64], scales: Sequence[int]
 ) -> tuple[NDArray[np.float64], int]:
@@ -107,8 +113,7 @@ def _dfa_fluctuations(
 
     Returns F(n) per scale and the number of boxes at the largest scale.
     """
-    run_start = np.flatnonzero(np.r_[True, runs[1:] != runs[:-1]])
-    run_len = np.diff(np.r_[run_start, runs.size])
+    run_start, run_len = _run_bounds(runs)
     fluct = np.zeros(len(scales))
     boxes_at_largest = 0
     for j, size in enumerate(scales):
@@ -140,9 +145,12 @@ def _dfa_fluctuations(
 def _dfa_alpha(
     profile: NDArray[np.float64], runs: NDArray[np.int64], scales: Sequence[int], name: str
 ) -> tuple[float | None, str | None]:
-    fluct, boxes = _dfa_fluctuations(profile, runs, scales)
-    if boxes < _DFA_MIN_BOXES:
+    # Too few boxes of the largest size: no exponent, and no fluctuations to compute
+    # (the count is the one _dfa_fluctuations reports).
+    _, run_len = _run_bounds(runs)
+    if int((run_len // scales[-1]).sum()) < _DFA_MIN_BOXES:
         return None, f"{name}_needs_{_DFA_MIN_BOXES * scales[-1]}_adjacent_intervals"
+    fluct, _ = _dfa_fluctuations(profile, runs, scales)
     if np.any(fluct <= 0):
         return None, f"{name}_zero_fluctuation"
     slope = np.polyfit(np.log(np.asarray(scales, dtype=float)), np.log(fluct), 1)[0]

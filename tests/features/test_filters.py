@@ -6,7 +6,15 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from features.filters import bandpass, butter_sos, lowpass
+from features.filters import (
+    bandpass,
+    block_centres,
+    block_means,
+    bridge_masked,
+    butter_sos,
+    lowpass,
+    subtract_block_series,
+)
 
 
 @pytest.mark.parametrize(("order", "cutoff", "btype", "fs"),
@@ -74,3 +82,39 @@ def test_block_means_equal_numpy_mean_of_blocks(factor: int) -> None:
     ints = rng.integers(-1000, 1000, 10_007)
     np.testing.assert_array_equal(block_means(ints, factor),
                                   ints[: m * factor].reshape(m, factor).mean(axis=-1))
+
+
+@pytest.mark.parametrize("factor", [1, 2, 3, 4, 25, 100])
+@pytest.mark.parametrize("extra", [0, 1, 7])
+def test_block_series_subtraction_is_numpy_interp(factor: int, extra: int) -> None:
+    # Reference: numpy.interp of the block series at every sample (end values held), as
+    # the function documents. The blockwise form does numpy.interp's own arithmetic in the
+    # same order, so the result is the same to the bit (the property under test: stages
+    # that use it must not change their numbers).
+    rng = np.random.default_rng(factor + extra)
+    x = np.cumsum(rng.standard_normal(40 * factor + extra)) * 1e3 + 5e4
+    slow = block_means(x, factor)
+    want = x - np.interp(np.arange(x.size, dtype=np.float64), block_centres(slow.size, factor),
+                         slow)
+    got = x.copy()
+    subtract_block_series(got, slow, factor)
+    np.testing.assert_array_equal(got, want)
+
+
+def test_bridged_spans_are_numpy_interp_over_the_usable_samples() -> None:
+    # Reference: numpy.interp at every masked sample over all usable samples (a straight
+    # line between the usable samples around a span, the end value held beyond the first
+    # and last), as the function documents. Interpolating from the span borders alone is
+    # the same arithmetic on the same neighbours, so the values are the same to the bit
+    # (the property under test). Masks include spans at both ends and single samples.
+    rng = np.random.default_rng(21)
+    for _ in range(300):
+        n = int(rng.integers(2, 80))
+        x = rng.standard_normal(n) * 10.0 ** rng.uniform(-3, 3)
+        usable = rng.random(n) < rng.uniform(0.05, 0.95)
+        if usable.all() or not usable.any():
+            continue
+        idx = np.flatnonzero(usable)
+        want = np.where(usable, x, np.interp(np.arange(n), idx, x[idx]))
+        np.testing.assert_array_equal(bridge_masked(x, usable), want)
+    assert not bridge_masked(np.ones(4), np.zeros(4, bool)).any()

@@ -7,7 +7,15 @@ import pytest
 from scipy import stats
 from scipy.special import ndtri
 
-from features._numeric import MAD_TO_SD, robust_sd, runs, vertex_offset
+from features._numeric import (
+    MAD_TO_SD,
+    SORTED_LANES_UP_TO,
+    lane_median,
+    median_1d,
+    robust_sd,
+    runs,
+    vertex_offset,
+)
 
 
 def test_mad_to_sd_is_the_normal_consistency_constant() -> None:
@@ -53,3 +61,25 @@ def test_runs_of_true_match_the_edges_of_the_mask() -> None:
         starts, ends = runs(mask)
         np.testing.assert_array_equal(starts, np.flatnonzero(edges == 1))
         np.testing.assert_array_equal(ends, np.flatnonzero(edges == -1))
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 4, 7, 10, 57, 200, 201, SORTED_LANES_UP_TO + 1])
+def test_medians_equal_numpy_median(n: int) -> None:
+    # Reference: numpy.median. The helpers take the same order statistics and average the
+    # two middle ones as numpy does, so the values are the same to the bit (the property
+    # they promise; numpy's median involves no processor-dependent kernel). Ties (rounded
+    # values) and NaN (numpy.median gives NaN) are included.
+    rng = np.random.default_rng(n)
+    lanes = rng.standard_normal((6, n)) * 1e3
+    lanes[1] = np.round(lanes[1] / 300.0)
+    lanes[2, n // 2] = np.nan
+    for lane in lanes:
+        got, want = median_1d(lane), float(np.median(lane))
+        assert got == want or (np.isnan(got) and np.isnan(want))
+    np.testing.assert_array_equal(lane_median(lanes), np.median(lanes, axis=-1))
+
+
+def test_median_1d_of_an_empty_array_warns_as_numpy_does() -> None:
+    # numpy.median of an empty array is NaN with a RuntimeWarning ("Mean of empty slice").
+    with pytest.warns(RuntimeWarning):
+        assert np.isnan(median_1d(np.empty(0)))

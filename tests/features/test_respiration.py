@@ -285,6 +285,19 @@ def test_invalid_input(kwargs, field, match):
     assert info.value.field == field
 
 
+def test_non_finite_samples_are_refused_only_where_usable() -> None:
+    # The rule of `usable`: samples outside it are not read, so NaN there is accepted;
+    # a NaN inside it is refused with the rule's message.
+    fs = 20.0
+    x = np.sin(2 * np.pi * 0.25 * np.arange(int(120 * fs)) / fs)
+    x[100] = np.nan
+    with pytest.raises(InvalidInputError, match=r"must be finite where `usable` is True"):
+        breathing(x, fs)
+    usable = np.ones(x.size, dtype=bool)
+    usable[95:106] = False
+    assert breathing(x, fs, usable=usable).rate_per_min is not None
+
+
 def test_window_nanmedian_equals_numpy_nanmedian() -> None:
     from features.respiration import _window_nanmedian
 
