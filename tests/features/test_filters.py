@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from features.filters import bandpass, butter_sos, lowpass
+from features.filters import bandpass, butter_sos, lowpass, polyphase_fir
 
 
 @pytest.mark.parametrize(("order", "cutoff", "btype", "fs"),
@@ -74,3 +74,14 @@ def test_block_means_equal_numpy_mean_of_blocks(factor: int) -> None:
     ints = rng.integers(-1000, 1000, 10_007)
     np.testing.assert_array_equal(block_means(ints, factor),
                                   ints[: m * factor].reshape(m, factor).mean(axis=-1))
+
+
+@pytest.mark.parametrize(("up", "down"), [(5, 4), (1, 2), (1, 8), (25, 48)])
+def test_cached_polyphase_design_is_resample_polys_own(up: int, down: int) -> None:
+    x = np.random.default_rng(up * 100 + down).standard_normal(3001)
+    # reference library: scipy.signal.resample_poly with its default Kaiser design; the
+    # same filter taps, so the same numbers
+    np.testing.assert_array_equal(
+        scipy.signal.resample_poly(x, up, down, window=polyphase_fir(up, down)),
+        scipy.signal.resample_poly(x, up, down))
+    assert polyphase_fir(up, down) is polyphase_fir(up, down)  # designed once
