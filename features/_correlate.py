@@ -4,7 +4,7 @@ The beat detector correlates the same component with up to four templates (two
 template refinements, the final template and its core). Overlap-save needs the
 spectrum of each block of the trace; these are computed once here and reused for
 every template, so each further template costs one product and one inverse transform
-per block.
+per block. The wavelet stage applies its band filter the same way (one template).
 """
 
 from __future__ import annotations

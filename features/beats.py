@@ -33,6 +33,7 @@ from scipy import ndimage, signal
 from features._checks import check_sampling_rate, check_trace, check_usable
 from features._correlate import BlockSpectra
 from features._numeric import robust_sd, vertex_offset
+from features._select import median, quantile_half
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, polyphase_fir
 from features.limits import DEFAULT_RATE_RANGE_BPM, MAX_RATE_BPM, MIN_RATE_BPM
@@ -389,20 +390,16 @@ def detect_beats(
         return settled
     period, dist, env, peaks = settled
     evidence, polarity, template = _first_template(w, env, peaks)
-    # Running sums of the component and its square, and its block spectra, shared by
-    # every match below (a sign flip only negates the first and the correlation).
-    sums = (np.concatenate(([0.0], np.cumsum(w.comp))),
-            np.concatenate(([0.0], np.cumsum(w.comp * w.comp))), 1)
-    spectra = BlockSpectra(w.comp, w.half[0] + w.half[1] + 1)
-    refined = _refine_template(w, spectra, sums, polarity, template, dist)
+    # Block spectra and running sums of the component, shared by every match below.
+    matcher = _Matcher(w.comp, w.half[0] + w.half[1] + 1)
+    refined = _refine_template(w, matcher, polarity, template, dist)
     if refined is None:
         return _empty(fs_w, levels, flags + ["too_few_candidates"], period=period,
                       evidence=evidence)
     polarity, template = _lead_wave(w, *refined, period)
     comp = w.comp * polarity
-    sums = _signed_sums(sums, polarity)
-    corr, amp = _match(spectra, polarity, template, w.half[0], sums=sums)
-    picks = _pick(w, spectra, sums, polarity, template, corr, amp, dist, period)
+    corr, amp = _match(matcher, polarity, template, w.half[0])
+    picks = _pick(w, matcher, polarity, template, corr, amp, dist, period)
     beats, run_ids, period = _drop_second_waves(w, comp, picks.beats, amp, period)
     offset = _parabolic_offset(corr, beats)
     offset, trend = _preceding_interval_trend(comp, beats, offset, run_ids, fs_w, w.max_period)
@@ -534,7 +531,7 @@ def _settle_period(w: _Work) -> tuple[float | None, int, NDArray[np.float64],
 def _first_template(w: _Work, env: NDArray[np.float64], peaks: NDArray[np.intp]
                     ) -> tuple[float, int, NDArray[np.float64]]:
     """Step 4: coherence evidence, polarity and the envelope-aligned first template."""
-    strong = peaks[env[peaks] >= np.median(env[peaks])]
+    strong = peaks[env[peaks] >= median(env[peaks])]
     epochs = _epochs(w.comp, strong, w.half)
     evidence = _coherence(epochs)
     mean_epoch = epochs.mean(axis=0)
@@ -544,9 +541,8 @@ def _first_template(w: _Work, env: NDArray[np.float64], peaks: NDArray[np.intp]
     return evidence, polarity, _recentre(polarity * mean_epoch, w.half[0], w.reach_j)
 
 
-def _refine_template(w: _Work, spectra: BlockSpectra,
-                     sums: tuple[NDArray[np.float64], NDArray[np.float64], int],
-                     polarity: int, template: NDArray[np.float64], dist: int
+def _refine_template(w: _Work, matcher: _Matcher, polarity: int,
+                     template: NDArray[np.float64], dist: int
                      ) -> tuple[int, NDArray[np.float64]] | None:
     """Step 5: two rounds of matching and median templates, the polarity checked once.
 
@@ -556,13 +552,12 @@ def _refine_template(w: _Work, spectra: BlockSpectra,
     for attempt in range(2):
         signed = w.comp * polarity
         for _ in range(2):
-            corr, _ = _match(spectra, polarity, template, half[0],
-                             sums=_signed_sums(sums, polarity))
+            corr, _ = _match(matcher, polarity, template, half[0])
             cand, _ = signal.find_peaks(corr, distance=dist, height=0.2)
             cand = cand[(cand >= half[0]) & (cand < n - half[1])]
             if cand.size < 4:
                 return None
-            best = cand[corr[cand] >= np.quantile(corr[cand], 0.5)]
+            best = cand[corr[cand] >= quantile_half(corr[cand])]
             template = _recentre(np.median(_epochs(signed, best, half), axis=0), half[0],
                                  reach_j)
         # The aligned template is sharper than the envelope-aligned mean:
@@ -602,25 +597,23 @@ def _lead_wave(w: _Work, polarity: int, template: NDArray[np.float64], period: f
     return polarity, template
 
 
-def _pick(w: _Work, spectra: BlockSpectra,
-          sums: tuple[NDArray[np.float64], NDArray[np.float64], int], polarity: int,
-          template: NDArray[np.float64], corr: NDArray[np.float64], amp: NDArray[np.float64],
-          dist: int, period: float | None) -> _Picks:
+def _pick(w: _Work, matcher: _Matcher, polarity: int, template: NDArray[np.float64],
+          corr: NDArray[np.float64], amp: NDArray[np.float64], dist: int,
+          period: float | None) -> _Picks:
     """Steps 6-8: accepted candidates, extra and slipped picks, missed beats, masked ones."""
     fs_w, half, n = w.fs, w.half, w.comp.size
     cand, _ = signal.find_peaks(corr, distance=dist, height=0.2)
     cand = cand[(cand >= 1) & (cand < n - 1)]
     n_candidates = int(cand.size)
-    top = corr[cand][corr[cand] >= np.quantile(corr[cand], 0.5)]
-    accept = float(np.clip(0.55 * np.median(top), 0.3, 0.5))
-    amp_ref = float(np.median(amp[cand][corr[cand] >= accept])) if np.any(
-        corr[cand] >= accept) else float(np.median(amp[cand]))
+    top = corr[cand][corr[cand] >= quantile_half(corr[cand])]
+    accept = float(np.clip(0.55 * median(top), 0.3, 0.5))
+    amp_ref = median(amp[cand][corr[cand] >= accept]) if np.any(
+        corr[cand] >= accept) else median(amp[cand])
     # A beat followed closely by the next one (fast irregular rhythm) shares the long
     # template window with it; judge it again on the core of the complex alone.
     core = (half[0] - int(round(CORE_WINDOW_S[0] * fs_w)),
             half[0] + int(round(CORE_WINDOW_S[1] * fs_w)) + 1)
-    corr_core, _ = _match(spectra, polarity, template[core[0]:core[1]], half[0] - core[0],
-                          sums=sums)
+    corr_core, _ = _match(matcher, polarity, template[core[0]:core[1]], half[0] - core[0])
     matched = (corr[cand] >= accept) | (corr_core[cand] >= max(accept, CORE_ACCEPT))
     keep = matched & (amp[cand] >= 0.25 * amp_ref)
     beats = cand[keep]
@@ -660,7 +653,7 @@ def _drop_second_waves(w: _Work, comp: NDArray[np.float64], beats: NDArray[np.in
         w.flags.append("second_wave_of_each_complex_dropped")
         same = run_ids[1:] == run_ids[:-1]
         if period is not None and same.any() and \
-                period * fs_w < 0.75 * float(np.median(np.diff(beats)[same])):
+                period * fs_w < 0.75 * median(np.diff(beats)[same]):
             period = 2.0 * period  # the envelope period was that of the waves
             w.flags.append("envelope_period_doubled_two_waves_per_beat")
     return beats, run_ids, period
@@ -698,7 +691,7 @@ def _to_work_rate(
         xw = x.copy()
     else:
         # scipy's own default design (``polyphase_fir``), made once per rate pair
-        xw = signal.resample_poly(x - np.median(x), up, down, window=polyphase_fir(up, down))
+        xw = signal.resample_poly(x - median(x), up, down, window=polyphase_fir(up, down))
     fs_w = fs_hz * up / down
     return xw, fs_w, _work_mask(mask, fs_hz, fs_w, xw.size)
 
@@ -835,13 +828,13 @@ def _rhythm_evidence(times: NDArray[np.float64], run_ids: NDArray[np.int64],
     without picking beats (Brueser et al. 2011, [2]_), so a self-made template cannot
     supply it. An irregular rhythm fails here and needs the coherence statistic.
     """
-    if period is None or times.size < 10 or float(np.median(corr)) < RHYTHM_SIMILARITY:
+    if period is None or times.size < 10 or median(corr) < RHYTHM_SIMILARITY:
         return False
     same = run_ids[1:] == run_ids[:-1]
     iv = np.diff(times)[same]
     if iv.size < 8:
         return False
-    med = float(np.median(iv))
+    med = median(iv)
     steady = float(np.mean(np.abs(np.diff(iv)) < RHYTHM_STEP * med)) if iv.size > 1 else 0.0
     return steady >= RHYTHM_CONSISTENCY and abs(med / period - 1.0) <= RHYTHM_AGREEMENT
 
@@ -889,7 +882,7 @@ def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
         return _weaker_within(picks, run_ids, amp[picks], 0.7 * period_n)
     if between > within - TWO_WAVE_SHAPE_GAP:
         return None
-    size = [float(np.median(amp[picks[ok & (cls == k)]])) for k in (0, 1)]
+    size = [median(amp[picks[ok & (cls == k)]]) for k in (0, 1)]
     keep = int(size[1] > size[0])
     if size[1 - keep] < TWO_WAVE_COMPARABLE * size[keep] or \
             _pair_span(picks, run_ids) < min_period:
@@ -906,7 +899,7 @@ def _twice_a_period(picks: NDArray[np.intp], run_ids: NDArray[np.int64],
     iv = np.diff(picks)[run_ids[1:] == run_ids[:-1]].astype(float)
     if iv.size < 8:
         return False
-    med = float(np.median(iv))
+    med = median(iv)
     steady = float(np.mean(np.abs(np.diff(iv)) < RHYTHM_STEP * med))
     return abs(2.0 * med / period_n - 1.0) <= RHYTHM_AGREEMENT and steady >= RHYTHM_CONSISTENCY
 
@@ -929,7 +922,7 @@ def _weaker_within(picks: NDArray[np.intp], run_ids: NDArray[np.int64],
 def _pair_span(picks: NDArray[np.intp], run_ids: NDArray[np.int64]) -> float:
     """Median span of two consecutive intervals within a run, samples (0 when none)."""
     same = run_ids[2:] == run_ids[:-2]
-    return float(np.median((picks[2:] - picks[:-2])[same])) if same.any() else 0.0
+    return median((picks[2:] - picks[:-2])[same]) if same.any() else 0.0
 
 
 def _pearson(a: NDArray[np.float64], b: NDArray[np.float64]) -> float:
@@ -1001,40 +994,54 @@ def _recentre(template: NDArray[np.float64], centre: int, reach: int,
     return out
 
 
-def _signed_sums(sums: tuple[NDArray[np.float64], NDArray[np.float64], int],
-                 polarity: int) -> tuple[NDArray[np.float64], NDArray[np.float64], int]:
-    """Running sums of ``polarity`` times the component they were taken of."""
-    c1, c2, sign = sums
-    return (c1 if sign == polarity else -c1), c2, polarity
+class _Matcher:
+    """What every template match of one component shares (steps 5 and 6).
+
+    The block spectra of the component (:class:`features._correlate.BlockSpectra`), the
+    running sums of it and of its square (with a leading 0), and the window spread
+    (``sqrt`` of the window's sum of squares about its mean) for each template length and
+    centre already used. The spread does not depend on the sign of the trace (``s1 * s1``
+    is the same for ``-s1``), so the matches of either polarity share it.
+    """
+
+    def __init__(self, comp: NDArray[np.float64], max_len: int) -> None:
+        self.n = comp.size
+        self.spectra = BlockSpectra(comp, max_len)
+        self.c1 = np.concatenate(([0.0], np.cumsum(comp)))
+        self.c2 = np.concatenate(([0.0], np.cumsum(comp * comp)))
+        self._spread: dict[tuple[int, int], NDArray[np.float64]] = {}
+
+    def spread(self, centre: int, m: int) -> NDArray[np.float64]:
+        """Root of the sum of squares about the mean over ``[i - centre, i - centre + m)``."""
+        key = (centre, m)
+        if key not in self._spread:
+            s1 = _window_sums(self.c1, centre, m)
+            s2 = _window_sums(self.c2, centre, m)
+            var = s2 - s1 * s1 / m
+            self._spread[key] = np.sqrt(np.maximum(var, 0.0))
+        return self._spread[key]
 
 
-def _match(spectra: BlockSpectra, sign: int, template: NDArray[np.float64], centre: int, *,
-           sums: tuple[NDArray[np.float64], NDArray[np.float64], int]) -> tuple[
-        NDArray[np.float64], NDArray[np.float64]]:
+def _match(matcher: _Matcher, sign: int, template: NDArray[np.float64], centre: int
+           ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """Normalised cross-correlation and template amplitude at every sample.
 
-    The trace matched is ``sign`` times the component whose block spectra are
-    ``spectra``. Index ``i`` of both outputs describes the template placed with its
-    sample ``centre`` (the J wave) on sample ``i`` of the trace. ``sums`` holds the
-    running sums of the trace and of its square (with a leading 0) and the sign they carry.
+    The trace matched is ``sign`` times the component of ``matcher``. Index ``i`` of both
+    outputs describes the template placed with its sample ``centre`` (the J wave) on
+    sample ``i`` of the trace; the correlation's denominator comes from running sums over
+    the same window.
     """
-    n = spectra.n
+    n = matcher.n
     t = template - template.mean()
     norm = np.sqrt(np.sum(t * t))
     if norm <= 0:
         z = np.zeros(n)
         return z, z
     t = t / norm
-    m = t.size
-    num = spectra.correlate(t, centre)
+    num = matcher.spectra.correlate(t, centre)
     if sign < 0:
         np.negative(num, out=num)
-    # Running sums over the same window as the correlation.
-    c1, c2, _ = sums
-    s1 = _window_sums(c1, centre, m)
-    s2 = _window_sums(c2, centre, m)
-    var = s2 - s1 * s1 / m
-    den = np.sqrt(np.maximum(var, 0.0))
+    den = matcher.spread(centre, t.size)
     corr = np.zeros(n)
     ok = den > 1e-6  # the component is scaled to unit robust SD before matching
     np.divide(num, den, out=corr, where=ok)
@@ -1080,8 +1087,8 @@ def _scored(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray[np.
     1.5); a pick is strong at 0.75 of the median score or more; the reference is the local
     median interval between strong beats (``_reference_interval``), s.
     """
-    score = corr[beats] * np.minimum(amp[beats] / np.median(amp[beats]), 1.5)
-    strong = score >= 0.75 * np.median(score)
+    score = corr[beats] * np.minimum(amp[beats] / median(amp[beats]), 1.5)
+    strong = score >= 0.75 * median(score)
     return score, strong, _reference_interval(beats, strong, fs)
 
 
@@ -1156,24 +1163,43 @@ def _repair_slips(beats: NDArray[np.intp], corr: NDArray[np.float64],
     """
     if beats.size < 6:
         return beats, 0
-    score = corr[beats] * np.minimum(amp[beats] / np.median(amp[beats]), 1.5)
-    ref = _reference_interval(beats, score >= 0.75 * np.median(score), fs) * fs
-    out = beats.tolist()
+    score = corr[beats] * np.minimum(amp[beats] / median(amp[beats]), 1.5)
+    ref = _reference_interval(beats, score >= 0.75 * median(score), fs) * fs
+    out = beats
     replaced = 0
+    # Picks i = 1, 2, ... in order, a replacement shifting the later ones down by one; the
+    # test is made for every position at once and made again only after a replacement.
+    slipped = _slip_positions(out, ref)
     i = 1
-    while i + 2 < len(out):
-        a, b, c, d = out[i - 1], out[i], out[i + 1], out[i + 2]
-        m = float(ref[min(i, ref.size - 1)])
-        off = [abs(v - m) > RHYTHM_STEP * m for v in (b - a, c - b, d - c)]
-        if 1.8 * m <= d - a <= 2.2 * m and all(off):
-            mid, reach = (a + d) / 2.0, RHYTHM_STEP * m
-            lo, hi = int(np.ceil(mid - reach)), int(np.floor(mid + reach)) + 1
-            j = lo + int(np.argmax(corr[lo:hi]))
-            if corr[j] >= level:
-                out[i:i + 2] = [j]
-                replaced += 1
+    while (hits := np.flatnonzero(slipped[i - 1:])).size:
+        i += int(hits[0])
+        a, d, m = int(out[i - 1]), int(out[i + 2]), float(ref[i])
+        mid, reach = (a + d) / 2.0, RHYTHM_STEP * m
+        lo, hi = int(np.ceil(mid - reach)), int(np.floor(mid + reach)) + 1
+        j = lo + int(np.argmax(corr[lo:hi]))
+        if corr[j] >= level:
+            out = np.concatenate((out[:i], np.asarray([j], dtype=beats.dtype), out[i + 2:]))
+            replaced += 1
+            slipped = _slip_positions(out, ref)
         i += 1
-    return np.asarray(out, dtype=beats.dtype), replaced
+    return out, replaced
+
+
+def _slip_positions(picks: NDArray[np.intp], ref: NDArray[np.float64]) -> NDArray[np.bool_]:
+    """Entry ``i - 1`` is True when picks ``i, i + 1`` are a slip (``_repair_slips``).
+
+    The span from pick ``i - 1`` to ``i + 2`` is 1.8-2.2 reference intervals ``ref[i]``
+    (samples) and each of its three intervals is off the reference by more than
+    ``RHYTHM_STEP`` of it.
+    """
+    a, b, c, d = picks[:-3], picks[1:-2], picks[2:-1], picks[3:]
+    m = ref[1: picks.size - 2]
+    step = RHYTHM_STEP * m
+    off = (np.abs((b - a) - m) > step) & (np.abs((c - b) - m) > step) & \
+        (np.abs((d - c) - m) > step)
+    span = d - a
+    slipped: NDArray[np.bool_] = (1.8 * m <= span) & (span <= 2.2 * m) & off
+    return slipped
 
 
 def _reference_interval(beats: NDArray[np.intp], strong: NDArray[np.bool_],
@@ -1182,7 +1208,7 @@ def _reference_interval(beats: NDArray[np.intp], strong: NDArray[np.bool_],
     sb = beats[strong]
     if sb.size < 3:
         iv = np.diff(beats) / fs
-        return np.full(beats.size, float(np.median(iv)) if iv.size else 1.0)
+        return np.full(beats.size, median(iv) if iv.size else 1.0)
     siv = np.diff(sb) / fs
     # Consecutive strong beats may have a weak one between them: count such a
     # pair's interval only when no beat lies between (adjacent in ``beats``).

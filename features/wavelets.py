@@ -24,7 +24,8 @@ from dataclasses import dataclass
 import numpy as np
 import pywt
 from numpy.typing import ArrayLike, NDArray
-from scipy import signal
+
+from features._correlate import BlockSpectra
 
 WAVELET = "sym4"
 
@@ -77,8 +78,8 @@ def swt_component(
     ``(L - 1) (2**J - 1)`` samples on each side (``L`` the filter length, ``J`` the
     top level) [1]_ (Percival & Walden 2000, ch. 5; Nason & Silverman 1995). Its
     impulse response is taken once per level set and wavelet from the transform
-    itself (:func:`_mra_kernel`) and applied by FFT overlap-add
-    (:func:`scipy.signal.oaconvolve`) to the reflected trace, at a cost of
+    itself (:func:`_mra_kernel`) and applied by FFT overlap-save
+    (:class:`features._correlate.BlockSpectra`) to the reflected trace, at a cost of
     ``n log(kernel)``. This is the transform of the trace reflected by
     ``(L - 1)(2**J - 1) + 1`` samples at each end up to a multiple of ``2**J`` and
     treated as circular (the circular wrap never reaches the data), to rounding
@@ -101,8 +102,9 @@ def swt_component(
         return _circular_component(data, levels, wavelet)
     kernel = _mra_kernel(tuple(sorted(set(levels))), wavelet)
     padded = np.pad(data, (reach, reach), mode="reflect")
-    out = signal.oaconvolve(padded, kernel, mode="valid")
-    return np.ascontiguousarray(out)
+    # out[i] = sum_k kernel[k] padded[i + 2 reach - k]: the reversed kernel correlated
+    # with the reflected trace from its first sample (centre 0)
+    return BlockSpectra(padded, kernel.size).correlate(kernel[::-1], 0)[:n]
 
 
 def _reach(top: int, wavelet: str) -> int:
