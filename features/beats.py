@@ -31,9 +31,11 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
 from features._checks import check_sampling_rate, check_trace, check_usable
+from features._correlate import BlockSpectra
 from features._numeric import robust_sd, vertex_offset
+from features._select import median, quantile_half
 from features.errors import InvalidInputError
-from features.filters import bridge_masked
+from features.filters import bridge_masked, polyphase_fir
 from features.limits import DEFAULT_RATE_RANGE_BPM, MAX_RATE_BPM, MIN_RATE_BPM
 from features.wavelets import WAVELET, levels_for_band, swt_component
 
@@ -321,7 +323,8 @@ def detect_beats(
        wave leads the complex, and a lightly damped support can ring after
        it with a deeper K trough than the J peak.
     5. Template matching, twice: a normalised cross-correlation trace of the
-       component with the template (overlap-add FFT convolution and running sums, linear
+       component with the template (overlap-save FFT blocks of the component, transformed once
+       for every template, and running sums, linear
        in length up to a log factor); its peaks, one per refractory period,
        are the candidates; the template is rebuilt as the median of the
        best-matching epochs and re-centred on its J wave (the first large
@@ -373,161 +376,46 @@ def detect_beats(
     """
     x, mask = _validate(trace, fs_hz, usable, rate_range_bpm)
     flags: list[str] = []
-    xw, fs_w, usable_w = _to_work_rate(x, fs_hz, mask)
-    levels = levels_for_band(fs_w, BEAT_BAND_HZ)
-    comp = swt_component(bridge_masked(xw, usable_w), levels=levels, wavelet=WAVELET)
-    if recoverable is not None and not usable_w.all():
-        candidate = _work_mask(mask | check_usable(recoverable, x.size, of="trace"), fs_hz,
-                               fs_w, xw.size) & ~usable_w
-        given = _give_back(xw, fs_w, levels, usable_w, candidate)
-        if given is not None:
-            # The unbridged component where it is quiet: bridging the shorter masked core
-            # would join the levels on either side of a posture step by a steep ramp.
-            quiet, raw = given
-            comp = np.where(quiet, raw, comp)
-            usable_w = usable_w | quiet
-            flags.append("masked_movement_with_quiet_beat_band_given_back")
-    comp = _zero_masked(comp, usable_w, int(round(0.1 * fs_w)))
+    comp, fs_w, usable_w, levels = _beat_band(x, fs_hz, mask, recoverable, flags)
     scale = robust_sd(comp[usable_w]) if usable_w.any() else 0.0
     if not np.isfinite(scale) or scale <= 0.0:
         return _empty(fs_w, levels, flags + ["no_signal_in_beat_band"])
-    comp = comp / scale
-
-    env = ndimage.uniform_filter1d(comp * comp, max(1, int(round(ENVELOPE_WINDOW_S * fs_w))))
-    min_period = 60.0 / rate_range_bpm[1]
-    max_period = 60.0 / rate_range_bpm[0]
-    period = _envelope_period(env, fs_w, min_period, max_period)
-    if period is None:
-        flags.append("no_dominant_period")
-    refractory = max(0.9 * min_period, 0.4 * period) if period is not None else 0.9 * min_period
-
-    half = (int(round(-TEMPLATE_WINDOW_S[0] * fs_w)), int(round(TEMPLATE_WINDOW_S[1] * fs_w)))
-    dist = max(1, int(round(refractory * fs_w)))
-    peaks, props = signal.find_peaks(env, distance=dist)
-    peaks = peaks[(peaks >= half[0]) & (peaks < comp.size - half[1])]
-    if peaks.size < 4:
-        return _empty(fs_w, levels, flags + ["too_few_candidates"], period=period)
-    # Settle the period on the whole stretch before the beats are picked: envelope
-    # peaks two a beat (a complex with two comparable waves) halve the envelope period.
-    peak_runs = np.cumsum(~usable_w)[peaks].astype(np.int64)
-    if period is not None and period * fs_w < 0.75 * _pair_span(peaks, peak_runs) and \
-            _second_waves(comp, peaks, peak_runs, env, half,
-                          int(min_period * fs_w)) is not None:
-        period = 2.0 * period
-        refractory = max(0.9 * min_period, 0.4 * period)
-        dist = max(1, int(round(refractory * fs_w)))
-        flags.append("envelope_period_doubled_two_waves_per_beat")
-    strong = peaks[env[peaks] >= np.median(env[peaks])]
-    epochs = _epochs(comp, strong, half)
-    evidence = _coherence(epochs)
-    mean_epoch = epochs.mean(axis=0)
-    polarity = _polarity(mean_epoch, half[0], int(round(0.15 * fs_w)))
-    has_beats = evidence >= EVIDENCE_THRESHOLD
-    if not has_beats:
-        flags.append("no_repeating_beat_waveform")
-    reach_j = int(round(0.15 * fs_w))
-    template = _recentre(polarity * mean_epoch, half[0], reach_j)
-    # Running sums of the component and its square, shared by every match below
-    # (a sign flip only negates the first).
-    sums = (np.concatenate(([0.0], np.cumsum(comp))),
-            np.concatenate(([0.0], np.cumsum(comp * comp))), 1)
-    for attempt in range(2):
-        signed = comp * polarity
-        for _ in range(2):
-            corr, amp = _match(signed, template, half[0], sums=_signed_sums(sums, polarity))
-            cand, _ = signal.find_peaks(corr, distance=dist, height=0.2)
-            cand = cand[(cand >= half[0]) & (cand < comp.size - half[1])]
-            if cand.size < 4:
-                return _empty(fs_w, levels, flags + ["too_few_candidates"], period=period,
-                              evidence=evidence)
-            best = cand[corr[cand] >= np.quantile(corr[cand], 0.5)]
-            template = _recentre(np.median(_epochs(signed, best, half), axis=0), half[0],
-                                 reach_j)
-        # The aligned template is sharper than the envelope-aligned mean:
-        # check the polarity on it once, and start again flipped if needed.
-        if attempt == 0 and _polarity(template, half[0], reach_j) < 0:
-            polarity = -polarity
-            template = _recentre(-template, half[0], reach_j)
-            flags.append("polarity_revised_on_template")
-            continue
-        break
-    comp = signed
-    # A complex with two comparable waves: the template match may have locked on the
-    # later one. J leads the complex, so a large wave up to LEAD_WAVE_S earlier (and
-    # under half the period, so never the previous beat's) takes the fiducial.
-    if period is not None:
-        back = min(int(round(min(LEAD_WAVE_S, 0.4 * period) * fs_w)), half[0] - 1)
-        # A lightly damped support rings after J with waves as large as J, and the match
-        # can settle on one of them with either sign; the first large wave of either
-        # sign over the same reach is J and sets the polarity (ringing supports).
-        first = _first_large(template, half[0], reach_j, back=back)
-        if template[first] < 0:
-            polarity, comp, template = -polarity, -comp, -template
-            flags.append("polarity_revised_on_leading_wave")
-        lead = _recentre(template, half[0], reach_j, back=back)
-        if not np.array_equal(lead, template):
-            template = lead
-            flags.append("fiducial_moved_to_leading_wave")
-
-    sums = _signed_sums(sums, polarity)
-    corr, amp = _match(comp, template, half[0], sums=sums)
-    cand, _ = signal.find_peaks(corr, distance=dist, height=0.2)
-    cand = cand[(cand >= 1) & (cand < comp.size - 1)]
-    n_candidates = int(cand.size)
-    top = corr[cand][corr[cand] >= np.quantile(corr[cand], 0.5)]
-    accept = float(np.clip(0.55 * np.median(top), 0.3, 0.5))
-    amp_ref = float(np.median(amp[cand][corr[cand] >= accept])) if np.any(
-        corr[cand] >= accept) else float(np.median(amp[cand]))
-    # A beat followed closely by the next one (fast irregular rhythm) shares the long
-    # template window with it; judge it again on the core of the complex alone.
-    core = (half[0] - int(round(CORE_WINDOW_S[0] * fs_w)),
-            half[0] + int(round(CORE_WINDOW_S[1] * fs_w)) + 1)
-    corr_core, _ = _match(comp, template[core[0]:core[1]], half[0] - core[0], sums=sums)
-    matched = (corr[cand] >= accept) | (corr_core[cand] >= max(accept, CORE_ACCEPT))
-    keep = matched & (amp[cand] >= 0.25 * amp_ref)
-    beats = cand[keep]
-    n_rejected = n_candidates - int(beats.size)
-
-    beats = _drop_extra(beats, corr, amp, fs_w)
-    if period is not None:
-        beats, n_slipped = _repair_slips(beats, corr, amp, fs_w, accept)
-        if n_slipped:
-            flags.append("slipped_beat_pairs_replaced")
-        paused = _drop_in_pauses(beats, corr, amp, fs_w)
-        if paused.size < beats.size:
-            # With the pause's pick gone, a pick that split the pause in two is judged
-            # against its true neighbours.
-            beats = _drop_extra(paused, corr, amp, fs_w)
-    beats, n_recovered = _recover_missed(beats, corr, amp, fs_w, 0.8 * accept,
-                                         0.2 * amp_ref, dist, usable_w)
-    inside = _complex_usable(beats, usable_w, fs_w)
-    beats = beats[inside]
-
-    seg = np.cumsum(~usable_w)
-    run_ids = seg[beats].astype(np.int64)
-    second = _second_waves(comp, beats, run_ids, amp, half, int(min_period * fs_w),
-                           None if period is None else period * fs_w)
-    if second is not None:
-        beats, run_ids = beats[~second], run_ids[~second]
-        flags.append("second_wave_of_each_complex_dropped")
-        same = run_ids[1:] == run_ids[:-1]
-        if period is not None and same.any() and \
-                period * fs_w < 0.75 * float(np.median(np.diff(beats)[same])):
-            period = 2.0 * period  # the envelope period was that of the waves
-            flags.append("envelope_period_doubled_two_waves_per_beat")
+    w = _Work(comp=comp / scale, fs=fs_w, usable=usable_w, levels=levels,
+              half=(int(round(-TEMPLATE_WINDOW_S[0] * fs_w)),
+                    int(round(TEMPLATE_WINDOW_S[1] * fs_w))),
+              reach_j=int(round(0.15 * fs_w)), min_period=60.0 / rate_range_bpm[1],
+              max_period=60.0 / rate_range_bpm[0], flags=flags)
+    settled = _settle_period(w)
+    if isinstance(settled, BeatDetection):
+        return settled
+    period, dist, env, peaks = settled
+    evidence, polarity, template = _first_template(w, env, peaks)
+    # Block spectra and running sums of the component, shared by every match below.
+    matcher = _Matcher(w.comp, w.half[0] + w.half[1] + 1)
+    refined = _refine_template(w, matcher, polarity, template, dist)
+    if refined is None:
+        return _empty(fs_w, levels, flags + ["too_few_candidates"], period=period,
+                      evidence=evidence)
+    polarity, template = _lead_wave(w, *refined, period)
+    comp = w.comp * polarity
+    corr, amp = _match(matcher, polarity, template, w.half[0])
+    picks = _pick(w, matcher, polarity, template, corr, amp, dist, period)
+    beats, run_ids, period = _drop_second_waves(w, comp, picks.beats, amp, period)
     offset = _parabolic_offset(corr, beats)
-    offset, trend = _preceding_interval_trend(comp, beats, offset, run_ids, fs_w, max_period)
+    offset, trend = _preceding_interval_trend(comp, beats, offset, run_ids, fs_w, w.max_period)
     if trend is not None:
         flags.append("j_timing_trend_with_preceding_interval_removed")
     times = (beats + offset) / fs_w
     r = corr[beats]
     a = amp[beats] * scale
+    has_beats = evidence >= EVIDENCE_THRESHOLD
     if not has_beats and _rhythm_evidence(times, run_ids, r, period) and \
             _sinusoid_share(comp, beats, fs_w, period) < RHYTHM_MAX_SINUSOID:
         has_beats = True
         flags.remove("no_repeating_beat_waveform")
         flags.append("beats_accepted_on_rhythm_evidence")
-    conf = np.clip((r - 0.2) / 0.7, 0.0, 1.0) * np.clip(a / (0.5 * amp_ref * scale), 0.0, 1.0)
+    conf = np.clip((r - 0.2) / 0.7, 0.0, 1.0) * np.clip(a / (0.5 * picks.amp_ref * scale),
+                                                        0.0, 1.0)
     if not has_beats:
         # No heartbeat: the picks are noise, and no beat is reported from them.
         return _empty(fs_w, levels, flags, period=period, evidence=evidence)
@@ -543,13 +431,232 @@ def detect_beats(
         period_s=period,
         evidence=float(evidence),
         has_beats=bool(has_beats),
-        n_candidates=n_candidates,
-        n_rejected=n_rejected,
-        n_recovered=n_recovered,
+        n_candidates=picks.n_candidates,
+        n_rejected=picks.n_rejected,
+        n_recovered=picks.n_recovered,
         levels=levels,
         wavelet=WAVELET,
         flags=tuple(flags),
     )
+
+
+# --- detector steps -------------------------------------------------------
+
+
+@dataclass
+class _Work:
+    """What every step of the detector reads: the scaled component and its settings."""
+
+    comp: NDArray[np.float64]
+    """Beat-band component at the working rate, scaled to unit robust SD (input sign)."""
+    fs: float
+    usable: NDArray[np.bool_]
+    levels: tuple[int, ...]
+    half: tuple[int, int]
+    """Template samples before and after the J wave."""
+    reach_j: int
+    """Samples either side of the centre searched for the J wave."""
+    min_period: float
+    max_period: float
+    flags: list[str]
+
+
+@dataclass(frozen=True)
+class _Picks:
+    """Accepted beats of step 6-8 (sample indices at the working rate) and their counts."""
+
+    beats: NDArray[np.intp]
+    amp_ref: float
+    n_candidates: int
+    n_rejected: int
+    n_recovered: int
+
+
+def _beat_band(x: NDArray[np.float64], fs_hz: float, mask: NDArray[np.bool_],
+               recoverable: ArrayLike | None, flags: list[str]
+               ) -> tuple[NDArray[np.float64], float, NDArray[np.bool_], tuple[int, ...]]:
+    """Steps 0-2: the beat-band component at the working rate, zeroed where masked.
+
+    Returns the (unscaled) component, the working rate, its usable mask and the levels.
+    """
+    xw, fs_w, usable_w = _to_work_rate(x, fs_hz, mask)
+    levels = levels_for_band(fs_w, BEAT_BAND_HZ)
+    comp = swt_component(bridge_masked(xw, usable_w), levels=levels, wavelet=WAVELET)
+    if recoverable is not None and not usable_w.all():
+        candidate = _work_mask(mask | check_usable(recoverable, x.size, of="trace"), fs_hz,
+                               fs_w, xw.size) & ~usable_w
+        given = _give_back(xw, fs_w, levels, usable_w, candidate)
+        if given is not None:
+            # The unbridged component where it is quiet: bridging the shorter masked core
+            # would join the levels on either side of a posture step by a steep ramp.
+            quiet, raw = given
+            comp = np.where(quiet, raw, comp)
+            usable_w = usable_w | quiet
+            flags.append("masked_movement_with_quiet_beat_band_given_back")
+    return _zero_masked(comp, usable_w, int(round(0.1 * fs_w))), fs_w, usable_w, levels
+
+
+def _settle_period(w: _Work) -> tuple[float | None, int, NDArray[np.float64],
+                                      NDArray[np.intp]] | BeatDetection:
+    """Step 3: the envelope, its period, the refractory distance and the envelope peaks.
+
+    Returns ``(period_s, refractory distance in samples, envelope, peaks)``, or the empty
+    detection when fewer than 4 envelope peaks are found.
+    """
+    fs_w, comp, half = w.fs, w.comp, w.half
+    env = ndimage.uniform_filter1d(comp * comp, max(1, int(round(ENVELOPE_WINDOW_S * fs_w))))
+    period = _envelope_period(env, fs_w, w.min_period, w.max_period)
+    if period is None:
+        w.flags.append("no_dominant_period")
+    refractory = max(0.9 * w.min_period, 0.4 * period) if period is not None \
+        else 0.9 * w.min_period
+    dist = max(1, int(round(refractory * fs_w)))
+    peaks, _ = signal.find_peaks(env, distance=dist)
+    peaks = peaks[(peaks >= half[0]) & (peaks < comp.size - half[1])]
+    if peaks.size < 4:
+        return _empty(fs_w, w.levels, w.flags + ["too_few_candidates"], period=period)
+    # Settle the period on the whole stretch before the beats are picked: envelope
+    # peaks two a beat (a complex with two comparable waves) halve the envelope period.
+    peak_runs = np.cumsum(~w.usable)[peaks].astype(np.int64)
+    if period is not None and period * fs_w < 0.75 * _pair_span(peaks, peak_runs) and \
+            _second_waves(comp, peaks, peak_runs, env, half,
+                          int(w.min_period * fs_w)) is not None:
+        period = 2.0 * period
+        refractory = max(0.9 * w.min_period, 0.4 * period)
+        dist = max(1, int(round(refractory * fs_w)))
+        w.flags.append("envelope_period_doubled_two_waves_per_beat")
+    return period, dist, env, peaks
+
+
+def _first_template(w: _Work, env: NDArray[np.float64], peaks: NDArray[np.intp]
+                    ) -> tuple[float, int, NDArray[np.float64]]:
+    """Step 4: coherence evidence, polarity and the envelope-aligned first template."""
+    strong = peaks[env[peaks] >= median(env[peaks])]
+    epochs = _epochs(w.comp, strong, w.half)
+    evidence = _coherence(epochs)
+    mean_epoch = epochs.mean(axis=0)
+    polarity = _polarity(mean_epoch, w.half[0], w.reach_j)
+    if not evidence >= EVIDENCE_THRESHOLD:
+        w.flags.append("no_repeating_beat_waveform")
+    return evidence, polarity, _recentre(polarity * mean_epoch, w.half[0], w.reach_j)
+
+
+def _refine_template(w: _Work, matcher: _Matcher, polarity: int,
+                     template: NDArray[np.float64], dist: int
+                     ) -> tuple[int, NDArray[np.float64]] | None:
+    """Step 5: two rounds of matching and median templates, the polarity checked once.
+
+    Returns the polarity and the template, or None when a round finds under 4 candidates.
+    """
+    half, reach_j, n = w.half, w.reach_j, w.comp.size
+    for attempt in range(2):
+        signed = w.comp * polarity
+        for _ in range(2):
+            corr, _ = _match(matcher, polarity, template, half[0])
+            cand, _ = signal.find_peaks(corr, distance=dist, height=0.2)
+            cand = cand[(cand >= half[0]) & (cand < n - half[1])]
+            if cand.size < 4:
+                return None
+            best = cand[corr[cand] >= quantile_half(corr[cand])]
+            template = _recentre(np.median(_epochs(signed, best, half), axis=0), half[0],
+                                 reach_j)
+        # The aligned template is sharper than the envelope-aligned mean:
+        # check the polarity on it once, and start again flipped if needed.
+        if attempt == 0 and _polarity(template, half[0], reach_j) < 0:
+            polarity = -polarity
+            template = _recentre(-template, half[0], reach_j)
+            w.flags.append("polarity_revised_on_template")
+            continue
+        break
+    return polarity, template
+
+
+def _lead_wave(w: _Work, polarity: int, template: NDArray[np.float64], period: float | None
+               ) -> tuple[int, NDArray[np.float64]]:
+    """Step 5, last: the fiducial on the leading large wave of a two-wave complex.
+
+    A complex with two comparable waves: the template match may have locked on the later
+    one. J leads the complex, so a large wave up to LEAD_WAVE_S earlier (and under half the
+    period, so never the previous beat's) takes the fiducial.
+    """
+    if period is None:
+        return polarity, template
+    half, reach_j = w.half, w.reach_j
+    back = min(int(round(min(LEAD_WAVE_S, 0.4 * period) * w.fs)), half[0] - 1)
+    # A lightly damped support rings after J with waves as large as J, and the match
+    # can settle on one of them with either sign; the first large wave of either
+    # sign over the same reach is J and sets the polarity (ringing supports).
+    first = _first_large(template, half[0], reach_j, back=back)
+    if template[first] < 0:
+        polarity, template = -polarity, -template
+        w.flags.append("polarity_revised_on_leading_wave")
+    lead = _recentre(template, half[0], reach_j, back=back)
+    if not np.array_equal(lead, template):
+        template = lead
+        w.flags.append("fiducial_moved_to_leading_wave")
+    return polarity, template
+
+
+def _pick(w: _Work, matcher: _Matcher, polarity: int, template: NDArray[np.float64],
+          corr: NDArray[np.float64], amp: NDArray[np.float64], dist: int,
+          period: float | None) -> _Picks:
+    """Steps 6-8: accepted candidates, extra and slipped picks, missed beats, masked ones."""
+    fs_w, half, n = w.fs, w.half, w.comp.size
+    cand, _ = signal.find_peaks(corr, distance=dist, height=0.2)
+    cand = cand[(cand >= 1) & (cand < n - 1)]
+    n_candidates = int(cand.size)
+    top = corr[cand][corr[cand] >= quantile_half(corr[cand])]
+    accept = float(np.clip(0.55 * median(top), 0.3, 0.5))
+    amp_ref = median(amp[cand][corr[cand] >= accept]) if np.any(
+        corr[cand] >= accept) else median(amp[cand])
+    # A beat followed closely by the next one (fast irregular rhythm) shares the long
+    # template window with it; judge it again on the core of the complex alone.
+    core = (half[0] - int(round(CORE_WINDOW_S[0] * fs_w)),
+            half[0] + int(round(CORE_WINDOW_S[1] * fs_w)) + 1)
+    corr_core, _ = _match(matcher, polarity, template[core[0]:core[1]], half[0] - core[0])
+    matched = (corr[cand] >= accept) | (corr_core[cand] >= max(accept, CORE_ACCEPT))
+    keep = matched & (amp[cand] >= 0.25 * amp_ref)
+    beats = cand[keep]
+    n_rejected = n_candidates - int(beats.size)
+
+    beats = _drop_extra(beats, corr, amp, fs_w)
+    if period is not None:
+        beats, n_slipped = _repair_slips(beats, corr, amp, fs_w, accept)
+        if n_slipped:
+            w.flags.append("slipped_beat_pairs_replaced")
+        paused = _drop_in_pauses(beats, corr, amp, fs_w)
+        if paused.size < beats.size:
+            # With the pause's pick gone, a pick that split the pause in two is judged
+            # against its true neighbours.
+            beats = _drop_extra(paused, corr, amp, fs_w)
+    beats, n_recovered = _recover_missed(beats, corr, amp, fs_w, 0.8 * accept,
+                                         0.2 * amp_ref, dist, w.usable)
+    inside = _complex_usable(beats, w.usable, fs_w)
+    return _Picks(beats=beats[inside], amp_ref=amp_ref, n_candidates=n_candidates,
+                  n_rejected=n_rejected, n_recovered=n_recovered)
+
+
+def _drop_second_waves(w: _Work, comp: NDArray[np.float64], beats: NDArray[np.intp],
+                       amp: NDArray[np.float64], period: float | None
+                       ) -> tuple[NDArray[np.intp], NDArray[np.int64], float | None]:
+    """Step 8, last: run ids, and the second wave of each complex dropped when picked.
+
+    Returns the beats, their run ids and the period (doubled when it was the waves').
+    """
+    fs_w = w.fs
+    seg = np.cumsum(~w.usable)
+    run_ids = seg[beats].astype(np.int64)
+    second = _second_waves(comp, beats, run_ids, amp, w.half, int(w.min_period * fs_w),
+                           None if period is None else period * fs_w)
+    if second is not None:
+        beats, run_ids = beats[~second], run_ids[~second]
+        w.flags.append("second_wave_of_each_complex_dropped")
+        same = run_ids[1:] == run_ids[:-1]
+        if period is not None and same.any() and \
+                period * fs_w < 0.75 * median(np.diff(beats)[same]):
+            period = 2.0 * period  # the envelope period was that of the waves
+            w.flags.append("envelope_period_doubled_two_waves_per_beat")
+    return beats, run_ids, period
 
 
 # --- validation -----------------------------------------------------------
@@ -580,7 +687,11 @@ def _to_work_rate(
 ) -> tuple[NDArray[np.float64], float, NDArray[np.bool_]]:
     frac = Fraction(WORK_RATE_HZ / fs_hz).limit_denominator(1000)
     up, down = frac.numerator, frac.denominator
-    xw = signal.resample_poly(x - np.median(x), up, down) if (up, down) != (1, 1) else x.copy()
+    if (up, down) == (1, 1):
+        xw = x.copy()
+    else:
+        # scipy's own default design (``polyphase_fir``), made once per rate pair
+        xw = signal.resample_poly(x - median(x), up, down, window=polyphase_fir(up, down))
     fs_w = fs_hz * up / down
     return xw, fs_w, _work_mask(mask, fs_hz, fs_w, xw.size)
 
@@ -717,13 +828,13 @@ def _rhythm_evidence(times: NDArray[np.float64], run_ids: NDArray[np.int64],
     without picking beats (Brueser et al. 2011, [2]_), so a self-made template cannot
     supply it. An irregular rhythm fails here and needs the coherence statistic.
     """
-    if period is None or times.size < 10 or float(np.median(corr)) < RHYTHM_SIMILARITY:
+    if period is None or times.size < 10 or median(corr) < RHYTHM_SIMILARITY:
         return False
     same = run_ids[1:] == run_ids[:-1]
     iv = np.diff(times)[same]
     if iv.size < 8:
         return False
-    med = float(np.median(iv))
+    med = median(iv)
     steady = float(np.mean(np.abs(np.diff(iv)) < RHYTHM_STEP * med)) if iv.size > 1 else 0.0
     return steady >= RHYTHM_CONSISTENCY and abs(med / period - 1.0) <= RHYTHM_AGREEMENT
 
@@ -771,7 +882,7 @@ def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
         return _weaker_within(picks, run_ids, amp[picks], 0.7 * period_n)
     if between > within - TWO_WAVE_SHAPE_GAP:
         return None
-    size = [float(np.median(amp[picks[ok & (cls == k)]])) for k in (0, 1)]
+    size = [median(amp[picks[ok & (cls == k)]]) for k in (0, 1)]
     keep = int(size[1] > size[0])
     if size[1 - keep] < TWO_WAVE_COMPARABLE * size[keep] or \
             _pair_span(picks, run_ids) < min_period:
@@ -788,7 +899,7 @@ def _twice_a_period(picks: NDArray[np.intp], run_ids: NDArray[np.int64],
     iv = np.diff(picks)[run_ids[1:] == run_ids[:-1]].astype(float)
     if iv.size < 8:
         return False
-    med = float(np.median(iv))
+    med = median(iv)
     steady = float(np.mean(np.abs(np.diff(iv)) < RHYTHM_STEP * med))
     return abs(2.0 * med / period_n - 1.0) <= RHYTHM_AGREEMENT and steady >= RHYTHM_CONSISTENCY
 
@@ -811,7 +922,7 @@ def _weaker_within(picks: NDArray[np.intp], run_ids: NDArray[np.int64],
 def _pair_span(picks: NDArray[np.intp], run_ids: NDArray[np.int64]) -> float:
     """Median span of two consecutive intervals within a run, samples (0 when none)."""
     same = run_ids[2:] == run_ids[:-2]
-    return float(np.median((picks[2:] - picks[:-2])[same])) if same.any() else 0.0
+    return median((picks[2:] - picks[:-2])[same]) if same.any() else 0.0
 
 
 def _pearson(a: NDArray[np.float64], b: NDArray[np.float64]) -> float:
@@ -883,39 +994,55 @@ def _recentre(template: NDArray[np.float64], centre: int, reach: int,
     return out
 
 
-def _signed_sums(sums: tuple[NDArray[np.float64], NDArray[np.float64], int],
-                 polarity: int) -> tuple[NDArray[np.float64], NDArray[np.float64], int]:
-    """Running sums of ``polarity`` times the component they were taken of."""
-    c1, c2, sign = sums
-    return (c1 if sign == polarity else -c1), c2, polarity
+class _Matcher:
+    """What every template match of one component shares (steps 5 and 6).
+
+    The block spectra of the component (:class:`features._correlate.BlockSpectra`), the
+    running sums of it and of its square (with a leading 0), and the window spread
+    (``sqrt`` of the window's sum of squares about its mean) for each template length and
+    centre already used. The spread does not depend on the sign of the trace (``s1 * s1``
+    is the same for ``-s1``), so the matches of either polarity share it.
+    """
+
+    def __init__(self, comp: NDArray[np.float64], max_len: int) -> None:
+        self.n = comp.size
+        self.spectra = BlockSpectra(comp, max_len)
+        self.c1 = np.concatenate(([0.0], np.cumsum(comp)))
+        self.c2 = np.concatenate(([0.0], np.cumsum(comp * comp)))
+        self._spread: dict[tuple[int, int], NDArray[np.float64]] = {}
+
+    def spread(self, centre: int, m: int) -> NDArray[np.float64]:
+        """Root of the sum of squares about the mean over ``[i - centre, i - centre + m)``."""
+        key = (centre, m)
+        if key not in self._spread:
+            s1 = _window_sums(self.c1, centre, m)
+            s2 = _window_sums(self.c2, centre, m)
+            var = s2 - s1 * s1 / m
+            self._spread[key] = np.sqrt(np.maximum(var, 0.0))
+        return self._spread[key]
 
 
-def _match(comp: NDArray[np.float64], template: NDArray[np.float64], centre: int, *,
-           sums: tuple[NDArray[np.float64], NDArray[np.float64], int]) -> tuple[
-        NDArray[np.float64], NDArray[np.float64]]:
+def _match(matcher: _Matcher, sign: int, template: NDArray[np.float64], centre: int
+           ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """Normalised cross-correlation and template amplitude at every sample.
 
-    Index ``i`` of both outputs describes the template placed with its sample
-    ``centre`` (the J wave) on sample ``i`` of ``comp``. ``sums`` holds the running
-    sums of ``comp`` and of its square (with a leading 0) and the sign they carry.
+    The trace matched is ``sign`` times the component of ``matcher``. Index ``i`` of both
+    outputs describes the template placed with its sample ``centre`` (the J wave) on
+    sample ``i`` of the trace; the correlation's denominator comes from running sums over
+    the same window.
     """
+    n = matcher.n
     t = template - template.mean()
     norm = np.sqrt(np.sum(t * t))
     if norm <= 0:
-        z = np.zeros_like(comp)
+        z = np.zeros(n)
         return z, z
     t = t / norm
-    m, n = t.size, comp.size
-    full = signal.oaconvolve(comp, t[::-1], mode="full")
-    first = m - 1 - centre
-    num = full[first : first + n]
-    # Running sums over the same window as the correlation.
-    c1, c2, _ = sums
-    s1 = _window_sums(c1, centre, m)
-    s2 = _window_sums(c2, centre, m)
-    var = s2 - s1 * s1 / m
-    den = np.sqrt(np.maximum(var, 0.0))
-    corr = np.zeros_like(comp)
+    num = matcher.spectra.correlate(t, centre)
+    if sign < 0:
+        np.negative(num, out=num)
+    den = matcher.spread(centre, t.size)
+    corr = np.zeros(n)
     ok = den > 1e-6  # the component is scaled to unit robust SD before matching
     np.divide(num, den, out=corr, where=ok)
     np.clip(corr, -1.0, 1.0, out=corr)
@@ -960,8 +1087,8 @@ def _scored(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray[np.
     1.5); a pick is strong at 0.75 of the median score or more; the reference is the local
     median interval between strong beats (``_reference_interval``), s.
     """
-    score = corr[beats] * np.minimum(amp[beats] / np.median(amp[beats]), 1.5)
-    strong = score >= 0.75 * np.median(score)
+    score = corr[beats] * np.minimum(amp[beats] / median(amp[beats]), 1.5)
+    strong = score >= 0.75 * median(score)
     return score, strong, _reference_interval(beats, strong, fs)
 
 
@@ -1036,24 +1163,43 @@ def _repair_slips(beats: NDArray[np.intp], corr: NDArray[np.float64],
     """
     if beats.size < 6:
         return beats, 0
-    score = corr[beats] * np.minimum(amp[beats] / np.median(amp[beats]), 1.5)
-    ref = _reference_interval(beats, score >= 0.75 * np.median(score), fs) * fs
-    out = beats.tolist()
+    score = corr[beats] * np.minimum(amp[beats] / median(amp[beats]), 1.5)
+    ref = _reference_interval(beats, score >= 0.75 * median(score), fs) * fs
+    out = beats
     replaced = 0
+    # Picks i = 1, 2, ... in order, a replacement shifting the later ones down by one; the
+    # test is made for every position at once and made again only after a replacement.
+    slipped = _slip_positions(out, ref)
     i = 1
-    while i + 2 < len(out):
-        a, b, c, d = out[i - 1], out[i], out[i + 1], out[i + 2]
-        m = float(ref[min(i, ref.size - 1)])
-        off = [abs(v - m) > RHYTHM_STEP * m for v in (b - a, c - b, d - c)]
-        if 1.8 * m <= d - a <= 2.2 * m and all(off):
-            mid, reach = (a + d) / 2.0, RHYTHM_STEP * m
-            lo, hi = int(np.ceil(mid - reach)), int(np.floor(mid + reach)) + 1
-            j = lo + int(np.argmax(corr[lo:hi]))
-            if corr[j] >= level:
-                out[i:i + 2] = [j]
-                replaced += 1
+    while (hits := np.flatnonzero(slipped[i - 1:])).size:
+        i += int(hits[0])
+        a, d, m = int(out[i - 1]), int(out[i + 2]), float(ref[i])
+        mid, reach = (a + d) / 2.0, RHYTHM_STEP * m
+        lo, hi = int(np.ceil(mid - reach)), int(np.floor(mid + reach)) + 1
+        j = lo + int(np.argmax(corr[lo:hi]))
+        if corr[j] >= level:
+            out = np.concatenate((out[:i], np.asarray([j], dtype=beats.dtype), out[i + 2:]))
+            replaced += 1
+            slipped = _slip_positions(out, ref)
         i += 1
-    return np.asarray(out, dtype=beats.dtype), replaced
+    return out, replaced
+
+
+def _slip_positions(picks: NDArray[np.intp], ref: NDArray[np.float64]) -> NDArray[np.bool_]:
+    """Entry ``i - 1`` is True when picks ``i, i + 1`` are a slip (``_repair_slips``).
+
+    The span from pick ``i - 1`` to ``i + 2`` is 1.8-2.2 reference intervals ``ref[i]``
+    (samples) and each of its three intervals is off the reference by more than
+    ``RHYTHM_STEP`` of it.
+    """
+    a, b, c, d = picks[:-3], picks[1:-2], picks[2:-1], picks[3:]
+    m = ref[1: picks.size - 2]
+    step = RHYTHM_STEP * m
+    off = (np.abs((b - a) - m) > step) & (np.abs((c - b) - m) > step) & \
+        (np.abs((d - c) - m) > step)
+    span = d - a
+    slipped: NDArray[np.bool_] = (1.8 * m <= span) & (span <= 2.2 * m) & off
+    return slipped
 
 
 def _reference_interval(beats: NDArray[np.intp], strong: NDArray[np.bool_],
@@ -1062,7 +1208,7 @@ def _reference_interval(beats: NDArray[np.intp], strong: NDArray[np.bool_],
     sb = beats[strong]
     if sb.size < 3:
         iv = np.diff(beats) / fs
-        return np.full(beats.size, float(np.median(iv)) if iv.size else 1.0)
+        return np.full(beats.size, median(iv) if iv.size else 1.0)
     siv = np.diff(sb) / fs
     # Consecutive strong beats may have a weak one between them: count such a
     # pair's interval only when no beat lies between (adjacent in ``beats``).

@@ -81,6 +81,21 @@ def butter_sos(order: int, cutoff_hz: float | tuple[float, float], btype: str,
     return sos
 
 
+@functools.lru_cache(maxsize=32)
+def polyphase_fir(up: int, down: int) -> FloatArray:
+    """The anti-alias FIR that ``scipy.signal.resample_poly(x, up, down)`` designs by default.
+
+    ``firwin(20 max(up, down) + 1, 1 / max(up, down), window=("kaiser", 5.0))`` for a
+    reduced ratio ``up / down``, designed once per rate pair and returned read-only;
+    pass it as ``window=`` (resample_poly copies it) for the same numbers without the
+    design's cost on every call.
+    """
+    rate = max(up, down)
+    h = np.asarray(signal.firwin(2 * 10 * rate + 1, 1.0 / rate, window=("kaiser", 5.0)))
+    h.setflags(write=False)
+    return h
+
+
 @functools.lru_cache(maxsize=128)
 def _design_zi(order: int, cutoff_hz: float | tuple[float, float], btype: str,
                fs_hz: float) -> FloatArray:

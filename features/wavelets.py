@@ -25,6 +25,8 @@ import numpy as np
 import pywt
 from numpy.typing import ArrayLike, NDArray
 
+from features._correlate import BlockSpectra
+
 WAVELET = "sym4"
 
 
@@ -62,51 +64,83 @@ def levels_for_band(fs_hz: float, band_hz: tuple[float, float]) -> tuple[int, ..
     return tuple(kept)
 
 
-#: Output samples per block of the blocked transform (a multiple of any ``2**level`` used).
-_SWT_BLOCK = 1 << 17
-
-
 def swt_component(
     x: ArrayLike, *, levels: tuple[int, ...], wavelet: str = WAVELET
 ) -> NDArray[np.float64]:
     """MODWT-style MRA component of ``x`` made of the given detail levels only.
 
-    The trace is reflected at both ends up to a length that is a multiple of
-    ``2**max(levels)`` (plus one filter length of margin, which keeps the
-    circular wrap of the transform away from the data), transformed,
+    The trace is reflected at both ends by one reach of the transform, transformed,
     reconstructed from the chosen details alone, and cut back.
 
-    Long traces are transformed in blocks of ``_SWT_BLOCK`` output samples:
-    the transform and its inverse together are a circular shift-invariant
-    filter whose reach is ``2 (L - 1) (2**J - 1)`` samples (``L`` the filter
-    length, ``J`` the top level), so each block is computed on a window of the
-    padded trace extended circularly by at least that reach on both sides (a
-    multiple of ``2**J``, keeping the dyadic alignment) and its centre kept.
-    The result equals the whole-trace transform to rounding, at a cost linear
-    in length and with the coefficient arrays of one block in memory.
+    The forward SWT and its inverse (``norm=True``, the inverse averaging over every
+    decimation phase) together are the MODWT multiresolution component: a linear,
+    shift-invariant filter of the input, zero-phase, whose reach is
+    ``(L - 1) (2**J - 1)`` samples on each side (``L`` the filter length, ``J`` the
+    top level) [1]_ (Percival & Walden 2000, ch. 5; Nason & Silverman 1995). Its
+    impulse response is taken once per level set and wavelet from the transform
+    itself (:func:`_mra_kernel`) and applied by FFT overlap-save
+    (:class:`features._correlate.BlockSpectra`) to the reflected trace, at a cost of
+    ``n log(kernel)``. This is the transform of the trace reflected by
+    ``(L - 1)(2**J - 1) + 1`` samples at each end up to a multiple of ``2**J`` and
+    treated as circular (the circular wrap never reaches the data), to rounding
+    (``tests/features/test_wavelets.py``). Traces shorter than the reach take that
+    transform itself.
+
+    References
+    ----------
+    .. [1] Percival DB, Walden AT. Wavelet Methods for Time Series Analysis.
+       Cambridge University Press, 2000. doi:10.1017/CBO9780511841040
+    .. [2] Nason GP, Silverman BW. The stationary wavelet transform and some
+       statistical applications. In: Wavelets and Statistics, Lecture Notes in
+       Statistics 103:281-299, Springer, 1995. doi:10.1007/978-1-4612-2544-7_17
     """
     data = np.asarray(x, dtype=np.float64)
     n = data.size
     top = max(levels)
+    reach = _reach(top, wavelet)
+    if n - 1 < reach + 1:
+        return _circular_component(data, levels, wavelet)
+    kernel = _mra_kernel(tuple(sorted(set(levels))), wavelet)
+    padded = np.pad(data, (reach, reach), mode="reflect")
+    # out[i] = sum_k kernel[k] padded[i + 2 reach - k]: the reversed kernel correlated
+    # with the reflected trace from its first sample (centre 0)
+    return BlockSpectra(padded, kernel.size).correlate(kernel[::-1], 0)[:n]
+
+
+def _reach(top: int, wavelet: str) -> int:
+    """One-sided reach of the MRA filter of levels up to ``top``, samples."""
+    return int((pywt.Wavelet(wavelet).dec_len - 1) * (2**top - 1))
+
+
+def _circular_component(data: NDArray[np.float64], levels: tuple[int, ...], wavelet: str
+                        ) -> NDArray[np.float64]:
+    """The component by the transform itself, on the reflected trace made circular."""
+    n = data.size
+    top = max(levels)
     block = 2**top
-    filt = pywt.Wavelet(wavelet).dec_len
-    margin = min(n - 1, (filt - 1) * (block - 1) + 1)
-    total = n + 2 * margin
-    padded_len = int(math.ceil(total / block) * block)
-    extra = padded_len - total
-    padded = np.pad(data, (margin, margin + extra), mode="reflect")
-    reach = int(math.ceil((2 * (filt - 1) * (block - 1) + 1) / block) * block)
-    step = max(block, _SWT_BLOCK // block * block)
-    if padded_len <= step + 2 * reach:
-        out = _mra(padded, levels, top, wavelet)
-    else:
-        out = np.empty(padded_len)
-        for a in range(0, padded_len, step):
-            b = min(a + step, padded_len)
-            b_win = int(math.ceil((b - a) / block) * block) + a
-            window = np.take(padded, np.arange(a - reach, b_win + reach), mode="wrap")
-            out[a:b] = _mra(window, levels, top, wavelet)[reach : reach + b - a]
-    return np.ascontiguousarray(out[margin : margin + n])
+    margin = min(n - 1, _reach(top, wavelet) + 1)
+    padded_len = int(math.ceil((n + 2 * margin) / block) * block)
+    padded = np.pad(data, (margin, padded_len - n - margin), mode="reflect")
+    return np.ascontiguousarray(_mra(padded, levels, top, wavelet)[margin : margin + n])
+
+
+@functools.lru_cache(maxsize=16)
+def _mra_kernel(levels: tuple[int, ...], wavelet: str) -> NDArray[np.float64]:
+    """Impulse response of the MRA component of ``levels`` (``2 reach + 1`` taps, read-only).
+
+    The component of a unit impulse on a circular trace long enough that the response
+    does not wrap: the transform is shift-invariant, so this is its response to any
+    sample.
+    """
+    top = max(levels)
+    reach = _reach(top, wavelet)
+    size = int(math.ceil((4 * reach + 2) / 2**top) * 2**top)
+    impulse = np.zeros(size)
+    impulse[size // 2] = 1.0
+    response = _mra(impulse, levels, top, wavelet)
+    kernel = np.array(response[size // 2 - reach : size // 2 + reach + 1])
+    kernel.setflags(write=False)
+    return kernel
 
 
 def _mra(padded: NDArray[np.float64], levels: tuple[int, ...], top: int, wavelet: str

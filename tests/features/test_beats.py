@@ -350,3 +350,42 @@ def test_beats_do_not_slip_onto_the_ring_of_a_soft_support(seed):
     assert _matched(d.times_s, ref).mean() >= 0.95
     assert _matched(ref, d.times_s).mean() >= 0.95
     assert _matched(d.times_s, ref, tol=0.02).mean() >= 0.95
+
+
+def _slip_repair_by_definition(beats, corr, ref, level):
+    # The rule of _repair_slips's docstring, one position at a time in plain Python.
+    out, replaced, i = beats.tolist(), 0, 1
+    while i + 2 < len(out):
+        a, b, c, d = out[i - 1: i + 3]
+        m = float(ref[i])
+        if 1.8 * m <= d - a <= 2.2 * m and all(abs(v - m) > 0.2 * m for v in (b - a, c - b,
+                                                                              d - c)):
+            lo, hi = int(np.ceil((a + d) / 2 - 0.2 * m)), int(np.floor((a + d) / 2 + 0.2 * m))
+            j = lo + int(np.argmax(corr[lo: hi + 1]))
+            if corr[j] >= level:
+                out[i: i + 2] = [j]
+                replaced += 1
+        i += 1
+    return out, replaced
+
+
+def test_slip_repair_follows_its_rule_pick_by_pick():
+    from features.beats import RHYTHM_STEP, _reference_interval, _repair_slips
+
+    assert RHYTHM_STEP == 0.2  # the definition above spells it out
+    rng = np.random.default_rng(12)
+    seen = 0
+    for _ in range(300):
+        n = int(rng.integers(6, 60))
+        # intervals mostly regular, with halves, 1.3-1.4x and 0.6-0.7x ones mixed in
+        iv = rng.choice([0.5, 1.0, 1.0, 1.0, 0.6, 1.4, 0.7, 1.3], size=n) * 100
+        beats = np.cumsum(iv + rng.normal(0, 5, n)).astype(np.intp) + 200
+        corr = rng.uniform(0, 1, beats[-1] + 300)
+        amp = rng.uniform(0.2, 2, corr.size)
+        score = corr[beats] * np.minimum(amp[beats] / np.median(amp[beats]), 1.5)
+        ref = _reference_interval(beats, score >= 0.75 * np.median(score), 125.0) * 125.0
+        got, n_got = _repair_slips(beats, corr, amp, 125.0, 0.5)
+        want, n_want = _slip_repair_by_definition(beats, corr, ref, 0.5)
+        assert got.tolist() == want and n_got == n_want
+        seen += n_got
+    assert seen > 50  # the random trains do exercise replacements

@@ -13,6 +13,7 @@ from features.filters import (
     bridge_masked,
     butter_sos,
     lowpass,
+    polyphase_fir,
     subtract_block_series,
 )
 
@@ -118,3 +119,14 @@ def test_bridged_spans_are_numpy_interp_over_the_usable_samples() -> None:
         want = np.where(usable, x, np.interp(np.arange(n), idx, x[idx]))
         np.testing.assert_array_equal(bridge_masked(x, usable), want)
     assert not bridge_masked(np.ones(4), np.zeros(4, bool)).any()
+
+
+@pytest.mark.parametrize(("up", "down"), [(5, 4), (1, 2), (1, 8), (25, 48)])
+def test_cached_polyphase_design_is_resample_polys_own(up: int, down: int) -> None:
+    x = np.random.default_rng(up * 100 + down).standard_normal(3001)
+    # reference library: scipy.signal.resample_poly with its default Kaiser design; the
+    # same filter taps, so the same numbers
+    np.testing.assert_array_equal(
+        scipy.signal.resample_poly(x, up, down, window=polyphase_fir(up, down)),
+        scipy.signal.resample_poly(x, up, down))
+    assert polyphase_fir(up, down) is polyphase_fir(up, down)  # designed once
