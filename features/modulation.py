@@ -174,7 +174,11 @@ def respiratory_modulation(
        follow the breathing rhythm; the segments' (a, b) are pooled by inverse variance.
        Peak-to-trough = 2 x amplitude, the amplitude debiased for noise as
        sqrt(max(0, a^2 + b^2 - var a - var b)), so that a series without RSA reads about 0
-       rather than the size of its jitter. Needs >= 5 breaths and 20 intervals.
+       rather than the size of its jitter; ``rsa_se_ms`` = 2 sqrt((var a + var b) / 2).
+       The normal equations are solved with the trend partialled out (Frisch-Waugh), no
+       general least-squares solver. The same fit with one sinusoid for the intervals
+       before the middle one and another after gives the two halves' RSA and
+       ``rsa_half_difference_ms``. Needs >= 5 breaths and 20 intervals.
        This departs from the peak-valley method of Grossman et al. 1990 (longest minus
        shortest interval per breath), which also collects beat-to-beat jitter, slower
        rhythms and detection noise and reads 30-40 ms on series without any RSA; for a
