@@ -499,7 +499,8 @@ def _cosinor_segment(
     covariance (block-diagonal between the two fits; a half with too few intervals has an
     infinite variance), or None when the whole fit is underdetermined. The normal equations
     are solved in closed form by partialling out the trend (Frisch-Waugh): the sinusoids'
-    residuals on the trend give the 2 x 2 (or 4 x 4) system of the coefficients.
+    residuals on the trend give the 2 x 2 (or 4 x 4) system of the coefficients
+    (:func:`_partial_fit`).
     """
     n_inner = max(0, int(np.floor((t[-1] - t[0]) / knot_s)) - 1)
     inner = np.linspace(t[0], t[-1], n_inner + 2)[1:-1]
@@ -527,25 +528,25 @@ def _partial_fit(
     x: NDArray[np.float64], trend: NDArray[np.float64], y: NDArray[np.float64],
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
     """Coefficients of ``x`` in the least squares of ``y`` on ``[x, trend]`` and their
-    covariance, by the normal equations with the trend partialled out; None when the
-    design is rank-deficient or leaves fewer than ``MIN_BEATS // 2`` degrees of freedom."""
+    covariance, with the trend partialled out (Frisch-Waugh): ``x`` and ``y`` less their
+    projections on the trend (through its QR factors, which keep the trend's own
+    conditioning rather than squaring it as its Gram matrix would), then the small normal
+    equations of ``x``. None when the trend or the sinusoids left after it are
+    rank-deficient, or fewer than ``MIN_BEATS // 2`` degrees of freedom remain."""
     p = x.shape[1] + trend.shape[1]
     dof = y.size - p
     if dof < MIN_BEATS // 2:
         return None
-    gram = trend.T @ trend
-    rhs = trend.T @ np.column_stack((x, y))
-    try:
-        proj = np.linalg.solve(gram, rhs)
-    except np.linalg.LinAlgError:
+    q, r = np.linalg.qr(trend)
+    d = np.abs(np.diag(r))
+    # the rank rule of numpy.linalg.lstsq (rcond = eps x the larger dimension), on R
+    if d.size and d.min() <= d.max() * np.finfo(float).eps * max(trend.shape):
         return None
-    if not np.all(np.isfinite(proj)):
-        return None
-    rx = x - trend @ proj[:, :-1]
-    ry = y - trend @ proj[:, -1]
+    rx = x - q @ (q.T @ x)
+    ry = y - q @ (q.T @ y)
     s_xx = rx.T @ rx
-    # rank of [x, trend]: the sinusoids must keep a part the trend cannot carry
-    if np.linalg.cond(s_xx) > 1e10 or np.linalg.cond(gram) > 1e12:
+    # the sinusoids must keep a part the trend cannot carry
+    if np.linalg.eigvalsh(s_xx).min() <= 1e-12 * float(np.trace(x.T @ x)):
         return None
     inv = np.linalg.inv(s_xx)
     coef = inv @ (rx.T @ ry)

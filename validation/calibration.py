@@ -102,15 +102,16 @@ MODEL_INPUTS: dict[str, tuple[str, ...]] = {
                        "ij_precision"),
     "jk_interval_ms": ("heuristic", "log_intervals", "template_correlation", "template_snr",
                        "jk_precision"),
-    "rsa_ms": ("log_breaths", "interval_consistency", "rsa_over_jitter", "coherence",
-               "hr_agreement", "normal_fraction", "log_rsa", "rsa_precision",
-               "rsa_half_agreement", "breath_regularity", "breathing_above_lf"),
+    "rsa_ms": ("heuristic", "log_breaths", "interval_consistency", "rsa_over_jitter",
+               "coherence", "hr_agreement", "normal_fraction", "log_rsa", "rsa_precision",
+               "rsa_half_agreement", "breath_regularity", "breathing_above_lf",
+               "breath_agreement"),
 }
-"""Evidence quantities of each calibrated feature's model. RSA's model reads the cosinor
-fit's own precision and the agreement of its two halves, breathing regularity (the phase
-the fit is against) and the distance of breathing from the low-frequency band, in place
-of the family confidence, whose factor for two to three beats per breath (a guess of
-ours) made it underconfident where beats sample the breathing cycle sparsely."""
+"""Evidence quantities of each calibrated feature's model. RSA's model adds to the family
+confidence what that one number folds together or leaves out: the cosinor fit's own
+precision, the agreement of the recording's two halves, and the quality of the breathing
+phase the fit is against (breath regularity, counted against spectral breathing rate,
+distance of breathing from the low-frequency band)."""
 
 
 # --------------------------------------------------------------------------- cohorts
