@@ -37,6 +37,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from features.calibration_table import MODELS
+from features.modulation import LF_BAND_HZ
 
 if TYPE_CHECKING:
     from features.engine import AnalysisResult
@@ -69,6 +70,9 @@ EVIDENCE_NAMES = (
     "ij_precision",
     "jk_precision",
     "rsa_over_jitter",
+    "rsa_precision",
+    "rsa_half_agreement",
+    "breathing_above_lf",
     "coherence",
     "normal_fraction",
     "log_sdnn",
@@ -150,6 +154,15 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
           floor 1 ms);
         - ``ij_precision``, ``jk_precision``: log of 10 ms over the interval's standard
           error (floor 0.1 ms; 0 when unknown);
+        - ``rsa_precision``: log of 10 ms (RSA's tolerance) over RSA's standard error from
+          the cosinor fit (floor 0.1 ms; 0 when unknown);
+        - ``rsa_half_agreement``: log of 10 ms over the difference between the RSA of the
+          first and of the second half of the intervals (floor 0.1 ms; 0 when unknown): a
+          modulation that holds through the recording against one that does not;
+        - ``breathing_above_lf``: (breathing frequency - 0.04 Hz) / (0.15 Hz - 0.04 Hz)
+          clipped to [0, 1] (``features.modulation.LF_BAND_HZ``, Task Force 1996): how far
+          breathing stands above the low-frequency band, where the baroreflex rhythm shares
+          its frequency (0 when unknown);
         - ``coherence``: cardiorespiratory coherence (0 when not computed);
         - ``normal_fraction``: share of the beat-to-beat intervals screened as normal;
         - ``log_sdnn``, ``log_rmssd``, ``log_rsa``: log of the value in ms (floor 1 ms; a
@@ -175,6 +188,8 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
         return 0.0 if se is None else _log_ratio(10.0, se, 0.1)
 
     cv = resp.interval_cv_pct
+    mod = result.modulation
+    lf_lo, lf_hi = LF_BAND_HZ
     return {
         "heuristic": min(1.0, max(0.0, _num(heuristic))),
         "log_intervals": math.log1p(max(0, hr.intervals_used)),
@@ -193,6 +208,10 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
         "ij_precision": precision(mor.ij_interval_se_ms),
         "jk_precision": precision(mor.jk_interval_se_ms),
         "rsa_over_jitter": _log_ratio(result.modulation.rsa_ms, jitter, 1.0),
+        "rsa_precision": precision(mod.rsa_se_ms),
+        "rsa_half_agreement": precision(mod.rsa_half_difference_ms),
+        "breathing_above_lf": min(1.0, max(0.0, (_num(mod.breathing_frequency_hz) - lf_lo)
+                                                / (lf_hi - lf_lo))),
         "coherence": _num(result.modulation.coherence),
         "normal_fraction": _num(result.interval_labels.fraction_normal),
         "log_sdnn": math.log(max(1.0, _num(td.sdnn_ms))),

@@ -70,6 +70,10 @@ class ModulationResult:
     rsa_ms, rsa_confidence
         Peak-to-trough respiratory sinus arrhythmia (ms): twice the amplitude of the
         intervals' sinusoid of the breathing phase, slower rhythms removed.
+    rsa_se_ms, rsa_half_difference_ms
+        Standard error of ``rsa_ms`` from the fit, and the difference between the RSA of
+        the first and of the second half of the intervals (ms); evidence for the calibrated
+        confidence (:mod:`features.calibration`), not part of the API.
     amplitude_index, amplitude_confidence
         Relative peak-to-peak depth of the beat-amplitude modulation locked to the breathing
         cycle (dimensionless; 0.1 means amplitudes swing +/-5 % about the mean).
@@ -89,6 +93,8 @@ class ModulationResult:
     breaths_used: int = 0
     rsa_ms: float | None = None
     rsa_confidence: float = 0.0
+    rsa_se_ms: float | None = None
+    rsa_half_difference_ms: float | None = None
     amplitude_index: float | None = None
     amplitude_confidence: float = 0.0
     timing_modulation_pct: float | None = None
@@ -168,7 +174,11 @@ def respiratory_modulation(
        follow the breathing rhythm; the segments' (a, b) are pooled by inverse variance.
        Peak-to-trough = 2 x amplitude, the amplitude debiased for noise as
        sqrt(max(0, a^2 + b^2 - var a - var b)), so that a series without RSA reads about 0
-       rather than the size of its jitter. Needs >= 5 breaths and 20 intervals.
+       rather than the size of its jitter; ``rsa_se_ms`` = 2 sqrt((var a + var b) / 2).
+       The normal equations are solved with the trend partialled out (Frisch-Waugh), no
+       general least-squares solver. The same fit with one sinusoid for the intervals
+       before the middle one and another after gives the two halves' RSA and
+       ``rsa_half_difference_ms``. Needs >= 5 breaths and 20 intervals.
        This departs from the peak-valley method of Grossman et al. 1990 (longest minus
        shortest interval per breath), which also collects beat-to-beat jitter, slower
        rhythms and detection noise and reads 30-40 ms on series without any RSA; for a
@@ -242,8 +252,8 @@ def respiratory_modulation(
             breathing_frequency_hz=f_b, breaths_used=int(starts.size),
         )
     ok_iv = np.isfinite(iv)
-    rsa, c_rsa, r_flags = _rsa(iv_t[ok_iv], iv[ok_iv], starts, ends)
-    flags.extend(r_flags)
+    rsa = _rsa(iv_t[ok_iv], iv[ok_iv], starts, ends)
+    flags.extend(rsa.flags)
     amp_index, c_amp = (None, 0.0)
     if amps is not None:
         ok = np.isfinite(amps)
@@ -264,15 +274,17 @@ def respiratory_modulation(
         flags.append("no_cardiac_amplitude_for_baseline_index")
     coh, c_coh, k_seg, c_flag = _coherence(y, fs, iv_t[ok_iv], iv[ok_iv], f_b)
     flags.extend(c_flag)
-    confs = [c for v, c in ((rsa, c_rsa), (amp_index, c_amp), (timing, c_timing),
+    confs = [c for v, c in ((rsa.rsa_ms, rsa.confidence), (amp_index, c_amp), (timing, c_timing),
                             (baseline, c_base), (coh, c_coh)) if v is not None]
     return ModulationResult(
         confidence=float(np.mean(confs)) if confs else 0.0,
         flags=tuple(flags),
         breathing_frequency_hz=f_b,
         breaths_used=int(starts.size),
-        rsa_ms=rsa,
-        rsa_confidence=c_rsa,
+        rsa_ms=rsa.rsa_ms,
+        rsa_confidence=rsa.confidence,
+        rsa_se_ms=rsa.se_ms,
+        rsa_half_difference_ms=rsa.half_difference_ms,
         amplitude_index=amp_index,
         amplitude_confidence=c_amp,
         timing_modulation_pct=timing,
@@ -407,12 +419,24 @@ def _segment_ptp(x: NDArray[np.float64], a: NDArray[np.int64], b: NDArray[np.int
     return out
 
 
+@dataclass(frozen=True)
+class _RsaEstimate:
+    """RSA (ms), its standard error (ms), the difference between the two halves' RSA (ms),
+    confidence and flags; the numbers None when not computed."""
+
+    rsa_ms: float | None
+    se_ms: float | None
+    half_difference_ms: float | None
+    confidence: float
+    flags: tuple[str, ...]
+
+
 def _rsa(
     t: NDArray[np.float64],
     iv: NDArray[np.float64],
     starts: NDArray[np.float64],
     ends: NDArray[np.float64],
-) -> tuple[float | None, float, list[str]]:
+) -> _RsaEstimate:
     """Respiratory-locked peak-to-trough RSA by a cosinor fit against the breathing phase.
 
     Per segment of ``TIMING_SEGMENT_S``: least squares of the intervals inside kept cycles on
@@ -420,59 +444,116 @@ def _rsa(
     cycles apart (the non-respiratory part: slower rhythms and drift). The segments' (a, b)
     are pooled by inverse variance; peak-to-trough = 2 sqrt(max(0, a^2 + b^2 - var a -
     var b)) (the noise floor of a fitted amplitude removed); its standard error sets the
-    confidence with the separation factors of :func:`_rsa_separation`.
+    confidence with the separation factors of :func:`_rsa_separation`. The same fit with
+    one sinusoid for the intervals before the middle beat and one after gives the two
+    halves' RSA, whose difference tells a modulation that holds from one that does not.
     """
     phi, inside = _phase(t, starts, ends)
     t, iv, phi = t[inside], iv[inside], phi[inside]
     k_breath = np.unique(np.searchsorted(starts, t, side="right") - 1)
     if k_breath.size < MIN_BREATHS or iv.size < MIN_BEATS:
-        return None, 0.0, ["too_few_breaths_for_rsa"]
+        return _RsaEstimate(None, None, None, 0.0, ("too_few_breaths_for_rsa",))
     knot_s = RSA_TREND_KNOT_CYCLES * float(np.median(ends - starts))
-    coefs, covs = [], []
-    for seg in _segments(t):
-        fit = _cosinor_segment(t[seg], iv[seg], phi[seg], knot_s)
-        if fit is not None:
-            coefs.append(fit[0])
-            covs.append(fit[1])
-    if not coefs:
-        return None, 0.0, ["rsa_fit_underdetermined"]
-    info = sum(np.linalg.inv(c) for c in covs)
-    cov = np.linalg.inv(info)
-    ab = cov @ sum(np.linalg.inv(c) @ v for v, c in zip(coefs, covs, strict=True))
-    floor = float(cov[0, 0] + cov[1, 1])
-    rsa = 2.0 * float(np.sqrt(max(0.0, float(ab @ ab) - floor)))
-    se = 2.0 * float(np.sqrt(0.5 * floor))
+    late = np.arange(iv.size) >= iv.size // 2
+    fits = [f for f in (_cosinor_segment(t[seg], iv[seg], phi[seg], knot_s, late[seg])
+                        for seg in _segments(t)) if f is not None]
+    if not fits:
+        return _RsaEstimate(None, None, None, 0.0, ("rsa_fit_underdetermined",))
+    whole = _pool([(v[:2], c[:2, :2]) for v, c in fits])
+    halves = [_pool([(v[k:k + 2], c[k:k + 2, k:k + 2]) for v, c in fits
+                     if np.isfinite(c[k, k])]) for k in (2, 4)]
+    rsa, se = whole
+    half_diff = (abs(halves[0][0] - halves[1][0])
+                 if np.isfinite(halves[0][1]) and np.isfinite(halves[1][1]) else None)
     beats_per_breath = iv.size / k_breath.size
     f_b = 1.0 / float(np.median(ends - starts))
     cv_breath = float(np.std(ends - starts) / np.mean(ends - starts))
     within = math.erf(RSA_TOLERANCE_MS / (math.sqrt(2.0) * se)) if se > 0 else 1.0
     ceiling = min(1.0, k_breath.size / 20.0)
     conf = ceiling * within * _rsa_separation(f_b, beats_per_breath, cv_breath)
-    flags = [] if conf >= 0.5 * ceiling else ["rsa_not_separable_from_other_rhythms"]
-    return rsa, float(conf), flags
+    flags = () if conf >= 0.5 * ceiling else ("rsa_not_separable_from_other_rhythms",)
+    return _RsaEstimate(rsa, se, half_diff, float(conf), flags)
+
+
+def _pool(fits: list[tuple[NDArray[np.float64], NDArray[np.float64]]]) -> tuple[float, float]:
+    """Peak-to-trough (debiased) and its standard error from (a, b) fits pooled by inverse
+    variance; (nan, nan) without a fit."""
+    if not fits:
+        return math.nan, math.nan
+    info = sum(np.linalg.inv(c) for _, c in fits)
+    cov = np.linalg.inv(info)
+    ab = cov @ sum(np.linalg.inv(c) @ v for v, c in fits)
+    floor = float(cov[0, 0] + cov[1, 1])
+    return (2.0 * float(np.sqrt(max(0.0, float(ab @ ab) - floor))),
+            2.0 * float(np.sqrt(0.5 * floor)))
 
 
 def _cosinor_segment(
     t: NDArray[np.float64], iv: NDArray[np.float64], phi: NDArray[np.float64], knot_s: float,
+    late: NDArray[np.bool_],
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
-    """(a, b) of ``iv ~ a cos(phi) + b sin(phi) + trend(t)`` and their 2 x 2 covariance."""
+    """Cosinor fits of one segment: ``iv ~ a cos(phi) + b sin(phi) + trend(t)``, and the
+    same with separate (a, b) before and after the recording's middle (``late``).
+
+    Returns the six coefficients (a, b, a_early, b_early, a_late, b_late) and their 6 x 6
+    covariance (block-diagonal between the two fits; a half with too few intervals has an
+    infinite variance), or None when the whole fit is underdetermined. The normal equations
+    are solved in closed form by partialling out the trend (Frisch-Waugh): the sinusoids'
+    residuals on the trend give the 2 x 2 (or 4 x 4) system of the coefficients
+    (:func:`_partial_fit`).
+    """
     n_inner = max(0, int(np.floor((t[-1] - t[0]) / knot_s)) - 1)
     inner = np.linspace(t[0], t[-1], n_inner + 2)[1:-1]
     knots = np.concatenate(([t[0]] * 4, inner, [t[-1]] * 4))
     trend = BSpline.design_matrix(t, knots, 3).toarray()
     # A piece of trend inside a gap (a masked movement, breaths left out) has no data.
     trend = trend[:, np.count_nonzero(trend, axis=0) >= 2]
-    design = np.column_stack((np.cos(phi), np.sin(phi), trend))
-    dof = t.size - design.shape[1]
+    c, s = np.cos(phi), np.sin(phi)
+    whole = _partial_fit(np.column_stack((c, s)), trend, iv)
+    if whole is None:
+        return None
+    e = ~late
+    halves = None
+    if min(int(e.sum()), int(late.sum())) >= MIN_BEATS // 2:
+        halves = _partial_fit(np.column_stack((c * e, s * e, c * late, s * late)), trend, iv)
+    coef = np.full(6, np.nan)
+    cov = np.diag([0.0, 0.0] + [np.inf] * 4)
+    coef[:2], cov[:2, :2] = whole
+    if halves is not None:
+        coef[2:], cov[2:, 2:] = halves
+    return coef, cov
+
+
+def _partial_fit(
+    x: NDArray[np.float64], trend: NDArray[np.float64], y: NDArray[np.float64],
+) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
+    """Coefficients of ``x`` in the least squares of ``y`` on ``[x, trend]`` and their
+    covariance, with the trend partialled out (Frisch-Waugh): ``x`` and ``y`` less their
+    projections on the trend (through its QR factors, which keep the trend's own
+    conditioning rather than squaring it as its Gram matrix would), then the small normal
+    equations of ``x``. None when the trend or the sinusoids left after it are
+    rank-deficient, or fewer than ``MIN_BEATS // 2`` degrees of freedom remain."""
+    p = x.shape[1] + trend.shape[1]
+    dof = y.size - p
     if dof < MIN_BEATS // 2:
         return None
-    coef, _, rank, _ = np.linalg.lstsq(design, iv, rcond=None)
-    if rank < design.shape[1]:
+    q, r = np.linalg.qr(trend)
+    d = np.abs(np.diag(r))
+    # the rank rule of numpy.linalg.lstsq (rcond = eps x the larger dimension), on R
+    if d.size and d.min() <= d.max() * np.finfo(float).eps * max(trend.shape):
         return None
-    resid = iv - design @ coef
+    rx = x - q @ (q.T @ x)
+    ry = y - q @ (q.T @ y)
+    s_xx = rx.T @ rx
+    # the sinusoids must keep a part the trend cannot carry
+    if np.linalg.eigvalsh(s_xx).min() <= 1e-12 * float(np.trace(x.T @ x)):
+        return None
+    inv = np.linalg.inv(s_xx)
+    coef = inv @ (rx.T @ ry)
+    resid = ry - rx @ coef
     s2 = float(resid @ resid) / dof
-    cov = s2 * np.linalg.inv(design.T @ design)[:2, :2]
-    return coef[:2], cov + np.eye(2) * 1e-12  # a perfect fit keeps an invertible covariance
+    # a perfect fit keeps an invertible covariance
+    return coef, s2 * inv + np.eye(x.shape[1]) * 1e-12
 
 
 def _rsa_separation(f_b: float, beats_per_breath: float, cv_breath: float) -> float:

@@ -4,6 +4,7 @@ Usage::
 
     python -m validation.calibration --fit [--n-train N]   # refit features/calibration_table.py
     python -m validation.calibration [--n-test N] [--quick] [--figures DIR]
+    python -m validation.calibration --fit --report         # both: refit, then the report
 
 A feature's confidence is meant as P(|reported - true| <= tolerance) (the tolerance of its
 catalogue entry). Two simulated cohorts, drawn at random from :data:`TRAIN_RANGES` and
@@ -38,6 +39,7 @@ import argparse
 import datetime
 import json
 import math
+import subprocess
 import sys
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -101,9 +103,15 @@ MODEL_INPUTS: dict[str, tuple[str, ...]] = {
     "jk_interval_ms": ("heuristic", "log_intervals", "template_correlation", "template_snr",
                        "jk_precision"),
     "rsa_ms": ("heuristic", "log_breaths", "interval_consistency", "rsa_over_jitter",
-               "coherence", "hr_agreement", "normal_fraction", "log_rsa"),
+               "coherence", "hr_agreement", "normal_fraction", "log_rsa", "rsa_precision",
+               "rsa_half_agreement", "breath_regularity", "breathing_above_lf",
+               "breath_agreement"),
 }
-"""Evidence quantities of each calibrated feature's model."""
+"""Evidence quantities of each calibrated feature's model. RSA's model adds to the family
+confidence what that one number folds together or leaves out: the cosinor fit's own
+precision, the agreement of the recording's two halves, and the quality of the breathing
+phase the fit is against (breath regularity, counted against spectral breathing rate,
+distance of breathing from the low-frequency band)."""
 
 
 # --------------------------------------------------------------------------- cohorts
@@ -591,11 +599,27 @@ def _progress(total: int) -> Callable[[int], None]:
     return show
 
 
+def _without_option(argv: list[str], names: tuple[str, ...]) -> list[str]:
+    """``argv`` without the options ``names`` and their values (``--x v`` or ``--x=v``)."""
+    out: list[str] = []
+    skip = False
+    for a in argv:
+        if skip:
+            skip = False
+        elif a in names:
+            skip = True
+        elif not a.startswith(tuple(n + "=" for n in names)):
+            out.append(a)
+    return out
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m validation.calibration",
                                      description=__doc__.split("\n")[0])
     parser.add_argument("--fit", action="store_true", help="refit the calibration table")
-    parser.add_argument("--n-train", type=int, default=1200)
+    parser.add_argument("--n-train", type=int, default=1500)
+    parser.add_argument("--report", action="store_true",
+                        help="with --fit: then run the report on the new table")
     parser.add_argument("--n-test", type=int, default=600)
     parser.add_argument("--quick", action="store_true", help="120 test cases")
     parser.add_argument("--figures", type=Path, default=Path("docs/calibration"))
@@ -606,8 +630,14 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.fit:
         table = Path(__file__).resolve().parent.parent / "features" / "calibration_table.py"
         fit = run_fit(args.n_train, table, args.cache)
-        print(json.dumps(fit, indent=1))
-        return 0
+        print(json.dumps(fit, indent=1), flush=True)
+        if not args.report:
+            return 0
+        # The table just written is read by a fresh interpreter (this one holds the old).
+        again = [a for a in (argv if argv is not None else sys.argv[1:])
+                 if a not in ("--fit", "--report")]
+        again = _without_option(again, ("--n-train", "--cache"))
+        return subprocess.call([sys.executable, "-m", "validation.calibration", *again])
     n = 120 if args.quick else args.n_test
     cases = build_cases(TEST_RANGES, n, TEST_SEED)
     samples = collect(cases, HEADLINE + ("pnn50_pct",), progress=_progress(n))

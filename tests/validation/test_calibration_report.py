@@ -100,3 +100,11 @@ def test_quick_calibration_beats_the_constant_predictor() -> None:
         constant[own] = hit[own].mean() if own.any() else 0.0
     assert brier_score(conf, hit) < brier_score(constant, hit)
     assert expected_calibration_error(conf, hit) <= 0.1
+
+
+def test_report_after_a_fit_drops_the_fit_options() -> None:
+    # `--fit --report` reruns the module for the report without the fit's own options.
+    from validation.calibration import _without_option
+
+    argv = ["--n-train", "30", "--cache=c.json", "--quick", "--figures", "d"]
+    assert _without_option(argv, ("--n-train", "--cache")) == ["--quick", "--figures", "d"]
