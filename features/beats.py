@@ -32,8 +32,7 @@ from scipy import ndimage, signal
 
 from features._checks import check_sampling_rate, check_trace, check_usable
 from features._correlate import BlockSpectra
-from features._numeric import robust_sd, vertex_offset
-from features._select import median, quantile_half
+from features._numeric import median_1d, quantile_half, robust_sd, vertex_offset
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, polyphase_fir
 from features.limits import DEFAULT_RATE_RANGE_BPM, MAX_RATE_BPM, MIN_RATE_BPM
@@ -531,7 +530,7 @@ def _settle_period(w: _Work) -> tuple[float | None, int, NDArray[np.float64],
 def _first_template(w: _Work, env: NDArray[np.float64], peaks: NDArray[np.intp]
                     ) -> tuple[float, int, NDArray[np.float64]]:
     """Step 4: coherence evidence, polarity and the envelope-aligned first template."""
-    strong = peaks[env[peaks] >= median(env[peaks])]
+    strong = peaks[env[peaks] >= median_1d(env[peaks])]
     epochs = _epochs(w.comp, strong, w.half)
     evidence = _coherence(epochs)
     mean_epoch = epochs.mean(axis=0)
@@ -606,9 +605,9 @@ def _pick(w: _Work, matcher: _Matcher, polarity: int, template: NDArray[np.float
     cand = cand[(cand >= 1) & (cand < n - 1)]
     n_candidates = int(cand.size)
     top = corr[cand][corr[cand] >= quantile_half(corr[cand])]
-    accept = float(np.clip(0.55 * median(top), 0.3, 0.5))
-    amp_ref = median(amp[cand][corr[cand] >= accept]) if np.any(
-        corr[cand] >= accept) else median(amp[cand])
+    accept = float(np.clip(0.55 * median_1d(top), 0.3, 0.5))
+    amp_ref = median_1d(amp[cand][corr[cand] >= accept]) if np.any(
+        corr[cand] >= accept) else median_1d(amp[cand])
     # A beat followed closely by the next one (fast irregular rhythm) shares the long
     # template window with it; judge it again on the core of the complex alone.
     core = (half[0] - int(round(CORE_WINDOW_S[0] * fs_w)),
@@ -653,7 +652,7 @@ def _drop_second_waves(w: _Work, comp: NDArray[np.float64], beats: NDArray[np.in
         w.flags.append("second_wave_of_each_complex_dropped")
         same = run_ids[1:] == run_ids[:-1]
         if period is not None and same.any() and \
-                period * fs_w < 0.75 * median(np.diff(beats)[same]):
+                period * fs_w < 0.75 * median_1d(np.diff(beats)[same]):
             period = 2.0 * period  # the envelope period was that of the waves
             w.flags.append("envelope_period_doubled_two_waves_per_beat")
     return beats, run_ids, period
@@ -691,7 +690,7 @@ def _to_work_rate(
         xw = x.copy()
     else:
         # scipy's own default design (``polyphase_fir``), made once per rate pair
-        xw = signal.resample_poly(x - median(x), up, down, window=polyphase_fir(up, down))
+        xw = signal.resample_poly(x - median_1d(x), up, down, window=polyphase_fir(up, down))
     fs_w = fs_hz * up / down
     return xw, fs_w, _work_mask(mask, fs_hz, fs_w, xw.size)
 
@@ -828,13 +827,13 @@ def _rhythm_evidence(times: NDArray[np.float64], run_ids: NDArray[np.int64],
     without picking beats (Brueser et al. 2011, [2]_), so a self-made template cannot
     supply it. An irregular rhythm fails here and needs the coherence statistic.
     """
-    if period is None or times.size < 10 or median(corr) < RHYTHM_SIMILARITY:
+    if period is None or times.size < 10 or median_1d(corr) < RHYTHM_SIMILARITY:
         return False
     same = run_ids[1:] == run_ids[:-1]
     iv = np.diff(times)[same]
     if iv.size < 8:
         return False
-    med = median(iv)
+    med = median_1d(iv)
     steady = float(np.mean(np.abs(np.diff(iv)) < RHYTHM_STEP * med)) if iv.size > 1 else 0.0
     return steady >= RHYTHM_CONSISTENCY and abs(med / period - 1.0) <= RHYTHM_AGREEMENT
 
@@ -882,7 +881,7 @@ def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
         return _weaker_within(picks, run_ids, amp[picks], 0.7 * period_n)
     if between > within - TWO_WAVE_SHAPE_GAP:
         return None
-    size = [median(amp[picks[ok & (cls == k)]]) for k in (0, 1)]
+    size = [median_1d(amp[picks[ok & (cls == k)]]) for k in (0, 1)]
     keep = int(size[1] > size[0])
     if size[1 - keep] < TWO_WAVE_COMPARABLE * size[keep] or \
             _pair_span(picks, run_ids) < min_period:
@@ -899,7 +898,7 @@ def _twice_a_period(picks: NDArray[np.intp], run_ids: NDArray[np.int64],
     iv = np.diff(picks)[run_ids[1:] == run_ids[:-1]].astype(float)
     if iv.size < 8:
         return False
-    med = median(iv)
+    med = median_1d(iv)
     steady = float(np.mean(np.abs(np.diff(iv)) < RHYTHM_STEP * med))
     return abs(2.0 * med / period_n - 1.0) <= RHYTHM_AGREEMENT and steady >= RHYTHM_CONSISTENCY
 
@@ -922,7 +921,7 @@ def _weaker_within(picks: NDArray[np.intp], run_ids: NDArray[np.int64],
 def _pair_span(picks: NDArray[np.intp], run_ids: NDArray[np.int64]) -> float:
     """Median span of two consecutive intervals within a run, samples (0 when none)."""
     same = run_ids[2:] == run_ids[:-2]
-    return median((picks[2:] - picks[:-2])[same]) if same.any() else 0.0
+    return median_1d((picks[2:] - picks[:-2])[same]) if same.any() else 0.0
 
 
 def _pearson(a: NDArray[np.float64], b: NDArray[np.float64]) -> float:
@@ -1087,8 +1086,8 @@ def _scored(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray[np.
     1.5); a pick is strong at 0.75 of the median score or more; the reference is the local
     median interval between strong beats (``_reference_interval``), s.
     """
-    score = corr[beats] * np.minimum(amp[beats] / median(amp[beats]), 1.5)
-    strong = score >= 0.75 * median(score)
+    score = corr[beats] * np.minimum(amp[beats] / median_1d(amp[beats]), 1.5)
+    strong = score >= 0.75 * median_1d(score)
     return score, strong, _reference_interval(beats, strong, fs)
 
 
@@ -1163,8 +1162,8 @@ def _repair_slips(beats: NDArray[np.intp], corr: NDArray[np.float64],
     """
     if beats.size < 6:
         return beats, 0
-    score = corr[beats] * np.minimum(amp[beats] / median(amp[beats]), 1.5)
-    ref = _reference_interval(beats, score >= 0.75 * median(score), fs) * fs
+    score = corr[beats] * np.minimum(amp[beats] / median_1d(amp[beats]), 1.5)
+    ref = _reference_interval(beats, score >= 0.75 * median_1d(score), fs) * fs
     out = beats
     replaced = 0
     # Picks i = 1, 2, ... in order, a replacement shifting the later ones down by one; the
@@ -1208,7 +1207,7 @@ def _reference_interval(beats: NDArray[np.intp], strong: NDArray[np.bool_],
     sb = beats[strong]
     if sb.size < 3:
         iv = np.diff(beats) / fs
-        return np.full(beats.size, median(iv) if iv.size else 1.0)
+        return np.full(beats.size, median_1d(iv) if iv.size else 1.0)
     siv = np.diff(sb) / fs
     # Consecutive strong beats may have a weak one between them: count such a
     # pair's interval only when no beat lies between (adjacent in ``beats``).

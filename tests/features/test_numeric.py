@@ -8,10 +8,12 @@ from scipy import stats
 from scipy.special import ndtri
 
 from features._numeric import (
+    BRACKET_FROM,
     MAD_TO_SD,
     SORTED_LANES_UP_TO,
     lane_median,
     median_1d,
+    quantile_half,
     robust_sd,
     runs,
     vertex_offset,
@@ -83,3 +85,43 @@ def test_median_1d_of_an_empty_array_warns_as_numpy_does() -> None:
     # numpy.median of an empty array is NaN with a RuntimeWarning ("Mean of empty slice").
     with pytest.warns(RuntimeWarning):
         assert np.isnan(median_1d(np.empty(0)))
+
+
+@pytest.mark.parametrize("n", [7, BRACKET_FROM - 1, BRACKET_FROM, BRACKET_FROM + 1, 300_000,
+                               1_000_001])
+@pytest.mark.parametrize("kind", ["normal", "sorted", "reversed", "ties", "drift",
+                                  "sample_ordered", "nan", "integers"])
+def test_long_medians_equal_numpy_median(n: int, kind: str) -> None:
+    # Reference: numpy.median. The bracketed selection takes the same order statistics, so
+    # the same number to the bit; the orderings below are the ones that could fool a
+    # bracket found on a regular sample.
+    rng = np.random.default_rng(n)
+    x = rng.standard_normal(n)
+    if kind == "sorted":
+        x.sort()
+    elif kind == "reversed":
+        x = np.sort(x)[::-1].copy()
+    elif kind == "ties":
+        x = np.round(x * 3) / 3  # a handful of distinct values, the median among ties
+    elif kind == "drift":
+        x = x + np.linspace(0, 50, n)  # a slow trend, like a baseline drift
+    elif kind == "sample_ordered":
+        # the sampled positions all hold the largest values: the bracket misses and the
+        # whole array is partitioned
+        step = n // 2000 if n >= BRACKET_FROM else 1
+        x[::step] = 1e6 + np.arange(x[::step].size)
+    elif kind == "nan":
+        x[(n * 2) // 3 + 1] = np.nan  # off the sample's positions: found by the count
+    elif kind == "integers":
+        x = rng.integers(0, 400, n)
+    got, want = median_1d(x), float(np.median(x))
+    assert got == want or (np.isnan(got) and np.isnan(want)), (got, want)
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 10, 11, 101, 1000, 1001])
+def test_middle_quantile_equals_numpy_quantile(n: int) -> None:
+    # Reference: numpy.quantile(..., 0.5), linear method; the same elements and arithmetic.
+    rng = np.random.default_rng(n + 5)
+    for _ in range(50):
+        x = rng.standard_normal(n) * 10.0 ** rng.uniform(-3, 3)
+        assert quantile_half(x) == float(np.quantile(x, 0.5))
