@@ -165,8 +165,11 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
           its frequency (0 when unknown);
         - ``coherence``: cardiorespiratory coherence (0 when not computed);
         - ``normal_fraction``: share of the beat-to-beat intervals screened as normal;
-        - ``log_sdnn``, ``log_rmssd``, ``log_rsa``: log of the value in ms (floor 1 ms; a
-          relative tolerance is easier to meet on a larger value).
+        - ``log_sdnn``, ``log_rmssd``: log of the value in ms (floor 1 ms; a relative
+          tolerance is easier to meet on a larger value);
+        - ``log_rsa``: log of RSA's fitted size in ms before the noise floor is removed,
+          sqrt(RSA^2 + 2 SE^2) (floor 1 ms): the size the absolute tolerance must cover,
+          which for an RSA debiased to 0 is that of its noise.
     """
     hr = result.heart_rate
     beats = result.beats
@@ -216,7 +219,11 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
         "normal_fraction": _num(result.interval_labels.fraction_normal),
         "log_sdnn": math.log(max(1.0, _num(td.sdnn_ms))),
         "log_rmssd": math.log(max(1.0, _num(td.rmssd_ms))),
-        "log_rsa": math.log(max(1.0, _num(result.modulation.rsa_ms))),
+        # RSA's size as fitted, before the noise floor is taken off (sqrt(rsa^2 + 2 se^2)
+        # undoes features.modulation's debiasing): a value debiased to 0 under a wide
+        # standard error is not a small RSA, only an unmeasured one.
+        "log_rsa": math.log(max(1.0, math.hypot(_num(mod.rsa_ms),
+                                                math.sqrt(2.0) * _num(mod.rsa_se_ms)))),
     }
 
 

@@ -71,8 +71,9 @@ class ModulationResult:
         Peak-to-trough respiratory sinus arrhythmia (ms): twice the amplitude of the
         intervals' sinusoid of the breathing phase, slower rhythms removed.
     rsa_se_ms, rsa_half_difference_ms
-        Standard error of ``rsa_ms`` from the fit, and the difference between the RSA of
-        the first and of the second half of the intervals (ms); evidence for the calibrated
+        Standard error of ``rsa_ms`` from the fit, and the peak-to-trough size of the
+        difference between the sinusoids fitted to the first and to the second half of the
+        intervals (ms: amplitude and phase compared); evidence for the calibrated
         confidence (:mod:`features.calibration`), not part of the API.
     amplitude_index, amplitude_confidence
         Relative peak-to-peak depth of the beat-amplitude modulation locked to the breathing
@@ -177,8 +178,10 @@ def respiratory_modulation(
        rather than the size of its jitter; ``rsa_se_ms`` = 2 sqrt((var a + var b) / 2).
        The normal equations are solved with the trend partialled out (Frisch-Waugh), no
        general least-squares solver. The same fit with one sinusoid for the intervals
-       before the middle one and another after gives the two halves' RSA and
-       ``rsa_half_difference_ms``. Needs >= 5 breaths and 20 intervals.
+       before the middle one and another after gives ``rsa_half_difference_ms``, twice the
+       length of the difference of the halves' (a, b): compared before any debiasing, so
+       that two halves both lost in noise differ by their noise instead of agreeing at 0.
+       Needs >= 5 breaths and 20 intervals.
        This departs from the peak-valley method of Grossman et al. 1990 (longest minus
        shortest interval per breath), which also collects beat-to-beat jitter, slower
        rhythms and detection noise and reads 30-40 ms on series without any RSA; for a
@@ -421,8 +424,8 @@ def _segment_ptp(x: NDArray[np.float64], a: NDArray[np.int64], b: NDArray[np.int
 
 @dataclass(frozen=True)
 class _RsaEstimate:
-    """RSA (ms), its standard error (ms), the difference between the two halves' RSA (ms),
-    confidence and flags; the numbers None when not computed."""
+    """RSA (ms), its standard error (ms), the size of the difference between the two
+    halves' sinusoids (ms), confidence and flags; the numbers None when not computed."""
 
     rsa_ms: float | None
     se_ms: float | None
@@ -446,7 +449,8 @@ def _rsa(
     var b)) (the noise floor of a fitted amplitude removed); its standard error sets the
     confidence with the separation factors of :func:`_rsa_separation`. The same fit with
     one sinusoid for the intervals before the middle beat and one after gives the two
-    halves' RSA, whose difference tells a modulation that holds from one that does not.
+    halves' sinusoids, whose difference tells a modulation that holds from one that does
+    not.
     """
     phi, inside = _phase(t, starts, ends)
     t, iv, phi = t[inside], iv[inside], phi[inside]
@@ -459,12 +463,16 @@ def _rsa(
                         for seg in _segments(t)) if f is not None]
     if not fits:
         return _RsaEstimate(None, None, None, 0.0, ("rsa_fit_underdetermined",))
-    whole = _pool([(v[:2], c[:2, :2]) for v, c in fits])
+    ab, cov = _pool([(v[:2], c[:2, :2]) for v, c in fits])
+    floor = float(cov[0, 0] + cov[1, 1])
+    rsa = 2.0 * math.sqrt(max(0.0, float(ab @ ab) - floor))
+    se = 2.0 * math.sqrt(0.5 * floor)
     halves = [_pool([(v[k:k + 2], c[k:k + 2, k:k + 2]) for v, c in fits
                      if np.isfinite(c[k, k])]) for k in (2, 4)]
-    rsa, se = whole
-    half_diff = (abs(halves[0][0] - halves[1][0])
-                 if np.isfinite(halves[0][1]) and np.isfinite(halves[1][1]) else None)
+    # The halves compared as fitted sinusoids (amplitude and phase), not as debiased
+    # amplitudes: two halves both lost in noise would both read 0 and agree perfectly.
+    half_diff = (2.0 * float(np.hypot(*(halves[0][0] - halves[1][0])))
+                 if all(np.isfinite(h[1]).all() for h in halves) else None)
     beats_per_breath = iv.size / k_breath.size
     f_b = 1.0 / float(np.median(ends - starts))
     cv_breath = float(np.std(ends - starts) / np.mean(ends - starts))
@@ -475,17 +483,15 @@ def _rsa(
     return _RsaEstimate(rsa, se, half_diff, float(conf), flags)
 
 
-def _pool(fits: list[tuple[NDArray[np.float64], NDArray[np.float64]]]) -> tuple[float, float]:
-    """Peak-to-trough (debiased) and its standard error from (a, b) fits pooled by inverse
-    variance; (nan, nan) without a fit."""
+def _pool(fits: list[tuple[NDArray[np.float64], NDArray[np.float64]]]
+          ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """(a, b) and its 2 x 2 covariance from fits pooled by inverse variance; NaN without a
+    fit."""
     if not fits:
-        return math.nan, math.nan
+        return np.full(2, np.nan), np.full((2, 2), np.nan)
     info = sum(np.linalg.inv(c) for _, c in fits)
     cov = np.linalg.inv(info)
-    ab = cov @ sum(np.linalg.inv(c) @ v for v, c in fits)
-    floor = float(cov[0, 0] + cov[1, 1])
-    return (2.0 * float(np.sqrt(max(0.0, float(ab @ ab) - floor))),
-            2.0 * float(np.sqrt(0.5 * floor)))
+    return cov @ sum(np.linalg.inv(c) @ v for v, c in fits), cov
 
 
 def _cosinor_segment(

@@ -5,6 +5,7 @@ Usage::
     python -m validation.calibration --fit [--n-train N]   # refit features/calibration_table.py
     python -m validation.calibration [--n-test N] [--quick] [--figures DIR]
     python -m validation.calibration --fit --report         # both: refit, then the report
+    (any of them with --jobs N: N worker processes, one per CPU by default)
 
 A feature's confidence is meant as P(|reported - true| <= tolerance) (the tolerance of its
 catalogue entry). Two simulated cohorts, drawn at random from :data:`TRAIN_RANGES` and
@@ -39,9 +40,11 @@ import argparse
 import datetime
 import json
 import math
+import os
 import subprocess
 import sys
 from collections.abc import Callable, Sequence
+from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -267,26 +270,49 @@ def _analyse(case: Case) -> tuple[SimulatedRecording, AnalysisResult | None]:
         return rec, None
 
 
-def collect(cases: Sequence[Case], features: Sequence[str], *,
-            progress: Callable[[int], None] | None = None) -> list[Sample]:
-    """Analyse every case and return one :class:`Sample` per reported value."""
+def _case_samples(i: int, case: Case, features: Sequence[str]) -> list[Sample]:
+    """The samples of case ``i``: one per reported feature with a truth and a non-zero
+    family confidence."""
+    rec, result = _analyse(case)
+    if result is None:
+        return []
     samples = []
-    for i, case in enumerate(cases):
-        rec, result = _analyse(case)
+    for name in features:
+        fv = result.feature_vector.get(name)
+        truth = _truth(name, rec.truth, case.settings, case.sensor)
+        if fv.value is None or truth is None:
+            continue
+        h = family_confidence(feature_definition(name), result)
+        if h <= 0.0:
+            continue  # confidence 0 by rule; nothing to calibrate
+        samples.append(Sample(name, i, evidence(result, h), h, fv.confidence,
+                              within_tolerance(name, fv.value, truth)))
+    return samples
+
+
+def collect(cases: Sequence[Case], features: Sequence[str], *,
+            progress: Callable[[int], None] | None = None, jobs: int = 1) -> list[Sample]:
+    """Analyse every case and return one :class:`Sample` per reported value, in case order.
+
+    ``jobs`` > 1 analyses the cases in that many worker processes; every case is simulated
+    from its own seed, so the samples are the same as with one.
+    """
+    def show(i: int) -> None:
         if progress is not None:
             progress(i)
-        if result is None:
-            continue
-        for name in features:
-            fv = result.feature_vector.get(name)
-            truth = _truth(name, rec.truth, case.settings, case.sensor)
-            if fv.value is None or truth is None:
-                continue
-            h = family_confidence(feature_definition(name), result)
-            if h <= 0.0:
-                continue  # confidence 0 by rule; nothing to calibrate
-            samples.append(Sample(name, i, evidence(result, h), h, fv.confidence,
-                                  within_tolerance(name, fv.value, truth)))
+
+    samples: list[Sample] = []
+    if jobs <= 1:
+        for i, case in enumerate(cases):
+            samples += _case_samples(i, case, features)
+            show(i)
+        return samples
+    with ProcessPoolExecutor(max_workers=jobs) as pool:
+        parts = pool.map(_case_samples, range(len(cases)), cases,
+                         [tuple(features)] * len(cases), chunksize=4)
+        for i, part in enumerate(parts):
+            samples += part
+            show(i)
     return samples
 
 
@@ -409,8 +435,8 @@ def _write_table(models: dict[str, tuple[tuple[str, ...], np.ndarray, float, int
     path.write_text("\n".join(lines), encoding="utf-8")
 
 
-def _cached_collect(cases: Sequence[Case], features: Sequence[str], cache: Path | None
-                    ) -> list[Sample]:
+def _cached_collect(cases: Sequence[Case], features: Sequence[str], cache: Path | None,
+                    jobs: int = 1) -> list[Sample]:
     """:func:`collect`, kept in ``cache`` (JSON) for reruns with the same cases and evidence."""
     key = {"seeds": [c.settings.seed for c in cases], "features": list(features),
            "evidence": list(EVIDENCE_NAMES)}
@@ -418,17 +444,18 @@ def _cached_collect(cases: Sequence[Case], features: Sequence[str], cache: Path 
         data = json.loads(cache.read_text(encoding="utf-8"))
         if data["key"] == key:
             return [Sample(**row) for row in data["samples"]]
-    samples = collect(cases, features, progress=_progress(len(cases)))
+    samples = collect(cases, features, progress=_progress(len(cases)), jobs=jobs)
     if cache is not None:
         cache.write_text(json.dumps({"key": key, "samples": [vars(s) for s in samples]}),
                          encoding="utf-8")
     return samples
 
 
-def run_fit(n_train: int, table: Path, cache: Path | None = None) -> dict[str, object]:
+def run_fit(n_train: int, table: Path, cache: Path | None = None, jobs: int = 1
+            ) -> dict[str, object]:
     """Collect the training cohort, fit every model and write ``table``."""
     cases = build_cases(TRAIN_RANGES, n_train, TRAIN_SEED)
-    samples = _cached_collect(cases, tuple(MODEL_INPUTS), cache)
+    samples = _cached_collect(cases, tuple(MODEL_INPUTS), cache, jobs)
     models = {}
     for name, inputs in MODEL_INPUTS.items():
         own = [s for s in samples if s.feature == name]
@@ -624,12 +651,14 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--quick", action="store_true", help="120 test cases")
     parser.add_argument("--figures", type=Path, default=Path("docs/calibration"))
     parser.add_argument("--json", type=Path, default=None)
+    parser.add_argument("--jobs", type=int, default=os.cpu_count() or 1,
+                        help="worker processes for the analyses (default: one per CPU)")
     parser.add_argument("--cache", type=Path, default=None,
                         help="keep the training samples here (JSON) and reuse them")
     args = parser.parse_args(argv)
     if args.fit:
         table = Path(__file__).resolve().parent.parent / "features" / "calibration_table.py"
-        fit = run_fit(args.n_train, table, args.cache)
+        fit = run_fit(args.n_train, table, args.cache, args.jobs)
         print(json.dumps(fit, indent=1), flush=True)
         if not args.report:
             return 0
@@ -640,7 +669,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         return subprocess.call([sys.executable, "-m", "validation.calibration", *again])
     n = 120 if args.quick else args.n_test
     cases = build_cases(TEST_RANGES, n, TEST_SEED)
-    samples = collect(cases, HEADLINE + ("pnn50_pct",), progress=_progress(n))
+    samples = collect(cases, HEADLINE + ("pnn50_pct",), progress=_progress(n), jobs=args.jobs)
     rows = report(samples, HEADLINE + ("pnn50_pct",), None if args.quick else args.figures)
     print(format_rows(rows))
     n_empty, worst = empty_check(20, TEST_SEED + 50_000)

@@ -149,6 +149,30 @@ def test_rsa_halves_disagree_when_the_modulation_changes():
     assert steady.rsa_half_difference_ms == pytest.approx(0.0, abs=1e-6)  # rounding
 
 
+def test_rsa_halves_lost_in_noise_do_not_agree_at_zero():
+    # No RSA and 20 ms of beat-to-beat noise: both halves' debiased RSA is often 0, and a
+    # difference of those would say "the halves agree exactly". The halves' sinusoids
+    # differ by their noise instead. Each half's a and b have variance about
+    # sigma^2 / (m / 2) (m intervals, sum of cos^2 about m / 2: ordinary least squares),
+    # so each coefficient of the difference has variance 4 sigma^2 / m, and
+    # 2 |ab_early - ab_late| has RMS 2 sqrt(8 / m) sigma (about 8.8 ms here, m = 165) and
+    # median 0.83 x that (a Rayleigh length: sqrt(ln 4 / 2)).
+    beats = np.arange(0.37, 298.0, 0.9)
+    m = beats.size // 2
+    diffs = []
+    for seed in range(40):
+        noise = 20.0 * np.random.default_rng(seed).standard_normal(beats.size)
+        r = respiratory_modulation(sine_breathing(300), FS, beat_times_s=beats,
+                                   breath_times_s=np.arange(0.0, 300.0, 4.0),
+                                   interval_ms=900.0 + noise)
+        diffs.append(r.rsa_half_difference_ms)
+    expected = np.sqrt(np.log(4.0) / 2.0) * 2.0 * np.sqrt(8.0 / m) * 20.0
+    # 40 draws: the sample median's spread is about 0.12 x its value (asymptotic variance
+    # of a median, 1 / (4 n f^2), for this Rayleigh), and the trend takes a few degrees of
+    # freedom of each half: a band of +/-35 %
+    assert 0.65 * expected < np.median(diffs) < 1.35 * expected, (np.median(diffs), expected)
+
+
 def test_closed_form_cosinor_matches_scipy_least_squares():
     # The normal equations with the trend partialled out (Frisch-Waugh) give the same
     # coefficients and covariance s^2 (X'X)^-1 as a full least-squares solve

@@ -108,3 +108,11 @@ def test_report_after_a_fit_drops_the_fit_options() -> None:
 
     argv = ["--n-train", "30", "--cache=c.json", "--quick", "--figures", "d"]
     assert _without_option(argv, ("--n-train", "--cache")) == ["--quick", "--figures", "d"]
+
+
+def test_collection_in_worker_processes_gives_the_same_samples() -> None:
+    # Every case is simulated from its own seed: two worker processes must return the very
+    # samples (evidence, confidences, hits) one process does, in the same order.
+    cases = build_cases(TEST_RANGES, 6, TEST_SEED + 78_000)
+    one = collect(cases, HEADLINE)
+    assert one and collect(cases, HEADLINE, jobs=2) == one
