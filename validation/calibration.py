@@ -644,7 +644,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m validation.calibration",
                                      description=__doc__.split("\n")[0])
     parser.add_argument("--fit", action="store_true", help="refit the calibration table")
-    parser.add_argument("--n-train", type=int, default=1500)
+    parser.add_argument("--n-train", type=int, default=4000)
     parser.add_argument("--report", action="store_true",
                         help="with --fit: then run the report on the new table")
     parser.add_argument("--n-test", type=int, default=600)

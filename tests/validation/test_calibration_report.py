@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from features.calibration_table import FIT
 from validation.calibration import (
     HEADLINE,
     N_BINS,
@@ -73,7 +74,7 @@ def test_fit_logistic_recovers_known_coefficients() -> None:
 
 
 def test_train_and_test_cohorts_do_not_share_seeds_or_ranges() -> None:
-    train = build_cases(TRAIN_RANGES, 1500, TRAIN_SEED)
+    train = build_cases(TRAIN_RANGES, int(FIT["train_cases"]), TRAIN_SEED)  # the table's own
     test = build_cases(TEST_RANGES, 600, TEST_SEED)
     assert not {c.settings.seed for c in train} & {c.settings.seed for c in test}
     assert {c.settings.duration_s for c in test}.isdisjoint(TRAIN_RANGES.duration_s)
