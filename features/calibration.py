@@ -72,6 +72,7 @@ EVIDENCE_NAMES = (
     "rsa_over_jitter",
     "rsa_precision",
     "rsa_half_agreement",
+    "rsa_half_consistency",
     "breathing_above_lf",
     "coherence",
     "normal_fraction",
@@ -81,6 +82,9 @@ EVIDENCE_NAMES = (
 )
 """Evidence quantities, each finite (see :func:`evidence` for their definitions); larger is
 better evidence for all but :data:`SIGNED_EVIDENCE`."""
+
+HALF_WALD_CAP = 20.0
+"""Floor of ``rsa_half_consistency`` (p = e^-20): beyond it the halves plainly differ."""
 
 SIGNED_EVIDENCE = frozenset({"log_rsa"})
 """Evidence whose direction is not known in advance (the size of the value itself); the fit
@@ -156,9 +160,15 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
           error (floor 0.1 ms; 0 when unknown);
         - ``rsa_precision``: log of 10 ms (RSA's tolerance) over RSA's standard error from
           the cosinor fit (floor 0.1 ms; 0 when unknown);
-        - ``rsa_half_agreement``: log of 10 ms over the difference between the RSA of the
-          first and of the second half of the intervals (floor 0.1 ms; 0 when unknown): a
-          modulation that holds through the recording against one that does not;
+        - ``rsa_half_agreement``: log of 10 ms over the size of the difference between the
+          sinusoids fitted to the first and to the second half of the intervals (floor
+          0.1 ms; 0 when unknown): a modulation that holds through the recording against
+          one that does not;
+        - ``rsa_half_consistency``: log of the p-value of the halves' Wald test (chi-square,
+          2 degrees of freedom: log p = -W / 2, floor -``HALF_WALD_CAP``; 0 when unknown):
+          the halves' difference against their own noise, which the difference in ms alone
+          cannot tell (29 ms apart is noise for halves with a 20-ms error, and a broken
+          breathing phase for halves with a 3-ms one);
         - ``breathing_above_lf``: (breathing frequency - 0.04 Hz) / (0.15 Hz - 0.04 Hz)
           clipped to [0, 1] (``features.modulation.LF_BAND_HZ``, Task Force 1996): how far
           breathing stands above the low-frequency band, where the baroreflex rhythm shares
@@ -213,6 +223,8 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
         "rsa_over_jitter": _log_ratio(result.modulation.rsa_ms, jitter, 1.0),
         "rsa_precision": precision(mod.rsa_se_ms),
         "rsa_half_agreement": precision(mod.rsa_half_difference_ms),
+        "rsa_half_consistency": (0.0 if mod.rsa_half_wald is None
+                                 else -min(HALF_WALD_CAP, 0.5 * mod.rsa_half_wald)),
         "breathing_above_lf": min(1.0, max(0.0, (_num(mod.breathing_frequency_hz) - lf_lo)
                                                 / (lf_hi - lf_lo))),
         "coherence": _num(result.modulation.coherence),

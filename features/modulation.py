@@ -70,10 +70,12 @@ class ModulationResult:
     rsa_ms, rsa_confidence
         Peak-to-trough respiratory sinus arrhythmia (ms): twice the amplitude of the
         intervals' sinusoid of the breathing phase, slower rhythms removed.
-    rsa_se_ms, rsa_half_difference_ms
-        Standard error of ``rsa_ms`` from the fit, and the peak-to-trough size of the
+    rsa_se_ms, rsa_half_difference_ms, rsa_half_wald
+        Standard error of ``rsa_ms`` from the fit, the peak-to-trough size of the
         difference between the sinusoids fitted to the first and to the second half of the
-        intervals (ms: amplitude and phase compared); evidence for the calibrated
+        intervals (ms: amplitude and phase compared), and that difference over its noise
+        (Wald statistic, chi-square with 2 degrees of freedom for a steady modulation);
+        evidence for the calibrated
         confidence (:mod:`features.calibration`), not part of the API.
     amplitude_index, amplitude_confidence
         Relative peak-to-peak depth of the beat-amplitude modulation locked to the breathing
@@ -96,6 +98,7 @@ class ModulationResult:
     rsa_confidence: float = 0.0
     rsa_se_ms: float | None = None
     rsa_half_difference_ms: float | None = None
+    rsa_half_wald: float | None = None
     amplitude_index: float | None = None
     amplitude_confidence: float = 0.0
     timing_modulation_pct: float | None = None
@@ -288,6 +291,7 @@ def respiratory_modulation(
         rsa_confidence=rsa.confidence,
         rsa_se_ms=rsa.se_ms,
         rsa_half_difference_ms=rsa.half_difference_ms,
+        rsa_half_wald=rsa.half_wald,
         amplitude_index=amp_index,
         amplitude_confidence=c_amp,
         timing_modulation_pct=timing,
@@ -425,11 +429,13 @@ def _segment_ptp(x: NDArray[np.float64], a: NDArray[np.int64], b: NDArray[np.int
 @dataclass(frozen=True)
 class _RsaEstimate:
     """RSA (ms), its standard error (ms), the size of the difference between the two
-    halves' sinusoids (ms), confidence and flags; the numbers None when not computed."""
+    halves' sinusoids (ms) and its Wald statistic, confidence and flags; the numbers None
+    when not computed."""
 
     rsa_ms: float | None
     se_ms: float | None
     half_difference_ms: float | None
+    half_wald: float | None
     confidence: float
     flags: tuple[str, ...]
 
@@ -456,13 +462,13 @@ def _rsa(
     t, iv, phi = t[inside], iv[inside], phi[inside]
     k_breath = np.unique(np.searchsorted(starts, t, side="right") - 1)
     if k_breath.size < MIN_BREATHS or iv.size < MIN_BEATS:
-        return _RsaEstimate(None, None, None, 0.0, ("too_few_breaths_for_rsa",))
+        return _RsaEstimate(None, None, None, None, 0.0, ("too_few_breaths_for_rsa",))
     knot_s = RSA_TREND_KNOT_CYCLES * float(np.median(ends - starts))
     late = np.arange(iv.size) >= iv.size // 2
     fits = [f for f in (_cosinor_segment(t[seg], iv[seg], phi[seg], knot_s, late[seg])
                         for seg in _segments(t)) if f is not None]
     if not fits:
-        return _RsaEstimate(None, None, None, 0.0, ("rsa_fit_underdetermined",))
+        return _RsaEstimate(None, None, None, None, 0.0, ("rsa_fit_underdetermined",))
     ab, cov = _pool([(v[:2], c[:2, :2]) for v, c in fits])
     floor = float(cov[0, 0] + cov[1, 1])
     rsa = 2.0 * math.sqrt(max(0.0, float(ab @ ab) - floor))
@@ -471,8 +477,14 @@ def _rsa(
                      if np.isfinite(c[k, k])]) for k in (2, 4)]
     # The halves compared as fitted sinusoids (amplitude and phase), not as debiased
     # amplitudes: two halves both lost in noise would both read 0 and agree perfectly.
-    half_diff = (2.0 * float(np.hypot(*(halves[0][0] - halves[1][0])))
-                 if all(np.isfinite(h[1]).all() for h in halves) else None)
+    half_diff = half_wald = None
+    if all(np.isfinite(h[1]).all() for h in halves):
+        delta = halves[0][0] - halves[1][0]
+        half_diff = 2.0 * float(np.hypot(*delta))
+        # Wald statistic of "both halves have the same sinusoid": chi-square with 2 degrees
+        # of freedom when they do (the halves are disjoint intervals; the covariance their
+        # shared trend adds between them is left out).
+        half_wald = float(delta @ np.linalg.solve(halves[0][1] + halves[1][1], delta))
     beats_per_breath = iv.size / k_breath.size
     f_b = 1.0 / float(np.median(ends - starts))
     cv_breath = float(np.std(ends - starts) / np.mean(ends - starts))
@@ -480,7 +492,7 @@ def _rsa(
     ceiling = min(1.0, k_breath.size / 20.0)
     conf = ceiling * within * _rsa_separation(f_b, beats_per_breath, cv_breath)
     flags = () if conf >= 0.5 * ceiling else ("rsa_not_separable_from_other_rhythms",)
-    return _RsaEstimate(rsa, se, half_diff, float(conf), flags)
+    return _RsaEstimate(rsa, se, half_diff, half_wald, float(conf), flags)
 
 
 def _pool(fits: list[tuple[NDArray[np.float64], NDArray[np.float64]]]

@@ -107,8 +107,8 @@ MODEL_INPUTS: dict[str, tuple[str, ...]] = {
                        "jk_precision"),
     "rsa_ms": ("heuristic", "log_breaths", "interval_consistency", "rsa_over_jitter",
                "coherence", "hr_agreement", "normal_fraction", "log_rsa", "rsa_precision",
-               "rsa_half_agreement", "breath_regularity", "breathing_above_lf",
-               "breath_agreement"),
+               "rsa_half_agreement", "rsa_half_consistency", "breath_regularity",
+               "breathing_above_lf", "breath_agreement"),
 }
 """Evidence quantities of each calibrated feature's model. RSA's model adds to the family
 confidence what that one number folds together or leaves out: the cosinor fit's own
@@ -135,6 +135,9 @@ class Ranges:
     movement_max: int
     ectopic_max: float
     sensors: tuple[str | None, ...]
+    respiration_force_n: tuple[float, float] = (1.5, 1.5)
+    """Breathing force on the support (N), drawn log-uniformly: shallow to heavy breathing,
+    whose swing can dwarf the heartbeat (the simulator's default is 1.5 N)."""
 
 
 TRAIN_RANGES = Ranges(
@@ -143,6 +146,7 @@ TRAIN_RANGES = Ranges(
     fs_hz=(100.0, 250.0, 500.0), supports=("cushion", "firm", "rigid", "ringing"),
     body_mass_kg=(50.0, 120.0), lf_variability=(0.0, 0.06), movement_max=3,
     ectopic_max=0.08, sensors=(None, None, None, None, "uncalibrated", "ac_coupled"),
+    respiration_force_n=(0.5, 8.0),
 )
 TEST_RANGES = Ranges(
     heart_rate_bpm=(42.0, 115.0), breathing_rate_per_min=(6.0, 24.0),
@@ -150,6 +154,7 @@ TEST_RANGES = Ranges(
     fs_hz=(125.0, 200.0, 400.0), supports=("cushion", "firm", "rigid", "ringing"),
     body_mass_kg=(45.0, 140.0), lf_variability=(0.0, 0.08), movement_max=4,
     ectopic_max=0.1, sensors=(None, None, None, None, "uncalibrated", "ac_coupled", "one_corner"),
+    respiration_force_n=(0.4, 12.0),
 )
 """Test ranges: wider than training on every axis, other durations and sampling rates."""
 
@@ -182,6 +187,7 @@ def build_cases(ranges: Ranges, n: int, seed: int) -> tuple[Case, ...]:
             movement_count=int(rng.integers(ranges.movement_max + 1)),
             ectopic_fraction=float(rng.uniform(0.0, ranges.ectopic_max)) * (rng.random() < 0.5),
             irregular_rhythm=bool(rng.random() < 0.08),
+            respiration_force_n=float(np.exp(rng.uniform(*np.log(ranges.respiration_force_n)))),
             n_channels=n_channels,
             seed=seed + i,
         )
@@ -647,7 +653,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--n-train", type=int, default=4000)
     parser.add_argument("--report", action="store_true",
                         help="with --fit: then run the report on the new table")
-    parser.add_argument("--n-test", type=int, default=600)
+    parser.add_argument("--n-test", type=int, default=1500)
     parser.add_argument("--quick", action="store_true", help="120 test cases")
     parser.add_argument("--figures", type=Path, default=Path("docs/calibration"))
     parser.add_argument("--json", type=Path, default=None)

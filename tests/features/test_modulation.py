@@ -413,3 +413,28 @@ def test_segment_peak_to_peak_equals_numpy_ptp() -> None:
     # reference library: numpy.ptp of each slice
     ref = np.array([np.ptp(x[i:j]) for i, j in zip(a, b, strict=True)])
     np.testing.assert_array_equal(_segment_ptp(x, a, b), ref)
+
+
+def test_rsa_halves_wald_statistic_is_chi_square_when_steady():
+    # A steady 50 ms RSA with 20 ms of beat-to-beat noise: the halves' Wald statistic is
+    # chi-square with 2 degrees of freedom (mean 2; Wald 1943, any regression text), so over
+    # 60 noise draws its mean is 2 within the sampling spread of a mean of 60 chi-square(2)
+    # values (SD 2 / sqrt(60) = 0.26; a band of about 2.5 of them, and the trend taking a
+    # few degrees of freedom of each half). The same series whose depth drops from 80 to
+    # 20 ms at the middle gives a statistic far beyond any chi-square(2) quantile.
+    beats = np.arange(0.37, 298.0, 0.9)
+    phase = 2 * np.pi * (beats % 4.0) / 4.0
+    kw = dict(beat_times_s=beats, breath_times_s=np.arange(0.0, 300.0, 4.0))
+    wald = []
+    for seed in range(60):
+        noise = 20.0 * np.random.default_rng(seed).standard_normal(beats.size)
+        r = respiratory_modulation(sine_breathing(300), FS,
+                                   interval_ms=900.0 + 25.0 * np.cos(phase) + noise, **kw)
+        wald.append(r.rsa_half_wald)
+    assert 1.35 < np.mean(wald) < 2.65, np.mean(wald)
+    depth = np.where(beats < 150.0, 40.0, 10.0)
+    noise = 5.0 * np.random.default_rng(99).standard_normal(beats.size)
+    changed = respiratory_modulation(sine_breathing(300), FS,
+                                     interval_ms=900.0 + depth * np.cos(phase) + noise, **kw)
+    # chi-square(2) exceeds 2 ln(1e6) = 27.6 with probability 1e-6
+    assert changed.rsa_half_wald > 2.0 * np.log(1e6)
