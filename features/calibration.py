@@ -79,6 +79,8 @@ EVIDENCE_NAMES = (
     "log_sdnn",
     "log_rmssd",
     "log_rsa",
+    "log_rmssd_sq",
+    "rmssd_over_sdnn",
 )
 """Evidence quantities, each finite (see :func:`evidence` for their definitions); larger is
 better evidence for all but :data:`SIGNED_EVIDENCE`."""
@@ -86,9 +88,9 @@ better evidence for all but :data:`SIGNED_EVIDENCE`."""
 HALF_WALD_CAP = 20.0
 """Floor of ``rsa_half_consistency`` (p = e^-20): beyond it the halves plainly differ."""
 
-SIGNED_EVIDENCE = frozenset({"log_rsa"})
-"""Evidence whose direction is not known in advance (the size of the value itself); the fit
-lets its coefficient take either sign."""
+SIGNED_EVIDENCE = frozenset({"log_rsa", "log_rmssd_sq", "rmssd_over_sdnn"})
+"""Evidence whose direction is not known in advance (the size of the value itself, and
+RMSSD's shape terms); the fit lets its coefficient take either sign."""
 
 
 def logistic(z: float) -> float:
@@ -177,6 +179,13 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
         - ``normal_fraction``: share of the beat-to-beat intervals screened as normal;
         - ``log_sdnn``, ``log_rmssd``: log of the value in ms (floor 1 ms; a relative
           tolerance is easier to meet on a larger value);
+        - ``log_rmssd_sq``: the square of ``log_rmssd``, so that the size can help up to a
+          point and hurt beyond it (a relative tolerance is easier on a larger RMSSD, but
+          an implausibly large one is mostly beats added or lost);
+        - ``rmssd_over_sdnn``: log(RMSSD / SDNN) (each floored at 1 ms): near log sqrt(2)
+          for intervals that change at random from beat to beat, far below it for a
+          rhythm that changes smoothly (breathing, slower rhythms), so a high value points
+          at beat-to-beat timing noise;
         - ``log_rsa``: log of RSA's fitted size in ms before the noise floor is removed,
           sqrt(RSA^2 + 2 SE^2) (floor 1 ms): the size the absolute tolerance must cover,
           which for an RSA debiased to 0 is that of its noise.
@@ -236,6 +245,9 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
         # standard error is not a small RSA, only an unmeasured one.
         "log_rsa": math.log(max(1.0, math.hypot(_num(mod.rsa_ms),
                                                 math.sqrt(2.0) * _num(mod.rsa_se_ms)))),
+        "log_rmssd_sq": math.log(max(1.0, _num(td.rmssd_ms))) ** 2,
+        "rmssd_over_sdnn": (math.log(max(1.0, _num(td.rmssd_ms)))
+                            - math.log(max(1.0, _num(td.sdnn_ms)))),
     }
 
 
