@@ -210,6 +210,8 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
         return 0.0 if se is None else _log_ratio(10.0, se, 0.1)
 
     cv = resp.interval_cv_pct
+    log_sdnn = math.log(max(1.0, _num(td.sdnn_ms)))
+    log_rmssd = math.log(max(1.0, _num(td.rmssd_ms)))
     mod = result.modulation
     lf_lo, lf_hi = LF_BAND_HZ
     return {
@@ -238,16 +240,15 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
                                                 / (lf_hi - lf_lo))),
         "coherence": _num(result.modulation.coherence),
         "normal_fraction": _num(result.interval_labels.fraction_normal),
-        "log_sdnn": math.log(max(1.0, _num(td.sdnn_ms))),
-        "log_rmssd": math.log(max(1.0, _num(td.rmssd_ms))),
+        "log_sdnn": log_sdnn,
+        "log_rmssd": log_rmssd,
         # RSA's size as fitted, before the noise floor is taken off (sqrt(rsa^2 + 2 se^2)
         # undoes features.modulation's debiasing): a value debiased to 0 under a wide
         # standard error is not a small RSA, only an unmeasured one.
         "log_rsa": math.log(max(1.0, math.hypot(_num(mod.rsa_ms),
                                                 math.sqrt(2.0) * _num(mod.rsa_se_ms)))),
-        "log_rmssd_sq": math.log(max(1.0, _num(td.rmssd_ms))) ** 2,
-        "rmssd_over_sdnn": (math.log(max(1.0, _num(td.rmssd_ms)))
-                            - math.log(max(1.0, _num(td.sdnn_ms)))),
+        "log_rmssd_sq": log_rmssd ** 2,
+        "rmssd_over_sdnn": log_rmssd - log_sdnn,
     }
 
 
