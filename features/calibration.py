@@ -231,14 +231,14 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
         "rmssd_over_jitter": _log_ratio(td.rmssd_ms, jitter, 1.0),
         "ij_precision": precision(mor.ij_interval_se_ms),
         "jk_precision": precision(mor.jk_interval_se_ms),
-        "rsa_over_jitter": _log_ratio(result.modulation.rsa_ms, jitter, 1.0),
+        "rsa_over_jitter": _log_ratio(mod.rsa_ms, jitter, 1.0),
         "rsa_precision": precision(mod.rsa_se_ms),
         "rsa_half_agreement": precision(mod.rsa_half_difference_ms),
         "rsa_half_consistency": (0.0 if mod.rsa_half_wald is None
                                  else -min(HALF_WALD_CAP, 0.5 * mod.rsa_half_wald)),
         "breathing_above_lf": min(1.0, max(0.0, (_num(mod.breathing_frequency_hz) - lf_lo)
                                                 / (lf_hi - lf_lo))),
-        "coherence": _num(result.modulation.coherence),
+        "coherence": _num(mod.coherence),
         "normal_fraction": _num(result.interval_labels.fraction_normal),
         "log_sdnn": log_sdnn,
         "log_rmssd": log_rmssd,

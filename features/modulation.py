@@ -75,8 +75,8 @@ class ModulationResult:
         difference between the sinusoids fitted to the first and to the second half of the
         intervals (ms: amplitude and phase compared), and that difference over its noise
         (Wald statistic, chi-square with 2 degrees of freedom for a steady modulation);
-        evidence for the calibrated
-        confidence (:mod:`features.calibration`), not part of the API.
+        evidence for the calibrated confidence (:mod:`features.calibration`), not part of
+        the API.
     amplitude_index, amplitude_confidence
         Relative peak-to-peak depth of the beat-amplitude modulation locked to the breathing
         cycle (dimensionless; 0.1 means amplitudes swing +/-5 % about the mean).
