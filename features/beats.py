@@ -32,7 +32,7 @@ from scipy import ndimage, signal
 
 from features._checks import check_sampling_rate, check_trace, check_usable
 from features._correlate import BlockSpectra
-from features._numeric import median_1d, quantile_half, robust_sd, vertex_offset
+from features._numeric import lane_median, median_1d, quantile_half, robust_sd, vertex_offset
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, polyphase_fir
 from features.limits import DEFAULT_RATE_RANGE_BPM, MAX_RATE_BPM, MIN_RATE_BPM
@@ -557,8 +557,8 @@ def _refine_template(w: _Work, matcher: _Matcher, polarity: int,
             if cand.size < 4:
                 return None
             best = cand[corr[cand] >= quantile_half(corr[cand])]
-            template = _recentre(np.median(_epochs(signed, best, half), axis=0), half[0],
-                                 reach_j)
+            # numpy.median over the epochs, from one sort of each template sample's lane
+            template = _recentre(lane_median(_lanes(signed, best, half)), half[0], reach_j)
         # The aligned template is sharper than the envelope-aligned mean:
         # check the polarity on it once, and start again flipped if needed.
         if attempt == 0 and _polarity(template, half[0], reach_j) < 0:
@@ -699,9 +699,10 @@ def _work_mask(mask: NDArray[np.bool_], fs_hz: float, fs_w: float, n_w: int
                ) -> NDArray[np.bool_]:
     """A working sample is usable only where every input sample near it is."""
     bad = ~mask
-    if bad.any():
-        spread = max(1, int(np.ceil(fs_hz / fs_w)))
-        bad = ndimage.binary_dilation(bad, iterations=spread)
+    if not bad.any():
+        return np.ones(n_w, dtype=bool)
+    spread = max(1, int(np.ceil(fs_hz / fs_w)))
+    bad = ndimage.binary_dilation(bad, iterations=spread)
     idx = np.minimum(np.round(np.arange(n_w) * fs_hz / fs_w).astype(np.int64), mask.size - 1)
     out: NDArray[np.bool_] = ~bad[idx]
     return out
@@ -793,6 +794,14 @@ def _epochs(comp: NDArray[np.float64], centres: NDArray[np.intp], half: tuple[in
     offs = np.arange(-half[0], half[1] + 1)
     idx = centres[:, None] + offs[None, :]
     out: NDArray[np.float64] = comp[idx]
+    return out
+
+
+def _lanes(comp: NDArray[np.float64], centres: NDArray[np.intp], half: tuple[int, int]
+           ) -> NDArray[np.float64]:
+    """``_epochs(comp, centres, half).T`` gathered C-contiguous: one row per epoch sample."""
+    offs = np.arange(-half[0], half[1] + 1)
+    out: NDArray[np.float64] = comp[offs[:, None] + centres[None, :]]
     return out
 
 
@@ -1006,8 +1015,10 @@ class _Matcher:
     def __init__(self, comp: NDArray[np.float64], max_len: int) -> None:
         self.n = comp.size
         self.spectra = BlockSpectra(comp, max_len)
-        self.c1 = np.concatenate(([0.0], np.cumsum(comp)))
-        self.c2 = np.concatenate(([0.0], np.cumsum(comp * comp)))
+        self.c1 = np.zeros(self.n + 1)
+        self.c2 = np.zeros(self.n + 1)
+        np.cumsum(comp, out=self.c1[1:])
+        np.cumsum(np.square(comp), out=self.c2[1:])
         self._spread: dict[tuple[int, int], NDArray[np.float64]] = {}
 
     def spread(self, centre: int, m: int) -> NDArray[np.float64]:

@@ -269,3 +269,22 @@ def test_motion_only_marks_movement_and_posture_but_not_clipping() -> None:
     assert only.sum() == 20 + 10 - 5
     assert not only[20:25].any() and only[10:20].all() and only[25:30].all()
     assert only[50:60].all() and not only[usable].any()
+
+
+@pytest.mark.parametrize(("n", "length"), [(75_000, 32), (300_001, 125), (70_000, 7)])
+def test_block_std_equals_numpy_std_of_the_centred_blocks(n: int, length: int) -> None:
+    from features.artifacts import _block_std
+
+    rng = np.random.default_rng(n)
+    x = 5.0 + 3.0 * rng.standard_normal(n)
+    m = n // length
+    blocks = x[: m * length].reshape(m, length)
+    # Reference: numpy.std of each block less its mean (the kernel's definition). Bit-equal:
+    # the kernel takes numpy's own steps, chunked; the chunks (2**16 samples) split these
+    # traces, so a chunk boundary is covered.
+    want = np.std(blocks - blocks.mean(axis=1, keepdims=True), axis=1)
+    np.testing.assert_array_equal(_block_std(x, length), want)
+    ints = rng.integers(-2000, 2000, size=n, dtype=np.int16)
+    blocks_i = ints[: m * length].astype(np.float64).reshape(m, length)
+    np.testing.assert_array_equal(_block_std(ints, length), np.std(
+        blocks_i - blocks_i.mean(axis=1, keepdims=True), axis=1))

@@ -389,3 +389,20 @@ def test_slip_repair_follows_its_rule_pick_by_pick():
         assert got.tolist() == want and n_got == n_want
         seen += n_got
     assert seen > 50  # the random trains do exercise replacements
+
+
+@pytest.mark.parametrize("count", [7, 8, 1200])
+def test_template_lanes_give_numpy_median_of_the_epochs(count: int) -> None:
+    from features._numeric import lane_median
+    from features.beats import _epochs, _lanes
+
+    rng = np.random.default_rng(count)
+    comp = rng.standard_normal(5000)
+    centres = np.sort(rng.choice(np.arange(50, 4940), size=count, replace=False))
+    half = (44, 56)
+    np.testing.assert_array_equal(_lanes(comp, centres, half), _epochs(comp, centres, half).T)
+    # Reference: numpy.median across the epochs. Bit-equal, since the same order statistics
+    # and the same mean of the two middle ones are taken (odd and even counts, and a count
+    # past lane_median's sorting limit).
+    np.testing.assert_array_equal(lane_median(_lanes(comp, centres, half)),
+                                  np.median(_epochs(comp, centres, half), axis=0))
