@@ -17,6 +17,7 @@ from fractions import Fraction
 
 import numpy as np
 import pywt
+from numpy.lib.stride_tricks import sliding_window_view
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
@@ -262,8 +263,11 @@ def beat_morphology(
        below about 25 Hz and the wavelet signature below is computed at 250 Hz anyway;
        ``template_fs_hz`` reports the rate used. Epochs run from J - 0.35 s to J + 0.45 s
        on a grid of one sample at that rate. The beat times
-       are sub-sample, so each epoch is read from the cubic B-spline interpolant of the trace
-       (``scipy.ndimage.map_coordinates``, order 3), which aligns all beats on J exactly.
+       are sub-sample, so each epoch is read from the cubic B-spline interpolant of the trace,
+       which aligns all beats on J exactly: every sample of an epoch shares the beat's
+       fractional offset, so an epoch is four gathers of the spline coefficients weighted
+       by the cubic B-spline basis at that offset (the values of
+       ``scipy.ndimage.map_coordinates``, order 3, on the same coordinates).
        Masked samples are bridged linearly before the spline is built; a beat is used only
        when its epoch plus a 4-sample spline margin lies wholly in usable samples.
     2. A straight line fitted by least squares is removed from each epoch (breathing baseline).
@@ -525,29 +529,73 @@ def _empty(unit: str, offered: int, used: int, reason: str) -> MorphologyResult:
 def _epochs(
     x: NDArray[np.float64], fs: float, beats: NDArray[np.float64], mask: NDArray[np.bool_]
 ) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
-    """Detrended epochs (beats x samples) read from the spline interpolant; inside-mask flags."""
+    """Detrended epochs (beats x samples) read from the spline interpolant; inside-mask flags.
+
+    A row whose flag is False repeats the first usable beat's epoch, a placeholder that
+    keeps every row where it was (the projection below is a BLAS product, whose rounding
+    can depend on a row's place in the block).
+    """
     n_pre, n_post = round(-EPOCH_START_S * fs), round(EPOCH_END_S * fs)
-    offsets = np.arange(-n_pre, n_post + 1, dtype=float)
+    width = n_pre + n_post + 1
     centre = beats * fs
     lo = np.floor(centre - n_pre).astype(np.int64) - _SPLINE_MARGIN
     hi = np.ceil(centre + n_post).astype(np.int64) + _SPLINE_MARGIN
     inside = (lo >= 0) & (hi < x.size)
-    bad = np.concatenate(([0], np.cumsum(~mask)))
-    lo_c, hi_c = np.clip(lo, 0, x.size - 1), np.clip(hi, 0, x.size - 1)
-    inside &= (bad[hi_c + 1] - bad[lo_c]) == 0
+    if not mask.all():  # no masked sample from lo to hi
+        masked = np.flatnonzero(~mask)
+        inside &= np.searchsorted(masked, lo) == np.searchsorted(masked, hi, side="right")
     if not inside.any():
-        return np.empty((beats.size, offsets.size)), inside
+        return np.empty((beats.size, width)), inside
     coeffs = ndimage.spline_filter1d(x, order=3, mode="mirror")
+    if not inside.all():
+        centre = np.where(inside, centre, centre[np.argmax(inside)])
+    offsets = np.arange(-n_pre, n_post + 1, dtype=float)
     oc = offsets - offsets.mean()
-    ep = np.empty((beats.size, offsets.size))
-    for a in range(0, beats.size, _EPOCH_CHUNK):  # bounded memory for long recordings
-        rows = slice(a, a + _EPOCH_CHUNK)
-        coords = (centre[rows, None] + offsets[None, :]).reshape(1, -1)
-        e = ndimage.map_coordinates(coeffs, coords, order=3, mode="mirror", prefilter=False)
-        e = e.reshape(-1, offsets.size)
-        e = e - e.mean(axis=1, keepdims=True)
-        ep[rows] = e - ((e @ oc) / np.dot(oc, oc))[:, None] * oc[None, :]
+    ep = np.empty((centre.size, width))
+    scratch = np.empty((min(centre.size, _EPOCH_CHUNK), width))
+    for a in range(0, centre.size, _EPOCH_CHUNK):  # bounded memory for long recordings
+        e = ep[a : a + _EPOCH_CHUNK]
+        s = scratch[: e.shape[0]]
+        _spline_rows(coeffs, centre[a : a + _EPOCH_CHUNK], n_pre, e, s)
+        e -= e.mean(axis=1, keepdims=True)
+        e -= np.multiply(((e @ oc) / np.dot(oc, oc))[:, None], oc[None, :], out=s)
     return ep, inside
+
+
+def _spline_rows(
+    coeffs: NDArray[np.float64], centre: NDArray[np.float64], n_pre: int,
+    out: NDArray[np.float64], scratch: NDArray[np.float64],
+) -> None:
+    """Cubic B-spline interpolant with coefficients ``coeffs`` at ``centre[r] + o``, o = -n_pre,
+    -n_pre + 1, ... (one row of ``out`` per centre, in samples): the values of
+    ``scipy.ndimage.map_coordinates(coeffs, ..., order=3, mode="mirror", prefilter=False)``.
+
+    Every point of a row shares the fractional part of its centre, so a row is four
+    coefficient gathers weighted by the basis at that fraction (the weights and the sum
+    in the order scipy uses, so the same numbers). The centres must keep the spline's
+    support inside ``coeffs`` (``_SPLINE_MARGIN``). A row whose last coordinate is not
+    exact in floating point (the sum crossed a power of two and dropped the centre's last
+    bit) has fractions of its own: it is read by ``map_coordinates`` itself. ``scratch``
+    is working space of the shape of ``out``.
+    """
+    width = out.shape[1]
+    base = np.floor(centre)
+    y = centre - base  # exact
+    z = 1.0 - y
+    w1 = (y * y * (y - 2.0) * 3.0 + 4.0) / 6.0
+    w2 = (z * z * (z - 2.0) * 3.0 + 4.0) / 6.0
+    w0 = z * z * z / 6.0
+    w3 = 1.0 - w0 - w1 - w2
+    g = sliding_window_view(coeffs, width + 3)[base.astype(np.int64) - (n_pre + 1)]
+    np.multiply(g[:, :width], w0[:, None], out=out)
+    for j, w in ((1, w1), (2, w2), (3, w3)):
+        out += np.multiply(g[:, j : j + width], w[:, None], out=scratch)
+    last = width - 1 - n_pre
+    rounded = (centre + last) - last != centre
+    if rounded.any():
+        coords = centre[rounded, None] + np.arange(-n_pre, last + 1, dtype=float)[None, :]
+        out[rounded] = ndimage.map_coordinates(coeffs, coords.reshape(1, -1), order=3,
+                                               mode="mirror", prefilter=False).reshape(-1, width)
 
 
 def _parabola_rows(

@@ -353,3 +353,32 @@ def test_signature_band_labels_name_the_nominal_detail_bands():
         low, high = (float(v) for v in label.split("-"))
         assert low == pytest.approx(SIGNATURE_FS_HZ / 2 ** (j + 1), rel=0.01)
         assert high == pytest.approx(SIGNATURE_FS_HZ / 2**j, rel=0.01)
+
+
+def test_epoch_rows_are_the_spline_interpolant_of_map_coordinates():
+    from scipy import ndimage
+
+    from features.morphology import _spline_rows
+
+    rng = np.random.default_rng(7)
+    coeffs = ndimage.spline_filter1d(rng.standard_normal(300_000), order=3, mode="mirror")
+    n_pre, width = 88, 202
+    centres = rng.uniform(n_pre + 5, coeffs.size - width, 400)
+    # Centres just below powers of two: their last coordinates cross the power, where the
+    # sum drops a bit and each point has a fraction of its own (the rows read otherwise).
+    powers = 2.0 ** np.arange(8, 19)
+    near = (powers[:, None] - rng.uniform(1.0, width, (powers.size, 8))).ravel()
+    centres = np.concatenate((centres, near[near > n_pre + 5]))
+    last = width - 1 - n_pre
+    assert np.any((centres + last) - last != centres)  # the case is exercised
+    got, scratch = np.empty((centres.size, width)), np.empty((centres.size, width))
+    _spline_rows(coeffs, centres, n_pre, got, scratch)
+    coords = centres[:, None] + np.arange(-n_pre, last + 1, dtype=float)[None, :]
+    # Reference: scipy.ndimage.map_coordinates on the same coordinates.
+    want = ndimage.map_coordinates(coeffs, coords.reshape(1, -1), order=3, mode="mirror",
+                                   prefilter=False).reshape(centres.size, width)
+    # The same weights and four-term sum in the same order: equal bit for bit where the
+    # compiler keeps a * b + c as two roundings; a fused multiply-add moves each of the
+    # four terms by at most an ulp of the largest coefficient times its weight (<= 1).
+    scale = np.abs(coeffs).max()
+    np.testing.assert_allclose(got, want, rtol=0, atol=4 * np.finfo(float).eps * scale)
