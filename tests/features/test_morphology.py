@@ -382,3 +382,28 @@ def test_epoch_rows_are_the_spline_interpolant_of_map_coordinates():
     # four terms by at most an ulp of the largest coefficient times its weight (<= 1).
     scale = np.abs(coeffs).max()
     np.testing.assert_allclose(got, want, rtol=0, atol=4 * np.finfo(float).eps * scale)
+
+
+@pytest.mark.parametrize("n_beats", [1, 2, 7, 40, 341, 1001, 1500])
+def test_template_spread_is_the_median_absolute_deviation_of_numpy(n_beats):
+    from features.morphology import _TRIM_PROPORTION, _lane_mad, _ordered_lanes
+
+    rng = np.random.default_rng(n_beats)
+    # Lanes of every kind the selection must survive: symmetric, tied, heavily skewed (the
+    # partitioned rows' shortcut does not hold there), and mostly one value.
+    epochs = np.column_stack((
+        rng.standard_normal(n_beats),
+        rng.integers(-2, 3, n_beats).astype(float),
+        rng.exponential(1.0, n_beats) ** 4,
+        np.where(rng.random(n_beats) < 0.7, 0.0, 100 * rng.standard_normal(n_beats)),
+        np.r_[np.full(n_beats - n_beats // 2, 1.0), 1e3 * rng.random(n_beats // 2)],
+    ))
+    cut = int(_TRIM_PROPORTION * n_beats)
+    mid = ((n_beats - 1) // 2, n_beats // 2)
+    rows = _ordered_lanes(epochs, (cut, n_beats - cut - 1, *mid))
+    centre = np.median(epochs, axis=0)
+    got = _lane_mad(rows, centre, cut)
+    # Reference: numpy.median of the absolute deviations. The same order statistics of the
+    # same differences, and the same mean of the two middle ones: equal bit for bit.
+    want = np.median(np.abs(epochs - centre), axis=0)
+    np.testing.assert_array_equal(got, want)
