@@ -17,11 +17,12 @@ from fractions import Fraction
 
 import numpy as np
 import pywt
+from numpy.lib.stride_tricks import sliding_window_view
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
 from features._checks import check_between, check_sampling_rate, check_usable, finite_where
-from features._numeric import MAD_TO_SD, SORTED_LANES_UP_TO, lane_median, median_1d
+from features._numeric import MAD_TO_SD, SORTED_LANES_UP_TO, median_1d
 from features.catalogue import (
     AMPLITUDE_UNIT,
     NONNEGATIVE,
@@ -262,8 +263,11 @@ def beat_morphology(
        below about 25 Hz and the wavelet signature below is computed at 250 Hz anyway;
        ``template_fs_hz`` reports the rate used. Epochs run from J - 0.35 s to J + 0.45 s
        on a grid of one sample at that rate. The beat times
-       are sub-sample, so each epoch is read from the cubic B-spline interpolant of the trace
-       (``scipy.ndimage.map_coordinates``, order 3), which aligns all beats on J exactly.
+       are sub-sample, so each epoch is read from the cubic B-spline interpolant of the trace,
+       which aligns all beats on J exactly: every sample of an epoch shares the beat's
+       fractional offset, so an epoch is four gathers of the spline coefficients weighted
+       by the cubic B-spline basis at that offset (the values of
+       ``scipy.ndimage.map_coordinates``, order 3, on the same coordinates).
        Masked samples are bridged linearly before the spline is built; a beat is used only
        when its epoch plus a 4-sample spline margin lies wholly in usable samples.
     2. A straight line fitted by least squares is removed from each epoch (breathing baseline).
@@ -354,7 +358,7 @@ def beat_morphology(
     chosen = inside & (conf >= min_beat_confidence)
     if int(chosen.sum()) < MIN_TEMPLATE_BEATS:
         return _empty(amplitude_unit, offered, int(chosen.sum()), "too_few_confident_beats")
-    template_epochs = epochs[chosen]
+    template_epochs = epochs if chosen.all() else epochs[chosen]
     template, noise = _robust_template(template_epochs)
     tau_s = (np.arange(template.size) + round(EPOCH_START_S * fs)) / fs
     located = _wave_view(template, fs)
@@ -525,29 +529,73 @@ def _empty(unit: str, offered: int, used: int, reason: str) -> MorphologyResult:
 def _epochs(
     x: NDArray[np.float64], fs: float, beats: NDArray[np.float64], mask: NDArray[np.bool_]
 ) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
-    """Detrended epochs (beats x samples) read from the spline interpolant; inside-mask flags."""
+    """Detrended epochs (beats x samples) read from the spline interpolant; inside-mask flags.
+
+    A row whose flag is False repeats the first usable beat's epoch, a placeholder that
+    keeps every row where it was (the projection below is a BLAS product, whose rounding
+    can depend on a row's place in the block).
+    """
     n_pre, n_post = round(-EPOCH_START_S * fs), round(EPOCH_END_S * fs)
-    offsets = np.arange(-n_pre, n_post + 1, dtype=float)
+    width = n_pre + n_post + 1
     centre = beats * fs
     lo = np.floor(centre - n_pre).astype(np.int64) - _SPLINE_MARGIN
     hi = np.ceil(centre + n_post).astype(np.int64) + _SPLINE_MARGIN
     inside = (lo >= 0) & (hi < x.size)
-    bad = np.concatenate(([0], np.cumsum(~mask)))
-    lo_c, hi_c = np.clip(lo, 0, x.size - 1), np.clip(hi, 0, x.size - 1)
-    inside &= (bad[hi_c + 1] - bad[lo_c]) == 0
+    if not mask.all():  # no masked sample from lo to hi
+        masked = np.flatnonzero(~mask)
+        inside &= np.searchsorted(masked, lo) == np.searchsorted(masked, hi, side="right")
     if not inside.any():
-        return np.empty((beats.size, offsets.size)), inside
+        return np.empty((beats.size, width)), inside
     coeffs = ndimage.spline_filter1d(x, order=3, mode="mirror")
+    if not inside.all():
+        centre = np.where(inside, centre, centre[np.argmax(inside)])
+    offsets = np.arange(-n_pre, n_post + 1, dtype=float)
     oc = offsets - offsets.mean()
-    ep = np.empty((beats.size, offsets.size))
-    for a in range(0, beats.size, _EPOCH_CHUNK):  # bounded memory for long recordings
-        rows = slice(a, a + _EPOCH_CHUNK)
-        coords = (centre[rows, None] + offsets[None, :]).reshape(1, -1)
-        e = ndimage.map_coordinates(coeffs, coords, order=3, mode="mirror", prefilter=False)
-        e = e.reshape(-1, offsets.size)
-        e = e - e.mean(axis=1, keepdims=True)
-        ep[rows] = e - ((e @ oc) / np.dot(oc, oc))[:, None] * oc[None, :]
+    ep = np.empty((centre.size, width))
+    scratch = np.empty((min(centre.size, _EPOCH_CHUNK), width))
+    for a in range(0, centre.size, _EPOCH_CHUNK):  # bounded memory for long recordings
+        e = ep[a : a + _EPOCH_CHUNK]
+        s = scratch[: e.shape[0]]
+        _spline_rows(coeffs, centre[a : a + _EPOCH_CHUNK], n_pre, e, s)
+        e -= e.mean(axis=1, keepdims=True)
+        e -= np.multiply(((e @ oc) / np.dot(oc, oc))[:, None], oc[None, :], out=s)
     return ep, inside
+
+
+def _spline_rows(
+    coeffs: NDArray[np.float64], centre: NDArray[np.float64], n_pre: int,
+    out: NDArray[np.float64], scratch: NDArray[np.float64],
+) -> None:
+    """Cubic B-spline interpolant with coefficients ``coeffs`` at ``centre[r] + o``, o = -n_pre,
+    -n_pre + 1, ... (one row of ``out`` per centre, in samples): the values of
+    ``scipy.ndimage.map_coordinates(coeffs, ..., order=3, mode="mirror", prefilter=False)``.
+
+    Every point of a row shares the fractional part of its centre, so a row is four
+    coefficient gathers weighted by the basis at that fraction (the weights and the sum
+    in the order scipy uses, so the same numbers). The centres must keep the spline's
+    support inside ``coeffs`` (``_SPLINE_MARGIN``). A row whose last coordinate is not
+    exact in floating point (the sum crossed a power of two and dropped the centre's last
+    bit) has fractions of its own: it is read by ``map_coordinates`` itself. ``scratch``
+    is working space of the shape of ``out``.
+    """
+    width = out.shape[1]
+    base = np.floor(centre)
+    y = centre - base  # exact
+    z = 1.0 - y
+    w1 = (y * y * (y - 2.0) * 3.0 + 4.0) / 6.0
+    w2 = (z * z * (z - 2.0) * 3.0 + 4.0) / 6.0
+    w0 = z * z * z / 6.0
+    w3 = 1.0 - w0 - w1 - w2
+    g = sliding_window_view(coeffs, width + 3)[base.astype(np.int64) - (n_pre + 1)]
+    np.multiply(g[:, :width], w0[:, None], out=out)
+    for j, w in ((1, w1), (2, w2), (3, w3)):
+        out += np.multiply(g[:, j : j + width], w[:, None], out=scratch)
+    last = width - 1 - n_pre
+    rounded = (centre + last) - last != centre
+    if rounded.any():
+        coords = centre[rounded, None] + np.arange(-n_pre, last + 1, dtype=float)[None, :]
+        out[rounded] = ndimage.map_coordinates(coeffs, coords.reshape(1, -1), order=3,
+                                               mode="mirror", prefilter=False).reshape(-1, width)
 
 
 def _parabola_rows(
@@ -733,10 +781,12 @@ def _ordered_lanes(epochs: NDArray[np.float64], kth: tuple[int, ...]) -> NDArray
     less than numpy's partition with several pivots); beyond, partitioned, which costs
     less on long rows (4081 beats: about 110 against 120 ms, 8000: 180 against 260 ms).
     """
-    lanes = np.ascontiguousarray(epochs.T)
+    lanes = epochs.T.copy()  # a copy (C order) ordered in place
     if epochs.shape[0] <= SORTED_LANES_UP_TO:
-        return np.sort(lanes, axis=1)
-    return np.partition(lanes, sorted(set(kth)), axis=1)
+        lanes.sort(axis=1)
+    else:
+        lanes.partition(sorted(set(kth)), axis=1)
+    return lanes
 
 
 def _robust_template(epochs: NDArray[np.float64]) -> tuple[NDArray[np.float64], float]:
@@ -745,8 +795,9 @@ def _robust_template(epochs: NDArray[np.float64]) -> tuple[NDArray[np.float64], 
     The same as ``scipy.stats.trim_mean(epochs, 0.2, axis=0)`` and
     ``scipy.stats.median_abs_deviation(epochs, axis=0)``, computed on the
     transposed (one contiguous row per sample) epochs ordered once
-    (:func:`_ordered_lanes`) for both the trimmed range and the median (the
-    centre the MAD reuses).
+    (:func:`_ordered_lanes`) for the trimmed range, the median (the centre the
+    MAD reuses) and the MAD itself (selected with the help of that order,
+    :func:`_lane_mad`).
     """
     n = epochs.shape[0]
     cut = int(_TRIM_PROPORTION * n)
@@ -755,8 +806,70 @@ def _robust_template(epochs: NDArray[np.float64]) -> tuple[NDArray[np.float64], 
     template = rows[:, cut : n - cut].mean(axis=1)
     template = template - median_1d(template)
     centre = rows[:, mid[0]] if n % 2 else (rows[:, mid[0]] + rows[:, mid[1]]) / 2.0
-    spread = MAD_TO_SD * lane_median(np.abs(rows - centre[:, None]))
+    spread = MAD_TO_SD * _lane_mad(rows, centre, cut)
     return template, float(median_1d(spread) / np.sqrt(n))
+
+
+def _lane_mad(rows: NDArray[np.float64], centre: NDArray[np.float64], cut: int
+              ) -> NDArray[np.float64]:
+    """``numpy.median(numpy.abs(rows - centre[:, None]), axis=1)``, the same values, for
+    finite rows ordered by :func:`_ordered_lanes` with order statistics ``cut`` and
+    ``n - 1 - cut`` (n beats) in place and ``centre`` their medians.
+
+    Sorted rows: the distances below the centre fall and those above rise, so the middle
+    distances are selected from two sorted runs (:func:`_two_run_median`) without sorting
+    them. Partitioned rows: every beat outside positions ``cut ... n - 1 - cut`` is at
+    least D = the nearer of those two order statistics away from the centre, so when the
+    middle distances of the positions between are at most D they are the row's, and only
+    those positions are partitioned (a row where they exceed D takes all of its beats).
+    """
+    n = rows.shape[1]
+    if n <= SORTED_LANES_UP_TO:
+        return _two_run_median(rows, centre)
+    lo, hi = (n - 1) // 2, n // 2
+    inner = np.abs(rows[:, cut : n - cut] - centre[:, None])
+    inner.partition((lo, hi), axis=1)
+    mad = inner[:, lo] if lo == hi else (inner[:, lo] + inner[:, hi]) / 2.0
+    near = np.minimum(centre - rows[:, cut], rows[:, n - 1 - cut] - centre)
+    far = inner[:, hi] > near
+    if far.any():
+        mad[far] = np.median(np.abs(rows[far] - centre[far, None]), axis=1)
+    return np.asarray(mad, dtype=float)
+
+
+def _two_run_median(rows: NDArray[np.float64], centre: NDArray[np.float64]
+                    ) -> NDArray[np.float64]:
+    """Median of ``|rows - centre[:, None]|`` along each sorted row, by a vectorised binary
+    search: the distances of the samples below the centre, read leftwards, and of the
+    others, read rightwards, are two ascending runs, and the k-th smallest distance is the
+    larger of the last ones taken when the k + 1 smallest are split between the runs.
+    ``centre - r`` below the centre is ``|r - centre|`` exactly (rounding is symmetric)."""
+    n_rows, n = rows.shape
+    flat = rows.reshape(-1)
+    below = np.count_nonzero(rows < centre[:, None], axis=1)  # length of run A
+    start_b = np.arange(n_rows) * n + below  # run A is flat[start_b - 1 - j], B flat[start_b + j]
+    k = (n - 1) // 2
+    # a = how many of the k + 1 smallest come from run A; every index read below stays in
+    # [-1, flat.size) (numpy reads -1 as the last), and a lane whose search has ended reads
+    # values it ignores.
+    lo = np.maximum(0, k + 1 - (n - below))
+    hi = np.minimum(k + 1, below)
+    for _ in range(int((hi - lo).max()).bit_length()):
+        mid = (lo + hi) >> 1
+        active = lo < hi
+        more = (centre - flat[start_b - 1 - mid]) < (flat[start_b + k - mid] - centre)
+        lo = np.where(more & active, mid + 1, lo)
+        hi = np.where(more | ~active, hi, mid)
+    a = lo
+    last_a = np.minimum(start_b - a, flat.size - 1)  # run A's (a-1)-th, read when a > 0
+    kth = np.maximum(np.where(a > 0, centre - flat[last_a], -np.inf),
+                     np.where(a <= k, flat[start_b + k - a] - centre, -np.inf))
+    if n % 2:
+        return np.asarray(kth, dtype=float)
+    after = np.minimum(start_b + k + 1 - a, flat.size - 1)  # run B's next, read if any
+    nxt = np.minimum(np.where(a < below, centre - flat[start_b - 1 - a], np.inf),
+                     np.where(k + 1 - a < n - below, flat[after] - centre, np.inf))
+    return np.asarray((kth + nxt) / 2.0, dtype=float)
 
 
 def _per_beat_jk(

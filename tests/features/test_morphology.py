@@ -353,3 +353,57 @@ def test_signature_band_labels_name_the_nominal_detail_bands():
         low, high = (float(v) for v in label.split("-"))
         assert low == pytest.approx(SIGNATURE_FS_HZ / 2 ** (j + 1), rel=0.01)
         assert high == pytest.approx(SIGNATURE_FS_HZ / 2**j, rel=0.01)
+
+
+def test_epoch_rows_are_the_spline_interpolant_of_map_coordinates():
+    from scipy import ndimage
+
+    from features.morphology import _spline_rows
+
+    rng = np.random.default_rng(7)
+    coeffs = ndimage.spline_filter1d(rng.standard_normal(300_000), order=3, mode="mirror")
+    n_pre, width = 88, 202
+    centres = rng.uniform(n_pre + 5, coeffs.size - width, 400)
+    # Centres just below powers of two: their last coordinates cross the power, where the
+    # sum drops a bit and each point has a fraction of its own (the rows read otherwise).
+    powers = 2.0 ** np.arange(8, 19)
+    near = (powers[:, None] - rng.uniform(1.0, width, (powers.size, 8))).ravel()
+    centres = np.concatenate((centres, near[near > n_pre + 5]))
+    last = width - 1 - n_pre
+    assert np.any((centres + last) - last != centres)  # the case is exercised
+    got, scratch = np.empty((centres.size, width)), np.empty((centres.size, width))
+    _spline_rows(coeffs, centres, n_pre, got, scratch)
+    coords = centres[:, None] + np.arange(-n_pre, last + 1, dtype=float)[None, :]
+    # Reference: scipy.ndimage.map_coordinates on the same coordinates.
+    want = ndimage.map_coordinates(coeffs, coords.reshape(1, -1), order=3, mode="mirror",
+                                   prefilter=False).reshape(centres.size, width)
+    # The same weights and four-term sum in the same order: equal bit for bit where the
+    # compiler keeps a * b + c as two roundings; a fused multiply-add moves each of the
+    # four terms by at most an ulp of the largest coefficient times its weight (<= 1).
+    scale = np.abs(coeffs).max()
+    np.testing.assert_allclose(got, want, rtol=0, atol=4 * np.finfo(float).eps * scale)
+
+
+@pytest.mark.parametrize("n_beats", [1, 2, 7, 40, 341, 1001, 1500])
+def test_template_spread_is_the_median_absolute_deviation_of_numpy(n_beats):
+    from features.morphology import _TRIM_PROPORTION, _lane_mad, _ordered_lanes
+
+    rng = np.random.default_rng(n_beats)
+    # Lanes of every kind the selection must survive: symmetric, tied, heavily skewed (the
+    # partitioned rows' shortcut does not hold there), and mostly one value.
+    epochs = np.column_stack((
+        rng.standard_normal(n_beats),
+        rng.integers(-2, 3, n_beats).astype(float),
+        rng.exponential(1.0, n_beats) ** 4,
+        np.where(rng.random(n_beats) < 0.7, 0.0, 100 * rng.standard_normal(n_beats)),
+        np.r_[np.full(n_beats - n_beats // 2, 1.0), 1e3 * rng.random(n_beats // 2)],
+    ))
+    cut = int(_TRIM_PROPORTION * n_beats)
+    mid = ((n_beats - 1) // 2, n_beats // 2)
+    rows = _ordered_lanes(epochs, (cut, n_beats - cut - 1, *mid))
+    centre = np.median(epochs, axis=0)
+    got = _lane_mad(rows, centre, cut)
+    # Reference: numpy.median of the absolute deviations. The same order statistics of the
+    # same differences, and the same mean of the two middle ones: equal bit for bit.
+    want = np.median(np.abs(epochs - centre), axis=0)
+    np.testing.assert_array_equal(got, want)
