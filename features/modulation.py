@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -516,9 +517,11 @@ def _cosinor_segment(
     Returns the six coefficients (a, b, a_early, b_early, a_late, b_late) and their 6 x 6
     covariance (block-diagonal between the two fits; a half with too few intervals has an
     infinite variance), or None when the whole fit is underdetermined. The normal equations
-    are solved in closed form by partialling out the trend (Frisch-Waugh): the sinusoids'
-    residuals on the trend give the 2 x 2 (or 4 x 4) system of the coefficients
-    (:func:`_partial_fit`).
+    are solved in closed form by partialling out the trend (Frisch-Waugh): one QR
+    factorisation of ``[trend, halves' sinusoids, intervals]`` gives the triangular factor
+    of those columns' residuals on the trend (:func:`_trend_residual_factor`), from which
+    both fits' small systems follow (:func:`_factor_fit`); the whole fit's sinusoids are the
+    sums of the halves' (``c = c e + c late``).
     """
     n_inner = max(0, int(np.floor((t[-1] - t[0]) / knot_s)) - 1)
     inner = np.linspace(t[0], t[-1], n_inner + 2)[1:-1]
@@ -527,13 +530,27 @@ def _cosinor_segment(
     # A piece of trend inside a gap (a masked movement, breaths left out) has no data.
     trend = trend[:, np.count_nonzero(trend, axis=0) >= 2]
     c, s = np.cos(phi), np.sin(phi)
-    whole = _partial_fit(np.column_stack((c, s)), trend, iv)
+    e = ~late
+    dof = iv.size - trend.shape[1] - 2
+    if dof < MIN_BEATS // 2:
+        return None
+    with_halves = (min(int(e.sum()), int(late.sum())) >= MIN_BEATS // 2
+                   and dof - 2 >= MIN_BEATS // 2)
+    if not with_halves:
+        r = _trend_residual_factor(trend, np.column_stack((c, s, iv)))
+        whole = None if r is None else _factor_fit(r, float(c @ c + s @ s), dof)
+        halves = None
+    else:
+        split = np.column_stack((c * e, s * e, c * late, s * late))
+        r = _trend_residual_factor(trend, np.column_stack((split, iv)))
+        if r is None:
+            return None
+        # residuals of (c, s, iv) are those of (c e + c late, s e + s late, iv)
+        whole_r = _r_factor(r @ _WHOLE_FROM_HALVES)
+        whole = _factor_fit(whole_r, float(c @ c + s @ s), dof)
+        halves = _factor_fit(r, float(np.sum(split**2)), dof - 2)
     if whole is None:
         return None
-    e = ~late
-    halves = None
-    if min(int(e.sum()), int(late.sum())) >= MIN_BEATS // 2:
-        halves = _partial_fit(np.column_stack((c * e, s * e, c * late, s * late)), trend, iv)
     coef = np.full(6, np.nan)
     cov = np.diag([0.0, 0.0] + [np.inf] * 4)
     coef[:2], cov[:2, :2] = whole
@@ -542,36 +559,111 @@ def _cosinor_segment(
     return coef, cov
 
 
+_WHOLE_FROM_HALVES = np.array([[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [1.0, 0.0, 0.0],
+                               [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]])
+"""Columns (c, s, iv) as sums of the columns (c e, s e, c late, s late, iv)."""
+
+
 def _partial_fit(
     x: NDArray[np.float64], trend: NDArray[np.float64], y: NDArray[np.float64],
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
     """Coefficients of ``x`` in the least squares of ``y`` on ``[x, trend]`` and their
-    covariance, with the trend partialled out (Frisch-Waugh): ``x`` and ``y`` less their
-    projections on the trend (through its QR factors, which keep the trend's own
-    conditioning rather than squaring it as its Gram matrix would), then the small normal
-    equations of ``x``. None when the trend or the sinusoids left after it are
-    rank-deficient, or fewer than ``MIN_BEATS // 2`` degrees of freedom remain."""
-    p = x.shape[1] + trend.shape[1]
-    dof = y.size - p
+    covariance, with the trend partialled out (Frisch-Waugh): the triangular factor of
+    ``x`` and ``y`` less their projections on the trend (:func:`_trend_residual_factor`),
+    then the small normal equations of ``x`` (:func:`_factor_fit`). None when the trend or
+    the sinusoids left after it are rank-deficient, or fewer than ``MIN_BEATS // 2``
+    degrees of freedom remain."""
+    dof = y.size - x.shape[1] - trend.shape[1]
     if dof < MIN_BEATS // 2:
         return None
-    q, r = np.linalg.qr(trend)
-    d = np.abs(np.diag(r))
-    # the rank rule of numpy.linalg.lstsq (rcond = eps x the larger dimension), on R
-    if d.size and d.min() <= d.max() * np.finfo(float).eps * max(trend.shape):
+    r = _trend_residual_factor(trend, np.column_stack((x, y)))
+    if r is None:
         return None
-    rx = x - q @ (q.T @ x)
-    ry = y - q @ (q.T @ y)
-    s_xx = rx.T @ rx
+    return _factor_fit(r, float(np.sum(x**2)), dof)
+
+
+_QR_TILE_ROWS = 64
+"""Rows of the trend merged per step of :func:`_trend_residual_factor` (keeps each small QR
+below the size at which the BLAS library starts threads)."""
+
+
+def _trend_residual_factor(
+    trend: NDArray[np.float64], cols: NDArray[np.float64]
+) -> NDArray[np.float64] | None:
+    """Upper-triangular ``R`` with ``R.T @ R`` the Gram matrix of ``cols`` less their
+    projections on the trend, or None when the trend is rank-deficient.
+
+    The Householder QR of ``[trend, cols]`` (:func:`numpy.linalg.qr`, ``mode="r"``), taken
+    in tiles of ``_QR_TILE_ROWS`` rows: each tile is factored together with the rows of
+    the factor so far that later rows still reach, and the rows of the trend's columns
+    that no later row touches are final (the rows come in time order and a B-spline row
+    spans four adjacent columns, so a tile reaches a few dozen columns). This is the
+    factor a QR of the whole matrix gives, up to the signs of its rows and to rounding
+    (a QR updated by appended rows; Golub and Van Loan, Matrix Computations, 4th ed.,
+    Johns Hopkins University Press, 2013, chapters 5 and 6). The trend block's diagonal gives
+    the rank; the trailing block factors the residuals, as the trend's Q would, keeping
+    the trend's conditioning rather than squaring it as its Gram matrix would, and Q is
+    never formed.
+    """
+    n, k = trend.shape
+    d = cols.shape[1]
+    nonzero = trend != 0
+    any_nz = nonzero.any(axis=1)
+    first = np.where(any_nz, np.argmax(nonzero, axis=1), k)
+    last = np.where(any_nz, k - 1 - np.argmax(nonzero[:, ::-1], axis=1), -1)
+    # the first trend column that rows from i on reach
+    reach = np.minimum.accumulate(first[::-1])[::-1]
+    diag = np.zeros(k)
+    carry = np.zeros((0, d))  # rows of the factor not yet final, columns [lo, hi) + cols
+    lo = hi = 0
+    for a in range(0, n, _QR_TILE_ROWS):
+        b = min(n, a + _QR_TILE_ROWS)
+        new_hi = max(hi, int(last[a:b].max()) + 1)
+        block = np.zeros((carry.shape[0] + b - a, new_hi - lo + d))
+        block[: carry.shape[0], : hi - lo] = carry[:, : hi - lo]
+        block[: carry.shape[0], new_hi - lo:] = carry[:, hi - lo:]
+        block[carry.shape[0]:, : new_hi - lo] = trend[a:b, lo:new_hi]
+        block[carry.shape[0]:, new_hi - lo:] = cols[a:b]
+        r = _r_factor(block)
+        if r.shape[0] < r.shape[1]:  # fewer rows than columns so far: the rest are zero
+            r = np.vstack((r, np.zeros((r.shape[1] - r.shape[0], r.shape[1]))))
+        done = (min(int(reach[b]), new_hi) if b < n else new_hi) - lo
+        diag[lo:lo + done] = np.diag(r)[:done]
+        carry = r[done:, done:]
+        lo, hi = lo + done, new_hi
+    d_abs = np.abs(diag)
+    # the rank rule of numpy.linalg.lstsq (rcond = eps x the larger dimension), on R
+    if d_abs.size and d_abs.min() <= d_abs.max() * np.finfo(float).eps * max(trend.shape):
+        return None
+    if lo < k:  # trend columns that no row reaches
+        return None
+    return carry  # d x d once every trend column is final
+
+
+def _r_factor(m: NDArray[np.float64]) -> NDArray[np.float64]:
+    """The R of the Householder QR of ``m`` (:func:`numpy.linalg.qr`, ``mode="r"``)."""
+    return cast("NDArray[np.float64]", np.linalg.qr(m, mode="r"))
+
+
+def _factor_fit(
+    r: NDArray[np.float64], sum_sq_x: float, dof: int
+) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
+    """Least squares of the last residual column on the others, from their triangular
+    factor ``r`` (:func:`_trend_residual_factor`): coefficients and covariance
+    ``s^2 (X'X)^-1``; None when the sinusoids keep no part the trend cannot carry
+    (``sum_sq_x``: their sum of squares before the trend was removed)."""
+    k = r.shape[1] - 1
+    r_xx = r[:k, :k]
+    s_xx = r_xx.T @ r_xx
     # the sinusoids must keep a part the trend cannot carry
-    if np.linalg.eigvalsh(s_xx).min() <= 1e-12 * float(np.trace(x.T @ x)):
+    if np.linalg.eigvalsh(s_xx).min() <= 1e-12 * sum_sq_x:
         return None
     inv = np.linalg.inv(s_xx)
-    coef = inv @ (rx.T @ ry)
-    resid = ry - rx @ coef
-    s2 = float(resid @ resid) / dof
+    coef = inv @ (r_xx.T @ r[:k, k])
+    # the residual sum of squares is the square of the last diagonal entry of the factor
+    s2 = float(r[k, k]) ** 2 / dof
     # a perfect fit keeps an invertible covariance
-    return coef, s2 * inv + np.eye(x.shape[1]) * 1e-12
+    return coef, s2 * inv + np.eye(k) * 1e-12
 
 
 def _rsa_separation(f_b: float, beats_per_breath: float, cv_breath: float) -> float:

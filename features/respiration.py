@@ -170,15 +170,15 @@ def breathing(
 
     Notes
     -----
-    1. The trace (masked samples bridged linearly, median removed) is decimated by an
-       integer factor to about 10 Hz (``scipy.signal.resample_poly``, anti-alias FIR) and
-       band-passed 0.1-0.7 Hz with a 4th-order Butterworth filter run forward and backward
-       (zero phase). A decimated sample is usable only when all its source samples are. When
-       ``cop_signal`` is given each axis is processed alike at its own rate (NaN samples
-       unusable) and interpolated onto the trace's breathing grid; of the trace and the
-       axes, the candidate with the largest share of band power within +/-0.05 Hz of its
-       Welch peak is kept (flag when a centre-of-pressure axis wins; its amplitudes are
-       then in its own unit, and its empty samples are unusable too).
+    1. The trace (masked samples bridged linearly, median removed) is decimated by an integer factor
+       to about 10 Hz (the anti-alias FIR and line-extended edges of ``scipy.signal.resample_poly``,
+       computed as a polyphase matrix product: the same numbers to rounding) and band-passed 0.1-0.7
+       Hz with a 4th-order Butterworth filter run forward and backward (zero phase). A decimated
+       sample is usable only when all its source samples are. When ``cop_signal`` is given each axis
+       is processed alike at its own rate (NaN samples unusable) and interpolated onto the trace's
+       breathing grid; of the trace and the axes, the candidate with the largest share of band power
+       within +/-0.05 Hz of its Welch peak is kept (flag when a centre-of-pressure axis wins; its
+       amplitudes are then in its own unit, and its empty samples are unusable too).
     2. Breaths: the signal is divided by its robust amplitude A = ``MAD_TO_SD`` x MAD over usable
        samples (A is 1.05 times the amplitude of a sinusoid). A Schmitt trigger with thresholds
        +0.3 and -0.3 marks a breath each time the signal rises above +0.3 after having been
@@ -425,6 +425,56 @@ def _decimation_fir(q: int) -> NDArray[np.float64]:
     return h
 
 
+@functools.lru_cache(maxsize=16)
+def _polyphase_taps(q: int) -> NDArray[np.float64]:
+    """:func:`_decimation_fir` reversed, zero-padded to whole blocks of ``q`` and laid out
+    one block per column (``q x blocks``), for :func:`_decimate`."""
+    g = _decimation_fir(q)[::-1]
+    blocks = -(-g.size // q)
+    out = np.zeros(blocks * q)
+    out[: g.size] = g
+    taps = np.ascontiguousarray(out.reshape(blocks, q).T)
+    taps.setflags(write=False)
+    return taps
+
+
+_DECIMATE_PRODUCT = 1 << 18
+"""Multiply-adds per matrix product in :func:`_decimate` (below the BLAS threading size)."""
+
+
+def _decimate(x: NDArray[np.float64], q: int) -> NDArray[np.float64]:
+    """``scipy.signal.resample_poly(x, 1, q, padtype="line", window=_decimation_fir(q))``
+    to rounding, by a polyphase matrix product.
+
+    Output k is ``sum_m g[m] xe[k q - 10 q + m]`` with ``g`` the reversed FIR and ``xe``
+    the input extended at both ends by the straight line through its first and last
+    samples (scipy's ``"line"`` mode). Cut into blocks of ``q`` samples, that is a sum
+    over the FIR's blocks of one matrix product (samples x block offsets times block
+    offsets x FIR blocks), each output the sum of one diagonal of the product; the
+    products go in stacks of rows small enough to stay single-threaded.
+    """
+    taps = _polyphase_taps(q)
+    n, half = x.size, 10 * q
+    n_out = -(-n // q)
+    blocks = taps.shape[1]
+    rows = n_out + blocks - 1
+    slope = (x[-1] - x[0]) / (n - 1) if n > 1 else 0.0
+    ext = np.empty(rows * q)
+    right = rows * q - half - n
+    ext[:half] = x[0] + np.arange(-half, 0) * slope
+    ext[half:half + n] = x
+    ext[half + n:] = x[-1] + np.arange(1, right + 1) * slope
+    per = max(1, _DECIMATE_PRODUCT // (q * blocks))
+    stacks = -(-rows // per)
+    padded = np.zeros((stacks * per, q))
+    padded[:rows] = ext.reshape(rows, q)
+    z = (padded.reshape(stacks, per, q) @ taps).reshape(stacks * per, blocks)
+    y = z[:n_out, 0].copy()
+    for p in range(1, blocks):
+        y += z[p:p + n_out, p]
+    return y
+
+
 def _breathing_band(
     x: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]
 ) -> tuple[NDArray[np.float64], NDArray[np.float64], float, NDArray[np.bool_]]:
@@ -432,7 +482,7 @@ def _breathing_band(
     q = max(1, int(fs // TARGET_FS_HZ))
     x0 = x - median_1d(x)
     if q > 1:
-        y = sps.resample_poly(x0, 1, q, padtype="line", window=_decimation_fir(q))
+        y = _decimate(x0, q)
         n_b = y.size
         pad = n_b * q - mask.size
         blocks = np.concatenate((mask, np.zeros(pad, dtype=bool))).reshape(n_b, q)

@@ -73,13 +73,20 @@ class NonlinearResult:
 
 
 
+_SAMPEN_PAIR_BUDGET = 1 << 18
+"""Most candidate template pairs counted one by one (:func:`_match_counts_sorted`); more
+go to the k-d tree, whose cost grows more slowly."""
+
+
 def _sample_entropy(
     nn: NDArray[np.float64], runs: NDArray[np.int64], r: float, m: int
 ) -> tuple[float | None, str | None]:
     """SampEn from templates that lie inside one run of adjacent intervals.
 
-    Counts pairs of templates within Chebyshev distance ``r`` (inclusive)
-    with a k-d tree (memory O(n)); self-matches excluded.
+    Counts pairs of templates within Chebyshev distance ``r`` (inclusive),
+    self-matches excluded: one by one among the pairs that a sort on the first
+    value leaves as candidates when they are few (:func:`_match_counts_sorted`),
+    else with a k-d tree (memory O(n)); both give the same integer counts.
     """
     n = nn.size
     starts = np.arange(n - m)
@@ -91,13 +98,45 @@ def _sample_entropy(
     if starts.size < 2:
         return None, "sample_entropy_no_templates"
     emb = nn[starts[:, None] + np.arange(m + 1)[None, :]]
-    b_tree = cKDTree(emb[:, :m])
-    a_tree = cKDTree(emb)
-    count_b = (int(b_tree.count_neighbors(b_tree, r, p=np.inf)) - starts.size) // 2
-    count_a = (int(a_tree.count_neighbors(a_tree, r, p=np.inf)) - starts.size) // 2
+    counts = _match_counts_sorted(emb, r, m)
+    if counts is None:
+        b_tree = cKDTree(emb[:, :m])
+        a_tree = cKDTree(emb)
+        count_b = (int(b_tree.count_neighbors(b_tree, r, p=np.inf)) - starts.size) // 2
+        count_a = (int(a_tree.count_neighbors(a_tree, r, p=np.inf)) - starts.size) // 2
+    else:
+        count_b, count_a = counts
     if count_a == 0 or count_b == 0:
         return None, "sample_entropy_no_matches"
     return float(-math.log(count_a / count_b)), None
+
+
+def _match_counts_sorted(emb: NDArray[np.float64], r: float, m: int) -> tuple[int, int] | None:
+    """Pairs of templates (rows of ``emb``, ``m + 1`` values) within Chebyshev distance
+    ``r`` on their first ``m`` values and on all ``m + 1``, each pair once; None when
+    more than ``_SAMPEN_PAIR_BUDGET`` pairs are candidates.
+
+    Sorted on the first value, a template's candidates are the templates after it whose
+    first value lies within ``r`` (a window found by bisection, a little wider); every
+    candidate is then tested with the distance ``|x_i - x_j| <= r`` on each value, as the
+    k-d tree tests it.
+    """
+    order = np.argsort(emb[:, 0], kind="stable")
+    x = emb[order]
+    first = x[:, 0]
+    n = first.size
+    # widened by far more than the rounding of first + r, so that no pair at the edge is lost
+    pad = 1e-9 * (float(np.abs(first).max()) + r)
+    window_end = np.searchsorted(first, first + (r + pad), side="right")
+    per_row = window_end - np.arange(n) - 1
+    total = int(per_row.sum())
+    if total > _SAMPEN_PAIR_BUDGET:
+        return None
+    i = np.repeat(np.arange(n), per_row)
+    j = i + 1 + np.arange(total) - np.repeat(np.cumsum(per_row) - per_row, per_row)
+    close = np.abs(x[i] - x[j]) <= r
+    match_b = close[:, :m].all(axis=1)
+    return int(match_b.sum()), int((match_b & close[:, m]).sum())
 
 
 def _run_bounds(runs: NDArray[np.int64]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
@@ -197,10 +236,12 @@ def nonlinear(times_s: ArrayLike, nn_ms: ArrayLike) -> NonlinearResult:
        sample SD (ddof=1) of the NN series, Chebyshev distance, a match when
        distance <= r, self-matches excluded, the same N - m template starts
        for lengths m and m + 1. ``SampEn = -ln(A / B)``. Departure: templates
-       must lie inside one run of adjacent intervals. Pairs are counted with
-       a k-d tree (:meth:`scipy.spatial.cKDTree.count_neighbors`), O(n)
-       memory and roughly O(n log n) time for r = 0.2 SD; no matches gives
-       None (``"sample_entropy_no_matches"``) rather than infinity.
+       must lie inside one run of adjacent intervals. Pairs are counted one
+       by one among the candidates left by a sort on the first value when
+       there are at most ``_SAMPEN_PAIR_BUDGET`` of them, else with a k-d tree
+       (:meth:`scipy.spatial.cKDTree.count_neighbors`, O(n) memory); the
+       counts are the same integers either way. No matches gives None
+       (``"sample_entropy_no_matches"``) rather than infinity.
     3. DFA (Peng et al. 1995): profile ``y(k) = cumsum(x - mean(x))``;
        non-overlapping boxes of n beats placed forward from the start of each
        run (the remainder of a run is dropped); least-squares line removed

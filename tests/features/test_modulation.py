@@ -198,6 +198,41 @@ def test_closed_form_cosinor_matches_scipy_least_squares():
     np.testing.assert_allclose(got[1], cov, rtol=1e-8, atol=1e-11)  # plus the 1e-12 ridge
 
 
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_tiled_trend_factor_matches_one_dense_qr(seed):
+    # The factor built tile by tile equals the trailing block of one Householder QR of the
+    # whole [trend, columns] (numpy.linalg.qr, mode "r") up to row signs, so their Gram
+    # matrices agree; 1e-10 relative covers rounding in reflections applied in another order
+    # (a few hundred rows, spline conditioning about 1e2).
+    from scipy.interpolate import BSpline
+
+    from features.modulation import _QR_TILE_ROWS, _trend_residual_factor
+
+    rng = np.random.default_rng(seed)
+    t = np.sort(rng.uniform(0.0, 300.0, 400))
+    t = t[(t < 100.0) | (t > 130.0)]  # a gap, as a masked movement leaves
+    assert t.size > 3 * _QR_TILE_ROWS  # several tiles
+    inner = np.linspace(t[0], t[-1], 70)[1:-1]
+    knots = np.concatenate(([t[0]] * 4, inner, [t[-1]] * 4))
+    trend = BSpline.design_matrix(t, knots, 3).toarray()
+    trend = trend[:, np.count_nonzero(trend, axis=0) >= 2]
+    cols = np.column_stack((np.cos(t), np.sin(t), 900.0 + 30.0 * rng.standard_normal(t.size)))
+    got = _trend_residual_factor(trend, cols)
+    assert got is not None
+    k = trend.shape[1]
+    want = np.linalg.qr(np.column_stack((trend, cols)), mode="r")[k:, k:]
+    np.testing.assert_allclose(got.T @ got, want.T @ want, rtol=1e-10)
+
+
+def test_tiled_trend_factor_flags_a_rank_deficient_trend():
+    # Two equal trend columns: the rank rule of numpy.linalg.lstsq rejects the trend.
+    from features.modulation import _trend_residual_factor
+
+    t = np.linspace(0.0, 10.0, 50)
+    trend = np.column_stack((np.ones_like(t), t, t))
+    assert _trend_residual_factor(trend, np.column_stack((np.cos(t), np.sin(t)))) is None
+
+
 # --------------------------------------------------------------------------- amplitude index
 
 

@@ -367,3 +367,17 @@ def test_estimates_that_disagree_by_more_than_4_per_min_sd_give_no_rate():
     assert r.spectral_rate_per_min == pytest.approx(9.0, abs=1.0)
     assert r.rate_per_min is None and r.confidence == 0.0
     assert "breathing_rate_estimates_disagree" in r.flags
+
+
+@pytest.mark.parametrize("q, n", [(5, 1001), (25, 75_000), (100, 30_001), (25, 7)])
+def test_decimate_matches_resample_poly(q, n):
+    # Reference: scipy.signal.resample_poly(x, 1, q, padtype="line") with the same FIR. The
+    # polyphase product sums the taps in another order: differences of a few ulps of the
+    # largest output, so 1e-13 of it.
+    from features.respiration import _decimate, _decimation_fir
+
+    x = np.cumsum(np.random.default_rng(q + n).standard_normal(n)) + 5.0
+    want = sps.resample_poly(x, 1, q, padtype="line", window=_decimation_fir(q))
+    got = _decimate(x, q)
+    assert got.shape == want.shape
+    np.testing.assert_allclose(got, want, rtol=0, atol=1e-13 * np.abs(want).max())

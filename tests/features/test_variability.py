@@ -257,6 +257,37 @@ def test_sample_entropy_seeded_noise_against_nolds():
     assert r.sample_entropy == pytest.approx(-math.log(math.erf(0.1)), abs=0.15)
 
 
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_sample_entropy_pair_counts_equal_all_pairs(seed):
+    # The sorted candidate count against a plain count over all pairs (the definition of
+    # Richman & Moorman 2000: Chebyshev distance <= r, each pair once); integer counts, so
+    # equality. Rounded values give ties and pairs exactly r apart, the edge case.
+    from features.variability.nonlinear import _match_counts_sorted
+
+    rng = np.random.default_rng(seed)
+    x = np.round(800.0 + 30.0 * rng.standard_normal(400))
+    emb = np.column_stack((x[:-2], x[1:-1], x[2:]))
+    upper = np.triu_indices(emb.shape[0], 1)
+    dist = np.abs(emb[:, None, :] - emb[None, :, :])
+    for r in (0.2 * x.std(ddof=1), 6.0):  # 6: many pairs exactly r apart
+        want_b = int((dist[..., :2].max(axis=-1) <= r)[upper].sum())
+        want_a = int((dist.max(axis=-1) <= r)[upper].sum())
+        assert _match_counts_sorted(emb, r, 2) == (want_b, want_a)
+
+
+def test_sample_entropy_same_by_tree_and_by_sorted_pairs(monkeypatch):
+    # Over the candidate budget the k-d tree counts (scipy.spatial.cKDTree); the counts
+    # are integers and equal, so the two paths give the same float.
+    nl = importlib.import_module("features.variability.nonlinear")
+
+    rng = np.random.default_rng(4)
+    x = 850.0 + 35.0 * rng.standard_normal(500)
+    by_pairs = nl.nonlinear(*_series(x)).sample_entropy
+    monkeypatch.setattr(nl, "_SAMPEN_PAIR_BUDGET", 0)
+    assert nl._match_counts_sorted(np.column_stack((x[:-2], x[1:-1], x[2:])), 7.0, 2) is None
+    assert nl.nonlinear(*_series(x)).sample_entropy == by_pairs
+
+
 def test_dfa_against_neurokit2():
     nk = pytest.importorskip("neurokit2")
     rng = np.random.default_rng(5)
