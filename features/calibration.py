@@ -69,8 +69,6 @@ EVIDENCE_NAMES = (
     "rmssd_over_jitter",
     "ij_precision",
     "jk_precision",
-    "ij_band_agreement",
-    "jk_band_agreement",
     "rsa_over_jitter",
     "rsa_precision",
     "rsa_half_agreement",
@@ -162,11 +160,6 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
           floor 1 ms);
         - ``ij_precision``, ``jk_precision``: log of 10 ms over the interval's standard
           error (floor 0.1 ms; 0 when unknown);
-        - ``ij_band_agreement``, ``jk_band_agreement``: log of 10 ms over the interval's
-          spread across the location cut-offs (``features.morphology.LOCATION_BANDS_HZ``;
-          floor 0.1 ms; 0 when unknown): a wave whose deepest point moves with the analysis
-          band is placed by that choice, not by the data, the same way on every beat, which
-          the split-sample standard error cannot see;
         - ``rsa_precision``: log of 10 ms (RSA's tolerance) over RSA's standard error from
           the cosinor fit (floor 0.1 ms; 0 when unknown);
         - ``rsa_half_agreement``: log of 10 ms over the size of the difference between the
@@ -238,8 +231,6 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
         "rmssd_over_jitter": _log_ratio(td.rmssd_ms, jitter, 1.0),
         "ij_precision": precision(mor.ij_interval_se_ms),
         "jk_precision": precision(mor.jk_interval_se_ms),
-        "ij_band_agreement": precision(mor.ij_interval_band_spread_ms),
-        "jk_band_agreement": precision(mor.jk_interval_band_spread_ms),
         "rsa_over_jitter": _log_ratio(mod.rsa_ms, jitter, 1.0),
         "rsa_precision": precision(mod.rsa_se_ms),
         "rsa_half_agreement": precision(mod.rsa_half_difference_ms),

@@ -55,9 +55,6 @@ SIGNATURE_WAVELET = WAVELET
 SIGNATURE_LEVELS = 6
 WAVE_LOWPASS_HZ = 25.0
 """Cut-off of the zero-phase low-pass applied to the template before its waves are located (Hz)."""
-LOCATION_BANDS_HZ = (20.0, 22.5, 25.0, 27.5, 30.0)
-"""Low-pass cut-offs (Hz) across which the intervals' band sensitivity is measured: the
-20-30 Hz range of cut-offs that served the cohort equally (Notes, step 4)."""
 SPLIT_GROUPS = 6
 """Interleaved beat groups whose separate templates give the standard errors (at most)."""
 INTERVAL_SE_SCALE_MS = 5.0
@@ -156,10 +153,6 @@ class MorphologyResult:
         Standard errors of the two intervals (ms) and the two peak-to-peak amplitudes
         (``amplitude_unit``) from the split-ensemble spread (Notes, step 10); None when a
         group template lacks one of the waves.
-    ij_interval_band_spread_ms, jk_interval_band_spread_ms
-        Range (largest minus smallest, ms) of each interval located on the template
-        low-passed at each cut-off of ``LOCATION_BANDS_HZ`` (Notes, step 11); None when the
-        waves are found at fewer than two of them.
     ij_interval_confidence, jk_interval_confidence, ij_amplitude_confidence, \
 jk_amplitude_confidence
         Family confidence times the measure's precision factor (Notes, step 10), in [0, 1].
@@ -201,8 +194,6 @@ jk_amplitude_confidence
     jk_interval_se_ms: float | None = None
     ij_amplitude_se: float | None = None
     jk_amplitude_se: float | None = None
-    ij_interval_band_spread_ms: float | None = None
-    jk_interval_band_spread_ms: float | None = None
     ij_interval_confidence: float = 0.0
     jk_interval_confidence: float = 0.0
     ij_amplitude_confidence: float = 0.0
@@ -332,13 +323,6 @@ def beat_morphology(
         estimate of the sampling error of an ensemble average; it sees noise and beat-to-beat
         variation, not a bias common to all beats (such as overlapping responses of
         successive beats on a ringing support).
-    11. Band sensitivity of the I-J and J-K intervals: the template is low-passed at each
-        cut-off of ``LOCATION_BANDS_HZ`` (20-30 Hz, the range of cut-offs that served the
-        cohort alike in step 4) and its waves located as in step 4; the spread is the largest
-        minus the smallest interval. It sees what step 10 cannot: a broad or flat trough
-        whose deepest point moves with the analysis band, the same on every beat (on a
-        rigid support the I trough can be a 30-ms plateau). The calibration reads it as
-        evidence (``features.calibration``); it does not change the reported values.
 
     The wave letters follow Gordon (1877) and the nomenclature of Starr et al. (1939); the
     windows are our reading of the typical wave timing in Inan et al. (2015) (from memory).
@@ -402,7 +386,6 @@ def beat_morphology(
     if offered - int(chosen.sum()) > 0:
         flags.append("beats_excluded_from_template")
     se = _split_standard_errors(template_epochs, tau_s, fs)
-    band_spread = _band_spreads(template, tau_s, fs)
     family = float(np.clip(confidence, 0.0, 1.0))
     precision = {
         "ij_interval": _precision(se["ij_interval"], INTERVAL_SE_SCALE_MS),
@@ -443,8 +426,6 @@ def beat_morphology(
         jk_interval_se_ms=se["jk_interval"],
         ij_amplitude_se=se["ij_amplitude"],
         jk_amplitude_se=se["jk_amplitude"],
-        ij_interval_band_spread_ms=band_spread["ij_interval"],
-        jk_interval_band_spread_ms=band_spread["jk_interval"],
         ij_interval_confidence=family * precision["ij_interval"],
         jk_interval_confidence=family * precision["jk_interval"],
         ij_amplitude_confidence=family * precision["ij_amplitude"],
@@ -749,24 +730,6 @@ def _split_standard_errors(epochs: NDArray[np.float64], tau_s: NDArray[np.float6
     sd = np.std(rows, axis=0, ddof=1) / np.sqrt(k)
     return {key: float(v) for key, v in zip(
         ("ij_interval", "jk_interval", "ij_amplitude", "jk_amplitude"), sd, strict=True)}
-
-
-def _band_spreads(template: NDArray[np.float64], tau_s: NDArray[np.float64],
-                  fs: float) -> dict[str, float | None]:
-    """Range (ms) of the I-J and J-K intervals over the location cut-offs (Notes, step 11)."""
-    views = np.array([template if hz >= 0.45 * fs else lowpass(template, fs, hz, order=2)
-                      for hz in LOCATION_BANDS_HZ])
-    raw = np.broadcast_to(template, views.shape)
-    w = _wave_rows(views, tau_s, fs, raw, names="IJK")
-    out: dict[str, float | None] = {}
-    for key, (a, b) in (("ij_interval", ("I", "J")), ("jk_interval", ("J", "K"))):
-        if a not in w or b not in w:
-            out[key] = None
-            continue
-        iv = 1e3 * (w[b][1] - w[a][1])
-        iv = iv[np.isfinite(iv)]
-        out[key] = float(iv.max() - iv.min()) if iv.size >= 2 else None
-    return out
 
 
 def _relative_pct(se: float | None, value: float | None) -> float | None:
