@@ -264,7 +264,9 @@ def analyze(
         beat_times_s=beats.times_s, breath_times_s=resp.breath_times_s,
         interval_ms=labels.nn_intervals_ms, interval_times_s=labels.nn_times_s,
         beat_amplitudes=morph.beat_jk_amplitudes, amplitude_times_s=morph.beat_times_s,
-        cardiac_amplitude=morph.jk_amplitude, normal_fraction=labels.fraction_normal,
+        cardiac_amplitude=morph.jk_amplitude,
+        explained_fraction=(labels.n_normal + labels.n_ectopic) / len(labels.labels)
+        if labels.labels else None,
     )
 
     quality = signal_quality(mask, beats, load_empty_throughout=empty_throughout)
