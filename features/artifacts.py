@@ -346,10 +346,12 @@ def _positive(field: str, value: object, *, allow_zero: bool = False) -> float:
 def _block_std(x: NDArray[np.generic], length: int) -> FloatArray:
     """Standard deviation of consecutive blocks of ``length`` samples, two-pass, chunked.
 
-    ``numpy.std`` of each block less its mean, the same numbers: numpy's own steps (sums
-    along the block, divided by the count; the deviations squared in place and summed)
-    without its wrapper and temporaries, in chunks of about ``_CHUNK_SAMPLES`` samples
-    whose temporaries stay in cache.
+    ``numpy.std`` of each block less its mean, to rounding: numpy's steps (sums along
+    the block, divided by the count; the deviations squared and summed) with the sums
+    by ``numpy.einsum``, vectorised along the short block axis (``numpy.add.reduce``
+    steps through one block at a time; the summation order differs, a few units in the
+    last place), in chunks of about ``_CHUNK_SAMPLES`` samples whose temporaries stay
+    in cache. The deviations are centred twice, so a constant block gives exactly 0.
     """
     m = x.shape[0] // length
     out = np.empty(m)
@@ -357,14 +359,13 @@ def _block_std(x: NDArray[np.generic], length: int) -> FloatArray:
     for b0 in range(0, m, step):
         b1 = min(m, b0 + step)
         blk = np.asarray(x[b0 * length: b1 * length], dtype=np.float64).reshape(-1, length)
-        mean = np.add.reduce(blk, axis=1, keepdims=True)
+        mean = np.einsum("ij->i", blk)[:, None]
         mean /= length
         dev = blk - mean
-        mean = np.add.reduce(dev, axis=1, keepdims=True)  # numpy.std centres once more
+        mean = np.einsum("ij->i", dev)[:, None]  # centred once more
         mean /= length
         dev -= mean
-        np.multiply(dev, dev, out=dev)
-        var = np.add.reduce(dev, axis=1)
+        var = np.einsum("ij,ij->i", dev, dev)
         var /= length
         np.sqrt(var, out=out[b0:b1])
     return out

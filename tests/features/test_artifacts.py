@@ -279,12 +279,27 @@ def test_block_std_equals_numpy_std_of_the_centred_blocks(n: int, length: int) -
     x = 5.0 + 3.0 * rng.standard_normal(n)
     m = n // length
     blocks = x[: m * length].reshape(m, length)
-    # Reference: numpy.std of each block less its mean (the kernel's definition). Bit-equal:
-    # the kernel takes numpy's own steps, chunked; the chunks (2**16 samples) split these
-    # traces, so a chunk boundary is covered.
+    # Reference: numpy.std of each block less its mean (the kernel's definition). The
+    # kernel sums by numpy.einsum in another order: a few units in the last place, so
+    # rtol 1e-13. The chunks (2**16 samples) split these traces, so a chunk boundary is
+    # covered.
     want = np.std(blocks - blocks.mean(axis=1, keepdims=True), axis=1)
-    np.testing.assert_array_equal(_block_std(x, length), want)
+    np.testing.assert_allclose(_block_std(x, length), want, rtol=1e-13)
     ints = rng.integers(-2000, 2000, size=n, dtype=np.int16)
     blocks_i = ints[: m * length].astype(np.float64).reshape(m, length)
-    np.testing.assert_array_equal(_block_std(ints, length), np.std(
-        blocks_i - blocks_i.mean(axis=1, keepdims=True), axis=1))
+    np.testing.assert_allclose(_block_std(ints, length), np.std(
+        blocks_i - blocks_i.mean(axis=1, keepdims=True), axis=1), rtol=1e-13)
+
+
+@pytest.mark.parametrize("level", [0.1, 1.0 / 3.0, 12345.678, -7.77e5, 3.3e-7])
+def test_block_std_of_a_constant_block_is_exactly_zero(level: float) -> None:
+    from features.artifacts import _block_std
+
+    # A flat line is found where a block's spread is at most 1e-4 of the median one,
+    # which is 0 when most blocks are flat: a constant block must give 0 exactly, not a
+    # rounding residue (the deviations are centred twice).
+    x = np.full(75_000, level)
+    x[40_000:] += np.random.default_rng(3).standard_normal(35_000)
+    got = _block_std(x, 32)
+    assert np.all(got[: 40_000 // 32] == 0.0)
+    assert np.all(got[40_000 // 32 + 1:] > 0.0)
