@@ -424,10 +424,13 @@ def _flat_and_clipping(sources: list[NDArray[np.generic]], fs: float, min_flat_s
 
 
 def _covered_fraction(spans: list[tuple[str, int, int]], n: int) -> float:
-    mask = np.zeros(n, dtype=bool)
-    for _, a, b in spans:
-        mask[a:b] = True
-    return float(mask.mean())
+    """Share of the ``n`` samples inside at least one span (their union, in order)."""
+    covered, reach = 0, 0
+    for a, b in sorted((max(0, a), min(n, b)) for _, a, b in spans):
+        if b > max(a, reach):
+            covered += b - max(a, reach)
+            reach = b
+    return covered / n
 
 
 def _empty_support(load: FloatArray, factor: int, level_n: float, pad: int, n: int
@@ -445,7 +448,8 @@ def _movement(x: FloatArray, fs: float, k: float, pad: int,
     hp = highpass(block_means(x, factor), fs_a, _ENV_HIGHPASS_HZ)
     blk = max(1, int(round(_ENV_BLOCK_S * fs_a)))
     m = hp.shape[0] // blk
-    ms = np.mean(hp[: m * blk].reshape(m, blk) ** 2, axis=1)
+    rows = hp[: m * blk].reshape(m, blk)
+    ms = np.einsum("ij,ij->i", rows, rows) / blk
     env = np.sqrt(np.convolve(ms, np.ones(_ENV_SPAN_BLOCKS) / _ENV_SPAN_BLOCKS, mode="same"))
     top = float(env.max()) if m else 0.0
     if top <= 0.0:

@@ -61,7 +61,7 @@ def block_means(x: NDArray[np.generic], factor: int) -> FloatArray:
         return total
     shaped = x[..., : m * factor].reshape(*x.shape[:-1], m, factor)
     if x.dtype == np.float64:
-        sums: FloatArray = np.einsum("...j->...", shaped)
+        sums: FloatArray = np.einsum("...j->...", cast(FloatArray, shaped))
         sums /= factor
         return sums
     return np.asarray(shaped.mean(axis=-1, dtype=np.float64))

@@ -344,7 +344,9 @@ def _mrc_weights(cardiac: FloatArray, fs_a: float, flags: list[str]
     n_ch = cardiac.shape[0]
     win = _windows(cardiac, fs_a, MAX_ANALYSIS_WINDOWS)
     r = _autocorr(win, int(round(LAG_RANGE_S[1] * fs_a)))
-    total = lane_median(np.mean(win ** 2, axis=-1))
+    # Each window's energy, read again below for the zero-lag correlations.
+    energy = np.einsum("cwl,cwl->cw", win, win)
+    total = lane_median(energy / win.shape[-1])
     dead = total <= 0.0
     loo = int(np.count_nonzero(~dead)) >= 3
     r0, lag = _heart_lags(r, fs_a, leave_one_out=loo)
@@ -365,7 +367,6 @@ def _mrc_weights(cardiac: FloatArray, fs_a: float, flags: list[str]
         return np.ones(n_ch), snr, lag_s, "equal_weights"
     ref = int(np.nanargmax(snr))
     cross = np.einsum("cwl,wl->cw", win, win[ref])
-    energy = np.einsum("cwl,cwl->cw", win, win)
     denom = np.sqrt(energy * energy[ref][None, :])
     corr = np.divide(cross, denom, out=np.zeros_like(cross), where=denom > 0.0)
     sign = np.where(lane_median(corr) < 0.0, -1.0, 1.0)
