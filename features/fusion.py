@@ -466,8 +466,10 @@ def _cardiac_excursion_mm(cardiac: FloatArray, fs_a: float, total: FloatArray,
     s = s_i.sum(axis=0)  # (k,) mean total force of each kept window
     centre = (pos.T @ s_i) / s  # (2, k)
     lever = (pos[:, :, None] - centre[None, :, :]) / s  # (n_ch, 2, k)
-    band_cop = np.einsum("cak,ckl->kal", lever, win[:, keep])
-    rms = np.sqrt((band_cop * band_cop).sum(axis=1).mean(axis=-1))
+    # (k, 2, n_ch) @ (k, n_ch, L): each kept window's two CoP axes, one small product a
+    # window; the radial mean square summed in one pass
+    band_cop = np.matmul(lever.transpose(2, 1, 0), win[:, keep].transpose(1, 0, 2))
+    rms = np.sqrt(np.einsum("kal,kal->k", band_cop, band_cop) / band_cop.shape[-1])
     return float(1000.0 * median_1d(rms))
 
 
