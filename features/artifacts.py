@@ -386,17 +386,19 @@ def _flat_and_clipping(sources: list[NDArray[np.generic]], fs: float, min_flat_s
         if hi == lo:
             per_channel.append([("flat_line", 0, n)])
             continue
+        # Runs of equal samples, [start, end): a clipped stretch (at least min_clip >= 3
+        # samples) is such a run at the trace's maximum or minimum, and a flat line one
+        # elsewhere, so one pass finds both.
+        starts, ends = runs(src[1:] == src[:-1])
+        ends = ends + 1
         for extreme in (hi, lo):
-            starts, ends = runs(src == extreme)
-            keep = ends - starts >= min_clip
+            keep = (src[starts] == extreme) & (ends - starts >= min_clip)
             brief = keep & (ends - starts < brief_clip)
             if brief.any():
                 n_brief += int(brief.sum())
             keep &= ~brief
             spans += [("clipping", int(a), int(b)) for a, b in zip(starts[keep], ends[keep],
                                                                     strict=True)]
-        starts, ends = runs(src[1:] == src[:-1])
-        ends = ends + 1
         keep = ends - starts >= min_run
         for a, b in zip(starts[keep], ends[keep], strict=True):
             if src[a] != hi and src[a] != lo:

@@ -303,3 +303,39 @@ def test_block_std_of_a_constant_block_is_exactly_zero(level: float) -> None:
     got = _block_std(x, 32)
     assert np.all(got[: 40_000 // 32] == 0.0)
     assert np.all(got[40_000 // 32 + 1:] > 0.0)
+
+
+def test_clipping_and_flat_runs_match_a_direct_scan_of_each_extreme() -> None:
+    from features.artifacts import _BRIEF_CLIP_S, _MIN_CLIP_S, _MIN_CLIP_SAMPLES, _flat_and_clipping
+
+    fs = 250.0
+    rng = np.random.default_rng(11)
+    x = rng.standard_normal(20_000)
+    hi, lo = 10.0, -10.0
+    # clipped stretches at the maximum and the minimum, brief and long, and flat lines
+    for start, length, value in [(1000, 2, hi), (2000, 3, hi), (3000, 9, hi), (4000, 40, hi),
+                                 (5000, 300, lo), (6000, 5, lo), (7000, 12, lo),
+                                 (8000, 120, 0.5), (9000, 30, -0.25), (12_000, 70, hi)]:
+        x[start:start + length] = value
+    got = _flat_and_clipping([x], fs, 0.25, flags := [])
+
+    # Reference: the definition, scanned directly: maximal runs of samples equal to each
+    # extreme (numpy.diff of the padded mask), kept from min_clip samples, brief ones
+    # (under _BRIEF_CLIP_S) only counted; flat lines are runs of equal samples elsewhere.
+    def runs_of(mask: np.ndarray) -> list[tuple[int, int]]:
+        d = np.diff(np.concatenate(([0], mask.astype(np.int8), [0])))
+        return list(zip(np.flatnonzero(d == 1).tolist(), np.flatnonzero(d == -1).tolist(),
+                        strict=True))
+
+    min_clip = max(_MIN_CLIP_SAMPLES, int(np.ceil(_MIN_CLIP_S * fs)))
+    brief = max(min_clip + 1, int(np.ceil(_BRIEF_CLIP_S * fs)))
+    want = [("clipping", a, b) for v in (hi, lo) for a, b in runs_of(x == v)
+            if b - a >= brief]
+    n_brief = sum(1 for v in (hi, lo) for a, b in runs_of(x == v) if min_clip <= b - a < brief)
+    clip_got = [s for s in got if s[0] == "clipping"]
+    assert clip_got == want
+    # the stretches of 3, 9 (at the maximum), 5 and 12 samples (at the minimum) are brief
+    assert n_brief == 4 and "brief_clipping_not_masked" in flags
+    flat_got = {(a, b) for k, a, b in got if k == "flat_line"}
+    # a flat line from 0.25 s (63 samples at 250 Hz): the 120-sample stretch, not the 30
+    assert (8000, 8120) in flat_got and not any(a <= 9000 < b for a, b in flat_got)
