@@ -346,10 +346,12 @@ def _positive(field: str, value: object, *, allow_zero: bool = False) -> float:
 def _block_std(x: NDArray[np.generic], length: int) -> FloatArray:
     """Standard deviation of consecutive blocks of ``length`` samples, two-pass, chunked.
 
-    ``numpy.std`` of each block less its mean, the same numbers: numpy's own steps (sums
-    along the block, divided by the count; the deviations squared in place and summed)
-    without its wrapper and temporaries, in chunks of about ``_CHUNK_SAMPLES`` samples
-    whose temporaries stay in cache.
+    ``numpy.std`` of each block less its mean, to rounding: numpy's steps (sums along
+    the block, divided by the count; the deviations squared and summed) with the sums
+    by ``numpy.einsum``, vectorised along the short block axis (``numpy.add.reduce``
+    steps through one block at a time; the summation order differs, a few units in the
+    last place), in chunks of about ``_CHUNK_SAMPLES`` samples whose temporaries stay
+    in cache. The deviations are centred twice, so a constant block gives exactly 0.
     """
     m = x.shape[0] // length
     out = np.empty(m)
@@ -357,14 +359,13 @@ def _block_std(x: NDArray[np.generic], length: int) -> FloatArray:
     for b0 in range(0, m, step):
         b1 = min(m, b0 + step)
         blk = np.asarray(x[b0 * length: b1 * length], dtype=np.float64).reshape(-1, length)
-        mean = np.add.reduce(blk, axis=1, keepdims=True)
+        mean = np.einsum("ij->i", blk)[:, None]
         mean /= length
         dev = blk - mean
-        mean = np.add.reduce(dev, axis=1, keepdims=True)  # numpy.std centres once more
+        mean = np.einsum("ij->i", dev)[:, None]  # centred once more
         mean /= length
         dev -= mean
-        np.multiply(dev, dev, out=dev)
-        var = np.add.reduce(dev, axis=1)
+        var = np.einsum("ij,ij->i", dev, dev)
         var /= length
         np.sqrt(var, out=out[b0:b1])
     return out
@@ -385,17 +386,19 @@ def _flat_and_clipping(sources: list[NDArray[np.generic]], fs: float, min_flat_s
         if hi == lo:
             per_channel.append([("flat_line", 0, n)])
             continue
+        # Runs of equal samples, [start, end): a clipped stretch (at least min_clip >= 3
+        # samples) is such a run at the trace's maximum or minimum, and a flat line one
+        # elsewhere, so one pass finds both.
+        starts, ends = runs(src[1:] == src[:-1])
+        ends = ends + 1
         for extreme in (hi, lo):
-            starts, ends = runs(src == extreme)
-            keep = ends - starts >= min_clip
+            keep = (src[starts] == extreme) & (ends - starts >= min_clip)
             brief = keep & (ends - starts < brief_clip)
             if brief.any():
                 n_brief += int(brief.sum())
             keep &= ~brief
             spans += [("clipping", int(a), int(b)) for a, b in zip(starts[keep], ends[keep],
                                                                     strict=True)]
-        starts, ends = runs(src[1:] == src[:-1])
-        ends = ends + 1
         keep = ends - starts >= min_run
         for a, b in zip(starts[keep], ends[keep], strict=True):
             if src[a] != hi and src[a] != lo:
@@ -423,10 +426,13 @@ def _flat_and_clipping(sources: list[NDArray[np.generic]], fs: float, min_flat_s
 
 
 def _covered_fraction(spans: list[tuple[str, int, int]], n: int) -> float:
-    mask = np.zeros(n, dtype=bool)
-    for _, a, b in spans:
-        mask[a:b] = True
-    return float(mask.mean())
+    """Share of the ``n`` samples inside at least one span (their union, in order)."""
+    covered, reach = 0, 0
+    for a, b in sorted((max(0, a), min(n, b)) for _, a, b in spans):
+        if b > max(a, reach):
+            covered += b - max(a, reach)
+            reach = b
+    return covered / n
 
 
 def _empty_support(load: FloatArray, factor: int, level_n: float, pad: int, n: int
@@ -444,7 +450,8 @@ def _movement(x: FloatArray, fs: float, k: float, pad: int,
     hp = highpass(block_means(x, factor), fs_a, _ENV_HIGHPASS_HZ)
     blk = max(1, int(round(_ENV_BLOCK_S * fs_a)))
     m = hp.shape[0] // blk
-    ms = np.mean(hp[: m * blk].reshape(m, blk) ** 2, axis=1)
+    rows = hp[: m * blk].reshape(m, blk)
+    ms = np.einsum("ij,ij->i", rows, rows) / blk
     env = np.sqrt(np.convolve(ms, np.ones(_ENV_SPAN_BLOCKS) / _ENV_SPAN_BLOCKS, mode="same"))
     top = float(env.max()) if m else 0.0
     if top <= 0.0:

@@ -376,7 +376,8 @@ def detect_beats(
     x, mask = _validate(trace, fs_hz, usable, rate_range_bpm)
     flags: list[str] = []
     comp, fs_w, usable_w, levels = _beat_band(x, fs_hz, mask, recoverable, flags)
-    scale = robust_sd(comp[usable_w]) if usable_w.any() else 0.0
+    scale = (robust_sd(comp) if usable_w.all() else robust_sd(comp[usable_w])) \
+        if usable_w.any() else 0.0
     if not np.isfinite(scale) or scale <= 0.0:
         return _empty(fs_w, levels, flags + ["no_signal_in_beat_band"])
     w = _Work(comp=comp / scale, fs=fs_w, usable=usable_w, levels=levels,
@@ -549,7 +550,6 @@ def _refine_template(w: _Work, matcher: _Matcher, polarity: int,
     """
     half, reach_j, n = w.half, w.reach_j, w.comp.size
     for attempt in range(2):
-        signed = w.comp * polarity
         for _ in range(2):
             corr, _ = _match(matcher, polarity, template, half[0])
             cand, _ = signal.find_peaks(corr, distance=dist, height=0.2)
@@ -557,8 +557,13 @@ def _refine_template(w: _Work, matcher: _Matcher, polarity: int,
             if cand.size < 4:
                 return None
             best = cand[corr[cand] >= quantile_half(corr[cand])]
-            # numpy.median over the epochs, from one sort of each template sample's lane
-            template = _recentre(lane_median(_lanes(signed, best, half)), half[0], reach_j)
+            # numpy.median over the epochs, from one sort of each template sample's lane;
+            # the lanes of the signed component (a sign change is exact and commutes
+            # with the median), without a signed copy of the whole component
+            lanes = _lanes(w.comp, best, half)
+            if polarity < 0:
+                np.negative(lanes, out=lanes)
+            template = _recentre(lane_median(lanes), half[0], reach_j)
         # The aligned template is sharper than the envelope-aligned mean:
         # check the polarity on it once, and start again flipped if needed.
         if attempt == 0 and _polarity(template, half[0], reach_j) < 0:

@@ -344,7 +344,9 @@ def _mrc_weights(cardiac: FloatArray, fs_a: float, flags: list[str]
     n_ch = cardiac.shape[0]
     win = _windows(cardiac, fs_a, MAX_ANALYSIS_WINDOWS)
     r = _autocorr(win, int(round(LAG_RANGE_S[1] * fs_a)))
-    total = lane_median(np.mean(win ** 2, axis=-1))
+    # Each window's energy, read again below for the zero-lag correlations.
+    energy = np.einsum("cwl,cwl->cw", win, win)
+    total = lane_median(energy / win.shape[-1])
     dead = total <= 0.0
     loo = int(np.count_nonzero(~dead)) >= 3
     r0, lag = _heart_lags(r, fs_a, leave_one_out=loo)
@@ -365,7 +367,6 @@ def _mrc_weights(cardiac: FloatArray, fs_a: float, flags: list[str]
         return np.ones(n_ch), snr, lag_s, "equal_weights"
     ref = int(np.nanargmax(snr))
     cross = np.einsum("cwl,wl->cw", win, win[ref])
-    energy = np.einsum("cwl,cwl->cw", win, win)
     denom = np.sqrt(energy * energy[ref][None, :])
     corr = np.divide(cross, denom, out=np.zeros_like(cross), where=denom > 0.0)
     sign = np.where(lane_median(corr) < 0.0, -1.0, 1.0)
@@ -465,8 +466,10 @@ def _cardiac_excursion_mm(cardiac: FloatArray, fs_a: float, total: FloatArray,
     s = s_i.sum(axis=0)  # (k,) mean total force of each kept window
     centre = (pos.T @ s_i) / s  # (2, k)
     lever = (pos[:, :, None] - centre[None, :, :]) / s  # (n_ch, 2, k)
-    band_cop = np.einsum("cak,ckl->kal", lever, win[:, keep])
-    rms = np.sqrt((band_cop * band_cop).sum(axis=1).mean(axis=-1))
+    # (k, 2, n_ch) @ (k, n_ch, L): each kept window's two CoP axes, one small product a
+    # window; the radial mean square summed in one pass
+    band_cop = np.matmul(lever.transpose(2, 1, 0), win[:, keep].transpose(1, 0, 2))
+    rms = np.sqrt(np.einsum("kal,kal->k", band_cop, band_cop) / band_cop.shape[-1])
     return float(1000.0 * median_1d(rms))
 
 

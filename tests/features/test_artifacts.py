@@ -279,12 +279,63 @@ def test_block_std_equals_numpy_std_of_the_centred_blocks(n: int, length: int) -
     x = 5.0 + 3.0 * rng.standard_normal(n)
     m = n // length
     blocks = x[: m * length].reshape(m, length)
-    # Reference: numpy.std of each block less its mean (the kernel's definition). Bit-equal:
-    # the kernel takes numpy's own steps, chunked; the chunks (2**16 samples) split these
-    # traces, so a chunk boundary is covered.
+    # Reference: numpy.std of each block less its mean (the kernel's definition). The
+    # kernel sums by numpy.einsum in another order: a few units in the last place, so
+    # rtol 1e-13. The chunks (2**16 samples) split these traces, so a chunk boundary is
+    # covered.
     want = np.std(blocks - blocks.mean(axis=1, keepdims=True), axis=1)
-    np.testing.assert_array_equal(_block_std(x, length), want)
+    np.testing.assert_allclose(_block_std(x, length), want, rtol=1e-13)
     ints = rng.integers(-2000, 2000, size=n, dtype=np.int16)
     blocks_i = ints[: m * length].astype(np.float64).reshape(m, length)
-    np.testing.assert_array_equal(_block_std(ints, length), np.std(
-        blocks_i - blocks_i.mean(axis=1, keepdims=True), axis=1))
+    np.testing.assert_allclose(_block_std(ints, length), np.std(
+        blocks_i - blocks_i.mean(axis=1, keepdims=True), axis=1), rtol=1e-13)
+
+
+@pytest.mark.parametrize("level", [0.1, 1.0 / 3.0, 12345.678, -7.77e5, 3.3e-7])
+def test_block_std_of_a_constant_block_is_exactly_zero(level: float) -> None:
+    from features.artifacts import _block_std
+
+    # A flat line is found where a block's spread is at most 1e-4 of the median one,
+    # which is 0 when most blocks are flat: a constant block must give 0 exactly, not a
+    # rounding residue (the deviations are centred twice).
+    x = np.full(75_000, level)
+    x[40_000:] += np.random.default_rng(3).standard_normal(35_000)
+    got = _block_std(x, 32)
+    assert np.all(got[: 40_000 // 32] == 0.0)
+    assert np.all(got[40_000 // 32 + 1:] > 0.0)
+
+
+def test_clipping_and_flat_runs_match_a_direct_scan_of_each_extreme() -> None:
+    from features.artifacts import _BRIEF_CLIP_S, _MIN_CLIP_S, _MIN_CLIP_SAMPLES, _flat_and_clipping
+
+    fs = 250.0
+    rng = np.random.default_rng(11)
+    x = rng.standard_normal(20_000)
+    hi, lo = 10.0, -10.0
+    # clipped stretches at the maximum and the minimum, brief and long, and flat lines
+    for start, length, value in [(1000, 2, hi), (2000, 3, hi), (3000, 9, hi), (4000, 40, hi),
+                                 (5000, 300, lo), (6000, 5, lo), (7000, 12, lo),
+                                 (8000, 120, 0.5), (9000, 30, -0.25), (12_000, 70, hi)]:
+        x[start:start + length] = value
+    got = _flat_and_clipping([x], fs, 0.25, flags := [])
+
+    # Reference: the definition, scanned directly: maximal runs of samples equal to each
+    # extreme (numpy.diff of the padded mask), kept from min_clip samples, brief ones
+    # (under _BRIEF_CLIP_S) only counted; flat lines are runs of equal samples elsewhere.
+    def runs_of(mask: np.ndarray) -> list[tuple[int, int]]:
+        d = np.diff(np.concatenate(([0], mask.astype(np.int8), [0])))
+        return list(zip(np.flatnonzero(d == 1).tolist(), np.flatnonzero(d == -1).tolist(),
+                        strict=True))
+
+    min_clip = max(_MIN_CLIP_SAMPLES, int(np.ceil(_MIN_CLIP_S * fs)))
+    brief = max(min_clip + 1, int(np.ceil(_BRIEF_CLIP_S * fs)))
+    want = [("clipping", a, b) for v in (hi, lo) for a, b in runs_of(x == v)
+            if b - a >= brief]
+    n_brief = sum(1 for v in (hi, lo) for a, b in runs_of(x == v) if min_clip <= b - a < brief)
+    clip_got = [s for s in got if s[0] == "clipping"]
+    assert clip_got == want
+    # the stretches of 3, 9 (at the maximum), 5 and 12 samples (at the minimum) are brief
+    assert n_brief == 4 and "brief_clipping_not_masked" in flags
+    flat_got = {(a, b) for k, a, b in got if k == "flat_line"}
+    # a flat line from 0.25 s (63 samples at 250 Hz): the 120-sample stretch, not the 30
+    assert (8000, 8120) in flat_got and not any(a <= 9000 < b for a, b in flat_got)
