@@ -101,7 +101,7 @@ def _sample_entropy(
         return None, "sample_entropy_no_templates"
     emb = nn[starts[:, None] + np.arange(m + 1)[None, :]]
     counts = _match_counts_sorted(emb, r, m)
-    count_b, count_a = _match_counts_blocked(emb, r, m) if counts is None else counts
+    count_b, count_a = _match_counts_blocked(nn, starts, r) if counts is None else counts
     if count_a == 0 or count_b == 0:
         return None, "sample_entropy_no_matches"
     return float(-math.log(count_a / count_b)), None
@@ -169,12 +169,15 @@ def _rank_windows(
     return rank, lo[rank], hi[rank]
 
 
-def _match_counts_blocked(emb: NDArray[np.float64], r: float, m: int) -> tuple[int, int]:
-    """The counts of :func:`_match_counts_sorted` for m = 2 (templates of three values)
-    without testing every candidate pair.
+def _match_counts_blocked(
+    values: NDArray[np.float64], starts: NDArray[np.intp], r: float
+) -> tuple[int, int]:
+    """The counts of :func:`_match_counts_sorted` for m = 2, templates
+    ``values[starts + (0, 1, 2)]``, without testing every candidate pair.
 
-    Every template's neighbourhood is a box of rank ranges, one per value
-    (:func:`_rank_windows`), so both counts are sums of range counts over integer ranks.
+    Every template's neighbourhood is a box of rank ranges, one per value, the ranks
+    and ranges those of ``values`` (:func:`_rank_windows`; a template's values are among
+    them), so both counts are sums of range counts over integer ranks.
     With the templates in order of their first value the first range is a run of
     positions; the positions are cut into blocks of ``b``, near sqrt(n). A block that a
     run covers whole is counted from the block's number of members below each rank of
@@ -183,12 +186,13 @@ def _match_counts_blocked(emb: NDArray[np.float64], r: float, m: int) -> tuple[i
     part is tested member by member. Time O(n^2 / b + n b), memory O(n + b^2). Each
     template counts itself once, which the pair counts take off.
     """
-    n = emb.shape[0]
-    windows = [_rank_windows(emb[:, k], r) for k in range(m + 1)]
-    order = np.argsort(windows[0][0])  # position = rank of the first value
-    rank = [w[0][order] for w in windows]
-    lo = [w[1][order] for w in windows]
-    hi = [w[2][order] for w in windows]
+    n, n_values = starts.size, values.size
+    value_rank, value_lo, value_hi = _rank_windows(values, r)
+    # templates in order of the rank of their first value: position = order of that rank
+    at = starts[np.argsort(value_rank[starts])][:, None] + np.arange(3)[None, :]
+    rank, lo, hi = ([w[at[:, k]] for k in range(3)] for w in (value_rank, value_lo, value_hi))
+    # the first value's range as positions: templates whose first value ranks below it
+    lo[0], hi[0] = (np.searchsorted(rank[0], bound) for bound in (lo[0], hi[0]))
     b = max(16, 1 << int(round(math.log2(math.sqrt(n)))))
     count_b = count_a = 0
     for start in range(0, n, b):
@@ -198,8 +202,8 @@ def _match_counts_blocked(emb: NDArray[np.float64], r: float, m: int) -> tuple[i
         first, last = np.searchsorted(hi[0], stop), np.searchsorted(lo[0], start, side="right")
         if last > first:
             # members with rank below each rank of the second (third) value
-            below_y = np.r_[0, np.cumsum(np.bincount(ry, minlength=n))]
-            below_z = np.r_[0, np.cumsum(np.bincount(rz, minlength=n))]
+            below_y = np.r_[0, np.cumsum(np.bincount(ry, minlength=n_values))]
+            below_z = np.r_[0, np.cumsum(np.bincount(rz, minlength=n_values))]
             py = [below_y[bound[1][first:last]] for bound in (lo, hi)]
             pz = [below_z[bound[2][first:last]] for bound in (lo, hi)]
             count_b += int((py[1] - py[0]).sum())
