@@ -143,8 +143,9 @@ def _rank_windows(
 
     ``v_j - v_i`` rounds monotonically in ``v_j``, so the values that pass form one run of
     the sorted order. Bisection at ``v_i -+ r`` widened and narrowed by a pad far above
-    rounding leaves a thin strip at each end (almost always empty) whose members are
-    tested one by one.
+    rounding leaves a thin strip at each end (almost always empty), below and above the
+    ties of ``v_i`` (which pass), whose members are tested one by one: within a strip the
+    test is monotone, failures then passes below, passes then failures above.
     """
     n = v.size
     order = np.argsort(v, kind="stable")
@@ -153,10 +154,13 @@ def _rank_windows(
     rank[order] = np.arange(n)
     pad = 1e-9 * (float(np.abs(s).max()) + r)
     ends = []
-    # bounds for the sorted values (sorted needles bisect fastest), then back to v's order
+    # bounds for the sorted values (sorted needles bisect fastest), then back to v's order;
+    # each strip stays on its side of the value's own ties (the pad can exceed a tiny r)
     for start, stop in (
-        (np.searchsorted(s, s - (r + pad)), np.searchsorted(s, s - (r - pad))),
-        (np.searchsorted(s, s + (r - pad), "right"), np.searchsorted(s, s + (r + pad), "right")),
+        (np.searchsorted(s, s - (r + pad)),
+         np.minimum(np.searchsorted(s, s - (r - pad)), np.searchsorted(s, s))),
+        (np.maximum(np.searchsorted(s, s + (r - pad), "right"), np.searchsorted(s, s, "right")),
+         np.searchsorted(s, s + (r + pad), "right")),
     ):
         width = stop - start
         owner = np.repeat(np.arange(n), width)

@@ -303,6 +303,19 @@ def test_sample_entropy_block_count_on_a_correlated_series():
     assert nl._match_counts_blocked(x, starts, r) == _all_pairs_counts(emb, r)
 
 
+@pytest.mark.parametrize("spread", [1e-6, 1e-9])
+def test_sample_entropy_block_count_with_r_below_the_rounding_pad(spread):
+    # Values near 1e6 with a spread so small that r (0.2 SD) is below the pad that guards
+    # the rank ranges against rounding (1e-9 of the largest value): the edge strips then
+    # reach across the value itself and must still give the all-pairs count.
+    nl = importlib.import_module("features.variability.nonlinear")
+
+    x = 1e6 + spread * np.random.default_rng(1).standard_normal(400)
+    emb = np.column_stack((x[:-2], x[1:-1], x[2:]))
+    r = 0.2 * x.std(ddof=1)
+    assert nl._match_counts_blocked(x, np.arange(emb.shape[0]), r) == _all_pairs_counts(emb, r)
+
+
 def test_sample_entropy_same_by_blocks_and_by_sorted_pairs(monkeypatch):
     # Over the candidate budget the block count is used; the counts are integers and
     # equal, so the two paths give the same float.
