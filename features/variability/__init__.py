@@ -20,8 +20,9 @@ heart_rate_variability
     All three families on the normal intervals of a labelled series.
 
 Every value is a finite float or None; None always comes with a flag naming
-the reason. Every measure costs O(n) or O(n log n) in the series length
-(sample entropy: a k-d tree pair count, see :func:`nonlinear`).
+the reason. Every measure costs O(n) or O(n log n) in the series length,
+except sample entropy: O(n^1.5), a range count over ranks in blocks of about
+sqrt(n) templates (see :func:`nonlinear`).
 """
 
 from __future__ import annotations

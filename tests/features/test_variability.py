@@ -257,31 +257,73 @@ def test_sample_entropy_seeded_noise_against_nolds():
     assert r.sample_entropy == pytest.approx(-math.log(math.erf(0.1)), abs=0.15)
 
 
+def _all_pairs_counts(emb, r):
+    # The definition of Richman & Moorman 2000: pairs of templates (each pair once) within
+    # Chebyshev distance r on the first two values (B) and on all three (A), every pair
+    # tested, a few rows at a time.
+    want_b = want_a = 0
+    for i in range(0, emb.shape[0], 256):
+        dist = np.abs(emb[i : i + 256, None, :] - emb[None, :, :])
+        later = np.arange(emb.shape[0])[None, :] > np.arange(i, i + dist.shape[0])[:, None]
+        close_b = (dist[..., :2].max(axis=-1) <= r) & later
+        want_b += int(close_b.sum())
+        want_a += int((close_b & (dist[..., 2] <= r)).sum())
+    return want_b, want_a
+
+
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_sample_entropy_pair_counts_equal_all_pairs(seed):
-    # The sorted candidate count against a plain count over all pairs (the definition of
-    # Richman & Moorman 2000: Chebyshev distance <= r, each pair once); integer counts, so
-    # equality. Rounded values give ties and pairs exactly r apart, the edge case.
-    from features.variability.nonlinear import _match_counts_sorted
+    # The sorted candidate count and the block count against a plain count over all pairs;
+    # integer counts, so equality. Rounded values give ties and pairs exactly r apart, the
+    # edge case; 3000 templates make 47 blocks of 64 (whole and part blocks both counted).
+    nl = importlib.import_module("features.variability.nonlinear")
 
     rng = np.random.default_rng(seed)
-    x = np.round(800.0 + 30.0 * rng.standard_normal(400))
+    for n in (400, 3000):
+        x = np.round(800.0 + 30.0 * rng.standard_normal(n))
+        emb = np.column_stack((x[:-2], x[1:-1], x[2:]))
+        for r in (0.2 * x.std(ddof=1), 6.0):  # 6: many pairs exactly r apart
+            want = _all_pairs_counts(emb, r)
+            assert nl._match_counts_blocked(x, np.arange(emb.shape[0]), r) == want
+            if n == 400:
+                assert nl._match_counts_sorted(emb, r, 2) == want
+
+
+def test_sample_entropy_block_count_on_a_correlated_series():
+    # Heart-like: a slow random walk plus beat-to-beat noise, not rounded, so the rank
+    # windows' edge strips are tested against the same rounding as the plain count; a
+    # tenth of the templates left out, as templates across gaps are.
+    nl = importlib.import_module("features.variability.nonlinear")
+
+    rng = np.random.default_rng(5)
+    x = 850.0 + np.cumsum(rng.standard_normal(2500)) + 15.0 * rng.standard_normal(2500)
+    starts = np.flatnonzero(rng.random(x.size - 2) > 0.1)
+    emb = x[starts[:, None] + np.arange(3)[None, :]]
+    r = 0.2 * x.std(ddof=1)
+    assert nl._match_counts_blocked(x, starts, r) == _all_pairs_counts(emb, r)
+
+
+@pytest.mark.parametrize("spread", [1e-6, 1e-9])
+def test_sample_entropy_block_count_with_r_below_the_rounding_pad(spread):
+    # Values near 1e6 with a spread so small that r (0.2 SD) is below the pad that guards
+    # the rank ranges against rounding (1e-9 of the largest value): the edge strips then
+    # reach across the value itself and must still give the all-pairs count.
+    nl = importlib.import_module("features.variability.nonlinear")
+
+    x = 1e6 + spread * np.random.default_rng(1).standard_normal(400)
     emb = np.column_stack((x[:-2], x[1:-1], x[2:]))
-    upper = np.triu_indices(emb.shape[0], 1)
-    dist = np.abs(emb[:, None, :] - emb[None, :, :])
-    for r in (0.2 * x.std(ddof=1), 6.0):  # 6: many pairs exactly r apart
-        want_b = int((dist[..., :2].max(axis=-1) <= r)[upper].sum())
-        want_a = int((dist.max(axis=-1) <= r)[upper].sum())
-        assert _match_counts_sorted(emb, r, 2) == (want_b, want_a)
+    r = 0.2 * x.std(ddof=1)
+    assert nl._match_counts_blocked(x, np.arange(emb.shape[0]), r) == _all_pairs_counts(emb, r)
 
 
-def test_sample_entropy_same_by_tree_and_by_sorted_pairs(monkeypatch):
-    # Over the candidate budget the k-d tree counts (scipy.spatial.cKDTree); the counts
-    # are integers and equal, so the two paths give the same float.
+def test_sample_entropy_same_by_blocks_and_by_sorted_pairs(monkeypatch):
+    # Over the candidate budget the block count is used; the counts are integers and
+    # equal, so the two paths give the same float.
     nl = importlib.import_module("features.variability.nonlinear")
 
     rng = np.random.default_rng(4)
     x = 850.0 + 35.0 * rng.standard_normal(500)
+    monkeypatch.setattr(nl, "_SAMPEN_PAIR_BUDGET", 1 << 40)
     by_pairs = nl.nonlinear(*_series(x)).sample_entropy
     monkeypatch.setattr(nl, "_SAMPEN_PAIR_BUDGET", 0)
     assert nl._match_counts_sorted(np.column_stack((x[:-2], x[1:-1], x[2:])), 7.0, 2) is None
