@@ -34,7 +34,7 @@ from features.catalogue import (
     with_tolerance,
 )
 from features.errors import InvalidInputError
-from features.filters import bridge_masked, frozen, lowpass
+from features.filters import bridge_masked, frozen, lowpass, polyphase_fir
 from features.limits import MAX_BODY_MASS_KG, MIN_BODY_MASS_KG
 from features.wavelets import WAVELET, detail_bands
 
@@ -499,7 +499,7 @@ def _to_analysis_rate(
     q = int(fs // ANALYSIS_FS_HZ)
     if q < 2:
         return x, fs, mask
-    y = np.asarray(signal.resample_poly(x, 1, q), dtype=float)
+    y = np.asarray(signal.resample_poly(x, 1, q, window=polyphase_fir(1, q)), dtype=float)
     n_full = x.size // q
     ok = np.ones(y.size, dtype=bool)
     ok[:n_full] = mask[: n_full * q].reshape(n_full, q).all(axis=1)
@@ -960,8 +960,13 @@ def _wavelet_signature(
     template: NDArray[np.float64], fs: float
 ) -> tuple[tuple[float, ...] | None, tuple[tuple[float, float], ...], list[str]]:
     ratio = Fraction(SIGNATURE_FS_HZ / fs).limit_denominator(1000)
-    y = signal.resample_poly(template, ratio.numerator, ratio.denominator, padtype="line")
-    fs_ref = fs * ratio.numerator / ratio.denominator
+    up, down = ratio.numerator, ratio.denominator
+    if up == down:  # resample_poly returns a copy
+        y = template.copy()
+    else:
+        y = signal.resample_poly(template, up, down, padtype="line",
+                                 window=polyphase_fir(up, down))
+    fs_ref = fs * up / down
     block = 2**SIGNATURE_LEVELS
     n = y.size
     total = -(-n // block) * block
