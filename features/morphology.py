@@ -932,12 +932,17 @@ def _beat_jk(
 def _correlations(epochs: NDArray[np.float64], template: NDArray[np.float64]) -> NDArray[
     np.float64
 ]:
+    """Pearson correlation of each epoch (row) with the template.
+
+    The epochs of :func:`_epochs` have had a least-squares line removed (step 2), so their
+    means are zero but for rounding and they are not centred again (a copy of every epoch
+    on long recordings); the row norms are read without forming the squares.
+    """
     if epochs.shape[0] == 0:
         return np.empty(0)
-    e = epochs - epochs.mean(axis=1, keepdims=True)
     t = template - template.mean()
-    den = np.linalg.norm(e, axis=1) * np.linalg.norm(t)
-    num = e @ t
+    den = np.sqrt(np.einsum("ij,ij->i", epochs, epochs)) * np.linalg.norm(t)
+    num = epochs @ t
     return np.asarray(np.divide(num, den, out=np.zeros_like(num), where=den > 0), dtype=float)
 
 
