@@ -67,7 +67,7 @@ _BEAT_SEARCH_S = 0.03  # half-width of the per-beat search around each template 
 _MIN_BEAT_CORRELATION = 0.5  # per-beat amplitudes kept only from beats this like the template
 _FIT_HALF_WIDTH_S = 0.008  # half-width of the least-squares parabola at each extremum
 _SPLINE_MARGIN = 4  # samples beyond the epoch that must also be usable (spline support)
-_EPOCH_CHUNK = 2048  # beats interpolated per call
+_EPOCH_CHUNK = 512  # beats interpolated per call (in cache: 2 h at 250 Hz, 36 -> 32 ms)
 
 # (name, sign, anchor wave, window start s, window end s) relative to the anchor's time.
 _WAVE_RULES: tuple[tuple[str, int, str | None, float, float], ...] = (
