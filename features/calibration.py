@@ -50,6 +50,7 @@ __all__ = [
     "is_calibrated",
     "isotonic_map",
     "logistic",
+    "result_evidence",
 ]
 
 EVIDENCE_NAMES = (
@@ -190,6 +191,12 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
           sqrt(RSA^2 + 2 SE^2) (floor 1 ms): the size the absolute tolerance must cover,
           which for an RSA debiased to 0 is that of its noise.
     """
+    return {"heuristic": min(1.0, max(0.0, _num(heuristic))), **result_evidence(result)}
+
+
+def result_evidence(result: AnalysisResult) -> dict[str, float]:
+    """The quantities of :func:`evidence` that do not depend on the feature (all but
+    ``heuristic``), the same for every feature of one analysis."""
     hr = result.heart_rate
     beats = result.beats
     mor = result.morphology
@@ -215,7 +222,6 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
     mod = result.modulation
     lf_lo, lf_hi = LF_BAND_HZ
     return {
-        "heuristic": min(1.0, max(0.0, _num(heuristic))),
         "log_intervals": math.log1p(max(0, hr.intervals_used)),
         "log_usable_s": math.log1p(max(0.0, usable_s)),
         "beat_correlation": _upper_median(corr),
@@ -257,7 +263,8 @@ def is_calibrated(name: str) -> bool:
     return name in MODELS
 
 
-def calibrated_confidence(name: str, heuristic: float, result: AnalysisResult) -> float:
+def calibrated_confidence(name: str, heuristic: float, result: AnalysisResult, *,
+                          memo: dict[str, float] | None = None) -> float:
     """P(|reported - true| <= tolerance) of feature ``name`` in ``result``.
 
     Parameters
@@ -268,6 +275,10 @@ def calibrated_confidence(name: str, heuristic: float, result: AnalysisResult) -
         The family's confidence of that feature, in [0, 1].
     result
         The analysis.
+    memo
+        An empty dict that the caller keeps across the features of one ``result``: the
+        evidence that does not depend on the feature (:func:`result_evidence`) is stored in
+        it at first use and read from it afterwards (the same numbers).
 
     Returns
     -------
@@ -287,10 +298,16 @@ def calibrated_confidence(name: str, heuristic: float, result: AnalysisResult) -
         return 0.0
     if not result.beats.has_beats or result.occupancy.occupied is not True:
         return min(1.0, heuristic)
-    ev = evidence(result, heuristic)
+    if memo is None:
+        shared = result_evidence(result)
+    else:
+        if not memo:
+            memo.update(result_evidence(result))
+        shared = memo
+    h = min(1.0, max(0.0, _num(heuristic)))  # evidence()'s "heuristic"
     z = model.intercept
     for key, w in zip(model.inputs, model.coefficients, strict=True):
-        z += w * ev[key]
+        z += w * (h if key == "heuristic" else shared[key])
     return isotonic_map(z, model.knot_scores, model.knot_probabilities)
 
 

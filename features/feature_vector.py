@@ -205,6 +205,7 @@ def feature_vector(result: AnalysisResult) -> FeatureVector:
     unit = result.input.amplitude_unit
     from_cop = getattr(result.respiration, "source", "trace") != "trace"
     values = []
+    memo: dict[str, float] = {}  # the analysis's evidence, read once for all calibrated features
     for d in FEATURES:
         resolved = None if d.unit is None else d.unit.replace(AMPLITUDE_UNIT, unit)
         if from_cop and d.name in _BREATHING_SIGNAL_UNIT:
@@ -212,7 +213,7 @@ def feature_vector(result: AnalysisResult) -> FeatureVector:
                                        "breathing_from_centre_of_pressure"))
             continue
         value, reason = _value(d, result)
-        confidence = 0.0 if value is None else _confidence(d, result)
+        confidence = 0.0 if value is None else _confidence(d, result, memo)
         values.append(FeatureValue(d.name, value, resolved, confidence, reason))
     return FeatureVector(feature_set_version=result.feature_set_version, features=tuple(values))
 
@@ -360,8 +361,9 @@ def family_confidence(d: FeatureDefinition, result: AnalysisResult) -> float:
     return min(1.0, max(0.0, c))
 
 
-def _confidence(d: FeatureDefinition, result: AnalysisResult) -> float:
+def _confidence(d: FeatureDefinition, result: AnalysisResult, memo: dict[str, float]
+                ) -> float:
     c = family_confidence(d, result)
     if d.confidence_calibrated:
-        c = calibrated_confidence(d.name, c, result)
+        c = calibrated_confidence(d.name, c, result, memo=memo)
     return c

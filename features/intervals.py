@@ -305,8 +305,8 @@ def intervals_from_beats(
     adjacent = adjacent_to_previous(times, intervals)
     n_runs = int(np.count_nonzero(~adjacent)) if times.size else 0
     return IntervalSeries(
-        times_s=tuple(float(v) for v in times),
-        intervals_ms=tuple(float(v) for v in intervals),
+        times_s=tuple(times.tolist()),  # Python floats, as float() of each
+        intervals_ms=tuple(intervals.tolist()),
         n_intervals=int(times.size),
         n_runs=n_runs,
         flags=tuple(flags),
@@ -502,8 +502,8 @@ def classify_intervals(
     n_ectopic = int(np.count_nonzero(labels == "ectopic"))
     flags = ("unscreened_short_runs",) if unscreened.any() else ()
     return IntervalLabels(
-        labels=tuple(str(v) for v in labels.tolist()),
-        reasons=tuple(str(v) for v in reasons.tolist()),
+        labels=tuple(labels.tolist()),  # the object arrays hold Python str
+        reasons=tuple(reasons.tolist()),
         n_normal=n_normal,
         n_ectopic=n_ectopic,
         n_artifact=n - n_normal - n_ectopic,

@@ -17,6 +17,7 @@ from features.calibration import (
     is_calibrated,
     isotonic_map,
     logistic,
+    result_evidence,
 )
 from features.calibration_table import FIT, MODELS
 from features.feature_vector import FEATURES, family_confidence, feature_definition
@@ -101,6 +102,17 @@ def test_feature_vector_reports_the_calibrated_confidence(result) -> None:  # ty
             continue
         want = calibrated_confidence(d.name, family_confidence(d, result), result)
         assert fv.confidence == pytest.approx(want, abs=1e-12)  # same arithmetic, same order
+
+
+def test_evidence_shared_across_features_gives_the_same_confidences(result) -> None:  # type: ignore[no-untyped-def]
+    memo: dict[str, float] = {}
+    for name in MODELS:
+        for h in (0.05, 0.5, 1.0):
+            # The same sum of the same products in the same order: equal bit for bit.
+            assert calibrated_confidence(name, h, result, memo=memo) == \
+                calibrated_confidence(name, h, result)
+    assert memo == result_evidence(result)
+    assert evidence(result, 0.5) == {"heuristic": 0.5, **result_evidence(result)}
 
 
 def test_variability_features_no_longer_share_one_confidence(result) -> None:  # type: ignore[no-untyped-def]

@@ -407,3 +407,35 @@ def test_template_spread_is_the_median_absolute_deviation_of_numpy(n_beats):
     # same differences, and the same mean of the two middle ones: equal bit for bit.
     want = np.median(np.abs(epochs - centre), axis=0)
     np.testing.assert_array_equal(got, want)
+
+
+@pytest.mark.parametrize("fs", [100.0, 250.0, 499.0])
+def test_beat_extrema_are_least_squares_parabolas_at_each_centre(fs):
+    from features.morphology import _BEAT_SEARCH_S, _beat_extrema, _fit_half_width
+
+    rng = np.random.default_rng(int(fs))
+    width = round(0.8 * fs) + 1
+    t = np.arange(width) / fs - 0.35
+    jitter = rng.normal(0.0, 0.004, 60)
+    epochs = np.array([beat_shape(t - dt) for dt in jitter])
+    epochs += 0.05 * rng.standard_normal(epochs.shape)
+    epochs[:3, 1] = 9.0  # a maximum against the epoch's start: the fit's window moves in
+    # Centres of every wave, a maximum next to the epoch's start and a minimum near its end.
+    centres = [int(np.argmin(np.abs(t - m))) for m, _, _ in WAVES.values()] + [2, width - 3]
+    signs = [1 if a > 0 else -1 for _, a, _ in WAVES.values()] + [1, -1]
+    got_off, got_val = _beat_extrema(epochs, centres, signs, fs)
+    h_search, h = max(1, round(_BEAT_SEARCH_S * fs)), _fit_half_width(fs)
+    for w, (i, sign) in enumerate(zip(centres, signs, strict=True)):
+        for b, row in enumerate(sign * epochs):
+            lo, hi = max(1, i - h_search), min(width - 2, i + h_search)
+            k = lo + int(np.argmax(row[lo : hi + 1]))
+            kc = min(max(k, h), width - 1 - h)
+            u = np.arange(-h, h + 1)
+            # Reference: numpy.polyfit, degree 2, on the 2h + 1 samples around the maximum.
+            c, bb, a = np.polyfit(u, row[kc + u], 2)
+            d = float(np.clip(-bb / (2 * c), -h, h)) if c < 0 else 0.0
+            value = a + bb * d + c * d * d if c < 0 else row[kc]
+            # pinv and polyfit's least squares solve the same 3 x 3 system by different
+            # factorisations: rounding of a few ulps of the samples.
+            np.testing.assert_allclose(got_off[w, b], k - i + (kc - k) + d, rtol=0, atol=1e-9)
+            np.testing.assert_allclose(got_val[w, b], sign * value, rtol=1e-9, atol=1e-12)
