@@ -346,9 +346,9 @@ def _positive(field: str, value: object, *, allow_zero: bool = False) -> float:
 def _block_std(x: NDArray[np.generic], length: int) -> FloatArray:
     """Standard deviation of consecutive blocks of ``length`` samples, two-pass, chunked.
 
-    ``numpy.std`` of each block less its mean, to rounding: numpy's steps (sums along
-    the block, divided by the count; the deviations squared and summed) with the sums
-    by ``numpy.einsum``, vectorised along the short block axis (``numpy.add.reduce``
+    ``numpy.std`` of each block less its mean, to rounding: numpy's steps (the block
+    means, :func:`features.filters.block_means`; the deviations squared and summed by
+    ``numpy.einsum``, vectorised along the short block axis where ``numpy.add.reduce``
     steps through one block at a time; the summation order differs, a few units in the
     last place), in chunks of about ``_CHUNK_SAMPLES`` samples whose temporaries stay
     in cache. The deviations are centred twice, so a constant block gives exactly 0.
@@ -358,13 +358,9 @@ def _block_std(x: NDArray[np.generic], length: int) -> FloatArray:
     step = max(1, _CHUNK_SAMPLES // length)
     for b0 in range(0, m, step):
         b1 = min(m, b0 + step)
-        blk = np.asarray(x[b0 * length: b1 * length], dtype=np.float64).reshape(-1, length)
-        mean = np.einsum("ij->i", blk)[:, None]
-        mean /= length
-        dev = blk - mean
-        mean = np.einsum("ij->i", dev)[:, None]  # centred once more
-        mean /= length
-        dev -= mean
+        chunk = np.asarray(x[b0 * length: b1 * length], dtype=np.float64)
+        dev = chunk.reshape(-1, length) - block_means(chunk, length)[:, None]
+        dev -= block_means(dev.reshape(-1), length)[:, None]  # centred once more
         var = np.einsum("ij,ij->i", dev, dev)
         var /= length
         np.sqrt(var, out=out[b0:b1])

@@ -376,8 +376,8 @@ def detect_beats(
     x, mask = _validate(trace, fs_hz, usable, rate_range_bpm)
     flags: list[str] = []
     comp, fs_w, usable_w, levels = _beat_band(x, fs_hz, mask, recoverable, flags)
-    scale = (robust_sd(comp) if usable_w.all() else robust_sd(comp[usable_w])) \
-        if usable_w.any() else 0.0
+    # the whole component when every sample is usable: no masked copy
+    scale = robust_sd(comp if usable_w.all() else comp[usable_w]) if usable_w.any() else 0.0
     if not np.isfinite(scale) or scale <= 0.0:
         return _empty(fs_w, levels, flags + ["no_signal_in_beat_band"])
     w = _Work(comp=comp / scale, fs=fs_w, usable=usable_w, levels=levels,

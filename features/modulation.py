@@ -566,9 +566,7 @@ def _cosinor_segment(
     with_halves = (min(int(e.sum()), int(late.sum())) >= MIN_BEATS // 2
                    and dof - 2 >= MIN_BEATS // 2)
     if not with_halves:
-        r = _trend_residual_factor(trend, np.column_stack((c, s, iv)))
-        whole = None if r is None else _factor_fit(r, float(c @ c + s @ s), dof)
-        halves = None
+        whole, halves = _partial_fit(np.column_stack((c, s)), trend, iv), None
     else:
         split = np.column_stack((c * e, s * e, c * late, s * late))
         r = _trend_residual_factor(trend, np.column_stack((split, iv)))

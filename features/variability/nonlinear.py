@@ -128,11 +128,19 @@ def _match_counts_sorted(emb: NDArray[np.float64], r: float, m: int) -> tuple[in
     total = int(per_row.sum())
     if total > _SAMPEN_PAIR_BUDGET:
         return None
-    i = np.repeat(np.arange(n), per_row)
-    j = i + 1 + np.arange(total) - np.repeat(np.cumsum(per_row) - per_row, per_row)
+    i, j = _flat_ranges(np.arange(n) + 1, per_row)
     close = np.abs(x[i] - x[j]) <= r
     match_b = close[:, :m].all(axis=1)
     return int(match_b.sum()), int((match_b & close[:, m]).sum())
+
+
+def _flat_ranges(start: NDArray[np.intp], width: NDArray[np.intp]
+                 ) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """The ranges ``start[i] ... start[i] + width[i] - 1`` laid end to end: for each member
+    the index ``i`` of its range and its own value."""
+    owner = np.repeat(np.arange(start.size), width)
+    return owner, start[owner] + np.arange(owner.size) - np.repeat(np.cumsum(width) - width,
+                                                                    width)
 
 
 def _rank_windows(
@@ -163,8 +171,7 @@ def _rank_windows(
          np.searchsorted(s, s + (r + pad), "right")),
     ):
         width = stop - start
-        owner = np.repeat(np.arange(n), width)
-        k = start[owner] + np.arange(owner.size) - np.repeat(np.cumsum(width) - width, width)
+        owner, k = _flat_ranges(start, width)
         passed = np.bincount(owner[np.abs(s[k] - s[owner]) <= r], minlength=n)
         ends.append((start, width, passed))
     (lo_start, lo_width, lo_passed), (hi_start, _, hi_passed) = ends
