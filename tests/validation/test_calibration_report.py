@@ -117,3 +117,25 @@ def test_collection_in_worker_processes_gives_the_same_samples() -> None:
     cases = build_cases(TEST_RANGES, 6, TEST_SEED + 78_000)
     one = collect(cases, HEADLINE)
     assert one and collect(cases, HEADLINE, jobs=2) == one
+
+
+def test_report_slices_never_reuse_training_seeds(capsys: pytest.CaptureFixture[str]) -> None:
+    # A report on another draw or a breathing slice (`--seed`, `--breathing`) must stay off
+    # the seeds the fit learns from, and a slice draws its breathing inside the range asked.
+    from validation.calibration import TRAIN_SEED_SPAN, main
+
+    reuse = "would reuse training seeds"
+    for argv, said in ((["--quick", "--seed", str(TRAIN_SEED)], reuse),
+                       (["--quick", "--seed", str(TRAIN_SEED - 100)], reuse),  # runs into them
+                       (["--quick", "--seed", str(TRAIN_SEED + TRAIN_SEED_SPAN - 1)], reuse),
+                       (["--quick", "--breathing", "8", "6"], "0 < LO < HI"),
+                       (["--fit", "--n-train", str(TRAIN_SEED_SPAN + 1)], "--n-train must be")):
+        with pytest.raises(SystemExit) as stop:
+            main(argv)
+        assert stop.value.code == 2, argv  # argparse's usage error, before any analysis
+        assert said in capsys.readouterr().err, argv
+    from dataclasses import replace
+
+    sliced = build_cases(replace(TEST_RANGES, breathing_rate_per_min=(5.5, 8.0)), 50, TEST_SEED)
+    rates = [c.settings.breathing_rate_per_min for c in sliced]
+    assert 5.5 <= min(rates) and max(rates) <= 8.0
