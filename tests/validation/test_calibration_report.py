@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 
@@ -13,11 +15,13 @@ from validation.calibration import (
     TEST_SEED,
     TRAIN_RANGES,
     TRAIN_SEED,
+    TRAIN_SEED_SPAN,
     brier_score,
     build_cases,
     collect,
     expected_calibration_error,
     fit_logistic,
+    main,
     reliability_bins,
 )
 
@@ -122,8 +126,6 @@ def test_collection_in_worker_processes_gives_the_same_samples() -> None:
 def test_report_slices_never_reuse_training_seeds(capsys: pytest.CaptureFixture[str]) -> None:
     # A report on another draw or a breathing slice (`--seed`, `--breathing`) must stay off
     # the seeds the fit learns from, and a slice draws its breathing inside the range asked.
-    from validation.calibration import TRAIN_SEED_SPAN, main
-
     reuse = "would reuse training seeds"
     for argv, said in ((["--quick", "--seed", str(TRAIN_SEED)], reuse),
                        (["--quick", "--seed", str(TRAIN_SEED - 100)], reuse),  # runs into them
@@ -134,8 +136,6 @@ def test_report_slices_never_reuse_training_seeds(capsys: pytest.CaptureFixture[
             main(argv)
         assert stop.value.code == 2, argv  # argparse's usage error, before any analysis
         assert said in capsys.readouterr().err, argv
-    from dataclasses import replace
-
     sliced = build_cases(replace(TEST_RANGES, breathing_rate_per_min=(5.5, 8.0)), 50, TEST_SEED)
     rates = [c.settings.breathing_rate_per_min for c in sliced]
     assert 5.5 <= min(rates) and max(rates) <= 8.0
