@@ -191,7 +191,12 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
           sqrt(RSA^2 + 2 SE^2) (floor 1 ms): the size the absolute tolerance must cover,
           which for an RSA debiased to 0 is that of its noise.
     """
-    return {"heuristic": min(1.0, max(0.0, _num(heuristic))), **result_evidence(result)}
+    return {"heuristic": _clipped_heuristic(heuristic), **result_evidence(result)}
+
+
+def _clipped_heuristic(heuristic: float) -> float:
+    """The family confidence as the models read it: clipped to [0, 1], 0 when unknown."""
+    return min(1.0, max(0.0, _num(heuristic)))
 
 
 def result_evidence(result: AnalysisResult) -> dict[str, float]:
@@ -304,7 +309,7 @@ def calibrated_confidence(name: str, heuristic: float, result: AnalysisResult, *
         if not memo:
             memo.update(result_evidence(result))
         shared = memo
-    h = min(1.0, max(0.0, _num(heuristic)))  # evidence()'s "heuristic"
+    h = _clipped_heuristic(heuristic)
     z = model.intercept
     for key, w in zip(model.inputs, model.coefficients, strict=True):
         z += w * (h if key == "heuristic" else shared[key])

@@ -265,8 +265,7 @@ def analyze(
         interval_ms=labels.nn_intervals_ms, interval_times_s=labels.nn_times_s,
         beat_amplitudes=morph.beat_jk_amplitudes, amplitude_times_s=morph.beat_times_s,
         cardiac_amplitude=morph.jk_amplitude,
-        explained_fraction=(labels.n_normal + labels.n_ectopic) / len(labels.labels)
-        if labels.labels else None,
+        explained_fraction=labels.fraction_explained,
     )
 
     quality = signal_quality(mask, beats, load_empty_throughout=empty_throughout)

@@ -95,6 +95,9 @@ class IntervalLabels:
         Label counts.
     fraction_normal
         ``n_normal / n_intervals``; None when there are no intervals.
+    fraction_explained (property)
+        ``(n_normal + n_ectopic) / n_intervals``: the share that is sinus rhythm or a
+        premature beat with its compensatory pause; None when there are no intervals.
     nn_times_s, nn_intervals_ms
         The normal intervals only (the NN series). Adjacency in the NN series
         follows the usual rule, so removing an interval opens a gap.
@@ -116,6 +119,11 @@ class IntervalLabels:
     nn_intervals_ms: tuple[float, ...]
     confidence: float
     flags: tuple[str, ...]
+
+    @property
+    def fraction_explained(self) -> float | None:
+        """``(n_normal + n_ectopic) / n_intervals``; None when there are no intervals."""
+        return (self.n_normal + self.n_ectopic) / len(self.labels) if self.labels else None
 
 
 # --------------------------------------------------------------------------

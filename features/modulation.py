@@ -167,7 +167,7 @@ def respiratory_modulation(
         median of ``beat_amplitudes`` when None.
     explained_fraction
         Share of all beat-to-beat intervals the interval screen labels normal or ectopic
-        (``IntervalLabels``: (n_normal + n_ectopic) / intervals), in [0, 1]; below
+        (``IntervalLabels.fraction_explained``), in [0, 1]; below
         ``MIN_EXPLAINED_FRACTION`` RSA is not measured (Notes, step 2). Not checked when
         None.
 
