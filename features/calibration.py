@@ -17,6 +17,14 @@ improves (monotone by construction). A value whose family confidence is 0 (the
 family found nothing it trusts) keeps confidence 0, and where no heartbeat was found the
 family confidence stands.
 
+A feature listed in :data:`features.calibration_table.LF_BAND_MODELS` (RSA) has a second
+model, fitted on the training recordings whose breathing lies inside the LF band (below
+0.15 Hz, 9 /min; Task Force 1996) and used for them: there the baroreflex rhythm shares the
+breathing frequency, so the same evidence says less (a precise, regular fit can still have
+measured the sum of the two rhythms), and one model for all breathing rates, fitted mostly on
+faster breathing, was overconfident there (docs/validation.md). Each model is monotone in its
+evidence; crossing 9 /min changes the model, not the evidence.
+
 References
 ----------
 Platt JC. Probabilistic outputs for support vector machines and comparisons to regularized
@@ -36,7 +44,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 from numpy.typing import NDArray
 
-from features.calibration_table import MODELS
+from features.calibration_table import LF_BAND_MODELS, MODELS
 from features.modulation import LF_BAND_HZ
 
 if TYPE_CHECKING:
@@ -82,12 +90,24 @@ EVIDENCE_NAMES = (
     "log_rsa",
     "log_rmssd_sq",
     "rmssd_over_sdnn",
+    "rsa_split_precision",
+    "breathing_off_baroreflex",
 )
 """Evidence quantities, each finite (see :func:`evidence` for their definitions); larger is
 better evidence for all but :data:`SIGNED_EVIDENCE`."""
 
 HALF_WALD_CAP = 20.0
 """Floor of ``rsa_half_consistency`` (p = e^-20): beyond it the halves plainly differ."""
+
+BAROREFLEX_HZ = 0.1
+"""Usual frequency of the baroreflex (Mayer-wave) rhythm of heart rate and blood pressure in
+humans, about 0.1 Hz (Julien 2006; from memory), inside the LF band. Breathing near it
+drives the same oscillation (slow breathing at about 6 /min resonates with the baroreflex
+loop), so the respiratory and baroreflex parts of the heart-rate swing coincide."""
+
+BAROREFLEX_SCALE_HZ = 0.05
+"""Scale of ``breathing_off_baroreflex``: from :data:`BAROREFLEX_HZ` to the LF band's upper
+edge (0.15 Hz, Task Force 1996), where the evidence reaches 1."""
 
 SIGNED_EVIDENCE = frozenset({"log_rsa", "log_rmssd_sq", "rmssd_over_sdnn"})
 """Evidence whose direction is not known in advance (the size of the value itself, and
@@ -176,6 +196,17 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
           clipped to [0, 1] (``features.modulation.LF_BAND_HZ``, Task Force 1996): how far
           breathing stands above the low-frequency band, where the baroreflex rhythm shares
           its frequency (0 when unknown);
+        - ``rsa_split_precision``: log of 10 ms over sqrt(SE^2 + (D / 2)^2), SE RSA's
+          standard error from the cosinor fit and D the halves' difference (floor 0.1 ms; 0
+          when SE is unknown, SE alone when D is): the fit's standard error assumes
+          independent residuals, while a slow rhythm left in them (the baroreflex one when
+          breathing lies in the LF band) moves the estimate between the halves, and half
+          their difference is a second, one-sample estimate of the whole recording's
+          error (the halves' errors are the whole's, split);
+        - ``breathing_off_baroreflex``: |breathing frequency - 0.1 Hz| / 0.05 Hz clipped to
+          [0, 1] (:data:`BAROREFLEX_HZ`): 0 where breathing sits on the baroreflex rhythm
+          and the two cannot be told apart, 1 from the LF band's upper edge (0 when
+          unknown);
         - ``coherence``: cardiorespiratory coherence (0 when not computed);
         - ``normal_fraction``: share of the beat-to-beat intervals screened as normal;
         - ``log_sdnn``, ``log_rmssd``: log of the value in ms (floor 1 ms; a relative
@@ -260,6 +291,14 @@ def result_evidence(result: AnalysisResult) -> dict[str, float]:
                                                 math.sqrt(2.0) * _num(mod.rsa_se_ms)))),
         "log_rmssd_sq": log_rmssd ** 2,
         "rmssd_over_sdnn": log_rmssd - log_sdnn,
+        "rsa_split_precision": (
+            0.0 if mod.rsa_se_ms is None
+            else _log_ratio(10.0, math.hypot(_num(mod.rsa_se_ms),
+                                             0.5 * _num(mod.rsa_half_difference_ms)), 0.1)),
+        "breathing_off_baroreflex": (
+            0.0 if mod.breathing_frequency_hz is None
+            else min(1.0, abs(_num(mod.breathing_frequency_hz) - BAROREFLEX_HZ)
+                     / BAROREFLEX_SCALE_HZ)),
     }
 
 
@@ -288,10 +327,12 @@ def calibrated_confidence(name: str, heuristic: float, result: AnalysisResult, *
     Returns
     -------
     float
-        In [0, 1]; 0 when ``heuristic`` is 0. Where the analysis found no heartbeat (no
-        beats, or occupancy not established) ``heuristic`` itself: the models were fitted on
-        occupied recordings, and there the family confidences stay below 0.5 by the rules
-        of the quality stage (issue 12: no confident value without a heartbeat).
+        From the feature's LF-band model where it has one and breathing lies below 0.15 Hz,
+        else from its model. In [0, 1]; 0 when ``heuristic`` is 0. Where the analysis found
+        no heartbeat (no beats, or occupancy not established) ``heuristic`` itself: the
+        models were fitted on occupied recordings, and there the family confidences stay
+        below 0.5 by the rules of the quality stage (issue 12: no confident value without a
+        heartbeat).
 
     Raises
     ------
@@ -309,6 +350,8 @@ def calibrated_confidence(name: str, heuristic: float, result: AnalysisResult, *
         if not memo:
             memo.update(result_evidence(result))
         shared = memo
+    if name in LF_BAND_MODELS and shared["breathing_above_lf"] < 1.0:
+        model = LF_BAND_MODELS[name]  # breathing below 0.15 Hz (or unknown)
     h = _clipped_heuristic(heuristic)
     z = model.intercept
     for key, w in zip(model.inputs, model.coefficients, strict=True):

@@ -10,6 +10,7 @@ import pytest
 
 from features import ChannelInput, Subject, analyze
 from features.calibration import (
+    BAROREFLEX_HZ,
     EVIDENCE_NAMES,
     SIGNED_EVIDENCE,
     calibrated_confidence,
@@ -19,12 +20,14 @@ from features.calibration import (
     logistic,
     result_evidence,
 )
-from features.calibration_table import FIT, MODELS
+from features.calibration_table import FIT, LF_BAND_MODELS, MODELS
 from features.feature_vector import FEATURES, family_confidence, feature_definition
+from features.modulation import LF_BAND_HZ
 from simulation import SimulationSettings, simulate
 
 HEADLINE = ("heart_rate_mean_bpm", "breathing_rate_per_min", "sdnn_ms", "rmssd_ms",
             "ij_interval_ms", "jk_interval_ms", "rsa_ms")
+EVERY_MODEL = [*MODELS.items(), *((f"{n} (LF band)", m) for n, m in LF_BAND_MODELS.items())]
 
 
 @pytest.fixture(scope="module")
@@ -41,16 +44,22 @@ def test_provenance_fields() -> None:
     first, last = int(FIT["train_seed_first"]), int(FIT["train_seed_last"])  # type: ignore[call-overload]
     assert last - first + 1 == FIT["train_cases"]
     assert int(FIT["train_cases"]) >= 500  # type: ignore[call-overload]
-    # Test seeds lie outside the training seeds (no leakage).
-    assert not first <= int(FIT["test_seed_first"]) <= last  # type: ignore[call-overload]
+    # Test seeds lie outside the training seeds (no leakage), the LF-band ones included,
+    # and those two sets of training seeds do not meet either.
+    lf_first, lf_last = int(FIT["lf_band_seed_first"]), int(FIT["lf_band_seed_last"])  # type: ignore[call-overload]
+    assert lf_last - lf_first + 1 == FIT["lf_band_cases"]
+    test = int(FIT["test_seed_first"])  # type: ignore[call-overload]
+    assert not first <= test <= last and not lf_first <= test <= lf_last
+    assert last < lf_first
     assert int(FIT["train_samples"]) >= sum(m.n_train for m in MODELS.values())  # type: ignore[call-overload]
 
 
 def test_every_headline_feature_is_calibrated_with_known_evidence() -> None:
     for name in HEADLINE + ("pnn50_pct",):
         assert is_calibrated(name), name
-    for name, model in MODELS.items():
-        feature_definition(name)  # a catalogue name
+    assert set(LF_BAND_MODELS) <= set(MODELS)
+    for name, model in EVERY_MODEL:
+        feature_definition(name.removesuffix(" (LF band)"))  # a catalogue name
         assert set(model.inputs) <= set(EVIDENCE_NAMES)
         assert len(model.coefficients) == len(model.inputs)
         assert 0.0 < model.base_rate < 1.0
@@ -61,7 +70,7 @@ def test_models_are_monotone_in_every_evidence() -> None:
     # Every evidence quantity but the value's own size is oriented "larger is better": a
     # model may ignore one (coefficient 0) but never reward worse evidence.
     assert SIGNED_EVIDENCE < set(EVIDENCE_NAMES)
-    for name, model in MODELS.items():
+    for name, model in EVERY_MODEL:
         for key, w in zip(model.inputs, model.coefficients, strict=True):
             assert w >= 0.0 or key in SIGNED_EVIDENCE, (name, key)
 
@@ -161,7 +170,7 @@ def test_logistic_is_stable() -> None:
 def test_isotonic_maps_are_monotone_and_bounded() -> None:
     # Isotonic regression (Niculescu-Mizil and Caruana, ICML 2005) gives a non-decreasing
     # map; the fit keeps its probabilities within [0.01, 0.99].
-    for name, model in MODELS.items():
+    for name, model in EVERY_MODEL:
         ks, kp = model.knot_scores, model.knot_probabilities
         assert len(ks) == len(kp) >= 1, name
         assert all(a < b for a, b in zip(ks, ks[1:], strict=False)), name
@@ -175,3 +184,49 @@ def test_isotonic_map_interpolates_between_knots() -> None:
     assert isotonic_map(1.0, ks, kp) == pytest.approx(0.4, abs=1e-12)  # rounding only
     assert isotonic_map(-5.0, ks, kp) == 0.2
     assert isotonic_map(7.0, ks, kp) == 0.9
+
+
+def _with_modulation(result, **changes):  # type: ignore[no-untyped-def]
+    return replace(result, modulation=replace(result.modulation, **changes))
+
+
+def test_split_precision_and_baroreflex_distance_by_hand(result) -> None:  # type: ignore[no-untyped-def]
+    # Hand-worked: SE 3 ms and halves 8 ms apart -> sqrt(3^2 + 4^2) = 5 ms, log(10 / 5).
+    # Exact up to rounding (log and hypot of small integers): 1e-12.
+    ev = result_evidence(_with_modulation(result, rsa_se_ms=3.0, rsa_half_difference_ms=8.0))
+    assert ev["rsa_split_precision"] == pytest.approx(math.log(2.0), abs=1e-12)
+    ev = result_evidence(_with_modulation(result, rsa_se_ms=3.0, rsa_half_difference_ms=None))
+    assert ev["rsa_split_precision"] == pytest.approx(math.log(10.0 / 3.0), abs=1e-12)
+    ev = result_evidence(_with_modulation(result, rsa_se_ms=None, rsa_half_difference_ms=8.0))
+    assert ev["rsa_split_precision"] == 0.0
+    # Halves that disagree lower it below the standard error's own precision.
+    ev = result_evidence(_with_modulation(result, rsa_se_ms=2.0, rsa_half_difference_ms=40.0))
+    assert ev["rsa_split_precision"] < ev["rsa_precision"]
+    # Distance from the baroreflex rhythm: 0 on it (6 /min), 1/2 halfway to the LF band's
+    # upper edge, 1 at and beyond that edge, 0 when breathing is unknown.
+    for f_hz, want in ((BAROREFLEX_HZ, 0.0), (0.125, 0.5), (LF_BAND_HZ[1], 1.0), (0.3, 1.0),
+                       (None, 0.0)):
+        ev = result_evidence(_with_modulation(result, breathing_frequency_hz=f_hz))
+        assert ev["breathing_off_baroreflex"] == pytest.approx(want, abs=1e-12), f_hz
+
+
+def test_rsa_in_the_lf_band_uses_its_own_model(result) -> None:  # type: ignore[no-untyped-def]
+    # Below 0.15 Hz (LF band's upper edge, Task Force 1996) the LF-band model, above it the
+    # general one: the same arithmetic as calibrated_confidence, written out.
+    def by_hand(model, r, h):  # type: ignore[no-untyped-def]
+        ev = evidence(r, h)
+        z = model.intercept
+        for key, w in zip(model.inputs, model.coefficients, strict=True):
+            z += w * ev[key]
+        return isotonic_map(z, model.knot_scores, model.knot_probabilities)
+
+    assert "rsa_ms" in LF_BAND_MODELS
+    for f_hz, model in ((0.1, LF_BAND_MODELS["rsa_ms"]), (0.149, LF_BAND_MODELS["rsa_ms"]),
+                        (0.151, MODELS["rsa_ms"]), (0.25, MODELS["rsa_ms"])):
+        r = _with_modulation(result, breathing_frequency_hz=f_hz)
+        for h in (0.3, 0.8):
+            assert calibrated_confidence("rsa_ms", h, r) == by_hand(model, r, h), (f_hz, h)
+    # Only RSA has one: the heart rate's confidence does not depend on breathing's band.
+    slow = _with_modulation(result, breathing_frequency_hz=0.1)
+    assert calibrated_confidence("heart_rate_mean_bpm", 0.8, slow) == \
+        calibrated_confidence("heart_rate_mean_bpm", 0.8, result)
