@@ -30,6 +30,12 @@ References
 Platt JC. Probabilistic outputs for support vector machines and comparisons to regularized
 likelihood methods. In: Advances in Large Margin Classifiers, MIT Press, 61-74, 1999.
 
+Efron B, Tibshirani RJ. An Introduction to the Bootstrap. Chapman & Hall, 1993 (ch. 11,
+the jackknife; from memory).
+
+Julien C. The enigma of Mayer waves: facts and models. Cardiovascular Research 70:12-21,
+2006 (the baroreflex rhythm near 0.1 Hz in humans; from memory).
+
 Niculescu-Mizil A, Caruana R. Predicting good probabilities with supervised learning.
 Proceedings of the 22nd International Conference on Machine Learning (ICML), 625-632, 2005.
 doi:10.1145/1102351.1102430
@@ -202,7 +208,8 @@ def evidence(result: AnalysisResult, heuristic: float) -> dict[str, float]:
           independent residuals, while a slow rhythm left in them (the baroreflex one when
           breathing lies in the LF band) moves the estimate between the halves, and half
           their difference is a second, one-sample estimate of the whole recording's
-          error (the halves' errors are the whole's, split);
+          error (the halves' errors are the whole's, split: a two-group jackknife,
+          Efron and Tibshirani 1993, ch. 11, from memory);
         - ``breathing_off_baroreflex``: |breathing frequency - 0.1 Hz| / 0.05 Hz clipped to
           [0, 1] (:data:`BAROREFLEX_HZ`): 0 where breathing sits on the baroreflex rhythm
           and the two cannot be told apart, 1 from the LF band's upper edge (0 when

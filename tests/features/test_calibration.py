@@ -191,7 +191,9 @@ def _with_modulation(result, **changes):  # type: ignore[no-untyped-def]
 
 
 def test_split_precision_and_baroreflex_distance_by_hand(result) -> None:  # type: ignore[no-untyped-def]
-    # Hand-worked: SE 3 ms and halves 8 ms apart -> sqrt(3^2 + 4^2) = 5 ms, log(10 / 5).
+    # Hand-worked: SE 3 ms and halves 8 ms apart -> sqrt(3^2 + 4^2) = 5 ms, log(10 / 5)
+    # (half the halves' difference: the two-group jackknife's error, Efron and Tibshirani
+    # 1993, ch. 11, from memory; baroreflex rhythm near 0.1 Hz: Julien 2006, from memory).
     # Exact up to rounding (log and hypot of small integers): 1e-12.
     ev = result_evidence(_with_modulation(result, rsa_se_ms=3.0, rsa_half_difference_ms=8.0))
     assert ev["rsa_split_precision"] == pytest.approx(math.log(2.0), abs=1e-12)

@@ -157,13 +157,14 @@ def test_report_slices_never_reuse_training_seeds(capsys: pytest.CaptureFixture[
 
 def test_rsa_confidence_holds_where_breathing_meets_the_baroreflex_rhythm() -> None:
     # Issue 12: RSA's confidence "low where breathing and rhythm cannot separate them".
-    # Breathing at 5.7-6.3 /min sits on the baroreflex rhythm near 0.1 Hz (the simulator's
-    # slow rhythm too), so the breath-locked swing of the intervals is their sum. 400 test-
-    # range recordings from seeds no fit or report uses (1090000 on, chosen before it was
-    # run). Calibrated means its ECE is one a calibrated predictor with these confidences
-    # could show: a parametric bootstrap (hits drawn from the confidences themselves, 2000
-    # times), at the 1 % level. Before the LF-band model the ECE was 0.118 (no bootstrap
-    # draw that large); with it 0.093, 2.6 % of draws larger. And low: on average below 0.5.
+    # Breathing at 5.7-6.3 /min sits on the baroreflex rhythm near 0.1 Hz (the simulator's slow
+    # rhythm too), so the breath-locked swing of the intervals is their sum. 400 test-range
+    # recordings from seeds no fit and no other check draws (1090000 on, chosen before it was
+    # run). Calibrated means its ECE is one a calibrated predictor with these confidences could
+    # show: a parametric bootstrap (hits drawn from the confidences themselves, 2000 times;
+    # Efron and Tibshirani 1993, from memory), at the 1 % level. Before the LF-band model the
+    # ECE was 0.118 (no bootstrap draw that large); with it 0.093, 2.6 % of draws larger. And
+    # low: on average below 0.5.
     cases = build_cases(replace(TEST_RANGES, breathing_rate_per_min=(5.7, 6.3)), 400,
                         TEST_SEED + 160_000)
     samples = collect(cases, ("rsa_ms",), jobs=2)
