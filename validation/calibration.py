@@ -92,8 +92,8 @@ TRAIN_LF_SEED = TRAIN_SEED + TRAIN_SEED_SPAN // 2
 """First seed of the training's added LF-band recordings (:func:`lf_band_cases`)."""
 TRAIN_LF_SHARE = 0.6
 """Added LF-band recordings per training recording: with breathing drawn from 6-20 /min,
-about a fifth of the training breathes inside the LF band; the addition brings the
-LF-band model's recordings to about 2,800 for 4,000 (it had about 600 to learn from)."""
+about a fifth of the training breathes inside the LF band; for 4,000 training recordings
+the addition brings the LF-band model's RSA values to about 2,100 (from about 600)."""
 TRAIN_LF_BREATHING = (6.0, 9.0)
 """Breathing of the added recordings (/min): the training's own lower limit up to the LF
 band's upper edge (0.15 Hz)."""
@@ -497,8 +497,7 @@ def _cached_collect(cases: Sequence[Case], features: Sequence[str], cache: Path 
     return samples
 
 
-def _fit_model(own: Sequence[Sample], inputs: tuple[str, ...]
-               ) -> tuple[tuple[str, ...], np.ndarray, float, int, float, np.ndarray, np.ndarray]:
+def _fit_model(own: Sequence[Sample], inputs: tuple[str, ...]) -> _Fitted:
     """One model: the logistic score, then its isotonic map on out-of-fold scores."""
     x, y = _matrix(own, inputs)
     signed = [k in SIGNED_EVIDENCE for k in inputs]
