@@ -45,6 +45,7 @@ from __future__ import annotations
 
 import bisect
 import math
+from collections.abc import Mapping
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -59,6 +60,7 @@ if TYPE_CHECKING:
 __all__ = [
     "EVIDENCE_NAMES",
     "SIGNED_EVIDENCE",
+    "breathing_in_lf_band",
     "calibrated_confidence",
     "evidence",
     "is_calibrated",
@@ -309,6 +311,12 @@ def result_evidence(result: AnalysisResult) -> dict[str, float]:
     }
 
 
+def breathing_in_lf_band(evidence: Mapping[str, float]) -> bool:
+    """True when the evidence puts breathing below the LF band's upper edge (0.15 Hz) or
+    does not know it: where a feature's LF-band model, if it has one, is fitted and used."""
+    return evidence["breathing_above_lf"] < 1.0
+
+
 def is_calibrated(name: str) -> bool:
     """True when the feature ``name`` has a fitted calibration model."""
     return name in MODELS
@@ -357,8 +365,8 @@ def calibrated_confidence(name: str, heuristic: float, result: AnalysisResult, *
         if not memo:
             memo.update(result_evidence(result))
         shared = memo
-    if name in LF_BAND_MODELS and shared["breathing_above_lf"] < 1.0:
-        model = LF_BAND_MODELS[name]  # breathing below 0.15 Hz (or unknown)
+    if name in LF_BAND_MODELS and breathing_in_lf_band(shared):
+        model = LF_BAND_MODELS[name]
     h = _clipped_heuristic(heuristic)
     z = model.intercept
     for key, w in zip(model.inputs, model.coefficients, strict=True):

@@ -55,7 +55,12 @@ from pathlib import Path
 import numpy as np
 from scipy import optimize
 
-from features.calibration import EVIDENCE_NAMES, SIGNED_EVIDENCE, evidence
+from features.calibration import (
+    EVIDENCE_NAMES,
+    SIGNED_EVIDENCE,
+    breathing_in_lf_band,
+    evidence,
+)
 from features.conditioning import ChannelInput
 from features.engine import AnalysisResult, Subject, analyze
 from features.errors import EngineError
@@ -543,8 +548,7 @@ def run_fit(n_train: int, table: Path, cache: Path | None = None, jobs: int = 1
     lf_models = {}
     for name, inputs in LF_BAND_INPUTS.items():
         # The added LF-band recordings train the LF-band models alone.
-        own = [s for s in samples
-               if s.feature == name and s.evidence["breathing_above_lf"] < 1.0]
+        own = [s for s in samples if s.feature == name and breathing_in_lf_band(s.evidence)]
         if _fittable(f"{name} (LF band)", own):
             lf_models[name] = _fit_model(own, inputs)
     fit = {
