@@ -225,7 +225,7 @@ def analyze(
         cond.signals, fs_hz, units=cond.units,
         positions_m=cond.positions_m if force_only else None,
         static_n=cond.baseline_si if force_only and cond.positions_m is not None else None,
-        static_fs_hz=cond.baseline_fs_hz,
+        static_fs_hz=cond.baseline_fs_hz, with_confidence=False,
     )
     # A load that never reaches an occupant's level does not mask the record: the beats
     # are looked for, and a heartbeat found against it is reported as a disagreement. A

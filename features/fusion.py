@@ -77,7 +77,8 @@ class FusionResult:
     cop_cardiac_excursion_mm
         Median over 10 s windows of the radial RMS of the ``band_hz`` CoP, mm.
     confidence
-        Median periodic fraction of the fused cardiac-band power at the heart lag, [0, 1].
+        Median periodic fraction of the fused cardiac-band power at the heart lag, [0, 1];
+        None when not asked for (``with_confidence=False``).
     flags
         Adaptations and reasons for None values.
     """
@@ -93,14 +94,15 @@ class FusionResult:
     cop_fs_hz: float | None
     cop_respiratory_m: FloatArray | None
     cop_cardiac_excursion_mm: float | None
-    confidence: float
+    confidence: float | None
     flags: tuple[str, ...]
 
 
 def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | None = None,
                   positions_m: ArrayLike | None = None, static_n: ArrayLike | None = None,
                   static_fs_hz: float | None = None,
-                  band_hz: tuple[float, float] = (1.0, 20.0)) -> FusionResult:
+                  band_hz: tuple[float, float] = (1.0, 20.0),
+                  with_confidence: bool = True) -> FusionResult:
     """Combine conditioned channels so that the cardiac component is strongest.
 
     Parameters
@@ -125,6 +127,11 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
         ``(j + 0.5) / static_fs_hz - 0.5 / fs_hz`` s.
     band_hz
         Cardiac band (low, high) in Hz, ``0 < low < high <= 40``.
+    with_confidence
+        Estimate ``FusionResult.confidence`` (one more pass of autocorrelations over up to
+        ``MAX_ANALYSIS_WINDOWS`` windows). The engine reads nothing of it and passes
+        False; with one channel and no positions it then skips the cardiac band of step 1
+        as well, which only the weights, the confidence and the CoP read.
 
     Returns
     -------
@@ -203,9 +210,12 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
     if band[1] >= 0.5 * fs_a:
         raise InvalidInputError("band_hz", f"`band_hz` upper edge must be below {0.5 * fs_a:g} "
                                 f"Hz at fs_hz={fs:g}; got {band[1]:g}.")
-    slow = block_means(x, factor)
-    cardiac = bandpass(slow, fs_a, band, axis=-1)
-    cardiac_force = cardiac  # in the channels' units, before any scale normalisation
+    conf: float | None = None
+    if n_ch == 1 and not with_confidence and positions_m is None:
+        cardiac = cardiac_force = np.empty((1, 0))  # read by nothing below
+    else:
+        cardiac = bandpass(block_means(x, factor), fs_a, band, axis=-1)
+        cardiac_force = cardiac  # in the channels' units, before any scale normalisation
 
     if n_ch == 1:
         weights = np.ones(1)
@@ -214,7 +224,8 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
         lag_s = None
         method = "passthrough"
         fused = np.array(x[0], dtype=np.float64)
-        conf = _periodic_fraction(cardiac[0][None], fs_a)
+        if with_confidence:
+            conf = _periodic_fraction(cardiac[0][None], fs_a)
     else:
         scales_arr = None
         if mixed:
@@ -226,7 +237,8 @@ def fuse_channels(signals: ArrayLike, fs_hz: float, *, units: Sequence[str] | No
         eff = weights if scales_arr is None else np.where(
             scales_arr > 0.0, weights / np.where(scales_arr > 0.0, scales_arr, 1.0), 0.0)
         fused = _weighted_sum(x, eff)
-        conf = _periodic_fraction((weights @ cardiac)[None], fs_a)
+        if with_confidence:
+            conf = _periodic_fraction((weights @ cardiac)[None], fs_a)
         scales = None if scales_arr is None else tuple(float(s) for s in scales_arr)
         snr = tuple(None if not math.isfinite(v) else float(v) for v in snr_arr)
 

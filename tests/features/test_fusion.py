@@ -74,7 +74,23 @@ def test_single_channel_is_passed_through() -> None:
     res = fuse_channels(s[None, :], FS, units=["N"])
     assert res.weights == (1.0,) and res.method == "passthrough"
     np.testing.assert_array_equal(res.fused, s)
-    assert res.confidence > 0.3
+    assert res.confidence is not None and res.confidence > 0.3
+
+
+@pytest.mark.parametrize("n_ch", [1, 4])
+def test_confidence_left_out_changes_nothing_else(n_ch: int) -> None:
+    # The engine does not read the fusion's confidence and asks for none: every other
+    # field must be what the full call gives, to the bit (the same arithmetic, skipped).
+    rng = np.random.default_rng(5)
+    s = _bcg(60.0)
+    x = np.stack([(1.0 - 0.2 * i) * s + 0.2 * rng.standard_normal(s.size)
+                  for i in range(n_ch)])
+    full = fuse_channels(x, FS, units=["N"] * n_ch)
+    lean = fuse_channels(x, FS, units=["N"] * n_ch, with_confidence=False)
+    assert full.confidence is not None and lean.confidence is None
+    np.testing.assert_array_equal(lean.fused, full.fused)
+    assert (lean.weights, lean.method, lean.channel_snr, lean.heart_lag_s, lean.flags) == \
+        (full.weights, full.method, full.channel_snr, full.heart_lag_s, full.flags)
 
 
 def test_mixed_units_are_normalised_and_scale_free() -> None:
@@ -94,7 +110,7 @@ def test_no_heartbeat_gives_equal_weights_and_low_confidence() -> None:
     rng = np.random.default_rng(6)
     x = rng.standard_normal((3, int(60 * FS)))
     res = fuse_channels(x, FS, units=["N"] * 3)
-    assert res.confidence < 0.2
+    assert res.confidence is not None and res.confidence < 0.2
 
 
 # ----------------------------------------------------------------------------- centre of pressure
