@@ -249,6 +249,7 @@ def detect_beats(
     usable: ArrayLike | None = None,
     rate_range_bpm: tuple[float, float] = RATE_RANGE_BPM,
     recoverable: ArrayLike | None = None,
+    trace_median: float | None = None,
 ) -> BeatDetection:
     """Find the J wave of every heartbeat in a conditioned recoil trace.
 
@@ -268,6 +269,10 @@ def detect_beats(
         Boolean mask, same length, True where a masked sample was masked only for body
         movement or a posture step (not clipping, a flat line or an empty support); such
         samples are given back to the detector where the beat band stays quiet (step 0).
+    trace_median
+        ``numpy.median(trace)`` when the caller has it (the engine computes it once for this
+        stage and the breathing stage, :func:`features.respiration.breathing`); else computed
+        here. Step 1 removes it before resampling.
 
     Returns
     -------
@@ -375,7 +380,7 @@ def detect_beats(
     """
     x, mask = _validate(trace, fs_hz, usable, rate_range_bpm)
     flags: list[str] = []
-    comp, fs_w, usable_w, levels = _beat_band(x, fs_hz, mask, recoverable, flags)
+    comp, fs_w, usable_w, levels = _beat_band(x, fs_hz, mask, recoverable, flags, trace_median)
     # the whole component when every sample is usable: no masked copy
     scale = robust_sd(comp if usable_w.all() else comp[usable_w]) if usable_w.any() else 0.0
     if not np.isfinite(scale) or scale <= 0.0:
@@ -473,13 +478,13 @@ class _Picks:
 
 
 def _beat_band(x: NDArray[np.float64], fs_hz: float, mask: NDArray[np.bool_],
-               recoverable: ArrayLike | None, flags: list[str]
+               recoverable: ArrayLike | None, flags: list[str], centre: float | None = None
                ) -> tuple[NDArray[np.float64], float, NDArray[np.bool_], tuple[int, ...]]:
     """Steps 0-2: the beat-band component at the working rate, zeroed where masked.
 
     Returns the (unscaled) component, the working rate, its usable mask and the levels.
     """
-    xw, fs_w, usable_w = _to_work_rate(x, fs_hz, mask)
+    xw, fs_w, usable_w = _to_work_rate(x, fs_hz, mask, centre)
     levels = levels_for_band(fs_w, BEAT_BAND_HZ)
     comp = swt_component(bridge_masked(xw, usable_w), levels=levels, wavelet=WAVELET)
     if recoverable is not None and not usable_w.all():
@@ -687,7 +692,7 @@ def _validate(
 
 
 def _to_work_rate(
-    x: NDArray[np.float64], fs_hz: float, mask: NDArray[np.bool_]
+    x: NDArray[np.float64], fs_hz: float, mask: NDArray[np.bool_], centre: float | None = None
 ) -> tuple[NDArray[np.float64], float, NDArray[np.bool_]]:
     frac = Fraction(WORK_RATE_HZ / fs_hz).limit_denominator(1000)
     up, down = frac.numerator, frac.denominator
@@ -695,7 +700,8 @@ def _to_work_rate(
         xw = x.copy()
     else:
         # scipy's own default design (``polyphase_fir``), made once per rate pair
-        xw = signal.resample_poly(x - median_1d(x), up, down, window=polyphase_fir(up, down))
+        xw = signal.resample_poly(x - (median_1d(x) if centre is None else centre), up, down,
+                                  window=polyphase_fir(up, down))
     fs_w = fs_hz * up / down
     return xw, fs_w, _work_mask(mask, fs_hz, fs_w, xw.size)
 

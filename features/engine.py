@@ -15,6 +15,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from features import __version__
+from features._numeric import median_1d
 from features.artifacts import ArtifactMask, mask_artifacts
 from features.beats import BeatDetection, detect_beats
 from features.conditioning import ChannelInput, ConditionedInput, condition_channels
@@ -237,9 +238,12 @@ def analyze(
                                         load_fs_hz=cond.baseline_fs_hz,
                                         raw_signals=cond.raw_signals, pad_s=MOVEMENT_PAD_S,
                                         gap=cond.gap)
+    # One median of the fused trace serves the beat detector and, when nothing is masked
+    # (breathing bridges masked samples first), the breathing stage.
+    centre = median_1d(fusion.fused)
     beats = detect_beats(fusion.fused, fs_hz, usable=mask.usable,
                          rate_range_bpm=options.rate_range_bpm,
-                         recoverable=mask.motion_only(fs_hz))
+                         recoverable=mask.motion_only(fs_hz), trace_median=centre)
     series = intervals_from_beats(beats.times_s, run_ids=beats.run_ids)
     labels = classify_intervals(series.times_s, series.intervals_ms)
     occupied = occupancy(cond.occupancy_from_load, cond.supported_mass_kg, beats)
@@ -258,7 +262,8 @@ def analyze(
     resp_usable = mask.usable if occupied.occupied is not False else \
         np.zeros_like(mask.usable)
     resp = breathing(fusion.fused, fs_hz, usable=resp_usable,
-                     cop_signal=fusion.cop_respiratory_m, cop_fs_hz=fusion.cop_fs_hz)
+                     cop_signal=fusion.cop_respiratory_m, cop_fs_hz=fusion.cop_fs_hz,
+                     trace_median=centre if resp_usable.all() else None)
     modulation = respiratory_modulation(
         resp.breathing_signal, resp.breathing_fs_hz,
         beat_times_s=beats.times_s, breath_times_s=resp.breath_times_s,

@@ -135,6 +135,7 @@ def breathing(
     cop_signal: ArrayLike | None = None,
     cop_fs_hz: float | None = None,
     pause_threshold_pct: float = PAUSE_THRESHOLD_PCT,
+    trace_median: float | None = None,
 ) -> RespirationResult:
     """Measure breathing from the low band of a force trace.
 
@@ -157,6 +158,11 @@ def breathing(
     pause_threshold_pct
         A pause is where the breathing amplitude stays below this share (10 to 50 %) of the
         surrounding baseline amplitude.
+    trace_median
+        ``numpy.median`` of the trace with its masked samples bridged (step 1), when the
+        caller has it; else computed here. The engine passes the one it computed for the
+        beat detector (:func:`features.beats.detect_beats`) when no sample is masked, where
+        the two are the same.
 
     Returns
     -------
@@ -244,7 +250,7 @@ def breathing(
         signal_or_lowband, fs_hz, usable, cop_signal, cop_fs_hz, pause_threshold_pct
     )
     flags: list[str] = []
-    y, y_low, fs_b, mask_b = _breathing_band(x, fs, mask)
+    y, y_low, fs_b, mask_b = _breathing_band(x, fs, mask, trace_median)
     source = "trace"
     # One Welch estimate of the chosen breathing signal serves the source choice, the
     # noise test and the spectral rate.
@@ -476,11 +482,12 @@ def _decimate(x: NDArray[np.float64], q: int) -> NDArray[np.float64]:
 
 
 def _breathing_band(
-    x: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]
+    x: NDArray[np.float64], fs: float, mask: NDArray[np.bool_], centre: float | None = None
 ) -> tuple[NDArray[np.float64], NDArray[np.float64], float, NDArray[np.bool_]]:
-    """Band-passed and low-passed (0.7 Hz) breathing signals at ~10 Hz, and their mask."""
+    """Band-passed and low-passed (0.7 Hz) breathing signals at ~10 Hz, and their mask;
+    ``centre`` is ``x``'s median when the caller has it."""
     q = max(1, int(fs // TARGET_FS_HZ))
-    x0 = x - median_1d(x)
+    x0 = x - (median_1d(x) if centre is None else centre)
     if q > 1:
         y = _decimate(x0, q)
         n_b = y.size

@@ -406,3 +406,19 @@ def test_template_lanes_give_numpy_median_of_the_epochs(count: int) -> None:
     # past lane_median's sorting limit).
     np.testing.assert_array_equal(lane_median(_lanes(comp, centres, half)),
                                   np.median(_epochs(comp, centres, half), axis=0))
+
+
+def test_a_given_trace_median_is_the_one_computed_here() -> None:
+    # The engine hands the detector the median it already took of the fused trace; the
+    # detection must be the one the detector gives when it takes that median itself.
+    x, _ = _simulated(seed=3)
+    x = x + 40.0  # an offset the median removal has to take out
+    usable = np.ones(x.size, dtype=bool)
+    usable[9000:9500] = False
+    own = detect_beats(x, 250.0, usable=usable)
+    given = detect_beats(x, 250.0, usable=usable, trace_median=float(np.median(x)))
+    assert own.has_beats and own.times_s.size > 100
+    for name in ("times_s", "confidence", "correlation", "amplitude", "run_ids", "template"):
+        np.testing.assert_array_equal(getattr(given, name), getattr(own, name))
+    assert (given.period_s, given.evidence, given.flags) == (own.period_s, own.evidence,
+                                                             own.flags)
