@@ -622,8 +622,9 @@ def _pick(w: _Work, matcher: _Matcher, polarity: int, template: NDArray[np.float
     # template window with it; judge it again on the core of the complex alone.
     core = (half[0] - int(round(CORE_WINDOW_S[0] * fs_w)),
             half[0] + int(round(CORE_WINDOW_S[1] * fs_w)) + 1)
-    corr_core, _ = _match(matcher, polarity, template[core[0]:core[1]], half[0] - core[0])
-    matched = (corr[cand] >= accept) | (corr_core[cand] >= max(accept, CORE_ACCEPT))
+    corr_core = _match_at(matcher, polarity, template[core[0]:core[1]], half[0] - core[0],
+                          cand)
+    matched = (corr[cand] >= accept) | (corr_core >= max(accept, CORE_ACCEPT))
     keep = matched & (amp[cand] >= 0.25 * amp_ref)
     beats = cand[keep]
     n_rejected = n_candidates - int(beats.size)
@@ -1025,6 +1026,7 @@ class _Matcher:
 
     def __init__(self, comp: NDArray[np.float64], max_len: int) -> None:
         self.n = comp.size
+        self.comp = comp
         self.spectra = BlockSpectra(comp, max_len)
         self.c1 = np.zeros(self.n + 1)
         self.c2 = np.zeros(self.n + 1)
@@ -1068,6 +1070,41 @@ def _match(matcher: _Matcher, sign: int, template: NDArray[np.float64], centre: 
     np.divide(num, den, out=corr, where=ok)
     np.clip(corr, -1.0, 1.0, out=corr)
     return corr, num
+
+
+def _match_at(matcher: _Matcher, sign: int, template: NDArray[np.float64], centre: int,
+              at: NDArray[np.intp]) -> NDArray[np.float64]:
+    """The correlation of :func:`_match` at the samples ``at`` only.
+
+    The numerator is a direct dot product of each window (the trace zero outside) with the
+    template instead of the blocks' FFT, so it can differ from :func:`_match`'s in the last
+    bits; the denominator is the same arithmetic on the same running sums. For a template
+    read only at the candidates (the core match of step 6), this skips a transform, the
+    spread and the division over the whole trace.
+    """
+    n = matcher.n
+    t = template - template.mean()
+    norm = np.sqrt(np.sum(t * t))
+    if norm <= 0 or at.size == 0:
+        return np.zeros(at.size)
+    t = t / norm
+    m = t.size
+    idx = at[:, None] + np.arange(-centre, m - centre)[None, :]
+    inside = (idx >= 0) & (idx < n)
+    windows = np.where(inside, matcher.comp[np.clip(idx, 0, n - 1)], 0.0)
+    num = windows @ t
+    if sign < 0:
+        np.negative(num, out=num)
+    hi = np.minimum(at + (m - centre), n)
+    lo = np.maximum(at - centre, 0)
+    s1 = matcher.c1[hi] - matcher.c1[lo]
+    s2 = matcher.c2[hi] - matcher.c2[lo]
+    den = np.sqrt(np.maximum(s2 - s1 * s1 / m, 0.0))
+    corr = np.zeros(at.size)
+    ok = den > 1e-6  # as in _match
+    np.divide(num, den, out=corr, where=ok)
+    np.clip(corr, -1.0, 1.0, out=corr)
+    return corr
 
 
 def _window_sums(csum: NDArray[np.float64], centre: int, m: int) -> NDArray[np.float64]:

@@ -422,3 +422,24 @@ def test_a_given_trace_median_is_the_one_computed_here() -> None:
         np.testing.assert_array_equal(getattr(given, name), getattr(own, name))
     assert (given.period_s, given.evidence, given.flags) == (own.period_s, own.evidence,
                                                              own.flags)
+
+
+@pytest.mark.parametrize("sign", [1, -1])
+def test_match_at_chosen_samples_is_the_full_match_read_there(sign: int) -> None:
+    # Step 6 reads the core template's correlation at the candidates only, so it is
+    # computed there by direct dot products instead of over the whole trace by FFT blocks.
+    # The two must agree to rounding (FFT error ~ 1e-15 of the window's scale; 1e-12 is
+    # that with room to spare), the ends (window partly outside the trace) included.
+    from features.beats import _Matcher, _match, _match_at
+
+    rng = np.random.default_rng(11)
+    comp = rng.standard_normal(20000)
+    comp[5000:5200] = 0.0  # a silent stretch: denominator under the floor, correlation 0
+    template = rng.standard_normal(45)
+    matcher = _Matcher(comp, 101)
+    full, _ = _match(matcher, sign, template, 19)
+    at = np.r_[0, 1, 5, 18, 19, rng.integers(0, comp.size, 300), 5100, comp.size - 30,
+               comp.size - 2, comp.size - 1].astype(np.intp)
+    np.testing.assert_allclose(_match_at(matcher, sign, template, 19, at), full[at],
+                               rtol=0, atol=1e-12)
+    assert _match_at(matcher, sign, template, 19, np.array([5100]))[0] == 0.0
