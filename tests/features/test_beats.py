@@ -430,7 +430,7 @@ def test_match_at_chosen_samples_is_the_full_match_read_there(sign: int) -> None
     # computed there by direct dot products instead of over the whole trace by FFT blocks.
     # The two must agree to rounding (FFT error ~ 1e-15 of the window's scale; 1e-12 is
     # that with room to spare), the ends (window partly outside the trace) included.
-    from features.beats import _Matcher, _match, _match_at
+    from features.beats import _match, _match_at, _Matcher
 
     rng = np.random.default_rng(11)
     comp = rng.standard_normal(20000)
