@@ -252,8 +252,9 @@ def analyze(
     # The load gives a mass only where it is itself the evidence of an occupant.
     mass, mass_source = _body_mass(subject, cond.supported_mass_kg,
                                    bool(occupied.occupied and occupied.from_load))
+    # The trace in the beats' polarity (no copy when it is the recorded one).
     morph = beat_morphology(
-        fusion.fused * (beats.polarity or 1), fs_hz, beats.times_s,
+        -fusion.fused if beats.polarity == -1 else fusion.fused, fs_hz, beats.times_s,
         beat_confidence=beats.confidence, usable=mask.usable, body_mass_kg=mass,
         amplitude_unit=fusion.unit,
     )
