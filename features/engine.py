@@ -238,9 +238,7 @@ def analyze(
                                         load_fs_hz=cond.baseline_fs_hz,
                                         raw_signals=cond.raw_signals, pad_s=MOVEMENT_PAD_S,
                                         gap=cond.gap)
-    # One median of the fused trace serves the beat detector and, when nothing is masked
-    # (breathing bridges masked samples first), the breathing stage.
-    centre = median_1d(fusion.fused)
+    centre = median_1d(fusion.fused)  # for breathing too when unmasked (else it bridges)
     beats = detect_beats(fusion.fused, fs_hz, usable=mask.usable,
                          rate_range_bpm=options.rate_range_bpm,
                          recoverable=mask.motion_only(fs_hz), trace_median=centre)
@@ -252,8 +250,7 @@ def analyze(
     # The load gives a mass only where it is itself the evidence of an occupant.
     mass, mass_source = _body_mass(subject, cond.supported_mass_kg,
                                    bool(occupied.occupied and occupied.from_load))
-    # The trace in the beats' polarity (no copy when it is the recorded one).
-    morph = beat_morphology(
+    morph = beat_morphology(  # the trace in the beats' polarity, no copy when recorded
         -fusion.fused if beats.polarity == -1 else fusion.fused, fs_hz, beats.times_s,
         beat_confidence=beats.confidence, usable=mask.usable, body_mass_kg=mass,
         amplitude_unit=fusion.unit,
