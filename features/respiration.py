@@ -32,7 +32,7 @@ from features.catalogue import (
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, butter_filtfilt, frozen
 from features.limits import MIN_DURATION_S, S_PER_HOUR
-from features.spectral import welch_spectra
+from features.spectral import welch_psd_padded
 
 __all__ = ["CATALOGUE", "RespirationResult", "breathing"]
 
@@ -539,8 +539,9 @@ def _welch_psd(
     for (a, b), n in zip(runs, lengths, strict=True):
         if n < nper:
             continue
-        est = welch_spectra(y[a:b], fs, segment_n=nper, overlap_n=nper // 2, nfft=nfft)
-        freqs, p = est.frequencies_hz, est.psd_x
+        # nfft is 8 segments long: the summed autocorrelation's one long transform
+        freqs, p = welch_psd_padded(y[a:b], fs, segment_n=nper, overlap_n=nper // 2,
+                                    nfft=nfft)
         k = 1 + (n - nper) // (nper // 2)
         total = p * k if total is None else total + p * k
         weight += k

@@ -345,3 +345,39 @@ def welch_spectra(
     pxy[..., 1:stop] *= 2
     return WelchSpectra(freqs, psd_x, np.ascontiguousarray(pyy.T).mean(axis=-1),
                         np.ascontiguousarray(pxy.T).mean(axis=-1), int(count))
+
+
+def welch_psd_padded(x: FloatArray, fs_hz: float, *, segment_n: int, overlap_n: int,
+                     nfft: int) -> tuple[FloatArray, FloatArray]:
+    """``welch_spectra(x, ...)``'s frequencies and ``psd_x`` for a 1-D ``x`` and an
+    ``nfft`` at least ``2 segment_n - 1``, to rounding, at the cost of short transforms.
+
+    The periodogram of a segment zero-padded to ``nfft`` points is the transform of the
+    segment's autocorrelation (lags ``-(segment_n - 1) ... segment_n - 1``), exactly when
+    ``nfft >= 2 segment_n - 1`` (no lag wraps onto another). So the segments' periodograms
+    are summed on the shortest grid that holds those lags (``M`` points, a fast length of
+    at least ``2 segment_n - 1``), the sum is taken back to the summed autocorrelation (one
+    inverse transform of ``M`` points), and that is transformed once on the ``nfft`` grid:
+    one transform of ``nfft`` points instead of one per segment. The sums are the same up
+    to their order, so the estimate differs from :func:`welch_spectra`'s by rounding
+    (relative to its largest value); values that are zero in exact arithmetic come out as
+    rounding-sized numbers of either sign and are set to zero where negative.
+    """
+    x = np.asarray(x, dtype=np.float64)
+    hop = segment_n - overlap_n
+    if x.ndim != 1 or x.shape[0] < segment_n or not 0 <= overlap_n < segment_n \
+            or nfft < 2 * segment_n - 1:
+        raise ValueError("1-D `x` of at least `segment_n` samples, `overlap_n` in "
+                         "[0, segment_n) and `nfft` >= 2 segment_n - 1 are needed.")
+    count = (x.shape[0] - overlap_n) // hop
+    short = scipy.fft.next_fast_len(2 * segment_n - 1, real=True)
+    sx = _segment_spectra(x, _density_window(segment_n, fs_hz), hop, count, short)
+    lags = scipy.fft.irfft((sx.real**2 + sx.imag**2).sum(axis=0), short)
+    wrapped = np.zeros(nfft)
+    wrapped[:segment_n] = lags[:segment_n]
+    wrapped[nfft - segment_n + 1:] = lags[short - segment_n + 1:]
+    psd = scipy.fft.rfft(wrapped).real
+    np.maximum(psd, 0.0, out=psd)
+    psd[1:-1 if nfft % 2 == 0 else None] *= 2
+    psd /= count
+    return np.asarray(scipy.fft.rfftfreq(nfft, 1 / fs_hz)), psd

@@ -89,6 +89,35 @@ def test_welch_spectra_match_scipy(n: int, fs: float, nper: int, nover: int,
     assert got.n_segments == (n - nover) // (nper - nover)
 
 
+@pytest.mark.parametrize(
+    ("n", "fs", "nper", "nover", "nfft"),
+    [
+        (3000, 10.0, 640, 320, 8192),  # features.respiration: 64-s segments at 10 Hz, 5 min
+        (36000, 10.0, 640, 320, 8192),  # the same over 1 h (111 segments)
+        (700, 10.0, 200, 100, 399),  # the shortest grid allowed, odd (2 segment_n - 1)
+        (640, 10.0, 640, 0, 2048),  # a single segment
+    ],
+)
+def test_welch_psd_padded_matches_scipy(n: int, fs: float, nper: int, nover: int,
+                                        nfft: int) -> None:
+    from features.spectral import welch_psd_padded
+
+    x, _ = _pair(n, seed=n)
+    f, got = welch_psd_padded(x, fs, segment_n=nper, overlap_n=nover, nfft=nfft)
+    # reference library: scipy.signal.welch. The segments' power is summed by another
+    # route (their autocorrelation on a short grid, then one long transform), so the
+    # estimate agrees to rounding: eps (2.2e-16) times the transforms' log2 length and the
+    # segments summed is about 1e-14 of the largest value; 1e-12 leaves room for other
+    # FFT back ends.
+    fr, pxx = scipy.signal.welch(x, fs=fs, window="hann", nperseg=nper, noverlap=nover,
+                                 nfft=nfft, detrend="constant")
+    np.testing.assert_array_equal(f, fr)
+    np.testing.assert_allclose(got, pxx, rtol=0, atol=1e-12 * pxx.max())
+    assert (got >= 0).all()
+    with pytest.raises(ValueError):
+        welch_psd_padded(x, fs, segment_n=nper, overlap_n=nover, nfft=2 * nper - 2)
+
+
 def test_welch_spectra_rows_match_scipy_periodogram() -> None:
     from features.spectral import welch_spectra
 
