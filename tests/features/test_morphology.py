@@ -384,7 +384,7 @@ def test_epoch_rows_are_the_spline_interpolant_of_map_coordinates():
     np.testing.assert_allclose(got, want, rtol=0, atol=4 * np.finfo(float).eps * scale)
 
 
-@pytest.mark.parametrize("n_beats", [1, 2, 7, 40, 341, 1001, 1500])
+@pytest.mark.parametrize("n_beats", [1, 2, 7, 40, 341, 1001, 1500, 6001, 7000])
 def test_template_spread_is_the_median_absolute_deviation_of_numpy(n_beats):
     from features.morphology import _TRIM_PROPORTION, _lane_mad, _ordered_lanes
 
