@@ -75,9 +75,10 @@ class NonlinearResult:
 _SAMPEN_PAIR_BUDGET = 1 << 18
 """Most candidate template pairs counted one by one (:func:`_match_counts_sorted`); more
 go to the block count (:func:`_match_counts_blocked`). On the benchmark suite's series
-(numpy 2.4, this machine) the pair count took 1.1, 3.6 and 13 ms at 1020, 2041 and 4082
-intervals (55 000, 226 000 and 909 000 candidate pairs) against 4.4, 9.4 and 14 ms for
-the block count; the budget keeps the pair count's temporaries near 10 MB."""
+of 15, 30 and 60 minutes (1020, 2041 and 4082 intervals; 55 000, 226 000 and 909 000
+candidate pairs; numpy 2.4, this machine) the pair count took 1.1, 2.8 and 11 ms against
+4.4-4.8, 7.1-9.4 and 14-17 ms for the block count (two runs); the budget keeps the pair
+count's temporaries near 10 MB, which leaves the hour to the block count."""
 
 
 def _sample_entropy(
