@@ -1038,11 +1038,32 @@ class _Matcher:
         """Root of the sum of squares about the mean over ``[i - centre, i - centre + m)``."""
         key = (centre, m)
         if key not in self._spread:
-            s1 = _window_sums(self.c1, centre, m)
-            s2 = _window_sums(self.c2, centre, m)
-            var = s2 - s1 * s1 / m
-            self._spread[key] = np.sqrt(np.maximum(var, 0.0))
+            self._spread[key] = _spread_from_sums(_window_sums(self.c1, centre, m),
+                                                  _window_sums(self.c2, centre, m), m)
         return self._spread[key]
+
+
+def _spread_from_sums(s1: NDArray[np.float64], s2: NDArray[np.float64], m: int
+                      ) -> NDArray[np.float64]:
+    """``sqrt`` of a window's sum of squares about its mean, from its sum and sum of squares
+    over ``m`` samples (0 where rounding leaves it below 0)."""
+    return np.sqrt(np.maximum(s2 - s1 * s1 / m, 0.0))
+
+
+def _unit_template(template: NDArray[np.float64]) -> NDArray[np.float64] | None:
+    """The template less its mean, scaled to unit norm; None for a flat one."""
+    t = template - template.mean()
+    norm = np.sqrt(np.sum(t * t))
+    return None if norm <= 0 else t / norm
+
+
+def _ratio(num: NDArray[np.float64], den: NDArray[np.float64]) -> NDArray[np.float64]:
+    """``num / den`` clipped to [-1, 1], and 0 where the spread is nil (under 1e-6: the
+    component is scaled to unit robust SD before matching)."""
+    corr = np.zeros(num.size)
+    np.divide(num, den, out=corr, where=den > 1e-6)
+    np.clip(corr, -1.0, 1.0, out=corr)
+    return corr
 
 
 def _match(matcher: _Matcher, sign: int, template: NDArray[np.float64], centre: int
@@ -1054,22 +1075,14 @@ def _match(matcher: _Matcher, sign: int, template: NDArray[np.float64], centre: 
     sample ``i`` of the trace; the correlation's denominator comes from running sums over
     the same window.
     """
-    n = matcher.n
-    t = template - template.mean()
-    norm = np.sqrt(np.sum(t * t))
-    if norm <= 0:
-        z = np.zeros(n)
+    t = _unit_template(template)
+    if t is None:
+        z = np.zeros(matcher.n)
         return z, z
-    t = t / norm
     num = matcher.spectra.correlate(t, centre)
     if sign < 0:
         np.negative(num, out=num)
-    den = matcher.spread(centre, t.size)
-    corr = np.zeros(n)
-    ok = den > 1e-6  # the component is scaled to unit robust SD before matching
-    np.divide(num, den, out=corr, where=ok)
-    np.clip(corr, -1.0, 1.0, out=corr)
-    return corr, num
+    return _ratio(num, matcher.spread(centre, t.size)), num
 
 
 def _match_at(matcher: _Matcher, sign: int, template: NDArray[np.float64], centre: int,
@@ -1083,11 +1096,9 @@ def _match_at(matcher: _Matcher, sign: int, template: NDArray[np.float64], centr
     spread and the division over the whole trace.
     """
     n = matcher.n
-    t = template - template.mean()
-    norm = np.sqrt(np.sum(t * t))
-    if norm <= 0 or at.size == 0:
+    t = _unit_template(template)
+    if t is None or at.size == 0:
         return np.zeros(at.size)
-    t = t / norm
     m = t.size
     idx = at[:, None] + np.arange(-centre, m - centre)[None, :]
     inside = (idx >= 0) & (idx < n)
@@ -1097,14 +1108,8 @@ def _match_at(matcher: _Matcher, sign: int, template: NDArray[np.float64], centr
         np.negative(num, out=num)
     hi = np.minimum(at + (m - centre), n)
     lo = np.maximum(at - centre, 0)
-    s1 = matcher.c1[hi] - matcher.c1[lo]
-    s2 = matcher.c2[hi] - matcher.c2[lo]
-    den = np.sqrt(np.maximum(s2 - s1 * s1 / m, 0.0))
-    corr = np.zeros(at.size)
-    ok = den > 1e-6  # as in _match
-    np.divide(num, den, out=corr, where=ok)
-    np.clip(corr, -1.0, 1.0, out=corr)
-    return corr
+    return _ratio(num, _spread_from_sums(matcher.c1[hi] - matcher.c1[lo],
+                                         matcher.c2[hi] - matcher.c2[lo], m))
 
 
 def _window_sums(csum: NDArray[np.float64], centre: int, m: int) -> NDArray[np.float64]:
