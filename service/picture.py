@@ -12,8 +12,11 @@ from __future__ import annotations
 import functools
 import io
 import math
+import os
 import struct
+import threading
 import zlib
+from concurrent.futures import ThreadPoolExecutor
 from typing import Any
 
 import numpy as np
@@ -34,6 +37,9 @@ NOTICE_BOTTOM = 0.008
 #: zlib level of the PNG: 1 writes about 13 % more bytes than 6 in less than half the
 #: time, and the image is the same pixels (PNG is lossless).
 PNG_COMPRESS_LEVEL = 1
+#: Image data, bytes, from which the PNG's zlib stream is compressed in two halves at once
+#: (:func:`_deflate`); the report and the night picture are some 3.7 MB.
+PARALLEL_DEFLATE_FROM = 1 << 20
 
 
 def check_format(image_format: str) -> None:
@@ -137,9 +143,66 @@ def png_bytes(canvas: Any) -> bytes:
         b"\x89PNG\r\n\x1a\n",
         chunk(b"IHDR", struct.pack(">IIBBBBB", width, height, 8, 6, 0, 0, 0)),
         chunk(b"pHYs", struct.pack(">IIB", per_metre, per_metre, 1)),
-        chunk(b"IDAT", zlib.compress(rows, PNG_COMPRESS_LEVEL)),
+        chunk(b"IDAT", _deflate(rows)),
         chunk(b"IEND", b""),
     ))
+
+
+_helper: tuple[int, ThreadPoolExecutor] | None = None
+_helper_lock = threading.Lock()
+
+
+def _cores() -> int:
+    """Cores this process may run on (all of the machine's where that is not known)."""
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # not on every platform
+        return os.cpu_count() or 1
+
+
+def _second_thread() -> ThreadPoolExecutor | None:
+    """One helper thread per process (made again after a fork), or None on one core."""
+    global _helper
+    if _cores() < 2:
+        return None
+    with _helper_lock:
+        if _helper is None or _helper[0] != os.getpid():
+            _helper = (os.getpid(), ThreadPoolExecutor(1, thread_name_prefix="png-deflate"))
+        return _helper[1]
+
+
+def _raw_deflate(data: memoryview, last: bool) -> bytes:
+    part = zlib.compressobj(PNG_COMPRESS_LEVEL, zlib.DEFLATED, -15)
+    return part.compress(data) + part.flush(zlib.Z_FINISH if last else zlib.Z_SYNC_FLUSH)
+
+
+def _deflate(rows: np.ndarray) -> bytes:
+    """The zlib stream (RFC 1950) of ``rows``' bytes at ``PNG_COMPRESS_LEVEL``.
+
+    From ``PARALLEL_DEFLATE_FROM`` bytes and with a second core, the two halves are
+    compressed at once, this thread and a helper (zlib lets go of the interpreter while it
+    compresses): the first half's deflate data ends with a sync flush (an empty stored
+    block, byte-aligned, RFC 1951 3.2.4), so the second's follow it as one stream, as
+    parallel gzip writers do. The second half starts without the first's history, which
+    costs a few bytes; the time is about halved (12 against 6.5 ms for the report's 3.7 MB
+    on two idle cores). zlib's own header for the level opens the stream and the Adler-32
+    of the whole data closes it. Anywhere else, ``zlib.compress``.
+    """
+    data = memoryview(np.ascontiguousarray(rows)).cast("B")
+    helper = _second_thread() if data.nbytes >= PARALLEL_DEFLATE_FROM else None
+    if helper is None:
+        return zlib.compress(data, PNG_COMPRESS_LEVEL)
+    cut = (rows.shape[0] // 2) * (data.nbytes // rows.shape[0])  # on a row boundary
+    second = helper.submit(_raw_deflate, data[cut:], True)
+    first = _raw_deflate(data[:cut], False)
+    check = zlib.adler32(data)
+    return _zlib_header() + first + second.result() + struct.pack(">I", check)
+
+
+@functools.cache
+def _zlib_header() -> bytes:
+    """The two header bytes zlib itself writes at ``PNG_COMPRESS_LEVEL`` (RFC 1950 2.2)."""
+    return zlib.compress(b"", PNG_COMPRESS_LEVEL)[:2]
 
 
 def envelope(t: np.ndarray, y: np.ndarray, columns: int) -> tuple[np.ndarray, np.ndarray]:

@@ -163,6 +163,54 @@ def test_png_bytes_decode_to_the_canvas_pixels():
     assert decoded.shape == (round(SIZE_IN[1] * 100), round(SIZE_IN[0] * 100), 4)
 
 
+@pytest.mark.parametrize("height", [1, 2, 3, 851])
+def test_deflate_in_two_halves_is_one_zlib_stream_of_the_rows(monkeypatch, height):
+    """The two-thread stream (service.picture._deflate) inflates, by the standard library's
+    zlib (RFC 1950/1951), to exactly the rows; at every row count, the halves cut anywhere."""
+    import zlib
+
+    import service.picture as picture
+
+    monkeypatch.setattr(picture, "PARALLEL_DEFLATE_FROM", 0)
+    monkeypatch.setattr(picture, "_cores", lambda: 2)
+    rng = np.random.default_rng(height)
+    # runs of equal bytes and noise, as an image has: both kinds of deflate data
+    rows = np.repeat(rng.integers(0, 256, size=(height, 1101)), 4, axis=1).astype(np.uint8)
+    rows[:, ::7] = rng.integers(0, 256, size=rows[:, ::7].shape)
+    stream = picture._deflate(rows)
+    assert zlib.decompress(stream) == rows.tobytes()
+    assert stream[:2] == zlib.compress(b"", picture.PNG_COMPRESS_LEVEL)[:2]
+
+
+def test_deflate_on_one_core_is_zlibs_own_stream(monkeypatch):
+    import zlib
+
+    import service.picture as picture
+
+    monkeypatch.setattr(picture, "_cores", lambda: 1)
+    rows = np.arange(4 * 1100 * 300, dtype=np.uint32).view(np.uint8).reshape(300, -1)
+    assert picture._deflate(rows) == zlib.compress(rows.tobytes(), picture.PNG_COMPRESS_LEVEL)
+
+
+def test_png_bytes_from_one_and_two_threads_decode_to_the_same_pixels(monkeypatch):
+    from PIL import Image
+
+    import service.picture as picture
+
+    figure = new_figure()
+    ax = figure.add_axes((0.1, 0.1, 0.8, 0.8))
+    ax.plot(np.cos(np.linspace(0, 30, 800)), color="#7f2704")
+    figure.canvas.draw()
+    decoded = []
+    for cores in (1, 2):
+        monkeypatch.setattr(picture, "_cores", lambda cores=cores: cores)
+        data = png_bytes(figure.canvas)
+        decoded.append(np.asarray(Image.open(io.BytesIO(data)).convert("RGBA")))
+    # lossless both ways: bit-equality with the canvas is the property under test
+    for pixels in decoded:
+        np.testing.assert_array_equal(pixels, np.asarray(figure.canvas.buffer_rgba()))
+
+
 def test_report_svg_splices_the_same_elements_as_a_whole_savefig():
     import features
     import service.report as report
