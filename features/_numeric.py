@@ -16,8 +16,8 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-__all__ = ["MAD_TO_SD", "lane_median", "median_1d", "quantile_half", "robust_sd", "runs",
-           "vertex_offset"]
+__all__ = ["MAD_TO_SD", "lane_median", "median_1d", "quantile", "quantile_half", "robust_sd",
+           "runs", "vertex_offset"]
 
 MAD_TO_SD = 1.4826
 """Normal consistency constant of the median absolute deviation, 1 / Phi^-1(3/4)
@@ -80,24 +80,63 @@ def quantile_half(x: NDArray[np.float64]) -> float:
     return float(upper - (upper - lower) * 0.5)
 
 
+def quantile(x: NDArray[np.float64], q: float) -> float:
+    """``numpy.quantile(x, q)`` (linear method) of a 1-D array, the same number (NaN when any
+    sample is NaN).
+
+    numpy's steps for one ``q`` (numpy 2.4): the virtual index ``(n - 1) q``, the order
+    statistics at its floor and the next (both the largest from the last index on), and
+    its interpolation, from the upper one when the fraction ``g`` is at least 1/2
+    (``upper - (upper - lower) (1 - g)``, else ``lower + (upper - lower) g``); the order
+    statistics selected within a bracket from ``BRACKET_FROM`` samples, as for
+    :func:`median_1d`.
+    """
+    n = x.size
+    if n == 0 or x.ndim != 1 or not 0.0 <= q <= 1.0:
+        return float(np.quantile(x, q))
+    virtual = (n - 1) * q
+    lo = min(int(np.floor(virtual)), n - 1)
+    hi = lo if virtual >= n - 1 else lo + 1
+    pair = _bracketed(x, lo, hi) if n >= BRACKET_FROM else None
+    if pair is None:
+        part = np.partition(x, (lo, hi, n - 1) if hi < n - 1 else (lo, hi))
+        if np.isnan(part[n - 1]):
+            return float("nan")
+        pair = float(part[lo]), float(part[hi])
+    lower, upper = pair
+    g = virtual - np.floor(virtual) if virtual < n - 1 else 0.0
+    diff = upper - lower
+    return float(upper - diff * (1 - g)) if g >= 0.5 else float(lower + diff * g)
+
+
 def _bracketed_median(x: NDArray[np.float64]) -> float:
     """The median of a long 1-D array by selection within a bracket (see the module)."""
     n = x.size
+    pair = _bracketed(x, (n - 1) // 2, n // 2)
+    if pair is None:
+        return float(np.median(x))
+    lower, upper = pair
+    return lower if (n - 1) // 2 == n // 2 else float((lower + upper) / 2.0)
+
+
+def _bracketed(x: NDArray[np.float64], lo: int, hi: int) -> tuple[float, float] | None:
+    """Order statistics ``lo <= hi`` of a long 1-D array selected within a bracket of the
+    values of a regular sample around their ranks (see the module); both NaN when the
+    array holds NaN, None when the bracket misses them."""
+    n = x.size
     sample = np.sort(x[:: n // _BRACKET_SAMPLE])
     if np.isnan(sample[-1]):
-        return float("nan")
-    mid = sample.size // 2
-    lo_v = sample[max(0, mid - _BRACKET_MARGIN)]
-    hi_v = sample[min(sample.size - 1, mid + _BRACKET_MARGIN)]
+        return float("nan"), float("nan")
+    lo_v = sample[max(0, lo * sample.size // n - _BRACKET_MARGIN)]
+    hi_v = sample[min(sample.size - 1, hi * sample.size // n + _BRACKET_MARGIN)]
     below = int(np.count_nonzero(x < lo_v))
     inside = x[(x >= lo_v) & (x <= hi_v)]
     if below + inside.size + int(np.count_nonzero(x > hi_v)) != n:
-        return float("nan")  # a NaN is in none of the three: numpy.median's answer
-    lo, hi = (n - 1) // 2 - below, n // 2 - below
-    if lo < 0 or hi >= inside.size:
-        return float(np.median(x))
-    part = np.partition(inside, (lo, hi))
-    return float(part[lo]) if lo == hi else float((part[lo] + part[hi]) / 2.0)
+        return float("nan"), float("nan")  # a NaN is in none of the three
+    if lo - below < 0 or hi - below >= inside.size:
+        return None
+    part = np.partition(inside, (lo - below, hi - below))
+    return float(part[lo - below]), float(part[hi - below])
 
 
 def lane_median(a: NDArray[np.float64]) -> NDArray[np.float64]:

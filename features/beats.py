@@ -32,7 +32,14 @@ from scipy import ndimage, signal
 
 from features._checks import check_sampling_rate, check_trace, check_usable
 from features._correlate import BlockSpectra
-from features._numeric import lane_median, median_1d, quantile_half, robust_sd, vertex_offset
+from features._numeric import (
+    lane_median,
+    median_1d,
+    quantile,
+    quantile_half,
+    robust_sd,
+    vertex_offset,
+)
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, polyphase_fir
 from features.limits import DEFAULT_RATE_RANGE_BPM, MAX_RATE_BPM, MIN_RATE_BPM
@@ -728,7 +735,7 @@ def _give_back(xw: NDArray[np.float64], fs_w: float, levels: tuple[int, ...],
         return None
     raw = swt_component(xw, levels=levels, wavelet=WAVELET)
     env = ndimage.uniform_filter1d(raw * raw, max(1, int(round(ENVELOPE_WINDOW_S * fs_w))))
-    level = float(np.quantile(env[usable], GIVE_BACK_QUANTILE))
+    level = quantile(env[usable], GIVE_BACK_QUANTILE)
     if not level > 0.0:
         return None
     guard = 2 * int(round(GIVE_BACK_GUARD_S * fs_w)) + 1
@@ -752,7 +759,7 @@ def _envelope_period(
 ) -> float | None:
     # Winsorise: a swing that escaped the mask (a posture change tens of times the
     # cardiac wave) would otherwise own the autocorrelation; beat peaks stay whole.
-    env = np.minimum(env, ENVELOPE_CLIP * float(np.quantile(env, 0.95)))
+    env = np.minimum(env, ENVELOPE_CLIP * quantile(env, 0.95))
     ac = _autocorrelation(env - env.mean(), int(max_period * fs) + 2)
     if ac[0] <= 0:
         return None

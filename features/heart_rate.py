@@ -131,7 +131,7 @@ def heart_rate(
     mean_bpm = MS_PER_MIN / float(np.mean(used))
     median_bpm = MS_PER_MIN / median_1d(used)
 
-    r_med = float(np.median(beats.correlation)) if beats.correlation.size else 0.0
+    r_med = median_1d(beats.correlation) if beats.correlation.size else 0.0
     c_template = _clip01((r_med - 0.3) / 0.5)
     frac = used.size / max(iv.size, 1)
     c_screen = _clip01((frac - 0.3) / 0.5)

@@ -19,7 +19,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.interpolate import BSpline
 
 from features._checks import check_sampling_rate
-from features._numeric import runs
+from features._numeric import median_1d, runs
 from features.catalogue import (
     NONNEGATIVE,
     PERCENT,
@@ -274,7 +274,7 @@ def respiratory_modulation(
     if breaths.size < MIN_BREATHS + 1:
         return ModulationResult(confidence=0.0, flags=("too_few_breaths",))
     cycles = np.diff(breaths)
-    f_b = 1.0 / float(np.median(cycles))
+    f_b = 1.0 / median_1d(cycles)
     starts, ends = _kept_cycles(y, fs, breaths)
     if starts.size < cycles.size:
         flags.append("breath_cycles_excluded")
@@ -304,7 +304,7 @@ def respiratory_modulation(
     baseline, c_base = None, 0.0
     if card is not None and card > 0:
         swings = _cycle_swings(y, fs, starts, ends)
-        baseline = float(np.median(swings)) / card
+        baseline = median_1d(swings) / card
         c_base = min(1.0, starts.size / 10.0)
     else:
         flags.append("no_cardiac_amplitude_for_baseline_index")
@@ -415,7 +415,7 @@ def _kept_cycles(
     y: NDArray[np.float64], fs: float, breaths: NDArray[np.float64]
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     starts, ends = breaths[:-1], breaths[1:]
-    keep = (ends - starts) <= 2.0 * np.median(ends - starts)
+    keep = (ends - starts) <= 2.0 * median_1d(ends - starts)
     bad = np.concatenate(([0], np.cumsum(~np.isfinite(y))))
     a = np.clip(np.floor(starts * fs).astype(np.int64), 0, y.size)
     b = np.clip(np.ceil(ends * fs).astype(np.int64) + 1, 0, y.size)
@@ -493,7 +493,8 @@ def _rsa(
     k_breath = np.unique(np.searchsorted(starts, t, side="right") - 1)
     if k_breath.size < MIN_BREATHS or iv.size < MIN_BEATS:
         return _RsaEstimate(None, None, None, None, 0.0, ("too_few_breaths_for_rsa",))
-    knot_s = RSA_TREND_KNOT_CYCLES * float(np.median(ends - starts))
+    cycle_s = median_1d(ends - starts)
+    knot_s = RSA_TREND_KNOT_CYCLES * cycle_s
     late = np.arange(iv.size) >= iv.size // 2
     fits = [f for f in (_cosinor_segment(t[seg], iv[seg], phi[seg], knot_s, late[seg])
                         for seg in _segments(t)) if f is not None]
@@ -516,7 +517,7 @@ def _rsa(
         # shared trend adds between them is left out).
         half_wald = float(delta @ np.linalg.solve(halves[0][1] + halves[1][1], delta))
     beats_per_breath = iv.size / k_breath.size
-    f_b = 1.0 / float(np.median(ends - starts))
+    f_b = 1.0 / cycle_s
     cv_breath = float(np.std(ends - starts) / np.mean(ends - starts))
     within = math.erf(RSA_TOLERANCE_MS / (math.sqrt(2.0) * se)) if se > 0 else 1.0
     ceiling = min(1.0, k_breath.size / 20.0)

@@ -13,6 +13,7 @@ from features._numeric import (
     SORTED_LANES_UP_TO,
     lane_median,
     median_1d,
+    quantile,
     quantile_half,
     robust_sd,
     runs,
@@ -87,22 +88,16 @@ def test_median_1d_of_an_empty_array_warns_as_numpy_does() -> None:
         assert np.isnan(median_1d(np.empty(0)))
 
 
-@pytest.mark.parametrize("n", [7, BRACKET_FROM - 1, BRACKET_FROM, BRACKET_FROM + 1, 300_000,
-                               1_000_001])
-@pytest.mark.parametrize("kind", ["normal", "sorted", "reversed", "ties", "drift",
-                                  "sample_ordered", "nan", "integers"])
-def test_long_medians_equal_numpy_median(n: int, kind: str) -> None:
-    # Reference: numpy.median. The bracketed selection takes the same order statistics, so
-    # the same number to the bit; the orderings below are the ones that could fool a
-    # bracket found on a regular sample.
-    rng = np.random.default_rng(n)
+def _hard_array(n: int, kind: str, seed: int) -> np.ndarray:
+    """Arrays whose orderings could fool a bracket found on a regular sample."""
+    rng = np.random.default_rng(seed)
     x = rng.standard_normal(n)
     if kind == "sorted":
         x.sort()
     elif kind == "reversed":
         x = np.sort(x)[::-1].copy()
     elif kind == "ties":
-        x = np.round(x * 3) / 3  # a handful of distinct values, the median among ties
+        x = np.round(x * 3) / 3  # a handful of distinct values, the answer among ties
     elif kind == "drift":
         x = x + np.linspace(0, 50, n)  # a slow trend, like a baseline drift
     elif kind == "sample_ordered":
@@ -110,10 +105,23 @@ def test_long_medians_equal_numpy_median(n: int, kind: str) -> None:
         # whole array is partitioned
         step = n // 2000 if n >= BRACKET_FROM else 1
         x[::step] = 1e6 + np.arange(x[::step].size)
-    elif kind == "nan":
+    elif kind == "nan" and n > 3:
         x[(n * 2) // 3 + 1] = np.nan  # off the sample's positions: found by the count
+    elif kind == "inf":
+        x[n // 2] = np.inf
     elif kind == "integers":
         x = rng.integers(0, 400, n)
+    return x
+
+
+@pytest.mark.parametrize("n", [7, BRACKET_FROM - 1, BRACKET_FROM, BRACKET_FROM + 1, 300_000,
+                               1_000_001])
+@pytest.mark.parametrize("kind", ["normal", "sorted", "reversed", "ties", "drift",
+                                  "sample_ordered", "nan", "integers"])
+def test_long_medians_equal_numpy_median(n: int, kind: str) -> None:
+    # Reference: numpy.median. The bracketed selection takes the same order statistics, so
+    # the same number to the bit.
+    x = _hard_array(n, kind, n)
     got, want = median_1d(x), float(np.median(x))
     assert got == want or (np.isnan(got) and np.isnan(want)), (got, want)
 
@@ -125,3 +133,17 @@ def test_middle_quantile_equals_numpy_quantile(n: int) -> None:
     for _ in range(50):
         x = rng.standard_normal(n) * 10.0 ** rng.uniform(-3, 3)
         assert quantile_half(x) == float(np.quantile(x, 0.5))
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 10, 101, BRACKET_FROM - 1, BRACKET_FROM, 300_001])
+@pytest.mark.parametrize("kind", ["normal", "sorted", "reversed", "ties", "drift",
+                                  "sample_ordered", "nan", "inf"])
+def test_quantiles_equal_numpy_quantile(n: int, kind: str) -> None:
+    # Reference: numpy.quantile, linear method (the default). The same order statistics
+    # (selected within a bracket on long arrays) and numpy's own interpolation steps, so the
+    # same number to the bit, at the ends (0, 1), at the middle and in between.
+    x = _hard_array(n, kind, n + 11)
+    for q in (0.0, 0.05, 1 / 3, 0.5, 0.9, 0.95, 0.99, 1.0):
+        with np.errstate(invalid="ignore"):  # inf - inf in the interpolation, as numpy
+            got, want = quantile(x, q), float(np.quantile(x, q))
+        assert got == want or (np.isnan(got) and np.isnan(want)), (q, got, want)
