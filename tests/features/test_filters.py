@@ -47,19 +47,37 @@ def test_filters_equal_scipy_sosfiltfilt_with_even_padding() -> None:
 
 @pytest.mark.parametrize("padtype", ["odd", "even", None])
 @pytest.mark.parametrize("padlen", [None, 37])
-def test_cached_filtfilt_equals_scipy_sosfiltfilt(padtype: str | None,
-                                                  padlen: int | None) -> None:
+@pytest.mark.parametrize("loop", ["scipy's compiled loop", "sosfilt itself"])
+def test_cached_filtfilt_equals_scipy_sosfiltfilt(padtype: str | None, padlen: int | None,
+                                                  loop: str, monkeypatch) -> None:
+    import features.filters as filters
     from features.filters import butter_filtfilt
 
+    if loop == "sosfilt itself":  # the road taken where the compiled loop is not found
+        monkeypatch.setattr(filters, "_SOSFILT_LOOP", None)
+    else:
+        assert filters._SOSFILT_LOOP is not None  # scipy 1.11-1.17 have it
     rng = np.random.default_rng(6)
     x = np.cumsum(rng.standard_normal((3, 2000)), axis=-1)
     design = (4, (0.1, 0.7), "bandpass", 10.0)
     sos = scipy.signal.butter(4, (0.1, 0.7), btype="bandpass", fs=10.0, output="sos")
     # reference library: scipy.signal.sosfiltfilt (the same steps, so equal to the bit)
-    for axis, data in ((-1, x), (0, x.T), (-1, x[0])):
+    for axis, data in ((-1, x), (0, x.T), (-1, x[0]), (1, np.stack((x.T, x.T[::-1])))):
         ref = scipy.signal.sosfiltfilt(sos, data, axis=axis, padtype=padtype, padlen=padlen)
         got = butter_filtfilt(data, design, axis=axis, padtype=padtype, padlen=padlen)
         np.testing.assert_array_equal(got, ref)
+
+
+def test_a_compiled_loop_that_disagrees_with_sosfilt_is_not_used(monkeypatch) -> None:
+    import scipy.signal._sosfilt as compiled
+
+    import features.filters as filters
+
+    def wrong(sos, x, zi):  # leaves the signal unfiltered
+        return None
+
+    monkeypatch.setattr(compiled, "_sosfilt", wrong)
+    assert filters._sosfilt_loop() is None
 
 
 def test_cached_filtfilt_refuses_a_trace_shorter_than_its_padding() -> None:
