@@ -28,6 +28,7 @@ unit of the fused trace, ``InputSummary.amplitude_unit``: ``N``, ``m/s^2`` or ``
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import math
 import re
@@ -308,15 +309,24 @@ def _range_text(rng: tuple[float | None, float | None]) -> str:
 
 def _get(obj: Any, path: str) -> Any:
     """Follow a dotted attribute path; ``name[k]`` indexes a sequence (None when absent)."""
-    for part in path.split("."):
-        m = _INDEX.match(part)
-        obj = getattr(obj, m.group(1) if m else part, None)
-        if m and obj is not None:
-            k = int(m.group(2))
+    for name, k in _steps(path):
+        obj = getattr(obj, name, None)
+        if k is not None and obj is not None:
             obj = obj[k] if k < len(obj) else None
         if obj is None:
             return None
     return obj
+
+
+@functools.cache
+def _steps(path: str) -> tuple[tuple[str, int | None], ...]:
+    """The attribute names of a dotted path, each with its sequence index or None (the
+    catalogue's few dozen paths, parsed once)."""
+    steps = []
+    for part in path.split("."):
+        m = _INDEX.match(part)
+        steps.append((m.group(1), int(m.group(2))) if m else (part, None))
+    return tuple(steps)
 
 
 def _value(d: FeatureDefinition, result: AnalysisResult) -> tuple[float | None, str | None]:
