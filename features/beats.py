@@ -636,16 +636,17 @@ def _pick(w: _Work, matcher: _Matcher, polarity: int, template: NDArray[np.float
     beats = cand[keep]
     n_rejected = n_candidates - int(beats.size)
 
-    beats = _drop_extra(beats, corr, amp, fs_w)
+    scores = _Scores(corr, amp, fs_w)
+    beats = _drop_extra(beats, corr, amp, fs_w, scores)
     if period is not None:
-        beats, n_slipped = _repair_slips(beats, corr, amp, fs_w, accept)
+        beats, n_slipped = _repair_slips(beats, corr, amp, fs_w, accept, scores)
         if n_slipped:
             w.flags.append("slipped_beat_pairs_replaced")
-        paused = _drop_in_pauses(beats, corr, amp, fs_w)
+        paused = _drop_in_pauses(beats, corr, amp, fs_w, scores)
         if paused.size < beats.size:
             # With the pause's pick gone, a pick that split the pause in two is judged
             # against its true neighbours.
-            beats = _drop_extra(paused, corr, amp, fs_w)
+            beats = _drop_extra(paused, corr, amp, fs_w, scores)
     beats, n_recovered = _recover_missed(beats, corr, amp, fs_w, 0.8 * accept,
                                          0.2 * amp_ref, dist, w.usable)
     inside = _complex_usable(beats, w.usable, fs_w)
@@ -1162,8 +1163,25 @@ def _scored(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray[np.
     return score, strong, _reference_interval(beats, strong, fs)
 
 
+class _Scores:
+    """:func:`_scored` of one match (``corr``, ``amp`` at rate ``fs``), the last picks' kept:
+    the clean-up steps of step 7 mostly hand each other the picks unchanged."""
+
+    def __init__(self, corr: NDArray[np.float64], amp: NDArray[np.float64], fs: float) -> None:
+        self.corr, self.amp, self.fs = corr, amp, fs
+        self._last: tuple[NDArray[np.intp], tuple[NDArray[np.float64], NDArray[np.bool_],
+                                                  NDArray[np.float64]]] | None = None
+
+    def __call__(self, beats: NDArray[np.intp]
+                 ) -> tuple[NDArray[np.float64], NDArray[np.bool_], NDArray[np.float64]]:
+        if self._last is None or not np.array_equal(self._last[0], beats):
+            self._last = (beats.copy(), _scored(beats, self.corr, self.amp, self.fs))
+        return self._last[1]
+
+
 def _drop_in_pauses(beats: NDArray[np.intp], corr: NDArray[np.float64],
-                    amp: NDArray[np.float64], fs: float) -> NDArray[np.intp]:
+                    amp: NDArray[np.float64], fs: float, scores: _Scores | None = None
+                    ) -> NDArray[np.intp]:
     """Drop weak picks inside the compensatory pause after a premature beat.
 
     A premature beat (its interval shorter than the reference by more than
@@ -1177,7 +1195,7 @@ def _drop_in_pauses(beats: NDArray[np.intp], corr: NDArray[np.float64],
     """
     if beats.size < 5:
         return beats
-    score, strong, ref = _scored(beats, corr, amp, fs)
+    score, strong, ref = (scores or _Scores(corr, amp, fs))(beats)
     iv = np.diff(beats) / fs
     # Pick j (2 .. n-2): intervals iv[j-2] (into the beat before it), iv[j-1], iv[j].
     j = np.arange(2, beats.size - 1)
@@ -1191,7 +1209,7 @@ def _drop_in_pauses(beats: NDArray[np.intp], corr: NDArray[np.float64],
 
 
 def _drop_extra(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray[np.float64],
-                fs: float) -> NDArray[np.intp]:
+                fs: float, scores: _Scores | None = None) -> NDArray[np.intp]:
     """Drop weak beats that split one interval into two short ones.
 
     A beat is suspect when its two intervals sum to less than ``EXTRA_BEAT_SPAN`` reference
@@ -1201,10 +1219,11 @@ def _drop_extra(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray
     is the local median interval between strong beats (score at least 0.75
     of the median), so a run of extra beats cannot drag it down.
     """
+    scored = scores or _Scores(corr, amp, fs)
     for _ in range(3):
         if beats.size < 5:
             return beats
-        _, strong, ref = _scored(beats, corr, amp, fs)
+        _, strong, ref = scored(beats)
         iv = np.diff(beats) / fs
         before, after = iv[:-1], iv[1:]
         m = ref[1:-1]
@@ -1217,8 +1236,8 @@ def _drop_extra(beats: NDArray[np.intp], corr: NDArray[np.float64], amp: NDArray
 
 
 def _repair_slips(beats: NDArray[np.intp], corr: NDArray[np.float64],
-                  amp: NDArray[np.float64], fs: float, level: float
-                  ) -> tuple[NDArray[np.intp], int]:
+                  amp: NDArray[np.float64], fs: float, level: float,
+                  scores: _Scores | None = None) -> tuple[NDArray[np.intp], int]:
     """Replace two picks that stand where one beat should by the best match between.
 
     On a lightly damped support the match is nearly as good one ring period from J, and
@@ -1233,8 +1252,7 @@ def _repair_slips(beats: NDArray[np.intp], corr: NDArray[np.float64],
     """
     if beats.size < 6:
         return beats, 0
-    score = corr[beats] * np.minimum(amp[beats] / median_1d(amp[beats]), 1.5)
-    ref = _reference_interval(beats, score >= 0.75 * median_1d(score), fs) * fs
+    ref = (scores or _Scores(corr, amp, fs))(beats)[2] * fs
     out = beats
     replaced = 0
     # Picks i = 1, 2, ... in order, a replacement shifting the later ones down by one; the
