@@ -190,12 +190,15 @@ def _sosfilt(sos: FloatArray, x: NDArray[np.floating], zi: FloatArray, axis: int
     """
     if _SOSFILT_LOOP is None or x.dtype != np.float64 or zi.dtype != np.float64:
         return np.asarray(signal.sosfilt(sos, x, axis=axis, zi=zi)[0])
+    return _by_loop(_SOSFILT_LOOP, sos, x, zi, axis)
+
+
+def _by_loop(loop: Callable[..., None], sos: FloatArray, x: NDArray[np.floating],
+             zi: FloatArray, axis: int) -> FloatArray:
     axis = axis % x.ndim
-    moved = np.moveaxis(x, axis, -1)
-    rows = np.array(moved, dtype=np.float64, order="C")  # the copy filtered in place
+    rows = np.array(np.moveaxis(x, axis, -1), dtype=np.float64, order="C")  # filtered in place
     state = np.array(np.moveaxis(zi, (0, axis + 1), (-2, -1)), dtype=np.float64, order="C")
-    _SOSFILT_LOOP(sos, rows.reshape(-1, rows.shape[-1]),
-                  state.reshape(-1, sos.shape[0], 2))
+    loop(sos, rows.reshape(-1, rows.shape[-1]), state.reshape(-1, sos.shape[0], 2))
     return np.moveaxis(rows, -1, axis)
 
 
@@ -209,13 +212,11 @@ def _sosfilt_loop() -> Callable[..., None] | None:
     sos = np.asarray(signal.butter(2, (0.1, 0.3), btype="bandpass", output="sos"))
     x = np.cos(np.arange(3 * 40).reshape(3, 40) * 0.37)
     zi = np.sin(np.arange(sos.shape[0] * 2 * 40).reshape(sos.shape[0], 2, 40) * 0.11)
-    global _SOSFILT_LOOP
-    _SOSFILT_LOOP = loop
     try:
-        same = np.array_equal(_sosfilt(sos, x, zi, 0), signal.sosfilt(sos, x, axis=0, zi=zi)[0])
+        same = np.array_equal(_by_loop(loop, sos, x, zi, 0),
+                              signal.sosfilt(sos, x, axis=0, zi=zi)[0])
     except (TypeError, ValueError):
         same = False
-    _SOSFILT_LOOP = None
     return loop if same else None
 
 
