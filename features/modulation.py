@@ -300,7 +300,7 @@ def respiratory_modulation(
     timing, c_timing, t_flag = _timing_share(iv_t[ok_iv], iv[ok_iv], f_b, cv_breath)
     flags.extend(t_flag)
     if card is None and amps is not None and np.isfinite(amps).sum() >= MIN_BEATS:
-        card = float(np.nanmedian(amps))
+        card = median_1d(amps[~np.isnan(amps)])  # numpy.nanmedian's value
     baseline, c_base = None, 0.0
     if card is not None and card > 0:
         swings = _cycle_swings(y, fs, starts, ends)

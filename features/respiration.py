@@ -18,7 +18,15 @@ from scipy import ndimage
 from scipy import signal as sps
 
 from features._checks import check_sampling_rate, check_usable, finite_where
-from features._numeric import MAD_TO_SD, lane_median, median_1d, robust_sd, runs, vertex_offset
+from features._numeric import (
+    MAD_TO_SD,
+    lane_median,
+    median_1d,
+    quantile,
+    robust_sd,
+    runs,
+    vertex_offset,
+)
 from features.catalogue import (
     AMPLITUDE_UNIT,
     NONNEGATIVE,
@@ -773,7 +781,7 @@ def _noise_limited(
         return False
     f, p = est
     band = (f >= BAND_HZ[0]) & (f <= BAND_HZ[1])
-    sd = float(np.sqrt(np.percentile(p[band], 20) * (BAND_HZ[1] - BAND_HZ[0])))
+    sd = float(np.sqrt(quantile(p[band], 0.2) * (BAND_HZ[1] - BAND_HZ[0])))
     swing = median_1d(_swing(y_low, _window(period_s, fs))[mask])
     return 6.0 * sd >= fraction * swing
 
