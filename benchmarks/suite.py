@@ -11,8 +11,8 @@ Run from the repository root: ``python -m benchmarks.suite [--quick] [--json PAT
    :mod:`benchmarks.peer`, so their memory figures do not mix. A child reads its input,
    warms up (every stage once, imports included) on its first minute (a quarter of it for
    inputs under 4 minutes), notes its resident set, then times the full input: median of
-   3 runs (the peer: 3 up to 30 minutes, then 1). The engine's runs alternate with runs
-   of the floor, 11 pairs at 5 minutes and 3 from 1 hour (see ``_engine_repeats``), and
+   the engine's runs (the peer: 3 up to 30 minutes, then 1). The engine's runs alternate with runs
+   of the floor, 11 pairs at 5 minutes and 5 from 15 minutes (see ``_engine_repeats``), and
    the engine's multiple of the floor is the median of the pairs' ratios, so that load
    from other processes on a shared machine falls on single pairs; a run of the suite
    at 06:07 UTC on 2026-12-02, before this, put a different 5-minute case over 5x than
@@ -174,9 +174,10 @@ def build_trace(path: str, duration_s: float, fs_hz: float, n_channels: int) -> 
 
 
 def _engine_repeats(duration_s: float) -> int:
-    """Engine/floor pairs timed: 3, and more for short inputs (11 at 5 minutes), whose
-    tens of milliseconds a passing burst of load on a shared machine can double."""
-    return max(3, min(11, int(round(3300.0 / duration_s))))
+    """Engine/floor pairs timed: 11 at 5 minutes, whose tens of milliseconds a passing
+    burst of load on a shared machine can double, and never fewer than 5: with 3 pairs
+    a long case's multiple moved by up to a quarter between runs of the same code."""
+    return max(5, min(11, int(round(3300.0 / duration_s))))
 
 
 def _warm(duration_s: float) -> float:

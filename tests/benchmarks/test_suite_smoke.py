@@ -33,7 +33,7 @@ def test_quick_suite_runs_and_reports_every_case(tmp_path: Path) -> None:
         assert set(floor.PASSES) <= set(case["engine"]["floor"])
         # engine and floor timed in pairs; the multiple is the median of the pairs' ratios
         runs, floors = case["engine"]["runs"], case["engine"]["floor_runs"]
-        assert len(runs) == len(floors) >= 3
+        assert len(runs) == len(floors) >= 5  # suite._engine_repeats: never fewer
         assert case["engine"]["floor_multiple"] == pytest.approx(
             float(np.median([e / f for e, f in zip(runs, floors, strict=True)])))
         assert "seconds" in case["peer"] or "skipped" in case["peer"]
