@@ -16,8 +16,8 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-__all__ = ["MAD_TO_SD", "lane_median", "median_1d", "quantile", "quantile_half", "robust_sd",
-           "runs", "vertex_offset"]
+__all__ = ["MAD_TO_SD", "lane_median", "median_1d", "quantile", "robust_sd", "runs",
+           "vertex_offset"]
 
 MAD_TO_SD = 1.4826
 """Normal consistency constant of the median absolute deviation, 1 / Phi^-1(3/4)
@@ -60,24 +60,6 @@ def median_1d(x: NDArray[np.float64]) -> float:
     if np.isnan(part[n - 1]):
         return float("nan")
     return float(part[lo]) if lo == hi else float((part[lo] + part[hi]) / 2.0)
-
-
-def quantile_half(x: NDArray[np.float64]) -> float:
-    """``numpy.quantile(x, 0.5)`` (linear method) of a finite 1-D array, the same number.
-
-    For an even length numpy interpolates halfway from the lower to the upper middle element
-    as ``upper - (upper - lower) * 0.5``, which can differ in the last bit from the median's
-    ``(lower + upper) / 2``; that form is kept.
-    """
-    n = x.size
-    if n == 0 or x.ndim != 1:
-        return float(np.quantile(x, 0.5))
-    h = n // 2
-    if n % 2:
-        return float(np.partition(x, h)[h])
-    part = np.partition(x, (h - 1, h))
-    lower, upper = part[h - 1], part[h]
-    return float(upper - (upper - lower) * 0.5)
 
 
 def quantile(x: NDArray[np.float64], q: float) -> float:

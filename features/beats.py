@@ -36,7 +36,6 @@ from features._numeric import (
     lane_median,
     median_1d,
     quantile,
-    quantile_half,
     robust_sd,
     vertex_offset,
 )
@@ -568,7 +567,7 @@ def _refine_template(w: _Work, matcher: _Matcher, polarity: int,
             cand = cand[(cand >= half[0]) & (cand < n - half[1])]
             if cand.size < 4:
                 return None
-            best = cand[corr[cand] >= quantile_half(corr[cand])]
+            best = cand[corr[cand] >= quantile(corr[cand], 0.5)]
             # numpy.median over the epochs, from one sort of each template sample's lane;
             # the lanes of the signed component (a sign change is exact and commutes
             # with the median), without a signed copy of the whole component
@@ -621,7 +620,7 @@ def _pick(w: _Work, matcher: _Matcher, polarity: int, template: NDArray[np.float
     cand, _ = signal.find_peaks(corr, distance=dist, height=0.2)
     cand = cand[(cand >= 1) & (cand < n - 1)]
     n_candidates = int(cand.size)
-    top = corr[cand][corr[cand] >= quantile_half(corr[cand])]
+    top = corr[cand][corr[cand] >= quantile(corr[cand], 0.5)]
     accept = float(np.clip(0.55 * median_1d(top), 0.3, 0.5))
     amp_ref = median_1d(amp[cand][corr[cand] >= accept]) if np.any(
         corr[cand] >= accept) else median_1d(amp[cand])
