@@ -1,11 +1,13 @@
-"""Small numeric kernels shared by the stages: medians, robust spread, parabolic peaks, runs.
+"""Small numeric kernels shared by the stages: medians and quantiles, robust spread,
+parabolic peaks, runs.
 
 The medians give the value ``numpy.median`` gives (the same order statistics, and the mean
-of the two middle ones for an even count, computed as numpy does), without its per-call
-overhead (argument normalisation, a NaN check by a second reduction), which dominated the
-many medians of short arrays the stages take. On a long array (a night's trace) the median
-is selected within a bracket found on a regular sample of the array: one pass counts the
-values below the lower bound and gathers those inside, and the middle order statistic(s)
+of the two middle ones for an even count, computed as numpy does), and the quantile the
+value of ``numpy.quantile`` (linear method), without their per-call overhead (argument
+normalisation, a NaN check by a second reduction), which dominated the many medians of
+short arrays the stages take. On a long array (a night's trace) the order statistics are
+selected within a bracket found on a regular sample of the array: one pass counts the
+values below the lower bound and gathers those inside, and the wanted order statistic(s)
 are selected among the few gathered, instead of partitioning millions of values. The
 answer is the same element(s), so the same number; when the bracket misses (a sample
 unrepresentative of the array) the whole array is partitioned.
