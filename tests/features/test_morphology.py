@@ -409,6 +409,56 @@ def test_template_spread_is_the_median_absolute_deviation_of_numpy(n_beats):
     np.testing.assert_array_equal(got, want)
 
 
+@pytest.mark.parametrize("n_beats", [7, 1001, 6001, 9000])
+def test_ordered_lanes_hold_numpy_sorts_order_statistics(n_beats):
+    """Sorted (up to ``_SORTED_BEATS_UP_TO`` beats) or selected one order statistic at a
+    time (beyond): the asked positions hold ``numpy.sort``'s values exactly, and every
+    value between two of them lies between them."""
+    from features.morphology import _ordered_lanes
+
+    rng = np.random.default_rng(n_beats)
+    epochs = np.column_stack((rng.standard_normal(n_beats),
+                              rng.integers(-2, 3, n_beats).astype(float),
+                              rng.exponential(1.0, n_beats) ** 4))
+    kth = (n_beats // 5, n_beats - n_beats // 5 - 1, (n_beats - 1) // 2, n_beats // 2)
+    rows = _ordered_lanes(epochs, kth)
+    want = np.sort(epochs.T, axis=1)
+    stops = sorted(set(kth))
+    np.testing.assert_array_equal(rows[:, stops], want[:, stops])
+    assert (rows[:, : stops[0]] <= rows[:, [stops[0]]]).all()
+    assert (rows[:, stops[-1]:] >= rows[:, [stops[-1]]]).all()
+    for a, b in zip(stops[:-1], stops[1:], strict=True):
+        span = rows[:, a:b + 1]
+        assert (span >= rows[:, [a]]).all() and (span <= rows[:, [b]]).all()
+
+
+@pytest.mark.parametrize("n_beats", [40, 1001, 6001, 9000])
+def test_robust_template_is_scipys_trimmed_mean_and_mad(n_beats):
+    """Against scipy.stats: ``trim_mean(epochs, 0.2, axis=0)`` less its median, and
+    ``median_abs_deviation(epochs, axis=0, scale="normal")``'s median over samples / sqrt(n)
+    (the template's standard error)."""
+    from scipy import stats
+
+    from features.morphology import _robust_template
+
+    rng = np.random.default_rng(n_beats)
+    t = np.linspace(-0.35, 0.45, 201)
+    epochs = beat_shape(t)[None, :] + rng.standard_t(3, (n_beats, t.size))
+    template, se = _robust_template(epochs)
+    want = stats.trim_mean(epochs, 0.2, axis=0)
+    want = want - np.median(want)
+    # The same kept values summed in another order: each sum is within n_kept rounding
+    # steps of the largest kept magnitude (a bound on naive summation; numpy's pairwise
+    # sum is tighter), and the median is one of those means.
+    kept = n_beats - 2 * int(0.2 * n_beats)
+    bound = 2 * kept * np.finfo(float).eps * np.abs(epochs).max()
+    np.testing.assert_allclose(template, want, rtol=0, atol=2 * bound)
+    mad = stats.median_abs_deviation(epochs, axis=0, scale="normal")
+    # MAD_TO_SD is 1.4826, scipy's "normal" scale 1 / Phi^-1(3/4) = 1.482602...: a
+    # relative difference under 2e-6.
+    assert se == pytest.approx(np.median(mad) / np.sqrt(n_beats), rel=2e-6)
+
+
 @pytest.mark.parametrize("fs", [100.0, 250.0, 499.0])
 def test_beat_extrema_are_least_squares_parabolas_at_each_centre(fs):
     from features.morphology import _BEAT_SEARCH_S, _beat_extrema, _fit_half_width
