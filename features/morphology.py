@@ -872,10 +872,11 @@ def _lane_mad(rows: NDArray[np.float64], centre: NDArray[np.float64], cut: int
         return _two_run_median(rows, centre)
     lo, hi = (n - 1) // 2, n // 2
     inner = np.abs(rows[:, cut : n - cut] - centre[:, None])
-    inner.partition((lo, hi), axis=1)
-    mad = inner[:, lo] if lo == hi else (inner[:, lo] + inner[:, hi]) / 2.0
+    inner.partition(lo, axis=1)  # one pivot (see _select); the next is the least above it
+    upper = inner[:, lo] if lo == hi else inner[:, lo + 1:].min(axis=1)
+    mad = inner[:, lo] if lo == hi else (inner[:, lo] + upper) / 2.0
     near = np.minimum(centre - rows[:, cut], rows[:, n - 1 - cut] - centre)
-    far = inner[:, hi] > near
+    far = upper > near
     if far.any():
         mad[far] = np.median(np.abs(rows[far] - centre[far, None]), axis=1)
     return np.asarray(mad, dtype=float)
