@@ -124,10 +124,14 @@ def robust_sd(x: ArrayLike, axis: int | None = None) -> NDArray[np.float64] | fl
     if axis is None and v.size:
         v = v.reshape(-1)
         return float(MAD_TO_SD * median_1d(np.abs(v - median_1d(v))))
-    if axis is None:
+    if axis is None:  # empty: numpy's NaN and warning
         return float(MAD_TO_SD * np.median(np.abs(v - np.median(v))))
-    med = np.median(v, axis=axis, keepdims=True)
-    return np.asarray(MAD_TO_SD * np.median(np.abs(v - med), axis=axis))
+    if not v.size:
+        med = np.median(v, axis=axis, keepdims=True)
+        return np.asarray(MAD_TO_SD * np.median(np.abs(v - med), axis=axis))
+    lanes = np.moveaxis(v, axis, -1)  # the medians along the axis by lane_median
+    med = lane_median(lanes)
+    return np.asarray(MAD_TO_SD * lane_median(np.abs(lanes - med[..., None])))
 
 
 def vertex_offset(a: ArrayLike, b: ArrayLike, c: ArrayLike) -> NDArray[np.float64]:
