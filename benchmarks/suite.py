@@ -8,7 +8,11 @@ Run from the repository root: ``python -m benchmarks.suite [--quick] [--json PAT
    in a temporary directory.
 2. Every case runs in two fresh child processes, one for heartsway (engine, then the
    floor of :mod:`benchmarks.floor` on the same input) and one for the peer of
-   :mod:`benchmarks.peer`, so their memory figures do not mix. A child reads its input,
+   :mod:`benchmarks.peer`, so their memory figures do not mix. A child first sets the
+   allocator as the service's processes do (:func:`service.allocator.tune_allocator`:
+   without it an 8-hour engine call took some 64 000 page faults, and the 8-hour multiple
+   read 2.3 against 1.8 with it side by side, see ``benchmarks/README.md``), then reads
+   its input,
    warms up (every stage once, imports included) on its first minute (a quarter of it for
    inputs under 4 minutes), notes its resident set, then times the full input: median of
    the engine's runs (the peer: 3 up to 30 minutes, then 1). The engine's runs alternate with runs
@@ -53,6 +57,7 @@ from typing import Any
 import numpy as np
 
 from benchmarks import floor, peer, pictures, service_load
+from service.allocator import tune_allocator
 
 REPO = Path(__file__).resolve().parents[1]
 BLOCK_S = 1800.0
@@ -279,6 +284,9 @@ def _peer_child(sig: np.ndarray, fs: float, repeats: int, warm_s: float,
 
 
 def _child_main(args: argparse.Namespace) -> int:
+    # The allocator as the service's processes set it, before the input is read (see
+    # service.allocator); the floor and the peer run under the same settings.
+    tune_allocator()
     meta = json.loads(args.meta)
     n = round(args.seconds * args.fs)
     sig = _read(args.trace, meta, n)

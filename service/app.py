@@ -11,6 +11,7 @@ from flask import Flask, Request, current_app
 from flask.json.provider import DefaultJSONProvider
 
 from service import access, logs, metrics, problems
+from service.allocator import tune_allocator
 from service.blueprints import analyses, catalogue, health, jobs, meta, page, reports
 from service.config import load_config
 from service.job_store import JobSettings
@@ -76,6 +77,7 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     flask.Flask
         The WSGI application.
     """
+    tune_allocator()  # in each worker before any request (service.allocator)
     app = Flask("service", static_folder=None)
     app.json_provider_class = StrictJSONProvider
     app.json = StrictJSONProvider(app)

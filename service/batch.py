@@ -132,9 +132,11 @@ def analyze_file(path: str, form: dict[str, Any], window_s: float | None = None,
         One row (or one per window), with every feature column.
     """
     from schemas.requests import AnalysisRequestSchema
+    from service.allocator import tune_allocator
     from service.analysis import analyze_request, analyze_request_windows, ask_for_windows
     from service.uploads import path_request_body
 
+    tune_allocator()  # once per process: a Dask worker's first recording sets it
     columns = feature_columns()
     try:
         body = path_request_body(path, form)

@@ -28,6 +28,8 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
+from service.allocator import tune_allocator
+
 GUNICORN_ARGS = ["--config", "python:service.gunicorn_conf", "service:create_app()"]
 
 
@@ -353,6 +355,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``heartsway`` script."""
+    tune_allocator()  # before any recording is read (service.allocator)
     args = build_parser().parse_args(argv)
     return int(args.run(args))
 

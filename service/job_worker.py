@@ -39,6 +39,7 @@ from huey.contrib.sql_huey import SqlHuey
 from features import __version__ as ENGINE_VERSION
 from features.limits import MAX_CHANNELS
 from schemas.jobs import night_document
+from service.allocator import tune_allocator
 from service.analysis import analyze_night
 from service.job_store import (
     MAX_ATTEMPTS,
@@ -255,6 +256,7 @@ def queue_for(settings: JobSettings) -> JobQueue:
 
 def run_worker(settings: JobSettings | None = None) -> None:
     """Run one job worker until SIGINT/SIGTERM (``heartsway worker``)."""
+    tune_allocator()  # before any night is read (service.allocator)
     settings = settings or JobSettings.from_env()
     queue = queue_for(settings)
     logging.getLogger("huey").setLevel(logging.WARNING)
