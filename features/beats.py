@@ -796,9 +796,11 @@ def _autocorrelation(e: NDArray[np.float64], lags: int) -> NDArray[np.float64]:
     tails = np.lib.stride_tricks.sliding_window_view(padded, block + lags)[::block]
     ac = np.zeros(lags)
     for a in range(0, nb, _AC_GROUP):
-        spec = np.fft.rfft(tails[a : a + _AC_GROUP], nfft, axis=1)
-        spec *= np.conj(np.fft.rfft(heads[a : a + _AC_GROUP], nfft, axis=1))
-        ac += np.fft.irfft(spec, nfft, axis=1)[:, :lags].sum(axis=0)
+        # scipy.fft rather than numpy.fft (both pocketfft; the same numbers on the
+        # project's recordings, scipy 1.17 / numpy 2.4): 363 against 446 us at 37 500
+        spec = scipy.fft.rfft(tails[a : a + _AC_GROUP], nfft, axis=1)
+        spec *= np.conj(scipy.fft.rfft(heads[a : a + _AC_GROUP], nfft, axis=1))
+        ac += scipy.fft.irfft(spec, nfft, axis=1)[:, :lags].sum(axis=0)
     return ac
 
 
