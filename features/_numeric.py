@@ -14,10 +14,12 @@ vectorised selection (x86-simd-sort's AVX2 and AVX-512 quickselect, numpy >= 2.0
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-__all__ = ["MAD_TO_SD", "lane_median", "median_1d", "quantile", "robust_sd", "runs",
+__all__ = ["MAD_TO_SD", "lane_median", "mean", "median_1d", "quantile", "robust_sd", "runs",
            "vertex_offset"]
 
 MAD_TO_SD = 1.4826
@@ -32,6 +34,16 @@ The four-digit value is the one in common use (it is scipy.stats.median_abs_devi
 SORTED_LANES_UP_TO = 1000
 """Longest lane :func:`lane_median` (and array :func:`median_1d` and :func:`quantile`) sorts;
 a one-pivot partition wins on longer ones."""
+
+
+def mean(a: NDArray[Any], axis: int | None = None, keepdims: bool = False) -> Any:
+    """``numpy.mean(a, axis, keepdims=keepdims)`` of a float (or complex) array, the same
+    value: numpy's sum along the axis divided by the count, without the wrapper (3.2
+    against 0.8 us for 300 values, numpy 2.4), which counted at the dozens of means per
+    recording. Not for integer or boolean arrays (numpy sums those as float64)."""
+    count = a.size if axis is None else a.shape[axis]
+    total: Any = np.add.reduce(a, axis=axis, keepdims=keepdims)  # type: ignore[call-overload]
+    return total / count
 
 
 def median_1d(x: NDArray[np.float64]) -> float:

@@ -34,6 +34,7 @@ from features._checks import check_sampling_rate, check_trace, check_usable
 from features._correlate import BlockSpectra
 from features._numeric import (
     lane_median,
+    mean,
     median_1d,
     quantile,
     robust_sd,
@@ -545,7 +546,7 @@ def _first_template(w: _Work, env: NDArray[np.float64], peaks: NDArray[np.intp]
     strong = peaks[env[peaks] >= median_1d(env[peaks])]
     epochs = _epochs(w.comp, strong, w.half)
     evidence = _coherence(epochs)
-    mean_epoch = epochs.mean(axis=0)
+    mean_epoch = mean(epochs, axis=0)
     polarity = _polarity(mean_epoch, w.half[0], w.reach_j)
     if not evidence >= EVIDENCE_THRESHOLD:
         w.flags.append("no_repeating_beat_waveform")
@@ -760,7 +761,7 @@ def _envelope_period(
     # Winsorise: a swing that escaped the mask (a posture change tens of times the
     # cardiac wave) would otherwise own the autocorrelation; beat peaks stay whole.
     env = np.minimum(env, ENVELOPE_CLIP * quantile(env, 0.95))
-    ac = _autocorrelation(env - env.mean(), int(max_period * fs) + 2)
+    ac = _autocorrelation(env - mean(env), int(max_period * fs) + 2)
     if ac[0] <= 0:
         return None
     ac = ac / ac[0]
@@ -840,8 +841,8 @@ def _coherence(epochs: NDArray[np.float64]) -> float:
     if ok.sum() < 2:
         return 0.0
     unit = epochs[ok] / norms[ok, None]
-    mean = unit.mean(axis=0)
-    return float(ok.sum() * np.sum(mean * mean))
+    mean_unit = mean(unit, axis=0)
+    return float(ok.sum() * np.sum(mean_unit * mean_unit))
 
 
 def _rhythm_evidence(times: NDArray[np.float64], run_ids: NDArray[np.int64],
@@ -902,9 +903,9 @@ def _second_waves(comp: NDArray[np.float64], picks: NDArray[np.intp],
         return None
     ep = _epochs(comp, picks[ok], half)
     c = cls[ok]
-    means = [ep[c == k].mean(axis=0) for k in (0, 1)]
+    means = [mean(ep[c == k], axis=0) for k in (0, 1)]
     between = _pearson(means[0], means[1])
-    within = min(_pearson(ep[c == k][0::2].mean(axis=0), ep[c == k][1::2].mean(axis=0))
+    within = min(_pearson(mean(ep[c == k][0::2], axis=0), mean(ep[c == k][1::2], axis=0))
                  for k in (0, 1))
     if period_n is not None and _twice_a_period(picks, run_ids, period_n) and \
             _pair_span(picks, run_ids) >= min_period:
@@ -955,8 +956,8 @@ def _pair_span(picks: NDArray[np.intp], run_ids: NDArray[np.int64]) -> float:
 
 
 def _pearson(a: NDArray[np.float64], b: NDArray[np.float64]) -> float:
-    a = a - a.mean()
-    b = b - b.mean()
+    a = a - mean(a)
+    b = b - mean(b)
     den = float(np.sqrt(np.sum(a * a) * np.sum(b * b)))
     return float(np.sum(a * b) / den) if den > 0 else 0.0
 
@@ -974,8 +975,8 @@ def _sinusoid_share(comp: NDArray[np.float64], beats: NDArray[np.intp], fs: floa
     ok = beats[(beats >= half) & (beats + half <= comp.size)]
     if ok.size < 3 or half < 2:
         return 1.0
-    seg = _epochs(comp, ok, (half, half - 1)).mean(axis=0)
-    seg = seg - seg.mean()
+    seg = mean(_epochs(comp, ok, (half, half - 1)), axis=0)
+    seg = seg - mean(seg)
     energy = float(np.sum(seg * seg))
     if energy <= 0.0:
         return 1.0
@@ -1061,7 +1062,7 @@ def _spread_from_sums(s1: NDArray[np.float64], s2: NDArray[np.float64], m: int
 
 def _unit_template(template: NDArray[np.float64]) -> NDArray[np.float64] | None:
     """The template less its mean, scaled to unit norm; None for a flat one."""
-    t = template - template.mean()
+    t = template - mean(template)
     norm = np.sqrt(np.sum(t * t))
     return None if norm <= 0 else t / norm
 

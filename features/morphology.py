@@ -22,7 +22,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
 from features._checks import check_between, check_sampling_rate, check_usable, finite_where
-from features._numeric import MAD_TO_SD, lane_median, median_1d
+from features._numeric import MAD_TO_SD, lane_median, mean, median_1d
 from features.catalogue import (
     AMPLITUDE_UNIT,
     NONNEGATIVE,
@@ -555,14 +555,14 @@ def _epochs(
     if not inside.all():
         centre = np.where(inside, centre, centre[np.argmax(inside)])
     offsets = np.arange(-n_pre, n_post + 1, dtype=float)
-    oc = offsets - offsets.mean()
+    oc = offsets - mean(offsets)
     ep = np.empty((centre.size, width))
     scratch = np.empty((min(centre.size, _EPOCH_CHUNK), width))
     for a in range(0, centre.size, _EPOCH_CHUNK):  # bounded memory for long recordings
         e = ep[a : a + _EPOCH_CHUNK]
         s = scratch[: e.shape[0]]
         _spline_rows(coeffs, centre[a : a + _EPOCH_CHUNK], n_pre, e, s)
-        e -= e.mean(axis=1, keepdims=True)
+        e -= mean(e, axis=1, keepdims=True)
         e -= np.multiply(((e @ oc) / np.dot(oc, oc))[:, None], oc[None, :], out=s)
     return ep, inside
 
@@ -794,7 +794,7 @@ def _trimmed_mean(epochs: NDArray[np.float64]) -> NDArray[np.float64]:
     n = epochs.shape[0]
     cut = int(_TRIM_PROPORTION * n)
     ordered = _ordered_lanes(epochs, (cut, n - cut - 1))
-    template = ordered[:, cut : n - cut].mean(axis=1)
+    template = mean(ordered[:, cut : n - cut], axis=1)
     return np.asarray(template - median_1d(template), dtype=float)
 
 
@@ -847,7 +847,7 @@ def _robust_template(epochs: NDArray[np.float64]) -> tuple[NDArray[np.float64], 
     cut = int(_TRIM_PROPORTION * n)
     mid = ((n - 1) // 2, n // 2)
     rows = _ordered_lanes(epochs, (cut, n - cut - 1, *mid))
-    template = rows[:, cut : n - cut].mean(axis=1)
+    template = mean(rows[:, cut : n - cut], axis=1)
     template = template - median_1d(template)
     centre = rows[:, mid[0]] if n % 2 else (rows[:, mid[0]] + rows[:, mid[1]]) / 2.0
     spread = MAD_TO_SD * _lane_mad(rows, centre, cut)
@@ -965,7 +965,7 @@ def _correlations(epochs: NDArray[np.float64], template: NDArray[np.float64]) ->
     """
     if epochs.shape[0] == 0:
         return np.empty(0)
-    t = template - template.mean()
+    t = template - mean(template)
     den = np.sqrt(np.einsum("ij,ij->i", epochs, epochs)) * np.linalg.norm(t)
     num = epochs @ t
     return np.asarray(np.divide(num, den, out=np.zeros_like(num), where=den > 0), dtype=float)

@@ -50,7 +50,7 @@ import scipy.fft
 from numpy.typing import NDArray
 from scipy import signal
 
-from features._numeric import median_1d
+from features._numeric import mean, median_1d
 
 FloatArray = NDArray[np.float64]
 
@@ -260,7 +260,7 @@ def _segment_spectra(x: FloatArray, win: FloatArray, hop: int, count: int, nfft:
         segs = np.lib.stride_tricks.sliding_window_view(x, n)[::hop][:count]
     else:
         segs = x
-    segs = segs - np.mean(segs, axis=-1, keepdims=True)
+    segs = segs - mean(segs, axis=-1, keepdims=True)
     out: NDArray[np.complex128] = scipy.fft.rfft(segs * win, n=nfft, axis=-1)
     return out
 
@@ -332,7 +332,7 @@ def welch_spectra(
     pxx[..., 1:stop] *= 2
     if x.ndim == 2:
         return WelchSpectra(freqs, pxx, None, None, int(count))
-    psd_x = np.ascontiguousarray(pxx.T).mean(axis=-1)
+    psd_x = mean(np.ascontiguousarray(pxx.T), axis=-1)
     if y is None:
         return WelchSpectra(freqs, psd_x, None, None, int(count))
     y = np.asarray(y, dtype=np.float64)
@@ -343,8 +343,8 @@ def welch_spectra(
     pyy[..., 1:stop] *= 2
     pxy = sy * sx.conj()
     pxy[..., 1:stop] *= 2
-    return WelchSpectra(freqs, psd_x, np.ascontiguousarray(pyy.T).mean(axis=-1),
-                        np.ascontiguousarray(pxy.T).mean(axis=-1), int(count))
+    return WelchSpectra(freqs, psd_x, mean(np.ascontiguousarray(pyy.T), axis=-1),
+                        mean(np.ascontiguousarray(pxy.T), axis=-1), int(count))
 
 
 def welch_psd_padded(x: FloatArray, fs_hz: float, *, segment_n: int, overlap_n: int,

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from features._numeric import mean
 from features.catalogue import NONNEGATIVE, REF_BRENNAN, REF_PENG, REF_RICHMAN, FeatureDefinition
 from features.intervals import (
     adjacent_to_previous,
@@ -281,10 +282,10 @@ def _dfa_fluctuations(
             box_start = run_start[owner] + within * size
             y = profile[box_start[:, None] + np.arange(size)[None, :]]
         x = np.arange(size, dtype=float) - (size - 1) / 2.0
-        yc = y - y.mean(axis=1, keepdims=True)
+        yc = y - mean(y, axis=1, keepdims=True)
         slope = (yc @ x) / float(x @ x)
         resid = yc - slope[:, None] * x[None, :]
-        fluct[j] = math.sqrt(float(np.mean(resid**2)))
+        fluct[j] = math.sqrt(float(mean(resid**2)))
     return fluct, boxes_at_largest
 
 

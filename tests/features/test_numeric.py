@@ -11,6 +11,7 @@ from features._numeric import (
     MAD_TO_SD,
     SORTED_LANES_UP_TO,
     lane_median,
+    mean,
     median_1d,
     quantile,
     robust_sd,
@@ -158,3 +159,17 @@ def test_quantiles_equal_numpy_quantile(n: int, kind: str) -> None:
         with np.errstate(invalid="ignore"):  # inf - inf in the interpolation, as numpy
             got, want = quantile(x, q), float(np.quantile(x, q))
         assert got == want or (np.isnan(got) and np.isnan(want)), (q, got, want)
+
+
+@pytest.mark.parametrize("shape,axis,keepdims", [((1,), None, False), ((300,), None, False),
+                                                 ((7, 33), 1, True), ((40, 16), 0, False),
+                                                 ((3, 4, 5), -1, False)])
+def test_mean_equals_numpy_mean(shape, axis, keepdims) -> None:
+    # Reference: numpy.mean, whose value for a float array is numpy's sum along the axis
+    # divided by the count: the same operations, so equal to the bit (and complex too).
+    rng = np.random.default_rng(len(shape) * 10 + shape[0])
+    a = rng.standard_normal(shape) * 10.0 ** rng.uniform(-3, 3, shape)
+    for x in (a, a + 1j * a[::-1]):
+        got, want = mean(x, axis, keepdims), np.mean(x, axis=axis, keepdims=keepdims)
+        assert np.shape(got) == np.shape(want)
+        np.testing.assert_array_equal(got, want)
