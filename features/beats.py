@@ -88,8 +88,9 @@ TREND_MIN_BEATS = 30
 TREND_Z = 2.0
 """The trend is removed only when its slope is this many standard errors from zero."""
 
-#: Samples per block of the envelope autocorrelation, and blocks per FFT batch.
-_AC_BLOCK = 8192
+#: Samples per block of the envelope autocorrelation, and blocks per FFT batch (37 500
+#: samples, 253 lags: 2048-sample blocks 227 us, 8192 297 us, scipy 1.17).
+_AC_BLOCK = 2048
 _AC_GROUP = 64
 
 LARGE_WAVE_FRACTION = 0.75
@@ -782,10 +783,11 @@ def _envelope_period(
 def _autocorrelation(e: NDArray[np.float64], lags: int) -> NDArray[np.float64]:
     """``sum_i e[i] e[i + k]`` for ``0 <= k < lags`` (zero beyond the end), linear in length.
 
-    The series is cut into blocks of ``_AC_BLOCK`` samples; each block is
-    correlated with itself extended by ``lags`` samples by one short FFT
-    product, and the blocks' lag sums are added. Only the first lags are
-    ever needed, so no transform of the whole series is made.
+    The series is cut into blocks of ``_AC_BLOCK`` samples; each block's spectrum is
+    multiplied by the conjugate spectrum of itself extended by ``lags`` samples, and the
+    products of all blocks are summed before one inverse transform (the transform is
+    linear, so this is the sum of the blocks' lag sums). Only the first lags are ever
+    needed, so no transform of the whole series is made.
     """
     n = e.size
     block = _AC_BLOCK
@@ -795,13 +797,12 @@ def _autocorrelation(e: NDArray[np.float64], lags: int) -> NDArray[np.float64]:
     nfft = scipy.fft.next_fast_len(block + lags, real=True)
     heads = padded[: nb * block].reshape(nb, block)
     tails = np.lib.stride_tricks.sliding_window_view(padded, block + lags)[::block]
-    ac = np.zeros(lags)
+    total = np.zeros(nfft // 2 + 1, dtype=np.complex128)
     for a in range(0, nb, _AC_GROUP):
-        # scipy.fft rather than numpy.fft (both pocketfft; the same numbers on the
-        # project's recordings, scipy 1.17 / numpy 2.4): 363 against 446 us at 37 500
         spec = scipy.fft.rfft(tails[a : a + _AC_GROUP], nfft, axis=1)
         spec *= np.conj(scipy.fft.rfft(heads[a : a + _AC_GROUP], nfft, axis=1))
-        ac += scipy.fft.irfft(spec, nfft, axis=1)[:, :lags].sum(axis=0)
+        total += spec.sum(axis=0)
+    ac: NDArray[np.float64] = scipy.fft.irfft(total, nfft)[:lags]
     return ac
 
 
