@@ -10,9 +10,9 @@ Run from the repository root: ``python -m benchmarks.suite [--quick] [--json PAT
    floor of :mod:`benchmarks.floor` on the same input) and one for the peer of
    :mod:`benchmarks.peer`, so their memory figures do not mix. A child first sets the
    allocator as the service's processes do (:func:`service.allocator.tune_allocator`:
-   without it an 8-hour engine call took some 64 000 page faults, and the 8-hour multiple
-   read 2.3 against 1.8 with it side by side, see ``benchmarks/README.md``), then reads
-   its input,
+   without it an 8-hour engine call took 47 000-64 000 page faults, and the 8-hour
+   multiple read 1.8-2.35 against 1.6-1.8 with it, see ``benchmarks/README.md``), then
+   reads its input,
    warms up (every stage once, imports included) on its first minute (a quarter of it for
    inputs under 4 minutes), notes its resident set, then times the full input: median of
    the engine's runs (the peer: 3 up to 30 minutes, then 1). The engine's runs alternate with runs

@@ -5,23 +5,27 @@ them and frees them again. glibc's ``malloc`` serves a request above its mapping
 (at most 32 MB, adjusted as blocks are freed) with a fresh ``mmap`` and returns it to the
 system on ``free``; it also gives back the free top of its heap once that passes the trim
 threshold. Either way the next array of that size starts from pages the kernel must fault
-in and clear again. Measured on this project's 2-core machine (numpy 2.4, glibc, in one process
-beside the floor of ``benchmarks.floor``): the engine on an 8-hour, 250 Hz recording took
-47 000-64 000 page faults and 1.43-1.56 s a call (two runs); with the thresholds below, set
-after the imports and before any long array, 260 faults and 1.01 s (the floor's passes 0.57
-against 0.62-0.67 s). Set later, after such arrays had been made and freed, the faults fell
-only to 22 000 in one run: a process sets them at its start. Recordings up to an hour make
-no faults either way.
+in and clear again.
+
+Measured on this project's 2-core machine (numpy 2.4, glibc; an 8-hour, 250 Hz recording,
+the engine and the floor of ``benchmarks.floor`` alternating in one process): by default
+the engine took 47 000-64 000 page faults and 1.25-1.60 s a call, the floor 0.67-0.71 s;
+with the thresholds below, set after the imports and before any long array, under 1000
+faults (none from the third call) and 0.98-1.06 s, the floor 0.60-0.61 s. With a trim
+threshold of 256 MiB the top of the heap still went back between calls (25 000 faults a
+call), and the floor's own passes slowed to 0.86-1.05 s in one run of the suite. Set
+later, after long arrays had been made and freed, the faults fell only to 22 000 in one
+run: a process sets them at its start. Recordings up to an hour make no faults either way.
 
 :func:`tune_allocator` raises the mapping threshold to :data:`MMAP_THRESHOLD_MB` (arrays of
 up to that size come from the heap and are reused) and the trim threshold to
-:data:`TRIM_THRESHOLD_MB` (at most that much free memory is kept at the top of the heap
-between calls). The cost is that memory: a worker that analysed a long recording keeps up
-to :data:`TRIM_THRESHOLD_MB` of free heap for the next one (gunicorn's ``max_requests``
-recycles workers in any case). The same settings as environment variables, for a process
-started by other means::
+:data:`TRIM_THRESHOLD_MB`. The cost is memory: a process that analysed a long recording
+keeps the memory of its largest analysis (at most :data:`TRIM_THRESHOLD_MB` of it free) for
+the next one. The service's requests are capped at ``HEARTSWAY_MAX_SAMPLES`` (4 million
+samples by default), and gunicorn's ``max_requests`` recycles its workers. The same
+settings as environment variables, for a process started by other means::
 
-    MALLOC_MMAP_THRESHOLD_=67108864 MALLOC_TRIM_THRESHOLD_=268435456
+    MALLOC_MMAP_THRESHOLD_=67108864 MALLOC_TRIM_THRESHOLD_=536870912
 
 The service's workers, the job worker, the command line and batch workers call
 :func:`tune_allocator`; a value the operator set in those variables is left as it is.
@@ -36,8 +40,9 @@ import platform
 
 MMAP_THRESHOLD_MB = 64
 """Arrays up to this size (MiB) come from the heap: an 8-hour, 250 Hz trace is 58 MB."""
-TRIM_THRESHOLD_MB = 256
-"""Free memory (MiB) kept at the top of the heap before it is given back to the system."""
+TRIM_THRESHOLD_MB = 512
+"""Free memory (MiB) kept at the top of the heap before it is given back to the system: more
+than the engine's working memory for an 8-hour, 250 Hz recording (about 460 MB)."""
 
 _M_TRIM_THRESHOLD = -1  # glibc <malloc.h> parameter numbers
 _M_MMAP_THRESHOLD = -3
