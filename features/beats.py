@@ -23,7 +23,6 @@ References
 from __future__ import annotations
 
 from dataclasses import dataclass
-from fractions import Fraction
 
 import numpy as np
 import scipy.fft
@@ -41,7 +40,7 @@ from features._numeric import (
     vertex_offset,
 )
 from features.errors import InvalidInputError
-from features.filters import bridge_masked, polyphase_fir
+from features.filters import bridge_masked, polyphase_fir, rate_ratio
 from features.limits import DEFAULT_RATE_RANGE_BPM, MAX_RATE_BPM, MIN_RATE_BPM
 from features.wavelets import WAVELET, levels_for_band, swt_component
 
@@ -704,8 +703,7 @@ def _validate(
 def _to_work_rate(
     x: NDArray[np.float64], fs_hz: float, mask: NDArray[np.bool_], centre: float | None = None
 ) -> tuple[NDArray[np.float64], float, NDArray[np.bool_]]:
-    frac = Fraction(WORK_RATE_HZ / fs_hz).limit_denominator(1000)
-    up, down = frac.numerator, frac.denominator
+    up, down = rate_ratio(WORK_RATE_HZ, fs_hz)
     if (up, down) == (1, 1):
         xw = x.copy()
     else:

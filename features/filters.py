@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import functools
 from collections.abc import Callable
+from fractions import Fraction
 from typing import cast
 
 import numpy as np
@@ -86,6 +87,15 @@ def butter_sos(order: int, cutoff_hz: float | tuple[float, float], btype: str,
     sos = np.asarray(signal.butter(order, cutoff_hz, btype=btype, fs=fs_hz, output="sos"))
     sos.setflags(write=False)
     return sos
+
+
+@functools.lru_cache(maxsize=128)
+def rate_ratio(target_hz: float, fs_hz: float) -> tuple[int, int]:
+    """``(up, down)``: ``target_hz / fs_hz`` as the fraction of denominator at most 1000
+    nearest to it (``fractions.Fraction.limit_denominator``), once per pair of rates (a
+    few tens of microseconds a call otherwise)."""
+    frac = Fraction(target_hz / fs_hz).limit_denominator(1000)
+    return frac.numerator, frac.denominator
 
 
 @functools.lru_cache(maxsize=32)

@@ -13,7 +13,6 @@ from __future__ import annotations
 import functools
 import warnings
 from dataclasses import dataclass, field
-from fractions import Fraction
 
 import numpy as np
 import pywt
@@ -34,7 +33,7 @@ from features.catalogue import (
     with_tolerance,
 )
 from features.errors import InvalidInputError
-from features.filters import bridge_masked, frozen, lowpass, polyphase_fir
+from features.filters import bridge_masked, frozen, lowpass, polyphase_fir, rate_ratio
 from features.limits import MAX_BODY_MASS_KG, MIN_BODY_MASS_KG
 from features.wavelets import WAVELET, detail_bands
 
@@ -1008,8 +1007,7 @@ def _crossing(
 def _wavelet_signature(
     template: NDArray[np.float64], fs: float
 ) -> tuple[tuple[float, ...] | None, tuple[tuple[float, float], ...], list[str]]:
-    ratio = Fraction(SIGNATURE_FS_HZ / fs).limit_denominator(1000)
-    up, down = ratio.numerator, ratio.denominator
+    up, down = rate_ratio(SIGNATURE_FS_HZ, fs)
     if up == down:  # resample_poly returns a copy
         y = template.copy()
     else:

@@ -39,6 +39,7 @@ class LevelBand:
     high_hz: float
 
 
+@functools.lru_cache(maxsize=64)
 def detail_bands(fs_hz: float, max_level: int) -> tuple[LevelBand, ...]:
     """Nominal band of each detail level: level j spans fs/2**(j+1) to fs/2**j."""
     return tuple(

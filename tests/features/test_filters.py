@@ -153,3 +153,15 @@ def test_cached_polyphase_design_is_resample_polys_own(up: int, down: int) -> No
         scipy.signal.resample_poly(x, up, down, window=polyphase_fir(up, down)),
         scipy.signal.resample_poly(x, up, down))
     assert polyphase_fir(up, down) is polyphase_fir(up, down)  # designed once
+
+
+@pytest.mark.parametrize("target,fs", [(125.0, 250.0), (125.0, 100.0), (125.0, 1000.0),
+                                       (250.0, 100.0), (125.0, 333.3), (250.0, 250.0)])
+def test_rate_ratio_is_the_limited_fraction(target: float, fs: float) -> None:
+    from fractions import Fraction
+
+    from features.filters import rate_ratio
+
+    # reference: the standard library's Fraction.limit_denominator(1000)
+    want = Fraction(target / fs).limit_denominator(1000)
+    assert rate_ratio(target, fs) == (want.numerator, want.denominator)
