@@ -47,7 +47,8 @@ def test_filters_equal_scipy_sosfiltfilt_with_even_padding() -> None:
 
 @pytest.mark.parametrize("padtype", ["odd", "even", None])
 @pytest.mark.parametrize("padlen", [None, 37])
-@pytest.mark.parametrize("loop", ["scipy's compiled loop", "sosfilt itself"])
+@pytest.mark.parametrize("loop", ["scipy's compiled loop", "the loop, two series at a time",
+                                  "sosfilt itself"])
 def test_cached_filtfilt_equals_scipy_sosfiltfilt(padtype: str | None, padlen: int | None,
                                                   loop: str, monkeypatch) -> None:
     import features.filters as filters
@@ -57,6 +58,11 @@ def test_cached_filtfilt_equals_scipy_sosfiltfilt(padtype: str | None, padlen: i
         monkeypatch.setattr(filters, "_SOSFILT_LOOP", None)
     elif filters._SOSFILT_LOOP is None:  # a scipy without the private loop: nothing to test
         pytest.skip("this scipy has no compiled section loop under the name the filters use")
+    elif loop == "the loop, two series at a time":
+        if not filters._PAIRS:
+            pytest.skip("on this machine the paired series do not round as sosfilt does")
+    else:
+        monkeypatch.setattr(filters, "_PAIRS", False)
     rng = np.random.default_rng(6)
     x = np.cumsum(rng.standard_normal((3, 2000)), axis=-1)
     design = (4, (0.1, 0.7), "bandpass", 10.0)
@@ -78,6 +84,32 @@ def test_a_compiled_loop_that_disagrees_with_sosfilt_is_not_used(monkeypatch) ->
 
     monkeypatch.setattr(compiled, "_sosfilt", wrong)
     assert filters._sosfilt_loop() is None
+
+
+def test_paired_series_that_disagree_with_sosfilt_are_not_used() -> None:
+    import features.filters as filters
+
+    if filters._SOSFILT_LOOP is None:
+        pytest.skip("this scipy has no compiled section loop under the name the filters use")
+
+    def rounding_differently(sos, x, zi):  # the real loop, one last-place unit off
+        filters._SOSFILT_LOOP(sos, x, zi)
+        x *= 1.0 + 2.0**-52
+
+    assert filters._pairs_agree(rounding_differently) is False
+    assert filters._pairs_agree(None) is False
+
+
+def test_paired_series_keep_odd_counts_and_axes() -> None:
+    # Five series (two pairs and one with zeros) along either axis: each as if alone.
+    from features.filters import butter_filtfilt
+
+    rng = np.random.default_rng(8)
+    x = np.cumsum(rng.standard_normal((5, 3000)), axis=-1)
+    design = (2, (1.0, 20.0), "bandpass", 125.0)
+    alone = np.stack([butter_filtfilt(row, design) for row in x])
+    np.testing.assert_array_equal(butter_filtfilt(x, design), alone)
+    np.testing.assert_array_equal(butter_filtfilt(x.T, design, axis=0), alone.T)
 
 
 def test_cached_filtfilt_refuses_a_trace_shorter_than_its_padding() -> None:
