@@ -13,6 +13,8 @@ import numpy as np
 import scipy.fft
 from numpy.typing import NDArray
 
+from features._numeric import windows
+
 #: Smallest FFT length of a block; a few times the longest template keeps the overlap small.
 _MIN_FFT = 1024
 
@@ -35,7 +37,7 @@ class BlockSpectra:
         frames = -(-(n + max_len) // self.step)
         ext = np.zeros((frames - 1) * self.step + self.nfft)
         ext[max_len: max_len + n] = x
-        view = np.lib.stride_tricks.sliding_window_view(ext, self.nfft)[:: self.step]
+        view = windows(ext, self.nfft, self.step)
         self.spectra = scipy.fft.rfft(view, axis=-1)
 
     def correlate(self, template: NDArray[np.float64], centre: int) -> NDArray[np.float64]:

@@ -15,11 +15,10 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
 from numpy.typing import ArrayLike, NDArray
 
 from features._checks import check_sampling_rate, check_trace
-from features._numeric import MAD_TO_SD, lane_median, median_1d, robust_sd, runs
+from features._numeric import MAD_TO_SD, lane_median, median_1d, robust_sd, runs, std, windows
 from features.errors import InvalidInputError
 from features.filters import FloatArray, block_factor, block_means, highpass
 from features.gaps import GAP_PAD_S
@@ -488,8 +487,8 @@ def _posture(src: NDArray[np.generic], src_fs: float, src_factor: int, k: float,
         return []
     wins = blocks[: count * width].reshape(count, width)
     med = lane_median(wins)
-    spread = median_1d(wins.std(axis=1))
-    side_view = sliding_window_view(med, side)
+    spread = median_1d(std(wins, axis=1))
+    side_view = windows(med, side)
     side_med = lane_median(side_view)
     side_mad = MAD_TO_SD * lane_median(np.abs(side_view - side_med[:, None]))
     d = side_med[side:] - side_med[:-side]          # boundary j = side .. count - side

@@ -38,6 +38,7 @@ from features._numeric import (
     quantile,
     robust_sd,
     vertex_offset,
+    windows,
 )
 from features.errors import InvalidInputError
 from features.filters import bridge_masked, polyphase_fir, rate_ratio
@@ -794,7 +795,7 @@ def _autocorrelation(e: NDArray[np.float64], lags: int) -> NDArray[np.float64]:
     padded[:n] = e
     nfft = scipy.fft.next_fast_len(block + lags, real=True)
     heads = padded[: nb * block].reshape(nb, block)
-    tails = np.lib.stride_tricks.sliding_window_view(padded, block + lags)[::block]
+    tails = windows(padded, block + lags, block)
     total = np.zeros(nfft // 2 + 1, dtype=np.complex128)
     for a in range(0, nb, _AC_GROUP):
         spec = scipy.fft.rfft(tails[a : a + _AC_GROUP], nfft, axis=1)
@@ -1015,7 +1016,8 @@ def _polarity(mean_epoch: NDArray[np.float64], centre: int, reach: int) -> int:
 def _recentre(template: NDArray[np.float64], centre: int, reach: int,
               back: int | None = None) -> NDArray[np.float64]:
     shift = _first_large(template, centre, reach, sign=1.0, back=back) - centre
-    out = np.roll(template, -shift)
+    k = -shift % template.size  # numpy.roll(template, -shift), without its wrapper
+    out = np.concatenate((template[template.size - k:], template[: template.size - k]))
     if shift > 0:
         out[-shift:] = 0.0
     elif shift < 0:

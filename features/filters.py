@@ -24,6 +24,8 @@ import scipy.fft
 from numpy.typing import NDArray
 from scipy import signal
 
+from features._numeric import windows
+
 FloatArray = NDArray[np.float64]
 
 #: Samples processed per chunk when a slow series is interpolated back to full rate.
@@ -210,12 +212,15 @@ def _by_loop(loop: Callable[..., None], sos: FloatArray, x: NDArray[np.floating]
         loop(sos, line.reshape(1, -1), np.array(zi, dtype=np.float64).reshape(1, -1, 2))
         return line
     axis = axis % x.ndim
-    state = np.array(np.moveaxis(zi, (0, axis + 1), (-2, -1)), dtype=np.float64, order="C")
+    last = axis == x.ndim - 1  # the usual case: no axis to move (numpy.moveaxis costs 5 us)
+    state = np.array(zi.transpose((*range(1, x.ndim), 0, x.ndim)) if last else
+                     np.moveaxis(zi, (0, axis + 1), (-2, -1)), dtype=np.float64, order="C")
     if pairs and x.size >= 2 * x.shape[axis] and x.dtype == np.float64:
         return _by_pairs(loop, sos, x, state, axis)
-    rows = np.array(np.moveaxis(x, axis, -1), dtype=np.float64, order="C")  # filtered in place
+    # filtered in place
+    rows = np.array(x if last else np.moveaxis(x, axis, -1), dtype=np.float64, order="C")
     loop(sos, rows.reshape(-1, rows.shape[-1]), state.reshape(-1, sos.shape[0], 2))
-    return np.moveaxis(rows, -1, axis)
+    return rows if last else np.moveaxis(rows, -1, axis)
 
 
 def _by_pairs(loop: Callable[..., None], sos: FloatArray, x: NDArray[np.floating],
@@ -229,7 +234,8 @@ def _by_pairs(loop: Callable[..., None], sos: FloatArray, x: NDArray[np.floating
     less time than two passes (numpy 2.4, scipy 1.17, x86-64); an odd last series is
     paired with zeros. :func:`_pairs_agree` checks the equality on the machine at import.
     """
-    moved = np.moveaxis(x, axis, -1)
+    last = axis == x.ndim - 1
+    moved = x if last else np.moveaxis(x, axis, -1)
     n = moved.shape[-1]
     flat = moved.reshape(-1, n)
     flat_state = state.reshape(-1, sos.shape[0], 2)
@@ -245,7 +251,7 @@ def _by_pairs(loop: Callable[..., None], sos: FloatArray, x: NDArray[np.floating
     out = np.empty((count, n), dtype=np.float64)
     out[0::2] = packed.real
     out[1::2] = packed.imag[: count // 2]
-    return np.moveaxis(out.reshape(moved.shape), -1, axis)
+    return out.reshape(moved.shape) if last else np.moveaxis(out.reshape(moved.shape), -1, axis)
 
 
 def _sosfilt_loop() -> Callable[..., None] | None:
@@ -421,7 +427,7 @@ def apply_frequency_response(row: FloatArray, fs_hz: float,
         ext[:guard] = left
         tail = row[a: min(n, b + guard)]
         ext[guard: guard + tail.shape[0]] = tail
-        view = np.lib.stride_tricks.sliding_window_view(ext, size)[::keep]
+        view = windows(ext, size, keep)
         spectrum = scipy.fft.rfft(view, axis=-1)
         spectrum *= gain
         out = scipy.fft.irfft(spectrum, size, axis=-1)[:, guard: guard + keep]

@@ -19,7 +19,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.interpolate import BSpline
 
 from features._checks import check_sampling_rate
-from features._numeric import median_1d, runs
+from features._numeric import median_1d, runs, std
 from features.catalogue import (
     NONNEGATIVE,
     PERCENT,
@@ -296,7 +296,7 @@ def respiratory_modulation(
         amp_index, c_amp = _amplitude_index(amp_t[ok], amps[ok], starts, ends)
     if amp_index is None:
         flags.append("no_amplitude_modulation_index")
-    cv_breath = float(np.std(ends - starts) / np.mean(ends - starts))
+    cv_breath = float(std(ends - starts) / np.mean(ends - starts))
     timing, c_timing, t_flag = _timing_share(iv_t[ok_iv], iv[ok_iv], f_b, cv_breath)
     flags.extend(t_flag)
     if card is None and amps is not None and np.isfinite(amps).sum() >= MIN_BEATS:
@@ -518,7 +518,7 @@ def _rsa(
         half_wald = float(delta @ np.linalg.solve(halves[0][1] + halves[1][1], delta))
     beats_per_breath = iv.size / k_breath.size
     f_b = 1.0 / cycle_s
-    cv_breath = float(np.std(ends - starts) / np.mean(ends - starts))
+    cv_breath = float(std(ends - starts) / np.mean(ends - starts))
     within = math.erf(RSA_TOLERANCE_MS / (math.sqrt(2.0) * se)) if se > 0 else 1.0
     ceiling = min(1.0, k_breath.size / 20.0)
     conf = ceiling * within * _rsa_separation(f_b, beats_per_breath, cv_breath)

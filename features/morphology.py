@@ -16,12 +16,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pywt
-from numpy.lib.stride_tricks import sliding_window_view
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
 from features._checks import check_between, check_sampling_rate, check_usable, finite_where
-from features._numeric import MAD_TO_SD, lane_median, mean, median_1d
+from features._numeric import MAD_TO_SD, lane_median, mean, median_1d, std, windows
 from features.catalogue import (
     AMPLITUDE_UNIT,
     NONNEGATIVE,
@@ -590,7 +589,7 @@ def _spline_rows(
     w2 = (z * z * (z - 2.0) * 3.0 + 4.0) / 6.0
     w0 = z * z * z / 6.0
     w3 = 1.0 - w0 - w1 - w2
-    g = sliding_window_view(coeffs, width + 3)[base.astype(np.int64) - (n_pre + 1)]
+    g = windows(coeffs, width + 3)[base.astype(np.int64) - (n_pre + 1)]
     np.multiply(g[:, :width], w0[:, None], out=out)
     for j, w in ((1, w1), (2, w2), (3, w3)):
         out += np.multiply(g[:, j : j + width], w[:, None], out=scratch)
@@ -737,7 +736,7 @@ def _split_standard_errors(epochs: NDArray[np.float64], tau_s: NDArray[np.float6
     (_, t_i, v_i), (_, t_j, v_j), (_, t_k, v_k) = w["I"], w["J"], w["K"]
     rows = np.column_stack((1e3 * (t_j - t_i), 1e3 * (t_k - t_j), v_j - v_i, v_j - v_k))
     # Each group holds 1/k of the beats: the full template's SE is the groups' SD / sqrt(k).
-    sd = np.std(rows, axis=0, ddof=1) / np.sqrt(k)
+    sd = std(rows, axis=0, ddof=1) / np.sqrt(k)
     return {key: float(v) for key, v in zip(
         ("ij_interval", "jk_interval", "ij_amplitude", "jk_amplitude"), sd, strict=True)}
 
@@ -933,7 +932,7 @@ def _per_beat_jk(
     t = beats[keep]
     if jk.size < 3 or np.mean(jk) <= 0:
         return t, jk, None, ["too_few_beats_for_amplitude_cv"]
-    return t, jk, float(100.0 * np.std(jk, ddof=1) / np.mean(jk)), []
+    return t, jk, float(100.0 * std(jk, ddof=1) / np.mean(jk)), []
 
 
 def _beat_jk(

@@ -25,8 +25,10 @@ from features._numeric import (
     quantile,
     robust_sd,
     runs,
+    std,
     vertex_offset,
 )
+from features._numeric import windows as strided_windows
 from features.catalogue import (
     AMPLITUDE_UNIT,
     NONNEGATIVE,
@@ -295,7 +297,7 @@ def breathing(
     sd = cv = None
     if intervals.size >= 2:
         counted = 60.0 / median_1d(intervals)
-        sd = float(np.std(intervals, ddof=1))
+        sd = float(std(intervals, ddof=1))
         cv = 100.0 * sd / float(np.mean(intervals))
     else:
         flags.append("too_few_breaths")
@@ -717,7 +719,7 @@ def _window_nanmedian(v: NDArray[np.float64], half: int) -> NDArray[np.float64]:
     the middle two, ``(a + b) / 2``: the arithmetic of :func:`numpy.nanmedian`.
     """
     padded = np.concatenate((np.full(half, np.nan), v, np.full(half, np.nan)))
-    windows = np.sort(np.lib.stride_tricks.sliding_window_view(padded, 2 * half + 1), axis=1)
+    windows = np.sort(strided_windows(padded, 2 * half + 1), axis=1)
     count = np.isfinite(windows).sum(axis=1)
     rows = np.arange(v.size)
     lo = windows[rows, np.maximum(count - 1, 0) // 2]

@@ -50,7 +50,7 @@ import scipy.fft
 from numpy.typing import NDArray
 from scipy import signal
 
-from features._numeric import mean, median_1d
+from features._numeric import mean, median_1d, windows
 
 FloatArray = NDArray[np.float64]
 
@@ -257,7 +257,7 @@ def _segment_spectra(x: FloatArray, win: FloatArray, hop: int, count: int, nfft:
     """
     n = win.size
     if x.ndim == 1:
-        segs = np.lib.stride_tricks.sliding_window_view(x, n)[::hop][:count]
+        segs = windows(x, n, hop)[:count]
     else:
         segs = x
     segs = segs - mean(segs, axis=-1, keepdims=True)

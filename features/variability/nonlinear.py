@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from features._numeric import mean
+from features._numeric import mean, std
 from features.catalogue import NONNEGATIVE, REF_BRENNAN, REF_PENG, REF_RICHMAN, FeatureDefinition
 from features.intervals import (
     adjacent_to_previous,
@@ -249,8 +249,8 @@ def _match_counts_blocked(
 
 def _run_bounds(runs: NDArray[np.int64]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
     """Start index and length of each run of equal run ids."""
-    run_start = np.flatnonzero(np.r_[True, runs[1:] != runs[:-1]])
-    return run_start, np.diff(np.r_[run_start, runs.size])
+    run_start = np.flatnonzero(np.concatenate(([True], runs[1:] != runs[:-1])))
+    return run_start, np.diff(np.concatenate((run_start, [runs.size])))
 
 
 def _dfa_fluctuations(
@@ -397,8 +397,8 @@ def _nonlinear(times: NDArray[np.float64], nn: NDArray[np.float64]) -> Nonlinear
 
     sd1 = sd2 = ratio = None
     if n_pairs >= 2:
-        sd1 = _fin(np.std((earlier - later) / math.sqrt(2.0), ddof=1))
-        sd2 = _fin(np.std((earlier + later) / math.sqrt(2.0), ddof=1))
+        sd1 = _fin(std((earlier - later) / math.sqrt(2.0), ddof=1))
+        sd2 = _fin(std((earlier + later) / math.sqrt(2.0), ddof=1))
         if sd1 is not None and sd2 is not None and sd2 > 0:
             ratio = sd1 / sd2
         else:
@@ -412,7 +412,7 @@ def _nonlinear(times: NDArray[np.float64], nn: NDArray[np.float64]) -> Nonlinear
     if in_long_runs < _SAMPEN_MIN_INTERVALS:
         flags.append(f"sample_entropy_needs_{_SAMPEN_MIN_INTERVALS}_intervals")
     else:
-        sd = float(nn.std(ddof=1))
+        sd = float(std(nn, ddof=1))
         if sd == 0.0:
             flags.append("sample_entropy_zero_variance")
         else:

@@ -11,6 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from features._numeric import std
 from features.catalogue import (
     MS_PER_MIN,
     NN_RANGE_MS,
@@ -154,9 +155,9 @@ def _time_domain(times: NDArray[np.float64], nn: NDArray[np.float64]) -> TimeDom
         flags.append("no_intervals")
     sdnn = cvnn = sd_hr = None
     if n >= 2:
-        sdnn = _fin(nn.std(ddof=1))
+        sdnn = _fin(std(nn, ddof=1))
         cvnn = None if (sdnn is None or mean_nn is None) else 100.0 * sdnn / mean_nn
-        sd_hr = _fin(hr.std(ddof=1))
+        sd_hr = _fin(std(hr, ddof=1))
     else:
         flags.append("sdnn_needs_2_intervals")
     rmssd = pnn50 = pnn20 = sdsd = None
@@ -168,7 +169,7 @@ def _time_domain(times: NDArray[np.float64], nn: NDArray[np.float64]) -> TimeDom
     else:
         flags.append("rmssd_needs_1_adjacent_pair")
     if n_diff >= 2:
-        sdsd = _fin(diffs.std(ddof=1))
+        sdsd = _fin(std(diffs, ddof=1))
     else:
         flags.append("sdsd_needs_2_adjacent_pairs")
     adjacency = n_diff / (n - 1) if n > 1 else 0.0
