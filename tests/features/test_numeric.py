@@ -16,7 +16,9 @@ from features._numeric import (
     quantile,
     robust_sd,
     runs,
+    std,
     vertex_offset,
+    windows,
 )
 
 
@@ -173,3 +175,31 @@ def test_mean_equals_numpy_mean(shape, axis, keepdims) -> None:
         got, want = mean(x, axis, keepdims), np.mean(x, axis=axis, keepdims=keepdims)
         assert np.shape(got) == np.shape(want)
         np.testing.assert_array_equal(got, want)
+
+
+@pytest.mark.parametrize("shape,axis", [((2,), None), ((301,), None), ((40, 7), 0),
+                                        ((40, 7), 1), ((3, 5, 9), -1), ((40, 7), None)])
+@pytest.mark.parametrize("ddof", [0, 1])
+def test_std_equals_numpy_std(shape: tuple[int, ...], axis: int | None, ddof: int) -> None:
+    # reference library: numpy.std, to the bit (the same steps; a moved offset and scale
+    # keep the cancellation of the mean in play)
+    rng = np.random.default_rng(11)
+    for _ in range(20):
+        x = rng.standard_normal(shape) * rng.uniform(0.01, 1e3) + rng.uniform(-1e4, 1e4)
+        np.testing.assert_array_equal(std(x, axis=axis, ddof=ddof), np.std(x, axis=axis, ddof=ddof))
+
+
+@pytest.mark.parametrize("width,step", [(1, 1), (5, 1), (5, 3), (64, 7), (200, 200)])
+def test_windows_equal_numpys_sliding_window_view(width: int, step: int) -> None:
+    # reference library: numpy.lib.stride_tricks.sliding_window_view, on a contiguous array,
+    # a read-only one and a strided one (which goes to numpy itself)
+    x = np.arange(200.0) ** 1.5
+    frozen = x.copy()
+    frozen.flags.writeable = False
+    for a in (x, frozen, x[::2]):
+        if width > a.size:
+            continue
+        ref = np.lib.stride_tricks.sliding_window_view(a, width)[::step]
+        got = windows(a, width, step)
+        assert got.shape == ref.shape and not got.flags.writeable
+        np.testing.assert_array_equal(got, ref)
