@@ -19,7 +19,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-__all__ = ["MAD_TO_SD", "lane_median", "mean", "median_1d", "quantile", "robust_sd", "runs",
+__all__ = ["MAD_TO_SD", "clip", "lane_median", "mean", "median_1d", "quantile", "robust_sd", "runs",
            "std", "vertex_offset", "windows"]
 
 MAD_TO_SD = 1.4826
@@ -59,6 +59,12 @@ def std(a: NDArray[np.float64], axis: int | None = None, ddof: int = 0) -> Any:
     np.multiply(dev, dev, out=dev)
     total: Any = np.add.reduce(dev, axis=axis)
     return np.sqrt(total / max(count - ddof, 0))
+
+
+def clip(value: Any, low: float, high: float) -> float:
+    """``float(numpy.clip(value, low, high))`` of one number, the same value (NaN stays NaN),
+    by Python's ``min`` and ``max`` (0.1 against 4 us a call)."""
+    return min(max(float(value), low), high)
 
 
 def windows(a: NDArray[Any], width: int, step: int = 1) -> NDArray[Any]:

@@ -32,6 +32,7 @@ from scipy import ndimage, signal
 from features._checks import check_sampling_rate, check_trace, check_usable
 from features._correlate import BlockSpectra
 from features._numeric import (
+    clip,
     lane_median,
     mean,
     median_1d,
@@ -623,7 +624,7 @@ def _pick(w: _Work, matcher: _Matcher, polarity: int, template: NDArray[np.float
     cand = cand[(cand >= 1) & (cand < n - 1)]
     n_candidates = int(cand.size)
     top = corr[cand][corr[cand] >= quantile(corr[cand], 0.5)]
-    accept = float(np.clip(0.55 * median_1d(top), 0.3, 0.5))
+    accept = clip(0.55 * median_1d(top), 0.3, 0.5)
     amp_ref = median_1d(amp[cand][corr[cand] >= accept]) if np.any(
         corr[cand] >= accept) else median_1d(amp[cand])
     # A beat followed closely by the next one (fast irregular rhythm) shares the long

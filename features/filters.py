@@ -124,6 +124,19 @@ def _design_zi(order: int, cutoff_hz: float | tuple[float, float], btype: str,
     return zi
 
 
+@functools.lru_cache(maxsize=128)
+def _design_loop_parts(order: int, cutoff_hz: float | tuple[float, float], btype: str,
+                       fs_hz: float) -> tuple[FloatArray, int]:
+    """:func:`butter_sos`'s design as the section loop takes it (a private writable copy:
+    scipy's compiled loop takes no read-only array, and reads the sections without writing
+    them) and scipy's default padding count ``3 (2 sections + 1 - trailing zeros)``, once
+    per design."""
+    sos = butter_sos(order, cutoff_hz, btype, fs_hz).copy()
+    ntaps = 2 * sos.shape[0] + 1
+    ntaps -= min(int((sos[:, 2] == 0).sum()), int((sos[:, 5] == 0).sum()))
+    return sos, 3 * ntaps
+
+
 def _along(a: NDArray[np.floating], index: slice, axis: int) -> NDArray[np.floating]:
     where = [slice(None)] * a.ndim
     where[axis] = index
@@ -159,11 +172,9 @@ def butter_filtfilt(x: NDArray[np.floating], design: tuple[int, float | tuple[fl
     about a third of a short call) is kept between calls, with the design.
     """
     x = np.asarray(x)
-    sos = butter_sos(*design).copy()
+    sos, default_edge = _design_loop_parts(*design)
     n_sections = sos.shape[0]
-    ntaps = 2 * n_sections + 1
-    ntaps -= min(int((sos[:, 2] == 0).sum()), int((sos[:, 5] == 0).sum()))
-    edge = 0 if padtype is None else (ntaps * 3 if padlen is None else padlen)
+    edge = 0 if padtype is None else (default_edge if padlen is None else padlen)
     if x.shape[axis] <= edge:
         raise ValueError(f"The length of the input vector x must be greater than padlen, "
                          f"which is {edge}.")

@@ -18,7 +18,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.linalg import blas
 
 from features._checks import check_2d, check_sampling_rate
-from features._numeric import MAD_TO_SD, lane_median, median_1d, robust_sd
+from features._numeric import MAD_TO_SD, clip, lane_median, median_1d, robust_sd
 from features.errors import InvalidInputError
 from features.filters import FloatArray, bandpass, block_centres, block_factor, block_means
 from features.limits import MIN_DURATION_S, MIN_OCCUPANT_KG, STANDARD_GRAVITY_M_S2
@@ -404,7 +404,7 @@ def _periodic_fraction(cardiac: FloatArray, fs_a: float) -> float:
     r0, lag = _heart_lags(r, fs_a)
     rt = np.take_along_axis(r[0], lag[:, None], axis=-1)[:, 0]
     frac = np.divide(rt, r0[0], out=np.zeros_like(rt), where=r0[0] > 0.0)
-    return float(np.clip(median_1d(frac), 0.0, 1.0))
+    return clip(median_1d(frac), 0.0, 1.0)
 
 
 def _cop(x: FloatArray, fs: float, cardiac: FloatArray, fs_a: float,

@@ -19,7 +19,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.interpolate import BSpline
 
 from features._checks import check_sampling_rate
-from features._numeric import median_1d, runs, std
+from features._numeric import clip, median_1d, runs, std
 from features.catalogue import (
     NONNEGATIVE,
     PERCENT,
@@ -706,9 +706,9 @@ def _rsa_separation(f_b: float, beats_per_breath: float, cv_breath: float) -> fl
     ``RSA_STEADY_BREATH_CV`` + 0.25.
     """
     lo, hi = LF_BAND_HZ
-    in_lf = float(np.clip((f_b - lo) / (hi - lo), 0.0, 1.0))
-    sampled = float(np.clip(beats_per_breath - 2.0, 0.0, 1.0))
-    steady = float(np.clip(1.0 - (cv_breath - RSA_STEADY_BREATH_CV) / 0.25, 0.0, 1.0))
+    in_lf = clip((f_b - lo) / (hi - lo), 0.0, 1.0)
+    sampled = clip(beats_per_breath - 2.0, 0.0, 1.0)
+    steady = clip(1.0 - (cv_breath - RSA_STEADY_BREATH_CV) / 0.25, 0.0, 1.0)
     return in_lf * sampled * steady
 
 
@@ -789,7 +789,7 @@ def _timing_share(
     if total <= 0:
         return None, 0.0, ["flat_interval_series"]
     band = np.abs(f - f_b) <= BAND_HALF_WIDTH_HZ
-    conf = min(1.0, iv.size / 120.0) * float(np.clip(1.0 - cv_breath / 0.4, 0.0, 1.0))
+    conf = min(1.0, iv.size / 120.0) * clip(1.0 - cv_breath / 0.4, 0.0, 1.0)
     return 100.0 * float(p[band].sum()) / total, conf, []
 
 

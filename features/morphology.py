@@ -20,7 +20,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage, signal
 
 from features._checks import check_between, check_sampling_rate, check_usable, finite_where
-from features._numeric import MAD_TO_SD, lane_median, mean, median_1d, std, windows
+from features._numeric import MAD_TO_SD, clip, lane_median, mean, median_1d, std, windows
 from features.catalogue import (
     AMPLITUDE_UNIT,
     NONNEGATIVE,
@@ -385,11 +385,11 @@ def beat_morphology(
     jk = _diff(amp["J"], amp["K"])
     wave_conf = np.mean([by_name[n].confidence for n in "IJK"])
     r_med = median_1d(corr_template)
-    confidence = min(1.0, chosen.sum() / 30.0) * float(np.clip(r_med, 0.0, 1.0)) * wave_conf
+    confidence = min(1.0, chosen.sum() / 30.0) * clip(r_med, 0.0, 1.0) * wave_conf
     if offered - int(chosen.sum()) > 0:
         flags.append("beats_excluded_from_template")
     se = _split_standard_errors(template_epochs, tau_s, fs)
-    family = float(np.clip(confidence, 0.0, 1.0))
+    family = clip(confidence, 0.0, 1.0)
     precision = {
         "ij_interval": _precision(se["ij_interval"], INTERVAL_SE_SCALE_MS),
         "jk_interval": _precision(se["jk_interval"], INTERVAL_SE_SCALE_MS),
@@ -662,7 +662,7 @@ def _locate_waves(
         prom = float(signal.peak_prominences(sign * located, [i])[0][0])
         sd_ms = float(sd)
         snr = prom / noise if noise > 0 else np.inf
-        c = float(np.clip((snr - 3.0) / 7.0, 0.0, 1.0)) / (1.0 + (sd_ms / 20.0) ** 2)
+        c = clip((snr - 3.0) / 7.0, 0.0, 1.0) / (1.0 + (sd_ms / 20.0) ** 2)
         out[name] = WaveLocation(name, 1e3 * t_s, value, prom, sd_ms, float(c))
     return tuple(out[n] for n in "HIJKL")
 

@@ -20,6 +20,7 @@ from scipy import signal as sps
 from features._checks import check_sampling_rate, check_usable, finite_where
 from features._numeric import (
     MAD_TO_SD,
+    clip,
     lane_median,
     median_1d,
     quantile,
@@ -315,7 +316,7 @@ def breathing(
         flags.append("breathing_rate_estimates_disagree")
     confidence = 0.0
     if counted is not None and spectral is not None:
-        c_agree = float(np.clip(1.0 - abs(counted - spectral) / 3.0, 0.0, 1.0))
+        c_agree = clip(1.0 - abs(counted - spectral) / 3.0, 0.0, 1.0)
         confidence = c_agree * min(1.0, intervals.size / 10.0) * np.sqrt(mask_b.mean())
     if spans:
         flags.append("pauses_are_signal_observations_not_diagnosis")
@@ -571,7 +572,7 @@ def _spectral_rate_per_min(est: _Psd) -> float | None:
     i = int(band[np.argmax(p[band])])
     if i in (band[0], band[-1]) or p[i] <= 0:
         return None
-    d = float(np.clip(vertex_offset(p[i - 1], p[i], p[i + 1]), -0.5, 0.5))
+    d = clip(vertex_offset(p[i - 1], p[i], p[i + 1]), -0.5, 0.5)
     return 60.0 * float(f[i] + d * (f[1] - f[0]))
 
 
@@ -683,7 +684,7 @@ def _peaks_and_troughs(y: NDArray[np.float64], rise_idx: NDArray[np.int64]
 
 def _window(period_s: float, fs: float) -> int:
     """Odd window length (samples) of the swing envelope: 1.25 breath periods, 2-8 s."""
-    return int(round(float(np.clip(1.25 * period_s, 2.0, 8.0)) * fs)) | 1
+    return int(round(clip(1.25 * period_s, 2.0, 8.0) * fs)) | 1
 
 
 def _swing(y: NDArray[np.float64], w: int) -> NDArray[np.float64]:

@@ -9,6 +9,7 @@ from scipy.special import ndtri
 
 from features._numeric import (
     MAD_TO_SD,
+    clip,
     SORTED_LANES_UP_TO,
     lane_median,
     mean,
@@ -203,3 +204,13 @@ def test_windows_equal_numpys_sliding_window_view(width: int, step: int) -> None
         got = windows(a, width, step)
         assert got.shape == ref.shape and not got.flags.writeable
         np.testing.assert_array_equal(got, ref)
+
+
+@pytest.mark.parametrize("value", [-2.5, -0.0, 0.0, 0.3, 1.0, 7.0, float("nan"), float("inf"),
+                                   np.float64(0.42)])
+def test_clip_equals_numpy_clip(value: float) -> None:
+    # reference library: numpy.clip of one number (NaN stays NaN)
+    ref = float(np.clip(value, 0.0, 1.0))
+    got = clip(value, 0.0, 1.0)
+    assert type(got) is float
+    assert got == ref or (np.isnan(ref) and np.isnan(got))
