@@ -361,8 +361,12 @@ def _choose_source(
     concentrated around its Welch peak (Notes, 1 of :func:`breathing`)."""
     source = "trace"
     best = _concentration(psd)
-    for bp_c, lp_c, m_c in _cop_candidates(cop, cop_fs, y.size, fs_b):
-        psd_c = _welch_psd(bp_c, fs_b, mask_b & m_c)
+    candidates = _cop_candidates(cop, cop_fs, y.size, fs_b)
+    same_mask = len(candidates) == 2 and np.array_equal(candidates[0][2], candidates[1][2])
+    psds = _welch_psd_rows(np.stack((candidates[0][0], candidates[1][0])), fs_b,
+                           mask_b & candidates[0][2]) if same_mask else \
+        [_welch_psd(bp_c, fs_b, mask_b & m_c) for bp_c, _, m_c in candidates]
+    for (bp_c, lp_c, m_c), psd_c in zip(candidates, psds, strict=True):
         c = _concentration(psd_c)
         if c > best:
             best, y, y_low, mask_b, psd = c, bp_c, lp_c, mask_b & m_c, psd_c
@@ -522,11 +526,22 @@ def _cop_candidates(
     """Each centre-of-pressure axis filtered and put on the trace's breathing grid."""
     out = []
     t_b = np.arange(n_b) / fs_b
-    for col in cop.T:
-        m = np.isfinite(col)
-        if m.sum() < 2:
-            continue
-        bp, lp, fs_c, m_c = _breathing_band(bridge_masked(col, m), cop_fs, m)
+    finite = np.isfinite(cop.T)
+    if cop.shape[1] == 2 and int(cop_fs // TARGET_FS_HZ) <= 1 and \
+            np.array_equal(finite[0], finite[1]) and finite[0].sum() >= 2:
+        # Both axes at the breathing rate with the same samples missing (a load too small
+        # for a centre is missing on both): filtered as the rows of one array, the same
+        # numbers as one axis at a time (features.filters filters rows one by one).
+        m = finite[0]
+        rows = np.stack([bridge_masked(col, m) for col in cop.T])
+        rows -= np.array([[median_1d(r)] for r in rows])
+        bands = butter_filtfilt(rows, (4, BAND_HZ, "bandpass", float(cop_fs)))
+        lows = butter_filtfilt(rows, (4, BAND_HZ[1], "lowpass", float(cop_fs)))
+        per_axis = [(bands[i], lows[i], cop_fs, m) for i in range(2)]
+    else:
+        per_axis = [(*_breathing_band(bridge_masked(col, m), cop_fs, m),) for col, m in
+                    zip(cop.T, finite, strict=True) if m.sum() >= 2]
+    for bp, lp, fs_c, m_c in per_axis:
         t_c = np.arange(bp.size) / fs_c
         near = np.clip(np.round(t_b * fs_c).astype(np.int64), 0, bp.size - 1)
         ok = np.asarray(m_c[near] & (t_b <= t_c[-1]), dtype=bool)
@@ -538,10 +553,18 @@ def _welch_psd(
     y: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
     """Welch PSD averaged over the usable runs (each weighted by its segment count)."""
+    return _welch_psd_rows(y[None, :], fs, mask)[0]
+
+
+def _welch_psd_rows(
+    rows: NDArray[np.float64], fs: float, mask: NDArray[np.bool_]
+) -> list[tuple[NDArray[np.float64], NDArray[np.float64]] | None]:
+    """:func:`_welch_psd` of each row under one mask, with the rows' transforms made
+    together (each row's numbers are those of the row alone)."""
     runs = _runs(mask)
     lengths = runs[:, 1] - runs[:, 0] if runs.size else np.empty(0, dtype=np.int64)
     if lengths.size == 0 or lengths.max() < _MIN_WELCH_RUN_S * fs:
-        return None
+        return [None] * rows.shape[0]
     nper = int(min(_WELCH_SEGMENT_S * fs, lengths.max()))
     nfft = int(2 ** np.ceil(np.log2(8 * nper)))
     total: NDArray[np.float64] | None = None
@@ -551,13 +574,13 @@ def _welch_psd(
         if n < nper:
             continue
         # nfft is 8 segments long: the summed autocorrelation's one long transform
-        freqs, p = welch_psd_padded(y[a:b], fs, segment_n=nper, overlap_n=nper // 2,
+        freqs, p = welch_psd_padded(rows[:, a:b], fs, segment_n=nper, overlap_n=nper // 2,
                                     nfft=nfft)
         k = 1 + (n - nper) // (nper // 2)
         total = p * k if total is None else total + p * k
         weight += k
     assert total is not None
-    return freqs, total / weight
+    return [(freqs, row / weight) for row in total]
 
 
 _Psd = tuple[NDArray[np.float64], NDArray[np.float64]] | None

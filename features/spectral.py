@@ -362,22 +362,32 @@ def welch_psd_padded(x: FloatArray, fs_hz: float, *, segment_n: int, overlap_n: 
     to their order, so the estimate differs from :func:`welch_spectra`'s by rounding
     (relative to its largest value); values that are zero in exact arithmetic come out as
     rounding-sized numbers of either sign and are set to zero where negative.
+
+    A 2-D ``x`` gives one PSD per row (rows x frequencies), each the same numbers as the
+    row alone, with the rows' transforms made together.
     """
     x = np.asarray(x, dtype=np.float64)
     hop = segment_n - overlap_n
-    if x.ndim != 1 or x.shape[0] < segment_n or not 0 <= overlap_n < segment_n \
+    if x.ndim not in (1, 2) or x.shape[-1] < segment_n or not 0 <= overlap_n < segment_n \
             or nfft < 2 * segment_n - 1:
-        raise ValueError("1-D `x` of at least `segment_n` samples, `overlap_n` in "
+        raise ValueError("1-D or 2-D `x` of at least `segment_n` samples, `overlap_n` in "
                          "[0, segment_n) and `nfft` >= 2 segment_n - 1 are needed.")
-    count = (x.shape[0] - overlap_n) // hop
+    count = (x.shape[-1] - overlap_n) // hop
     short = scipy.fft.next_fast_len(2 * segment_n - 1, real=True)
-    sx = _segment_spectra(x, _density_window(segment_n, fs_hz), hop, count, short)
-    lags = scipy.fft.irfft((sx.real**2 + sx.imag**2).sum(axis=0), short)
-    wrapped = np.zeros(nfft)
-    wrapped[:segment_n] = lags[:segment_n]
-    wrapped[nfft - segment_n + 1:] = lags[short - segment_n + 1:]
+    win = _density_window(segment_n, fs_hz)
+    if x.ndim == 1:
+        sx = _segment_spectra(x, win, hop, count, short)
+    else:  # every row's segments as the rows of one array (one segment per row)
+        segs = np.concatenate([windows(np.ascontiguousarray(r), segment_n, hop)[:count]
+                               for r in x])
+        sx = _segment_spectra(segs, win, hop, segs.shape[0], short).reshape(
+            x.shape[0], count, -1)
+    lags = scipy.fft.irfft((sx.real**2 + sx.imag**2).sum(axis=-2), short)
+    wrapped = np.zeros((*x.shape[:-1], nfft))
+    wrapped[..., :segment_n] = lags[..., :segment_n]
+    wrapped[..., nfft - segment_n + 1:] = lags[..., short - segment_n + 1:]
     psd = scipy.fft.rfft(wrapped).real
     np.maximum(psd, 0.0, out=psd)
-    psd[1:-1 if nfft % 2 == 0 else None] *= 2
+    psd[..., 1:-1 if nfft % 2 == 0 else None] *= 2
     psd /= count
     return np.asarray(scipy.fft.rfftfreq(nfft, 1 / fs_hz)), psd

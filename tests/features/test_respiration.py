@@ -406,3 +406,25 @@ def test_a_given_trace_median_is_the_one_computed_here():
                 np.testing.assert_array_equal(a, b)
             else:
                 assert a == b, f.name
+
+
+def test_both_centre_of_pressure_axes_filtered_together_are_each_axis_alone() -> None:
+    # The two axes of the centre of pressure go through the breathing filters as the rows
+    # of one array; the same numbers as each axis through its own filters (the gap makes
+    # the bridged samples of both axes part of the check).
+    from features.respiration import _breathing_band, _cop_candidates
+
+    rng = np.random.default_rng(4)
+    t = np.arange(3000) / 10.0
+    cop = np.stack((0.01 * np.sin(2 * np.pi * 0.25 * t), 0.004 * np.cos(2 * np.pi * 0.25 * t)),
+                   axis=1) + 1e-4 * rng.standard_normal((3000, 2))
+    cop[1200:1260] = np.nan
+    got = _cop_candidates(cop, 10.0, 3000, 10.0)
+    assert len(got) == 2
+    for axis in range(2):
+        col = cop[:, axis]
+        m = np.isfinite(col)
+        band, low, fs_c, m_c = _breathing_band(bridge_masked(col, m), 10.0, m)
+        np.testing.assert_array_equal(got[axis][0], band)
+        np.testing.assert_array_equal(got[axis][1], low)
+        np.testing.assert_array_equal(got[axis][2], m_c)

@@ -116,6 +116,15 @@ def test_welch_psd_padded_matches_scipy(n: int, fs: float, nper: int, nover: int
     assert (got >= 0).all()
     with pytest.raises(ValueError):
         welch_psd_padded(x, fs, segment_n=nper, overlap_n=nover, nfft=2 * nper - 2)
+    # Rows: each row's estimate is the one of the row alone, to the bit (the same
+    # transforms, made together; the segments summed in the same order).
+    y, _ = _pair(n, seed=n + 1)
+    f2, rows = welch_psd_padded(np.stack((x, y)), fs, segment_n=nper, overlap_n=nover,
+                                nfft=nfft)
+    np.testing.assert_array_equal(f2, f)
+    np.testing.assert_array_equal(rows[0], got)
+    np.testing.assert_array_equal(
+        rows[1], welch_psd_padded(y, fs, segment_n=nper, overlap_n=nover, nfft=nfft)[1])
 
 
 def test_welch_spectra_rows_match_scipy_periodogram() -> None:
