@@ -9,8 +9,8 @@ from scipy.special import ndtri
 
 from features._numeric import (
     MAD_TO_SD,
-    clip,
     SORTED_LANES_UP_TO,
+    clip,
     lane_median,
     mean,
     median_1d,
