@@ -68,18 +68,20 @@ def clip(value: Any, low: float, high: float) -> float:
 
 
 def windows(a: NDArray[Any], width: int, step: int = 1) -> NDArray[Any]:
-    """``sliding_window_view(a, width)[::step]`` of a 1-D array, read-only: the same view.
+    """``sliding_window_view(a, width, axis=-1)[..., ::step, :]``, read-only: the same view
+    (for a 1-D array, ``sliding_window_view(a, width)[::step]``).
 
     A contiguous array gets it from the ndarray constructor (about 1 us against 6 for
     numpy's ``sliding_window_view``, which the stages call a dozen times per recording);
     anything else from ``sliding_window_view`` itself.
     """
-    n = a.shape[0] if a.ndim == 1 else 0
-    if a.ndim != 1 or not a.flags.c_contiguous or not 0 < width <= n or step < 1:
-        return np.lib.stride_tricks.sliding_window_view(a, width)[::step]
+    n = a.shape[-1] if a.ndim else 0
+    if not a.flags.c_contiguous or not 0 < width <= n or step < 1:
+        return np.lib.stride_tricks.sliding_window_view(a, width, axis=-1)[..., ::step, :]
     item = a.itemsize
-    view: NDArray[Any] = np.ndarray(((n - width) // step + 1, width), dtype=a.dtype, buffer=a,
-                                    strides=(item * step, item))
+    view: NDArray[Any] = np.ndarray((*a.shape[:-1], (n - width) // step + 1, width),
+                                    dtype=a.dtype, buffer=a,
+                                    strides=(*a.strides[:-1], item * step, item))
     view.flags.writeable = False
     return view
 

@@ -243,8 +243,8 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
     else:
         posture_sources = [(x, 1)]
         flags.append("posture_from_fused")
-    for src, src_factor in posture_sources:
-        spans += _posture(src, fs / src_factor, src_factor, k, n)
+    src_factor = posture_sources[0][1]
+    spans += _posture([src for src, _ in posture_sources], fs / src_factor, src_factor, k, n)
 
     segments, usable = _assemble(_outside_gaps(spans, gaps, n), n, fs)
     return ArtifactMask(usable=usable, usable_fraction=float(usable.mean()),
@@ -475,40 +475,47 @@ def _movement(x: FloatArray, fs: float, k: float, pad: int,
     return spans, float(math.exp(margin)), float(decisive.mean())
 
 
-def _posture(src: NDArray[np.generic], src_fs: float, src_factor: int, k: float, n: int
-             ) -> list[tuple[str, int, int]]:
-    """Steps between stable levels in windowed medians of block means."""
+def _posture(sources: list[NDArray[np.generic]], src_fs: float, src_factor: int, k: float,
+             n: int) -> list[tuple[str, int, int]]:
+    """Steps between stable levels in windowed medians of block means, per source (traces
+    of one length), source after source.
+
+    The statistics of all sources are taken as rows of one array (per row the same
+    numbers as for that source alone: every step works along the last axis).
+    """
     factor = block_factor(src_fs, 10.0)
-    blocks = block_means(src, factor)
+    blocks = np.stack([block_means(src, factor) for src in sources])
     width = max(1, int(round(_POSTURE_WINDOW_S * src_fs / factor)))
-    count = blocks.shape[0] // width
+    count = blocks.shape[1] // width
     side = _POSTURE_SIDE_WINDOWS
     if count < 2 * side + 1:
         return []
-    wins = blocks[: count * width].reshape(count, width)
+    wins = blocks[:, : count * width].reshape(len(sources), count, width)
     med = lane_median(wins)
-    spread = median_1d(std(wins, axis=1))
+    spread = lane_median(std(wins, axis=2))
     side_view = windows(med, side)
     side_med = lane_median(side_view)
-    side_mad = MAD_TO_SD * lane_median(np.abs(side_view - side_med[:, None]))
-    d = side_med[side:] - side_med[:-side]          # boundary j = side .. count - side
-    dev = np.abs(d - median_1d(d))
-    sigma = robust_sd(d)
-    threshold = max(k * sigma, _POSTURE_MIN_SPREADS * spread)
-    if threshold <= 0.0:
-        threshold = math.inf if not dev.any() else float(dev[dev > 0].min()) / 2.0
-    starts, ends = runs(dev > threshold)
+    side_mad = MAD_TO_SD * lane_median(np.abs(side_view - side_med[..., None]))
+    d = side_med[:, side:] - side_med[:, :-side]          # boundary j = side .. count - side
+    dev = np.abs(d - lane_median(d)[:, None])
+    sigma = np.asarray(robust_sd(d, axis=1))
     samples_per_window = width * factor * src_factor
     out = []
-    for a, b in zip(starts, ends, strict=True):
-        peak = int(a + np.argmax(dev[a:b]))
-        before, after = side_mad[peak], side_mad[peak + side]
-        if dev[peak] <= _POSTURE_MIN_SPREADS * max(before, after):
-            continue
-        first, last = _transition_windows(med, side_med, peak, side)
-        t0 = first * samples_per_window - samples_per_window // 2
-        t1 = (last + 1) * samples_per_window + samples_per_window // 2
-        out.append(("posture_change", max(0, t0), min(n, t1)))
+    for row in range(len(sources)):
+        threshold = max(k * float(sigma[row]), _POSTURE_MIN_SPREADS * float(spread[row]))
+        dev_r = dev[row]
+        if threshold <= 0.0:
+            threshold = math.inf if not dev_r.any() else float(dev_r[dev_r > 0].min()) / 2.0
+        starts, ends = runs(dev_r > threshold)
+        for a, b in zip(starts, ends, strict=True):
+            peak = int(a + np.argmax(dev_r[a:b]))
+            before, after = side_mad[row, peak], side_mad[row, peak + side]
+            if dev_r[peak] <= _POSTURE_MIN_SPREADS * max(before, after):
+                continue
+            first, last = _transition_windows(med[row], side_med[row], peak, side)
+            t0 = first * samples_per_window - samples_per_window // 2
+            t1 = (last + 1) * samples_per_window + samples_per_window // 2
+            out.append(("posture_change", max(0, t0), min(n, t1)))
     return out
 
 
