@@ -378,10 +378,13 @@ def subtract_block_series(row: FloatArray, slow: FloatArray, factor: int) -> Non
     slope = np.diff(slow) / np.diff(centres)
     row[:first] -= slow[0]
     rows_per_chunk = max(1, _CACHE_CHUNK // factor)
+    line = np.empty((min(rows_per_chunk, m - 1), factor))  # one buffer for every chunk
     for k0 in range(0, m - 1, rows_per_chunk):
         k1 = min(m - 1, k0 + rows_per_chunk)
         view = row[first + k0 * factor : first + k1 * factor].reshape(k1 - k0, factor)
-        view -= slope[k0:k1, None] * t[None, :] + slow[k0:k1, None]
+        part = np.multiply(slope[k0:k1, None], t[None, :], out=line[: k1 - k0])
+        part += slow[k0:k1, None]
+        view -= part
     row[first + (m - 1) * factor :] -= slow[-1]
 
 
