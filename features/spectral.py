@@ -77,12 +77,24 @@ def _sums_direct(
 
 def _powers(first: NDArray[np.complex128], ratio: NDArray[np.complex128], count: int
             ) -> NDArray[np.complex128]:
-    """Rows ``first * ratio**k``, ``k < count``, by a running product (error ~ count eps)."""
-    out = np.empty((first.size, count), dtype=np.complex128)
-    out[:, 0] = first
-    out[:, 1:] = ratio[:, None]
-    np.cumprod(out, axis=1, out=out)
-    return out
+    """Rows ``first * ratio**k``, ``k < count``, by doubling (error ~ log2(count) eps).
+
+    Columns ``[m, 2m)`` are columns ``[0, m)`` times ``ratio**m`` (itself squared from the
+    last step), laid out column by column so that each step is one vectorised product:
+    numpy's running product (``cumprod``) multiplies one element after another, four
+    times as long for 340 samples and 32 columns (numpy 2.4, x86-64).
+    """
+    out = np.empty((count, first.size), dtype=np.complex128)
+    out[0] = first
+    filled = 1
+    step = ratio
+    while filled < count:
+        take = min(filled, count - filled)
+        np.multiply(out[:take], step[None, :], out=out[filled:filled + take])
+        filled += take
+        if filled < count:
+            step = step * step
+    return out.T
 
 
 def _unit(phase: FloatArray) -> NDArray[np.complex128]:
