@@ -309,9 +309,11 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
     chans = _check_channels(channels)
     couplings = tuple(resolve_coupling(ch.quantity, ch.unit, ch.counts_scale is not None,
                                        ch.coupling) for ch in chans)
-    arrays = [_check_samples(ch.samples, i) for i, ch in enumerate(chans)]
+    checked = [_check_samples(ch.samples, i) for i, ch in enumerate(chans)]
+    arrays = [x for x, _ in checked]
+    spans = [span for _, span in checked]  # (min, max) of a channel without missing samples
     n = _check_lengths(arrays, fs)
-    arrays, gap = _fill_gaps(arrays, fs)
+    arrays, gap = _fill_gaps(arrays, spans, fs)
     positions = _check_positions(chans)
     mains = _check_mains(mains_hz)
     empty_kg = _check_empty_load(empty_load_kg)
@@ -357,7 +359,8 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
             baselines[i] = slow
         if derivs:
             flags.append(f"channels[{i}]_{ch.quantity}_differentiated_{derivs}x")
-        live += int(np.ptp(x) > 0)
+        span = spans[i]
+        live += int(span[1] > span[0]) if span is not None else int(np.ptp(x) > 0)
 
     mass, load, occupied = _load_outputs(force_blocks, static, slow_fs, empty_kg, flags)
     return ConditionedInput(
@@ -468,7 +471,10 @@ def _as_float(value: object) -> float | None:
     return out if math.isfinite(out) else None
 
 
-def _check_samples(samples: ArrayLike, i: int) -> NDArray[np.generic]:
+def _check_samples(samples: ArrayLike, i: int
+                   ) -> tuple[NDArray[np.generic], tuple[float, float] | None]:
+    """The channel's samples as an array, and their (min, max) when none is missing (None
+    when one is NaN, or the array is empty); or raise."""
     field = f"channels[{i}].samples"
     try:
         x = np.asarray(samples)
@@ -479,11 +485,20 @@ def _check_samples(samples: ArrayLike, i: int) -> NDArray[np.generic]:
         raise InvalidInputError(field, f"`{field}` must be 1-D; got shape {x.shape}.")
     if x.dtype.kind not in "iuf":
         raise InvalidInputError(field, f"`{field}` must hold real numbers; got dtype {x.dtype}.")
-    if x.dtype.kind == "f" and x.size and -MAX_SAMPLE_MAGNITUDE <= np.fmin.reduce(x) and \
+    if not x.size:
+        return x, None
+    if x.dtype.kind != "f":
+        return x, (float(np.minimum.reduce(x)), float(np.maximum.reduce(x)))
+    # Two reductions that need no temporary: with no NaN (which they carry through), no
+    # infinity and no magnitude over the limit, they are the channel's range as well.
+    lo, hi = float(np.minimum.reduce(x)), float(np.maximum.reduce(x))
+    if -MAX_SAMPLE_MAGNITUDE <= lo and hi <= MAX_SAMPLE_MAGNITUDE:
+        return x, (lo, hi)
+    if math.isnan(lo) and -MAX_SAMPLE_MAGNITUDE <= np.fmin.reduce(x) and \
             np.fmax.reduce(x) <= MAX_SAMPLE_MAGNITUDE:
-        # Two reductions that skip NaN (a missing sample) and need no temporary: no
-        # infinity and no magnitude over the limit. Otherwise the checks below say which.
-        return x
+        # A missing sample (NaN), and the two reductions that skip it: no infinity and no
+        # magnitude over the limit. Otherwise the checks below say which.
+        return x, None
     if x.dtype.kind == "f":
         bad = np.isinf(x)
         count = int(np.count_nonzero(bad))
@@ -499,7 +514,7 @@ def _check_samples(samples: ArrayLike, i: int) -> NDArray[np.generic]:
                 field, f"`{field}` must hold magnitudes of at most {MAX_SAMPLE_MAGNITUDE:g} in "
                 f"the channel's unit; got {float(x[first]):g} at index {first}. Send the trace "
                 "in a unit that keeps it in range, or as counts with a scale.")
-    return x
+    return x, None
 
 
 def _check_lengths(arrays: list[NDArray[np.generic]], fs: float) -> int:
@@ -522,13 +537,14 @@ def _check_lengths(arrays: list[NDArray[np.generic]], fs: float) -> int:
     return int(n)
 
 
-def _fill_gaps(arrays: list[NDArray[np.generic]], fs: float
-               ) -> tuple[list[NDArray[np.generic]], NDArray[np.bool_] | None]:
-    """Each channel with its missing samples filled, and where any channel missed one."""
+def _fill_gaps(arrays: list[NDArray[np.generic]], spans: list[tuple[float, float] | None],
+               fs: float) -> tuple[list[NDArray[np.generic]], NDArray[np.bool_] | None]:
+    """Each channel with its missing samples filled, and where any channel missed one
+    (``spans``: :func:`_check_samples`'s ranges, known only where none is missing)."""
     out: list[NDArray[np.generic]] = []
     union: NDArray[np.bool_] | None = None
     for i, x in enumerate(arrays):
-        if x.dtype.kind != "f" or not np.isnan(x).any():
+        if spans[i] is not None or x.dtype.kind != "f" or not np.isnan(x).any():
             out.append(x)
             continue
         check_enough_samples(np.isnan(x), fs, f"channels[{i}].samples")
