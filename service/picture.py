@@ -193,10 +193,19 @@ def _deflate(rows: np.ndarray) -> bytes:
     if helper is None:
         return zlib.compress(data, PNG_COMPRESS_LEVEL)
     cut = (rows.shape[0] // 2) * (data.nbytes // rows.shape[0])  # on a row boundary
-    second = helper.submit(_raw_deflate, data[cut:], True)
+    start = zlib.adler32(data[:cut])
+    # The checksum runs on from the first half's into the second's, in the helper after
+    # its half: each thread reads its own half once more (some 0.5 ms of the report's
+    # 3.7 MB), where the whole checksum after both halves added about 1 ms in turn.
+    second = helper.submit(_deflate_and_check, data[cut:], start)
     first = _raw_deflate(data[:cut], False)
-    check = zlib.adler32(data)
-    return _zlib_header() + first + second.result() + struct.pack(">I", check)
+    rest, check = second.result()
+    return _zlib_header() + first + rest + struct.pack(">I", check)
+
+
+def _deflate_and_check(data: memoryview, start: int) -> tuple[bytes, int]:
+    """The last part of :func:`_deflate`'s stream, and the Adler-32 run on from ``start``."""
+    return _raw_deflate(data, True), zlib.adler32(data, start)
 
 
 @functools.cache
