@@ -23,7 +23,6 @@ import numpy as np
 from scipy import signal
 
 from features.engine import AnalysisResult
-from features.filters import butter_filtfilt
 from schemas.requests import AnalysisRequest
 from service.analysis import analyze_request, dump_analysis
 from service.picture import (
@@ -77,12 +76,7 @@ def _display(trace: np.ndarray, fs_hz: float) -> np.ndarray:
     sos = _display_filter(float(fs_hz))
     if trace.size <= 3 * 2 * sos.shape[0]:
         return trace - np.mean(trace)
-    # scipy.signal.sosfiltfilt(sos, trace), the same numbers, with the design's steady
-    # state kept (the engine's filter road; sosfilt_zi and the wrapper cost about as much
-    # as the filtering of a two-minute trace)
-    high = min(DISPLAY_BAND_HZ[1], 0.45 * float(fs_hz))
-    return butter_filtfilt(np.asarray(trace, dtype=np.float64),
-                           (2, (DISPLAY_BAND_HZ[0], high), "bandpass", float(fs_hz)))
+    return np.asarray(signal.sosfiltfilt(sos, trace))
 
 
 def _trace_panel(ax: Any, result: AnalysisResult, trace: np.ndarray) -> None:
