@@ -212,8 +212,10 @@ def butter_filtfilt(x: NDArray[np.floating], design: tuple[int, float | tuple[fl
 def _filtfilt_pairs(loop: Callable[..., None], sos: FloatArray, rows: NDArray[np.floating],
                     zi: FloatArray, edge: int, padtype: str | None) -> FloatArray:
     """:func:`butter_filtfilt` of the rows of ``rows`` (series x samples), two at a time as
-    one complex series (:func:`_by_pairs`) from the extension to the cut: each row's numbers
-    are those of the row alone, with the pairs packed once and unpacked once.
+    the real and imaginary parts of one complex series through scipy's section loop, from
+    the extension to the cut: the coefficients are real, so each row's numbers are those of
+    the row alone (:func:`_pairs_agree` checks it on the machine at import); the pairs are
+    packed once and unpacked once, and an odd last row is paired with zeros.
 
     The extension's samples and both passes' initial states are computed in real
     arithmetic (as the single-series road computes them) and copied in.
@@ -272,11 +274,11 @@ def _sosfilt(sos: FloatArray, x: NDArray[np.floating], zi: FloatArray, axis: int
     """
     if _SOSFILT_LOOP is None or x.dtype != np.float64 or zi.dtype != np.float64:
         return np.asarray(signal.sosfilt(sos, x, axis=axis, zi=zi)[0])
-    return _by_loop(_SOSFILT_LOOP, sos, x, zi, axis, pairs=_PAIRS)
+    return _by_loop(_SOSFILT_LOOP, sos, x, zi, axis)
 
 
 def _by_loop(loop: Callable[..., None], sos: FloatArray, x: NDArray[np.floating],
-             zi: FloatArray, axis: int, pairs: bool = False) -> FloatArray:
+             zi: FloatArray, axis: int) -> FloatArray:
     if x.ndim == 1:  # the same layout without the axis moves (two-thirds of a short call)
         line = np.array(x, dtype=np.float64)  # filtered in place
         loop(sos, line.reshape(1, -1), np.array(zi, dtype=np.float64).reshape(1, -1, 2))
@@ -285,43 +287,10 @@ def _by_loop(loop: Callable[..., None], sos: FloatArray, x: NDArray[np.floating]
     last = axis == x.ndim - 1  # the usual case: no axis to move (numpy.moveaxis costs 5 us)
     state = np.array(zi.transpose((*range(1, x.ndim), 0, x.ndim)) if last else
                      np.moveaxis(zi, (0, axis + 1), (-2, -1)), dtype=np.float64, order="C")
-    if pairs and x.size >= 2 * x.shape[axis] and x.dtype == np.float64:
-        return _by_pairs(loop, sos, x, state, axis)
     # filtered in place
     rows = np.array(x if last else np.moveaxis(x, axis, -1), dtype=np.float64, order="C")
     loop(sos, rows.reshape(-1, rows.shape[-1]), state.reshape(-1, sos.shape[0], 2))
     return rows if last else np.moveaxis(rows, -1, axis)
-
-
-def _by_pairs(loop: Callable[..., None], sos: FloatArray, x: NDArray[np.floating],
-              state: FloatArray, axis: int) -> FloatArray:
-    """Two real series at a time as the real and imaginary parts of one complex series.
-
-    The filter's coefficients are real, so each part is filtered on its own: every complex
-    product is ``(a + 0i)(c + di) = ac - 0d + (ad + 0c)i``, whose parts are ``ac`` and
-    ``ad`` to the bit (adding a zero product changes no finite sum), and the sums are
-    taken part by part. The compiled loop does one pass for two series, about a sixth
-    less time than two passes (numpy 2.4, scipy 1.17, x86-64); an odd last series is
-    paired with zeros. :func:`_pairs_agree` checks the equality on the machine at import.
-    """
-    last = axis == x.ndim - 1
-    moved = x if last else np.moveaxis(x, axis, -1)
-    n = moved.shape[-1]
-    flat = moved.reshape(-1, n)
-    flat_state = state.reshape(-1, sos.shape[0], 2)
-    count = flat.shape[0]
-    half = (count + 1) // 2
-    packed = np.zeros((half, n), dtype=np.complex128)
-    packed.real = flat[0::2]
-    packed.imag[: count // 2] = flat[1::2]
-    packed_state = np.zeros((half, sos.shape[0], 2), dtype=np.complex128)
-    packed_state.real = flat_state[0::2]
-    packed_state.imag[: count // 2] = flat_state[1::2]
-    loop(sos.astype(np.complex128), packed, packed_state)
-    out = np.empty((count, n), dtype=np.float64)
-    out[0::2] = packed.real
-    out[1::2] = packed.imag[: count // 2]
-    return out.reshape(moved.shape) if last else np.moveaxis(out.reshape(moved.shape), -1, axis)
 
 
 def _sosfilt_loop() -> Callable[..., None] | None:
@@ -345,22 +314,27 @@ def _sosfilt_loop() -> Callable[..., None] | None:
 
 
 def _pairs_agree(loop: Callable[..., None] | None) -> bool:
-    """Whether :func:`_by_pairs` gives ``sosfilt``'s numbers to the bit on this machine.
+    """Whether :func:`_filtfilt_pairs` gives ``sosfiltfilt``'s numbers to the bit on this
+    machine, for an odd count of series (a pair and one with zeros) and either padding.
 
-    The equality holds wherever a complex product is computed as its four real products
-    (x86-64 builds); a build that fuses a multiply with the following add (contracted
-    floating-point arithmetic, as some other targets compile by default) rounds the two
-    paths differently, and the series are then filtered one at a time.
+    Every complex product of the loop is ``(a + 0i)(c + di) = ac - 0d + (ad + 0c)i``, whose
+    parts are ``ac`` and ``ad`` to the bit (adding a zero product changes no finite sum),
+    and its sums are taken part by part, wherever a complex product is computed as its four
+    real products (x86-64 builds); a build that fuses a multiply with the following add
+    (contracted floating-point arithmetic, as some other targets compile by default) rounds
+    the two roads differently, and the series are then filtered one at a time.
     """
     if loop is None:
         return False
     sos = np.asarray(signal.butter(2, (0.02, 0.3), btype="bandpass", output="sos"))
     rng = np.random.default_rng(3)
     x = np.cumsum(rng.standard_normal((3, 500)), axis=-1) * 1e3
-    zi = rng.standard_normal((sos.shape[0], 3, 2))
+    zi = np.asarray(signal.sosfilt_zi(sos))
     try:
-        return bool(np.array_equal(_by_loop(loop, sos, x, zi, 1, pairs=True),
-                                   signal.sosfilt(sos, x, axis=1, zi=zi)[0]))
+        return all(bool(np.array_equal(
+            _filtfilt_pairs(loop, sos.copy(), x, zi, 30, padtype),
+            signal.sosfiltfilt(sos, x, axis=-1, padtype=padtype, padlen=30)))
+            for padtype in ("odd", "even"))
     except (TypeError, ValueError):
         return False
 
