@@ -221,12 +221,8 @@ def _filtfilt_pairs(loop: Callable[..., None], sos: FloatArray, rows: NDArray[np
     arithmetic (as the single-series road computes them) and copied in.
     """
     count, n = rows.shape
-    half = (count + 1) // 2
-    odd_rows = count // 2
-    total = n + 2 * edge
-    packed = np.zeros((half, total), dtype=np.complex128)
-    packed.real[:, edge:edge + n] = rows[0::2]
-    packed.imag[:odd_rows, edge:edge + n] = rows[1::2]
+    packed = np.zeros(((count + 1) // 2, n + 2 * edge), dtype=np.complex128)
+    _pack(rows, packed[:, edge:edge + n])
     first = rows[:, 0]
     if edge > 0:
         left = rows[:, edge:0:-1]
@@ -234,30 +230,34 @@ def _filtfilt_pairs(loop: Callable[..., None], sos: FloatArray, rows: NDArray[np
         if padtype == "odd":
             left = 2 * rows[:, :1] - left
             right = 2 * rows[:, -1:] - right
-        packed.real[:, :edge] = left[0::2]
-        packed.imag[:odd_rows, :edge] = left[1::2]
-        packed.real[:, edge + n:] = right[0::2]
-        packed.imag[:odd_rows, edge + n:] = right[1::2]
+        _pack(left, packed[:, :edge])
+        _pack(right, packed[:, edge + n:])
         first = left[:, 0]
     sos_c = sos.astype(np.complex128)
-    state = np.zeros((half, sos.shape[0], 2), dtype=np.complex128)
-    start = zi[None, :, :] * first[:, None, None]  # the steady state at the first sample
-    state.real = start[0::2]
-    state.imag[:odd_rows] = start[1::2]
-    loop(sos_c, packed, state)
+    state = np.zeros((packed.shape[0], sos.shape[0], 2), dtype=np.complex128)
+    # the steady state at the first sample, then at the forward pass's last
+    loop(sos_c, packed, _pack(zi[None, :, :] * first[:, None, None], state))
     back = np.ascontiguousarray(packed[:, ::-1])
-    last = np.empty(count)
-    last[0::2] = back.real[:, 0]
-    last[1::2] = back.imag[:odd_rows, 0]
-    start = zi[None, :, :] * last[:, None, None]  # ... and at the forward pass's last
-    state = np.zeros((half, sos.shape[0], 2), dtype=np.complex128)
-    state.real = start[0::2]
-    state.imag[:odd_rows] = start[1::2]
-    loop(sos_c, back, state)
-    forward = back[:, ::-1][:, edge:edge + n]
-    out = np.empty((count, n))
-    out[0::2] = forward.real
-    out[1::2] = forward.imag[:odd_rows]
+    last = _unpack(back[:, :1], count)[:, 0]
+    loop(sos_c, back, _pack(zi[None, :, :] * last[:, None, None], np.zeros_like(state)))
+    return _unpack(back[:, ::-1][:, edge:edge + n], count)
+
+
+def _pack(values: NDArray[np.floating], into: NDArray[np.complex128]
+          ) -> NDArray[np.complex128]:
+    """Rows 0, 2, 4, ... of ``values`` into the real parts of ``into``'s rows and rows
+    1, 3, ... into their imaginary parts (the last imaginary part stays as it is for an odd
+    count); returns ``into``."""
+    into.real = values[0::2]
+    into.imag[: values.shape[0] // 2] = values[1::2]
+    return into
+
+
+def _unpack(pairs: NDArray[np.complex128], count: int) -> FloatArray:
+    """The ``count`` real rows :func:`_pack` put into ``pairs``."""
+    out = np.empty((count, *pairs.shape[1:]))
+    out[0::2] = pairs.real
+    out[1::2] = pairs.imag[: count // 2]
     return out
 
 

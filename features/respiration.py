@@ -514,10 +514,16 @@ def _breathing_band(
     else:
         y, mask_b = x0, mask.copy()
     fs_b = fs / q
-    # scipy.signal.sosfiltfilt (odd extension, default length) of the two designs
-    band = butter_filtfilt(y, (4, BAND_HZ, "bandpass", float(fs_b)))
-    low = butter_filtfilt(y, (4, BAND_HZ[1], "lowpass", float(fs_b)))
+    band, low = _band_and_low(y, fs_b)
     return band, low, fs_b, mask_b
+
+
+def _band_and_low(y: NDArray[np.float64], fs_b: float
+                  ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """The breathing band and the 0.7-Hz low-pass of ``y`` (or of each of its rows):
+    scipy.signal.sosfiltfilt (odd extension, default length) of the two designs."""
+    return (butter_filtfilt(y, (4, BAND_HZ, "bandpass", float(fs_b))),
+            butter_filtfilt(y, (4, BAND_HZ[1], "lowpass", float(fs_b))))
 
 
 def _cop_candidates(
@@ -535,8 +541,7 @@ def _cop_candidates(
         m = finite[0]
         rows = np.stack([bridge_masked(col, m) for col in cop.T])
         rows -= np.array([[median_1d(r)] for r in rows])
-        bands = butter_filtfilt(rows, (4, BAND_HZ, "bandpass", float(cop_fs)))
-        lows = butter_filtfilt(rows, (4, BAND_HZ[1], "lowpass", float(cop_fs)))
+        bands, lows = _band_and_low(rows, cop_fs)
         per_axis = [(bands[i], lows[i], cop_fs, m) for i in range(2)]
     else:
         per_axis = [(*_breathing_band(bridge_masked(col, m), cop_fs, m),) for col, m in
