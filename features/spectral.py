@@ -376,7 +376,8 @@ def welch_psd_padded(x: FloatArray, fs_hz: float, *, segment_n: int, overlap_n: 
     rounding-sized numbers of either sign and are set to zero where negative.
 
     A 2-D ``x`` gives one PSD per row (rows x frequencies), each the same numbers as the
-    row alone, with the rows' transforms made together.
+    row alone (with scipy 1.17's pocketfft on x86-64; to rounding where a back end's
+    batched transform rounds otherwise), with the rows' transforms made together.
     """
     x = np.asarray(x, dtype=np.float64)
     hop = segment_n - overlap_n
