@@ -245,3 +245,127 @@ def envelope(t: np.ndarray, y: np.ndarray, columns: int) -> tuple[np.ndarray, np
 def columns_of(ax_rect: tuple[float, float, float, float]) -> int:
     """Pixel columns of an axes placed at ``ax_rect`` (figure fraction) on the page."""
     return math.ceil(ax_rect[2] * SIZE_IN[0] * DPI)
+
+
+
+def envelope_line(ax: Any, t: np.ndarray, y: np.ndarray, **style: Any) -> Any:
+    """Plot ``y`` against ``t`` on ``ax`` as its min/max envelope per pixel column
+    (:func:`envelope`; ``style`` as for ``Axes.plot``) and return the line.
+
+    Where the envelope thinned the trace, the Agg canvas paints the line column by column
+    (:func:`paint_columns`) instead of stroking its thousands of short segments, which was
+    the largest part of drawing the report; other renderers (SVG) draw the path itself.
+    """
+    tt, yy = envelope(t, y, columns_of(ax.get_position().bounds))
+    if tt.size == t.size:
+        return ax.plot(tt, yy, **style)[0]
+    line = _column_line_class()(tt, yy, **style)
+    ax.add_line(line)
+    ax.autoscale_view()
+    return line
+
+
+@functools.cache
+def _column_line_class() -> type:
+    """``Line2D`` whose Agg drawing is :func:`paint_columns` (made on first use: matplotlib
+    is imported only when a picture is drawn)."""
+    from matplotlib.backends.backend_agg import RendererAgg
+    from matplotlib.colors import to_rgba
+    from matplotlib.lines import Line2D
+    from matplotlib.transforms import Bbox, BboxBase
+
+    class ColumnLine(Line2D):
+        def draw(self, renderer: Any) -> None:
+            if not isinstance(renderer, RendererAgg) or not self.get_visible():
+                super().draw(renderer)
+                return
+            clip = Bbox.from_extents(0, 0, renderer.width, renderer.height)
+            if self.get_clip_on():
+                for box in (self.get_clip_box(), self.get_clip_path()):
+                    if box is not None and not isinstance(box, BboxBase):
+                        box = box.get_fully_transformed_path().get_extents()
+                    if box is not None:
+                        clip = Bbox.intersection(clip, box) or Bbox.from_extents(0, 0, 0, 0)
+            paint_columns(np.asarray(renderer.buffer_rgba()),
+                          self.get_transform().transform(self.get_xydata()), clip.extents,
+                          to_rgba(self.get_color(), self.get_alpha()),
+                          self.get_linewidth() * renderer.dpi / 72.0)
+            self.stale = False
+
+    return ColumnLine
+
+
+def paint_columns(rgba: np.ndarray, xy: np.ndarray, clip: tuple[float, float, float, float],
+                  colour: tuple[float, float, float, float], width_px: float) -> None:
+    """Paint into ``rgba`` (an opaque canvas, rows top down) what a line through the
+    display points ``xy`` (pixels, y up), ``width_px`` wide, covers in each pixel column
+    inside ``clip`` (x0, y0, x1, y1 in the same pixels).
+
+    Each segment gives its vertical span to every column it crosses (for an envelope line,
+    a column's own low-to-high stroke and the joins to its neighbours); the column's span,
+    widened by half the width at each end, is blended over the pixels in proportion to the
+    part of each pixel it covers (the anti-aliasing of its two end pixels), at the colour's
+    alpha. Exact for the vertical strokes; a steep join is painted a column wide where a
+    stroke would be a little narrower.
+    """
+    height, width = rgba.shape[:2]
+    x0, y0, x1, y1 = clip
+    ok = np.isfinite(xy).all(axis=1)
+    if np.count_nonzero(ok) < 2:
+        return
+    x, y = xy[ok, 0], xy[ok, 1]
+    lo_seg, hi_seg = np.minimum(y[:-1], y[1:]), np.maximum(y[:-1], y[1:])
+    c_a = np.floor(np.minimum(x[:-1], x[1:])).astype(np.intp)
+    c_b = np.floor(np.maximum(x[:-1], x[1:])).astype(np.intp)
+    # the pixel columns wholly inside the clip box
+    first = max(int(math.ceil(x0)), int(c_a.min()), 0)
+    last = min(int(math.floor(x1)) - 1, int(c_b.max()), width - 1)
+    if last < first:
+        return
+    lo = np.full(last - first + 1, np.inf)
+    hi = np.full(last - first + 1, -np.inf)
+    span = c_b - c_a
+    for step in range(int(span.max()) + 1):  # columns a segment crosses: one or two
+        cols = c_a + step
+        use = (span >= step) & (cols >= first) & (cols <= last)
+        np.minimum.at(lo, cols[use] - first, lo_seg[use])
+        np.maximum.at(hi, cols[use] - first, hi_seg[use])
+    painted = lo <= hi
+    half = 0.5 * width_px
+    # the span in rows top down, inside the clip box and the canvas; empty where unpainted
+    top = np.maximum(np.maximum(height - hi - half, height - y1), 0.0)
+    bottom = np.minimum(np.minimum(height - lo + half, height - y0), float(height))
+    empty = ~painted | (bottom <= top)
+    top[empty], bottom[empty] = 0.0, 0.0
+    ink = 255.0 * np.asarray(colour[:3])
+    alpha = colour[3]
+    # the pixels the span covers whole: rows ceil(top) to floor(bottom)
+    inner_top, inner_end = np.ceil(top), np.floor(bottom)
+    r0, r1 = int(inner_top.min()), int(inner_end.max())
+    if r1 > r0:
+        rows = np.arange(r0, r1, dtype=np.float64)[:, None]
+        whole = (rows >= inner_top) & (rows < inner_end)
+        if alpha >= 1.0:  # each pixel's four bytes at once: the ink, opaque
+            packed = np.array([*np.rint(ink), 255], dtype=np.uint8).view(np.uint32)[0]
+            np.copyto(rgba.view(np.uint32)[r0:r1, first:last + 1, 0], packed, where=whole)
+        else:
+            block = rgba[r0:r1, first:last + 1, :3]
+            old = block[whole].astype(np.float64)
+            block[whole] = np.rint(old + alpha * (ink - old))
+    # the end pixels, in proportion to the part covered (one pixel when both ends share it)
+    first_row = np.floor(top)
+    one = first_row == inner_end
+    share = np.concatenate((np.where(one, bottom - top, first_row + 1.0 - top),
+                            (bottom - inner_end)[~one]))
+    rows_at = np.concatenate((first_row, inner_end[~one])).astype(np.intp)
+    cols_at = np.concatenate((np.arange(first, last + 1), np.arange(first, last + 1)[~one]))
+    keep = (share > 0.0) & (rows_at < height)
+    _blend(rgba, rows_at[keep], cols_at[keep], alpha * share[keep], ink)
+
+def _blend(rgba: np.ndarray, rows: np.ndarray, cols: np.ndarray, cover: np.ndarray,
+           ink: np.ndarray) -> None:
+    """The colour of the pixels ``(rows, cols)`` moved toward ``ink`` by ``cover`` (0 to 1),
+    rounded."""
+    if rows.size:
+        old = rgba[rows, cols, :3].astype(np.float64)
+        rgba[rows, cols, :3] = np.rint(old + cover[:, None] * (ink - old))

@@ -32,9 +32,8 @@ from service.picture import (
     NOTICE_FONT_PT,
     SIZE_IN,
     check_format,
-    columns_of,
     draw_caution,
-    envelope,
+    envelope_line,
     new_figure,
     png_bytes,
     save,
@@ -83,8 +82,7 @@ def _trace_panel(ax: Any, result: AnalysisResult, trace: np.ndarray) -> None:
     fs = result.input.sampling_rate_hz
     y = _display(trace, fs) * (result.beats.polarity or 1)
     t = np.arange(y.size) / fs
-    tt, yy = envelope(t, y, columns_of(TRACE_RECT))
-    ax.plot(tt, yy, color="#1f4e79", linewidth=0.6, label="fused trace")
+    envelope_line(ax, t, y, color="#1f4e79", linewidth=0.6, label="fused trace")
     for k, segment in enumerate(result.quality.segments):
         ax.axvspan(segment.start_s, segment.end_s, color="#d62728", alpha=0.18, linewidth=0,
                    label="masked" if k == 0 else None)
@@ -162,8 +160,7 @@ def _interval_panel(ax: Any, twin: Any, result: AnalysisResult) -> None:
     twin.set_visible(shown)
     if shown:
         tb = np.arange(breath.size) / resp.breathing_fs_hz
-        tb, breath = envelope(tb, breath, columns_of(INTERVAL_RECT))
-        twin.plot(tb, breath, color=_BREATH, linewidth=0.7, alpha=0.8)
+        envelope_line(twin, tb, breath, color=_BREATH, linewidth=0.7, alpha=0.8)
     if not times.size and not shown:
         ax.set_xlim(0.0, 1.0)
 
