@@ -247,7 +247,6 @@ def columns_of(ax_rect: tuple[float, float, float, float]) -> int:
     return math.ceil(ax_rect[2] * SIZE_IN[0] * DPI)
 
 
-
 def envelope_line(ax: Any, t: np.ndarray, y: np.ndarray, **style: Any) -> Any:
     """Plot ``y`` against ``t`` on ``ax`` as its min/max envelope per pixel column
     (:func:`envelope`; ``style`` as for ``Axes.plot``) and return the line.
@@ -361,6 +360,7 @@ def paint_columns(rgba: np.ndarray, xy: np.ndarray, clip: tuple[float, float, fl
     cols_at = np.concatenate((np.arange(first, last + 1), np.arange(first, last + 1)[~one]))
     keep = (share > 0.0) & (rows_at < height)
     _blend(rgba, rows_at[keep], cols_at[keep], alpha * share[keep], ink)
+
 
 def _blend(rgba: np.ndarray, rows: np.ndarray, cols: np.ndarray, cover: np.ndarray,
            ink: np.ndarray) -> None:

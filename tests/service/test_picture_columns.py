@@ -22,15 +22,15 @@ def _trace(seed):
     return np.arange(y.size) / 250.0, y
 
 
-def _figure(seed, painted, ylim=None, fmt="agg"):
+def _figure(seed, painted, ylim=None, alpha=None):
     figure = new_figure()
     ax = figure.add_axes(RECT)
     t, y = _trace(seed)
     if painted:
-        envelope_line(ax, t, y, color="#1f4e79", linewidth=0.6)
+        envelope_line(ax, t, y, color="#1f4e79", linewidth=0.6, alpha=alpha)
     else:
         tt, yy = envelope(t, y, columns_of(RECT))
-        ax.plot(tt, yy, color="#1f4e79", linewidth=0.6)
+        ax.plot(tt, yy, color="#1f4e79", linewidth=0.6, alpha=alpha)
     ax.set_xlim(0.0, t[-1])
     if ylim is not None:
         ax.set_ylim(*ylim)
@@ -46,9 +46,10 @@ def _ink(figure):
 
 @pytest.mark.parametrize("seed", [0, 1, 2])
 @pytest.mark.parametrize("ylim", [None, (-20.0, 20.0)])
-def test_painted_line_inks_what_aggs_stroke_inks_within_a_pixel(seed, ylim):
-    stroke = _ink(_figure(seed, painted=False, ylim=ylim))
-    painted = _ink(_figure(seed, painted=True, ylim=ylim))
+@pytest.mark.parametrize("alpha", [None, 0.8])  # opaque (the trace) and translucent
+def test_painted_line_inks_what_aggs_stroke_inks_within_a_pixel(seed, ylim, alpha):
+    stroke = _ink(_figure(seed, painted=False, ylim=ylim, alpha=alpha))
+    painted = _ink(_figure(seed, painted=True, ylim=ylim, alpha=alpha))
     # One pixel of slack (a 3 x 3 neighbourhood): Agg strokes the joins between columns
     # as 0.83-px diagonals where the painting fills each column's whole span, and its
     # anti-aliasing spreads the ink of a line that thin over two pixels.
