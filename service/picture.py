@@ -260,7 +260,7 @@ def envelope_line(ax: Any, t: np.ndarray, y: np.ndarray, **style: Any) -> Any:
         return ax.plot(tt, yy, **style)[0]
     line = _column_line_class()(tt, yy, **style)
     ax.add_line(line)
-    ax.autoscale_view()
+    ax.autoscale(enable=None)  # the limits follow at draw time, as after ``Axes.plot``
     return line
 
 
