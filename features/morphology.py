@@ -364,8 +364,7 @@ def beat_morphology(
     template_epochs = epochs if chosen.all() else epochs[chosen]
     template, noise = _robust_template(template_epochs)
     tau_s = (np.arange(template.size) + round(EPOCH_START_S * fs)) / fs
-    located = _wave_view(template, fs)
-    waves = _locate_waves(template, located, tau_s, fs, template_epochs, noise)
+    waves, found, k = _template_and_split_waves(template, template_epochs, tau_s, fs, noise)
     by_name = {w.name: w for w in waves}
     if by_name["J"].time_ms is None:
         return _empty(amplitude_unit, offered, int(chosen.sum()), "j_wave_not_found")
@@ -388,7 +387,7 @@ def beat_morphology(
     confidence = min(1.0, chosen.sum() / 30.0) * clip(r_med, 0.0, 1.0) * wave_conf
     if offered - int(chosen.sum()) > 0:
         flags.append("beats_excluded_from_template")
-    se = _split_standard_errors(template_epochs, tau_s, fs)
+    se = _split_standard_errors(found, k)
     family = clip(confidence, 0.0, 1.0)
     precision = {
         "ij_interval": _precision(se["ij_interval"], INTERVAL_SE_SCALE_MS),
@@ -643,23 +642,47 @@ def _fit_half_width(fs: float) -> int:
     return max(1, round(_FIT_HALF_WIDTH_S * fs))
 
 
+def _template_and_split_waves(
+    template: NDArray[np.float64], epochs: NDArray[np.float64], tau_s: NDArray[np.float64],
+    fs: float, noise: float,
+) -> tuple[tuple[WaveLocation, ...],
+           dict[str, tuple[NDArray[np.int64], NDArray[np.float64], NDArray[np.float64]]], int]:
+    """The template's waves (:func:`_locate_waves`), and the waves of it and of the ``k``
+    split ensembles' templates (:func:`_split_templates`, for step 6's standard errors) as
+    :func:`_wave_rows` of one stack, template first: one low-pass and one search for all."""
+    parts = _split_templates(epochs)
+    rows = np.concatenate((template[None, :], parts))
+    views = _wave_view(rows, fs)
+    found = _wave_rows(views, tau_s, fs, rows, "HIJKL")
+    return _locate_waves(views[0], found, fs, epochs, noise), found, parts.shape[0]
+
+
 def _locate_waves(
-    template: NDArray[np.float64],
     located: NDArray[np.float64],
-    tau_s: NDArray[np.float64],
+    rows: dict[str, tuple[NDArray[np.int64], NDArray[np.float64], NDArray[np.float64]]],
     fs: float,
     epochs: NDArray[np.float64],
     noise: float,
 ) -> tuple[WaveLocation, ...]:
-    found = _wave_times_values(located, tau_s, fs, template)
+    """The template's waves: ``located`` is its low-passed view and ``rows`` the
+    :func:`_wave_rows` of a stack whose first row is the template."""
+    found = {name: (int(i[0]), float(t[0]), float(v[0]))
+             for name, (i, t, v) in rows.items() if i[0] >= 0}
     present = [(name, sign) for name, sign, _, _, _ in _WAVE_RULES if name in found]
     sds_ms = _location_sds_ms(epochs, [found[name][0] for name, _ in present],
                               [sign for _, sign in present], fs)
     out = {name: WaveLocation(name, None, None, None, None, 0.0)
            for name, _, _, _, _ in _WAVE_RULES if name not in found}
-    for (name, sign), sd in zip(present, sds_ms, strict=True):
+    # the prominences of the waves of each sign in one call (each peak's on its own)
+    proms: dict[str, float] = {}
+    for sign in (1, -1):
+        names = [name for name, s in present if s == sign]
+        if names:
+            values = signal.peak_prominences(sign * located, [found[n][0] for n in names])[0]
+            proms.update(zip(names, (float(v) for v in values), strict=True))
+    for (name, _), sd in zip(present, sds_ms, strict=True):
         i, t_s, value = found[name]
-        prom = float(signal.peak_prominences(sign * located, [i])[0][0])
+        prom = proms[name]
         sd_ms = float(sd)
         snr = prom / noise if noise > 0 else np.inf
         c = clip((snr - 3.0) / 7.0, 0.0, 1.0) / (1.0 + (sd_ms / 20.0) ** 2)
@@ -674,27 +697,16 @@ def _wave_view(template: NDArray[np.float64], fs: float) -> NDArray[np.float64]:
     return lowpass(template, fs, WAVE_LOWPASS_HZ, order=2, axis=-1)
 
 
-def _wave_times_values(located: NDArray[np.float64], tau_s: NDArray[np.float64], fs: float,
-                       raw: NDArray[np.float64],
-                       names: str = "HIJKL") -> dict[str, tuple[int, float, float]]:
-    """Sample index, time (s) and value of each wave found by the rules of step 4.
-
-    Index and time come from ``located`` (the low-passed template), the value from the
-    same parabola fitted to ``raw`` at that index.
-    """
-    rows = _wave_rows(located[None, :], tau_s, fs, raw[None, :], names)
-    return {name: (int(i[0]), float(t[0]), float(v[0]))
-            for name, (i, t, v) in rows.items() if i[0] >= 0}
-
-
 def _wave_rows(located: NDArray[np.float64], tau_s: NDArray[np.float64], fs: float,
                raw: NDArray[np.float64], names: str
                ) -> dict[str, tuple[NDArray[np.int64], NDArray[np.float64], NDArray[np.float64]]]:
-    """:func:`_wave_times_values` for each row of ``located`` and ``raw`` (rows x samples).
+    """Sample index, time (s) and value of each wave found by the rules of step 4, for each
+    row of ``located`` (low-passed templates) and ``raw`` (the same rows unfiltered).
 
-    Per wave: index (-1 where the row lacks it), time (s) and value (NaN where it lacks
-    it). A wave is the most extreme local extremum of its sign inside its window (the
-    first such sample on a tie), as in step 4.
+    Index and time come from ``located``, the value from the same parabola fitted to
+    ``raw`` at that index. Per wave: index (-1 where the row lacks it), time (s) and value
+    (NaN where it lacks it). A wave is the most extreme local extremum of its sign inside
+    its window (the first such sample on a tie), as in step 4.
     """
     n_rows = located.shape[0]
     h = _fit_half_width(fs)
@@ -724,19 +736,27 @@ def _wave_rows(located: NDArray[np.float64], tau_s: NDArray[np.float64], fs: flo
     return found
 
 
-def _split_standard_errors(epochs: NDArray[np.float64], tau_s: NDArray[np.float64],
-                           fs: float) -> dict[str, float | None]:
-    """Standard errors of the I-J, J-K intervals (ms) and amplitudes from split ensembles."""
-    n = epochs.shape[0]
-    k = max(2, min(SPLIT_GROUPS, n // 5))
-    parts = np.array([_trimmed_mean(epochs[g::k]) for g in range(k)])
-    w = _wave_rows(_wave_view(parts, fs), tau_s, fs, parts, names="IJK")
+def _split_templates(epochs: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Templates (:func:`_trimmed_mean`) of ``k`` interleaved groups of the beats (every
+    k-th beat), ``SPLIT_GROUPS`` of them when there are at least five beats a group."""
+    k = max(2, min(SPLIT_GROUPS, epochs.shape[0] // 5))
+    return np.array([_trimmed_mean(epochs[g::k]) for g in range(k)])
+
+
+def _split_standard_errors(
+    rows: dict[str, tuple[NDArray[np.int64], NDArray[np.float64], NDArray[np.float64]]],
+    k: int,
+) -> dict[str, float | None]:
+    """Standard errors of the I-J, J-K intervals (ms) and amplitudes from split ensembles:
+    ``rows`` is :func:`_wave_rows` of a stack whose last ``k`` rows are
+    :func:`_split_templates`."""
+    w = {name: tuple(a[-k:] for a in rows[name]) for name in "IJK" if name in rows}
     if len(w) < 3 or any((w[name][0] < 0).any() for name in "IJK"):
         return dict.fromkeys(("ij_interval", "jk_interval", "ij_amplitude", "jk_amplitude"))
     (_, t_i, v_i), (_, t_j, v_j), (_, t_k, v_k) = w["I"], w["J"], w["K"]
-    rows = np.column_stack((1e3 * (t_j - t_i), 1e3 * (t_k - t_j), v_j - v_i, v_j - v_k))
+    table = np.column_stack((1e3 * (t_j - t_i), 1e3 * (t_k - t_j), v_j - v_i, v_j - v_k))
     # Each group holds 1/k of the beats: the full template's SE is the groups' SD / sqrt(k).
-    sd = std(rows, axis=0, ddof=1) / np.sqrt(k)
+    sd = std(table, axis=0, ddof=1) / np.sqrt(k)
     return {key: float(v) for key, v in zip(
         ("ij_interval", "jk_interval", "ij_amplitude", "jk_amplitude"), sd, strict=True)}
 
@@ -1017,7 +1037,12 @@ def _wavelet_signature(
     n = y.size
     total = -(-n // block) * block
     pad_left = (total - n) // 2
-    yp = np.pad(y, (pad_left, total - n - pad_left), mode="symmetric")
+    pad_right = total - n - pad_left
+    if max(pad_left, pad_right) <= n:  # numpy.pad(y, ..., mode="symmetric"), without its
+        # per-call set-up: each end mirrored with its edge sample repeated
+        yp = np.concatenate((y[:pad_left][::-1], y, y[n - pad_right:][::-1]))
+    else:
+        yp = np.pad(y, (pad_left, pad_right), mode="symmetric")
     flags: list[str] = []
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")

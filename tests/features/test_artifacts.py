@@ -280,11 +280,16 @@ def test_block_std_equals_numpy_std_of_the_centred_blocks(n: int, length: int) -
     m = n // length
     blocks = x[: m * length].reshape(m, length)
     # Reference: numpy.std of each block less its mean (the kernel's definition). The
-    # kernel sums by numpy.einsum in another order: a few units in the last place, so
-    # rtol 1e-13. The chunks (2**16 samples) split these traces, so a chunk boundary is
-    # covered.
+    # kernel sums the deviations from each block's first sample (shifted data): with that
+    # sample a few SD from the block's mean, the two sums cancel by a factor of about ten
+    # at most, so a few hundred units in the last place at worst; rtol 1e-13. The chunks
+    # (2**16 samples) split these traces, so a chunk boundary is covered.
     want = np.std(blocks - blocks.mean(axis=1, keepdims=True), axis=1)
     np.testing.assert_allclose(_block_std(x, length), want, rtol=1e-13)
+    # An offset of a million (a raw load cell's reading) is removed by the shift itself,
+    # before any sum; adding it rounds each sample by up to half an ulp of 1e6 (6e-11, 2e-11
+    # of the SD of 3), hence rtol 1e-9.
+    np.testing.assert_allclose(_block_std(x + 1.0e6, length), want, rtol=1e-9)
     ints = rng.integers(-2000, 2000, size=n, dtype=np.int16)
     blocks_i = ints[: m * length].astype(np.float64).reshape(m, length)
     np.testing.assert_allclose(_block_std(ints, length), np.std(
@@ -297,7 +302,7 @@ def test_block_std_of_a_constant_block_is_exactly_zero(level: float) -> None:
 
     # A flat line is found where a block's spread is at most 1e-4 of the median one,
     # which is 0 when most blocks are flat: a constant block must give 0 exactly, not a
-    # rounding residue (the deviations are centred twice).
+    # rounding residue (every deviation from the block's first sample is exactly 0).
     x = np.full(75_000, level)
     x[40_000:] += np.random.default_rng(3).standard_normal(35_000)
     got = _block_std(x, 32)

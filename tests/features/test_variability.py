@@ -343,6 +343,19 @@ def test_dfa_against_neurokit2():
     assert r.dfa_alpha2 == pytest.approx(ref2, rel=1e-9)
 
 
+def test_dfa_line_slope_is_numpys_least_squares_fit() -> None:
+    from features.variability.nonlinear import _line_slope
+
+    # The exponent is the slope of log F(n) on log n. numpy.polyfit solves the same least
+    # squares by a scaled SVD; the closed form rounds differently, a few units in the last
+    # place on a dozen points, hence rel 1e-12.
+    rng = np.random.default_rng(11)
+    x = np.log(np.arange(4.0, 17.0))
+    for _ in range(20):
+        y = rng.uniform(0.3, 1.6) * x + rng.normal(0.0, 0.05, x.size) + rng.uniform(-3, 3)
+        assert _line_slope(x, y) == pytest.approx(np.polyfit(x, y, 1)[0], rel=1e-12)
+
+
 def test_dfa_on_integer_nsr_series_against_neurokit2(nsr_short):
     nk = pytest.importorskip("neurokit2")
     t, x = nsr_short
