@@ -115,7 +115,9 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
                    raw_signals: Sequence[ArrayLike] | None = None,
                    min_occupant_kg: float = MIN_OCCUPANT_KG, movement_k: float = 5.0,
                    pad_s: float = 1.0, min_flat_s: float = 0.25,
-                   gap: ArrayLike | None = None, gap_pad_s: float = GAP_PAD_S) -> ArtifactMask:
+                   gap: ArrayLike | None = None, gap_pad_s: float = GAP_PAD_S,
+                   raw_ranges: Sequence[tuple[float, float] | None] | None = None
+                   ) -> ArtifactMask:
     """Mask movement, posture changes, clipping, flat lines, an empty support and gaps.
 
     Parameters
@@ -148,6 +150,10 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
         (``ConditionedInput.gap``), or None when none were.
     gap_pad_s
         Padding added to each side of a gap, s (>= 0; :data:`features.gaps.GAP_PAD_S`).
+    raw_ranges
+        Per raw channel, its (min, max) when known (``ConditionedInput.raw_ranges``; None
+        where not): a finite range shows the channel finite and gives its extremes, so
+        the channel is not reduced again for them.
 
     Returns
     -------
@@ -211,7 +217,8 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
     fs = check_sampling_rate(fs_hz)
     x = check_trace(fused, name="fused", fs_hz=fs, min_duration_s=MIN_DURATION_S)
     n = x.shape[0]
-    raws = _check_raw(raw_signals, n)
+    ranges = _check_ranges(raw_ranges, raw_signals)
+    raws = _check_raw(raw_signals, n, ranges)
     load, load_factor = _check_load(load_n, load_fs_hz, fs, n)
     k = _positive("movement_k", movement_k)
     pad = _positive("pad_s", pad_s, allow_zero=True)
@@ -227,7 +234,8 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
     sources: list[NDArray[np.generic]] = list(raws) if raws is not None else [x]
     if raws is None:
         flags.append("clipping_and_flat_checked_on_fused")
-    spans += _flat_and_clipping(sources, fs, min_flat, flags)
+    spans += _flat_and_clipping(sources, fs, min_flat, flags,
+                                ranges if raws is not None else [None])
     if load is not None:
         spans += _empty_support(load, load_factor, occupant_kg * STANDARD_GRAVITY_M_S2,
                                 int(round(pad * fs)), n)
@@ -263,8 +271,20 @@ def _check_finite(field: str, x: NDArray[np.generic]) -> None:
                                 f"at index {int(np.argmax(bad))}.")
 
 
-def _check_raw(raw_signals: Sequence[ArrayLike] | None, n: int
-               ) -> list[NDArray[np.generic]] | None:
+def _check_ranges(raw_ranges: Sequence[tuple[float, float] | None] | None,
+                  raw_signals: Sequence[ArrayLike] | None) -> list[tuple[float, float] | None]:
+    """The known (min, max) per raw channel (None where unknown), one per raw channel."""
+    count = 0 if raw_signals is None else len(raw_signals)
+    if not raw_ranges:
+        return [None] * count
+    if len(raw_ranges) != count:
+        raise InvalidInputError("raw_ranges", f"`raw_ranges` must hold one (min, max) or None "
+                                f"per raw channel ({count}); got {len(raw_ranges)}.")
+    return [None if r is None else (float(r[0]), float(r[1])) for r in raw_ranges]
+
+
+def _check_raw(raw_signals: Sequence[ArrayLike] | None, n: int,
+               ranges: list[tuple[float, float] | None]) -> list[NDArray[np.generic]] | None:
     if raw_signals is None:
         return None
     out = []
@@ -274,7 +294,10 @@ def _check_raw(raw_signals: Sequence[ArrayLike] | None, n: int
         if arr.ndim != 1 or arr.shape[0] != n or arr.dtype.kind not in "iuf":
             raise InvalidInputError(field, f"`{field}` must be a real 1-D array of {n} samples "
                                     f"(the length of fused); got shape {arr.shape}.")
-        _check_finite(field, arr)
+        span = ranges[i]
+        # a NaN or an infinity would be the range's end (min and max carry both through)
+        if span is None or not (math.isfinite(span[0]) and math.isfinite(span[1])):
+            _check_finite(field, arr)
         out.append(arr)
     if not out:
         raise InvalidInputError("raw_signals", "`raw_signals` must hold at least one channel or "
@@ -373,16 +396,18 @@ def _block_std(x: NDArray[np.generic], length: int) -> FloatArray:
 
 
 def _flat_and_clipping(sources: list[NDArray[np.generic]], fs: float, min_flat_s: float,
-                       flags: list[str]) -> list[tuple[str, int, int]]:
+                       flags: list[str],
+                       ranges: Sequence[tuple[float, float] | None] | None = None
+                       ) -> list[tuple[str, int, int]]:
     per_channel: list[list[tuple[str, int, int]]] = []
     min_clip = max(_MIN_CLIP_SAMPLES, int(math.ceil(_MIN_CLIP_S * fs)))
     brief_clip = max(min_clip + 1, int(math.ceil(_BRIEF_CLIP_S * fs)))
     n_brief = 0
     min_run = max(2, int(math.ceil(min_flat_s * fs)))
     blk = max(2, int(math.ceil(0.5 * min_flat_s * fs)))
-    for src in sources:
+    for src, span in zip(sources, ranges or [None] * len(sources), strict=True):
         n = src.shape[0]
-        hi, lo = src.max(), src.min()
+        hi, lo = (span[1], span[0]) if span is not None else (src.max(), src.min())
         spans: list[tuple[str, int, int]] = []
         if hi == lo:
             per_channel.append([("flat_line", 0, n)])

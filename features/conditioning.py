@@ -179,6 +179,11 @@ class ConditionedInput:
     gap
         (n,) True where any channel's sample was missing (NaN) and was filled
         (:func:`features.gaps.fill_gaps`) before filtering; None when none was.
+    raw_ranges
+        Per channel, the (min, max) of ``raw_signals`` as read by the sample checks, where
+        it is exact as a float (None for a channel with a filled gap or of a 64-bit
+        integer type): the later checks of the raw samples start from it instead of
+        reducing the channel again.
     """
 
     signals: FloatArray
@@ -199,6 +204,7 @@ class ConditionedInput:
     confidence: float
     flags: tuple[str, ...]
     gap: NDArray[np.bool_] | None = None
+    raw_ranges: tuple[tuple[float, float] | None, ...] = ()
 
 
 def valid_units(quantity: str) -> list[str]:
@@ -373,7 +379,9 @@ def condition_channels(channels: Sequence[ChannelInput], fs_hz: float, *,
         baseline_si=baselines, baseline_fs_hz=slow_fs, static_load_n=tuple(static),
         supported_mass_kg=mass, load_trace_n=load, occupancy_from_load=occupied,
         mains_hz_removed=notch_hz, confidence=live / len(chans), flags=tuple(flags),
-        gap=gap,
+        gap=gap, raw_ranges=tuple(
+            span if span is not None and (x.dtype.kind == "f" or x.dtype.itemsize <= 4) else None
+            for x, span in zip(arrays, spans, strict=True)),
     )
 
 

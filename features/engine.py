@@ -218,10 +218,10 @@ def analyze(
 
     cond = condition_channels(channels, fs_hz, mains_hz=options.mains_hz,
                               empty_load_kg=options.empty_load_kg)
-    check_signal_present(cond.raw_signals, unloaded=cond.occupancy_from_load is False)
+    check_signal_present(cond.raw_signals, unloaded=cond.occupancy_from_load is False,
+                         ranges=cond.raw_ranges)
     # The centre of pressure needs calibrated cells that carry the weight.
-    force_only = all(q == "force" for q in cond.quantities) and \
-        all(c == "dc" for c in cond.couplings)
+    force_only = all(q == "force" for q in cond.quantities) and set(cond.couplings) == {"dc"}
     fusion = fuse_channels(
         cond.signals, fs_hz, units=cond.units,
         positions_m=cond.positions_m if force_only else None,
@@ -237,7 +237,7 @@ def analyze(
     mask: ArtifactMask = mask_artifacts(fusion.fused, fs_hz, load_n=load_n,
                                         load_fs_hz=cond.baseline_fs_hz,
                                         raw_signals=cond.raw_signals, pad_s=MOVEMENT_PAD_S,
-                                        gap=cond.gap)
+                                        gap=cond.gap, raw_ranges=cond.raw_ranges)
     centre = median_1d(fusion.fused)  # for breathing too when unmasked (else it bridges)
     beats = detect_beats(fusion.fused, fs_hz, usable=mask.usable,
                          rate_range_bpm=options.rate_range_bpm,

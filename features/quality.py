@@ -82,7 +82,8 @@ class OccupancyResult:
 
 
 def check_signal_present(raw_signals: Sequence[NDArray[np.generic]], *,
-                         unloaded: bool = False) -> None:
+                         unloaded: bool = False,
+                         ranges: Sequence[tuple[float, float] | None] | None = None) -> None:
     """Raise :class:`UnusableSignalError` when no channel can carry a waveform.
 
     Parameters
@@ -93,6 +94,9 @@ def check_signal_present(raw_signals: Sequence[NDArray[np.generic]], *,
         True when the static load says nobody is on the support
         (``ConditionedInput.occupancy_from_load`` is False): flat channels are then an
         empty support, a valid answer, and not an error.
+    ranges
+        Per channel, its (min, max) when known (``ConditionedInput.raw_ranges``; None
+        where not), so that the channel is not reduced again for them.
 
     Raises
     ------
@@ -113,7 +117,8 @@ def check_signal_present(raw_signals: Sequence[NDArray[np.generic]], *,
     usable channel is enough: the artifact stage masks a channel's clipped spans, and an
     empty support (a noisy, unloaded sensor) is a valid answer, not an unusable signal.
     """
-    shares = [_share_at_extremes(x) for x in raw_signals]
+    known = list(ranges) if ranges else [None] * len(raw_signals)
+    shares = [_share_at_extremes(x, span) for x, span in zip(raw_signals, known, strict=True)]
     if all(share is None for share in shares):
         if unloaded:
             return
@@ -128,12 +133,13 @@ def check_signal_present(raw_signals: Sequence[NDArray[np.generic]], *,
             "computed. Lower the gain or use a sensor with a wider range.")
 
 
-def _share_at_extremes(x: NDArray[np.generic]) -> float | None:
-    """Share of the samples equal to the minimum or the maximum; None when those two are all
-    the values (at most two distinct values, a flat channel)."""
+def _share_at_extremes(x: NDArray[np.generic], span: tuple[float, float] | None = None
+                       ) -> float | None:
+    """Share of the samples equal to the minimum or the maximum (``span`` when given); None
+    when those two are all the values (at most two distinct values, a flat channel)."""
     if x.size == 0:
         return None
-    low, high = x.min(), x.max()
+    low, high = span if span is not None else (x.min(), x.max())
     count = 0
     for start in range(0, x.size, _CHUNK):
         part = x[start:start + _CHUNK]

@@ -344,3 +344,31 @@ def test_clipping_and_flat_runs_match_a_direct_scan_of_each_extreme() -> None:
     flat_got = {(a, b) for k, a, b in got if k == "flat_line"}
     # a flat line from 0.25 s (63 samples at 250 Hz): the 120-sample stretch, not the 30
     assert (8000, 8120) in flat_got and not any(a <= 9000 < b for a, b in flat_got)
+
+
+def test_known_raw_ranges_give_the_mask_the_ranges_would_be_read_for() -> None:
+    # The engine hands the channels' (min, max) from the sample checks to the artifact
+    # stage; with them or without, the same mask (clipping at a rail, a flat dropout),
+    # for float cells and for integer counts.
+    fused, raw, load = _inject()
+    counts = [np.round(r * 100.0).astype(np.int32) for r in raw]
+    for cells in (raw, counts):
+        ranges = [(float(c.min()), float(c.max())) for c in cells]
+        plain = mask_artifacts(fused, FS, load_n=load, load_fs_hz=LOAD_FS, raw_signals=cells)
+        known = mask_artifacts(fused, FS, load_n=load, load_fs_hz=LOAD_FS, raw_signals=cells,
+                               raw_ranges=ranges)
+        some = mask_artifacts(fused, FS, load_n=load, load_fs_hz=LOAD_FS, raw_signals=cells,
+                              raw_ranges=[ranges[0], None, ranges[2], None])
+        for got in (known, some):
+            assert got.segments == plain.segments and got.flags == plain.flags
+            assert np.array_equal(got.usable, plain.usable)
+        assert any(s.kind == "clipping" for s in plain.segments)
+        assert any(s.kind == "flat_line" for s in plain.segments)
+    with pytest.raises(InvalidInputError, match="raw_ranges"):
+        mask_artifacts(fused, FS, raw_signals=raw, raw_ranges=[(0.0, 1.0)])
+    # a range that is not finite leaves the samples' own check in place
+    bad = [r.copy() for r in raw]
+    bad[1][100] = np.inf
+    with pytest.raises(InvalidInputError, match=r"raw_signals\[1\]"):
+        mask_artifacts(fused, FS, raw_signals=bad,
+                       raw_ranges=[(float(b.min()), float(b.max())) for b in bad])
