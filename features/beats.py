@@ -33,6 +33,7 @@ from features._checks import check_sampling_rate, check_trace, check_usable
 from features._correlate import BlockSpectra
 from features._numeric import (
     clip,
+    count_in,
     lane_median,
     mean,
     median_1d,
@@ -531,7 +532,7 @@ def _settle_period(w: _Work) -> tuple[float | None, int, NDArray[np.float64],
         return _empty(fs_w, w.levels, w.flags + ["too_few_candidates"], period=period)
     # Settle the period on the whole stretch before the beats are picked: envelope
     # peaks two a beat (a complex with two comparable waves) halve the envelope period.
-    peak_runs = np.cumsum(~w.usable)[peaks].astype(np.int64)
+    peak_runs = count_in(~w.usable, 0, peaks + 1).astype(np.int64)  # masked samples so far
     if period is not None and period * fs_w < 0.75 * _pair_span(peaks, peak_runs) and \
             _second_waves(comp, peaks, peak_runs, env, half,
                           int(w.min_period * fs_w)) is not None:
@@ -664,8 +665,7 @@ def _drop_second_waves(w: _Work, comp: NDArray[np.float64], beats: NDArray[np.in
     Returns the beats, their run ids and the period (doubled when it was the waves').
     """
     fs_w = w.fs
-    seg = np.cumsum(~w.usable)
-    run_ids = seg[beats].astype(np.int64)
+    run_ids = count_in(~w.usable, 0, beats + 1).astype(np.int64)  # masked samples so far
     second = _second_waves(comp, beats, run_ids, amp, w.half, int(w.min_period * fs_w),
                            None if period is None else period * fs_w)
     if second is not None:
@@ -1361,10 +1361,9 @@ def _complex_usable(beats: NDArray[np.intp], usable: NDArray[np.bool_], fs: floa
     the record but whose complex runs past an end is kept.
     """
     before, after = int(round(0.25 * fs)), int(round(0.35 * fs))
-    bad_c = np.concatenate(([0], np.cumsum(~usable)))
     lo_c = np.clip(beats - before, 0, usable.size)
     hi_c = np.clip(beats + after + 1, 0, usable.size)
-    ok: NDArray[np.bool_] = (bad_c[hi_c] - bad_c[lo_c]) == 0
+    ok: NDArray[np.bool_] = count_in(~usable, lo_c, hi_c) == 0
     return ok
 
 

@@ -18,7 +18,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.linalg import blas
 
 from features._checks import check_2d, check_sampling_rate
-from features._numeric import MAD_TO_SD, clip, lane_median, median_1d, robust_sd
+from features._numeric import MAD_TO_SD, clip, count_in, lane_median, median_1d, robust_sd
 from features.errors import InvalidInputError
 from features.filters import FloatArray, bandpass, block_centres, block_factor, block_means
 from features.limits import MIN_DURATION_S, MIN_OCCUPANT_KG, STANDARD_GRAVITY_M_S2
@@ -469,8 +469,7 @@ def _cardiac_excursion_mm(cardiac: FloatArray, fs_a: float, total: FloatArray,
     lengths = np.diff(edges)
     cum_force = np.concatenate((np.zeros((total.shape[0], 1)), np.cumsum(total, axis=1)),
                                axis=1)
-    cum_empty = np.concatenate(([0], np.cumsum(~valid)))
-    full = (lengths > 0) & (cum_empty[edges[1:]] == cum_empty[edges[:-1]])
+    full = (lengths > 0) & (count_in(~valid, edges[:-1], edges[1:]) == 0)
     if not full.any():
         return None
     keep = np.flatnonzero(full)

@@ -19,7 +19,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.interpolate import BSpline
 
 from features._checks import check_sampling_rate
-from features._numeric import clip, median_1d, runs, std
+from features._numeric import clip, count_in, median_1d, runs, std
 from features.catalogue import (
     NONNEGATIVE,
     PERCENT,
@@ -416,10 +416,9 @@ def _kept_cycles(
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     starts, ends = breaths[:-1], breaths[1:]
     keep = (ends - starts) <= 2.0 * median_1d(ends - starts)
-    bad = np.concatenate(([0], np.cumsum(~np.isfinite(y))))
     a = np.clip(np.floor(starts * fs).astype(np.int64), 0, y.size)
     b = np.clip(np.ceil(ends * fs).astype(np.int64) + 1, 0, y.size)
-    keep &= (bad[b] - bad[a]) == 0
+    keep &= count_in(~np.isfinite(y), a, b) == 0
     keep &= (a < y.size) & (b > a + 1)
     return starts[keep], ends[keep]
 
@@ -810,9 +809,8 @@ def _coherence(
     if finite.sum() < 2:
         return None, 0.0, 0, ["no_usable_breathing_signal_for_coherence"]
     br = np.interp(grid, ty[finite], y[finite])
-    bad_y = np.concatenate(([0], np.cumsum(~finite)))
     a = np.clip(np.floor(grid * fs).astype(np.int64), 0, y.size - 1)
-    ok &= (bad_y[np.minimum(a + 2, y.size)] - bad_y[a]) == 0
+    ok &= count_in(~finite, a, np.minimum(a + 2, y.size)) == 0
     ok &= grid <= ty[-1]
     run_a, run_b = runs(ok)
     if run_a.size == 0:

@@ -21,6 +21,7 @@ from features._checks import check_sampling_rate, check_usable, finite_where
 from features._numeric import (
     MAD_TO_SD,
     clip,
+    count_in,
     lane_median,
     median_1d,
     quantile,
@@ -652,8 +653,7 @@ def _breath_intervals(
     """Intervals between consecutive rises with no masked sample and no pause inside."""
     if rises.size < 2:
         return np.empty(0), np.zeros(0, dtype=bool)
-    bad = np.concatenate(([0], np.cumsum(~mask)))
-    valid = (bad[rise_idx[1:] + 1] - bad[rise_idx[:-1]]) == 0
+    valid = count_in(~mask, rise_idx[:-1], rise_idx[1:] + 1) == 0
     for a, b in pauses:
         valid &= ~((rises[:-1] < b) & (rises[1:] > a))
     return np.diff(rises)[valid], valid

@@ -214,3 +214,22 @@ def test_clip_equals_numpy_clip(value: float) -> None:
     got = clip(value, 0.0, 1.0)
     assert type(got) is float
     assert got == ref or (np.isnan(ref) and np.isnan(got))
+
+
+@pytest.mark.parametrize("share", [0.0, 0.01, 0.5, 1.0])
+def test_count_in_is_the_running_count_difference(share: float) -> None:
+    from features._numeric import count_in
+
+    # Reference: the definition, numpy's running count with a leading 0 read at the
+    # span ends; integers, so equal exactly. Spans at the ends, empty and reversed too.
+    rng = np.random.default_rng(int(share * 100))
+    flags = rng.random(5000) < share
+    c = np.concatenate(([0], np.cumsum(flags)))
+    lo = rng.integers(0, flags.size + 1, 300)
+    hi = np.clip(lo + rng.integers(-3, 400, 300), 0, flags.size)
+    lo[:3], hi[:3] = (0, 0, flags.size), (flags.size, 0, flags.size)
+    assert np.array_equal(count_in(flags, lo, hi), c[hi] - c[lo])
+    # the running count itself, at each index inclusive: spans from 0 to index + 1
+    at = rng.integers(0, flags.size, 50)
+    assert np.array_equal(count_in(flags, 0, at + 1), np.cumsum(flags)[at])
+    assert count_in(np.zeros(0, dtype=bool), [0], [0]).tolist() == [0]
