@@ -306,7 +306,7 @@ def _dfa_alpha(
 def _line_slope(x: NDArray[np.float64], y: NDArray[np.float64]) -> float:
     """Least-squares slope of ``y`` on ``x``: ``numpy.polyfit(x, y, 1)[0]`` to rounding, in
     closed form (``sum (x - mean x)(y - mean y) / sum (x - mean x)^2``) rather than
-    polyfit's scaled SVD solve, some 40 us a call for a dozen points."""
+    polyfit's scaled SVD solve (numpy 2.4, 13 points: 3.8 against 12.6 us)."""
     xc = x - mean(x)
     return float(xc @ (y - mean(y)) / (xc @ xc))
 
