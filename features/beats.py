@@ -1040,10 +1040,19 @@ class _Matcher:
         self.n = comp.size
         self.comp = comp
         self.spectra = BlockSpectra(comp, max_len)
+        # Both running sums in one pass, as the real and imaginary parts of one complex
+        # running sum: each part is added as its own float, so the same numbers as two
+        # cumsums, and numpy's running sum, one element after another, waits on each
+        # addition's latency where the complex one carries two additions per step
+        # (numpy 2.4, 37 500 samples: 151 against 227 us with the copies).
+        both = np.empty(self.n, dtype=np.complex128)
+        both.real = comp
+        np.square(comp, out=both.imag)
+        np.cumsum(both, out=both)
         self.c1 = np.zeros(self.n + 1)
         self.c2 = np.zeros(self.n + 1)
-        np.cumsum(comp, out=self.c1[1:])
-        np.cumsum(np.square(comp), out=self.c2[1:])
+        self.c1[1:] = both.real
+        self.c2[1:] = both.imag
         self._spread: dict[tuple[int, int], NDArray[np.float64]] = {}
 
     def spread(self, centre: int, m: int) -> NDArray[np.float64]:

@@ -443,3 +443,15 @@ def test_match_at_chosen_samples_is_the_full_match_read_there(sign: int) -> None
     np.testing.assert_allclose(_match_at(matcher, sign, template, 19, at), full[at],
                                rtol=0, atol=1e-12)
     assert _match_at(matcher, sign, template, 19, np.array([5100]))[0] == 0.0
+
+
+def test_matcher_running_sums_are_numpys_cumsums_to_the_bit() -> None:
+    from features.beats import _Matcher
+
+    # The two running sums (of the component and of its square) are taken as one complex
+    # running sum; each part is added as a float of its own, so the numbers are those of
+    # numpy.cumsum of each, exactly (checked on this machine's numpy).
+    comp = np.random.default_rng(4).standard_normal(20_001) * 3.0
+    m = _Matcher(comp, 101)
+    assert np.array_equal(m.c1, np.concatenate(([0.0], np.cumsum(comp))))
+    assert np.array_equal(m.c2, np.concatenate(([0.0], np.cumsum(np.square(comp)))))
