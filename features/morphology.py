@@ -681,7 +681,7 @@ def _locate_waves(
             values = signal.peak_prominences(sign * located, [found[n][0] for n in names])[0]
             proms.update(zip(names, (float(v) for v in values), strict=True))
     for (name, _), sd in zip(present, sds_ms, strict=True):
-        i, t_s, value = found[name]
+        _, t_s, value = found[name]
         prom = proms[name]
         sd_ms = float(sd)
         snr = prom / noise if noise > 0 else np.inf
