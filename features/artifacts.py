@@ -18,7 +18,16 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from features._checks import check_sampling_rate, check_trace
-from features._numeric import MAD_TO_SD, lane_median, median_1d, robust_sd, runs, std, windows
+from features._numeric import (
+    MAD_TO_SD,
+    count_in,
+    lane_median,
+    median_1d,
+    robust_sd,
+    runs,
+    std,
+    windows,
+)
 from features.errors import InvalidInputError
 from features.filters import FloatArray, block_factor, block_means, highpass
 from features.gaps import GAP_PAD_S
@@ -234,8 +243,8 @@ def mask_artifacts(fused: ArrayLike, fs_hz: float, *, load_n: ArrayLike | None =
     sources: list[NDArray[np.generic]] = list(raws) if raws is not None else [x]
     if raws is None:
         flags.append("clipping_and_flat_checked_on_fused")
-    spans += _flat_and_clipping(sources, fs, min_flat, flags,
-                                ranges if raws is not None else [None])
+    # ranges is empty where the fused trace stands in for the raw channels
+    spans += _flat_and_clipping(sources, fs, min_flat, flags, ranges)
     if load is not None:
         spans += _empty_support(load, load_factor, occupant_kg * STANDARD_GRAVITY_M_S2,
                                 int(round(pad * fs)), n)
@@ -348,9 +357,10 @@ def _outside_gaps(spans: list[tuple[str, int, int]], gaps: list[tuple[str, int, 
     for _, a, b in gaps:
         inside[a] += 1
         inside[b] -= 1
-    covered = np.concatenate(([0], np.cumsum(np.cumsum(inside)[:n] > 0)))
-    return [(k, a, b) for k, a, b in spans
-            if k == "gap" or covered[b] - covered[a] < b - a]
+    covered = count_in(np.cumsum(inside)[:n] > 0, [a for _, a, _ in spans],
+                       [b for _, _, b in spans])
+    return [(k, a, b) for (k, a, b), c in zip(spans, covered, strict=True)
+            if k == "gap" or c < b - a]
 
 
 def _positive(field: str, value: object, *, allow_zero: bool = False) -> float:
