@@ -372,3 +372,23 @@ def test_known_raw_ranges_give_the_mask_the_ranges_would_be_read_for() -> None:
     with pytest.raises(InvalidInputError, match=r"raw_signals\[1\]"):
         mask_artifacts(fused, FS, raw_signals=bad,
                        raw_ranges=[(float(b.min()), float(b.max())) for b in bad])
+
+
+def test_segments_wholly_inside_a_gap_are_dropped_and_the_rest_kept() -> None:
+    from features.artifacts import _outside_gaps
+
+    # Reference: the definition, a span goes when every one of its samples lies in a gap
+    # (counted directly per span), gaps themselves stay; overlapping gaps and spans that
+    # straddle a gap's edge included.
+    n = 5000
+    rng = np.random.default_rng(9)
+    gaps = [("gap", 100, 300), ("gap", 250, 400), ("gap", 4000, 4100)]
+    spans = gaps + [("flat_line", int(a), int(a + w))
+                    for a, w in zip(rng.integers(0, 4800, 300), rng.integers(1, 200, 300),
+                                    strict=True)]
+    in_gap = np.zeros(n, dtype=bool)
+    for _, a, b in gaps:
+        in_gap[a:b] = True
+    want = [s for s in spans if s[0] == "gap" or not in_gap[s[1]:s[2]].all()]
+    got = _outside_gaps(spans, gaps, n)
+    assert got == want and len(want) < len(spans)
